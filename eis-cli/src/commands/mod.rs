@@ -1,0 +1,4 @@
+//! One module per subcommand: arguments (clap) and a `run` that calls the library.
+
+pub mod inspect;
+pub mod simulate;

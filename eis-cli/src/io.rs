@@ -1,0 +1,121 @@
+//! Files: loading models, atomic writes that never touch an input, and the failure type that maps to
+//! exit codes.
+
+use anyhow::Context;
+use eis_core::Circuit;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+/// Why a command stopped; decides the exit status.
+#[derive(Debug)]
+pub enum Failure {
+    /// Bad input or usage: exit status 2.
+    BadInput(anyhow::Error),
+    /// A computation failed or a result is not to be trusted: exit status 1.
+    Failed(anyhow::Error),
+}
+
+impl Failure {
+    /// Prints the error to stderr and returns the exit code.
+    pub fn report(self) -> ExitCode {
+        let (err, code) = match self {
+            Failure::BadInput(e) => (e, 2),
+            Failure::Failed(e) => (e, 1),
+        };
+        eprintln!("error: {err:#}");
+        ExitCode::from(code)
+    }
+}
+
+/// Shorthand for a bad-input failure.
+pub fn bad(e: impl Into<anyhow::Error>) -> Failure {
+    Failure::BadInput(e.into())
+}
+
+/// Result of a command.
+pub type Outcome = Result<ExitCode, Failure>;
+
+/// A model argument: a circuit file path if such a file exists (or the text ends in `.circ`), else an
+/// inline expression.
+pub fn load_model(arg: &str) -> Result<Circuit, Failure> {
+    let path = Path::new(arg);
+    if path.is_file() || arg.ends_with(".circ") {
+        let text = std::fs::read_to_string(path)
+            .with_context(|| format!("cannot read circuit file {}", path.display()))
+            .map_err(Failure::BadInput)?;
+        eis_core::circuit::parse(&text)
+            .map_err(|e| bad(anyhow::anyhow!("{}", e.with_origin(path.display().to_string()))))
+    } else {
+        eis_core::circuit::parse(arg).map_err(|e| bad(anyhow::anyhow!("{e}")))
+    }
+}
+
+/// Applies `--set`, `--fix` and `--bound` style overrides, each written `NAME=...`.
+pub fn apply_overrides<'a>(
+    circuit: &mut Circuit,
+    args: impl IntoIterator<Item = &'a str>,
+) -> Result<(), Failure> {
+    for a in args {
+        circuit
+            .apply_override(a)
+            .map_err(|e| bad(anyhow::anyhow!("in option value `{a}`:\n{e}")))?;
+    }
+    Ok(())
+}
+
+/// Writes `bytes` to `path` atomically: a temporary file in the same folder, flushed, then renamed over
+/// the target, so a reader sees the old or the new file, never half of one. Refuses to write over any
+/// of `inputs`.
+pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[PathBuf]) -> Result<(), Failure> {
+    for input in inputs {
+        if same_file(path, input) {
+            return Err(bad(anyhow::anyhow!(
+                "refusing to write {}: it is an input file",
+                path.display()
+            )));
+        }
+    }
+    let dir = path
+        .parent()
+        .filter(|d| !d.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    let name = path
+        .file_name()
+        .ok_or_else(|| bad(anyhow::anyhow!("{} is not a file path", path.display())))?;
+    let tmp = dir.join(format!(
+        ".{}.tmp{}",
+        name.to_string_lossy(),
+        std::process::id()
+    ));
+    let result = (|| -> std::io::Result<()> {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    result.map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        Failure::Failed(anyhow::anyhow!("cannot write {}: {e}", path.display()))
+    })
+}
+
+fn same_file(a: &Path, b: &Path) -> bool {
+    match (a.canonicalize(), b.canonicalize()) {
+        (Ok(x), Ok(y)) => x == y,
+        _ => false,
+    }
+}
+
+/// Writes to `path`, or to stdout when `path` is `None` or `-`.
+pub fn write_output(path: Option<&Path>, text: &str, inputs: &[PathBuf]) -> Result<(), Failure> {
+    match path {
+        Some(p) if p != Path::new("-") => write_atomic(p, text.as_bytes(), inputs),
+        _ => {
+            let mut out = std::io::stdout().lock();
+            out.write_all(text.as_bytes())
+                .and_then(|_| out.flush())
+                .map_err(|e| Failure::Failed(anyhow::anyhow!("cannot write to stdout: {e}")))
+        }
+    }
+}
