@@ -119,3 +119,45 @@ pub fn write_output(path: Option<&Path>, text: &str, inputs: &[PathBuf]) -> Resu
         }
     }
 }
+
+#[allow(dead_code)] // used by the commands that read spectra
+/// Reads the spectra of one input file. For now: the canonical CSV that `eis simulate` writes (the
+/// generic reader of potentiostat exports replaces this).
+pub fn read_spectra(path: &Path) -> Result<Vec<eis_core::Spectrum>, Failure> {
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| bad(anyhow::anyhow!("cannot read {}: {e}", path.display())))?;
+    let mut lines = text.lines();
+    if lines.next().map(str::trim) != Some(eis_core::spectrum::CANONICAL_HEADER) {
+        return Err(bad(anyhow::anyhow!(
+            "{}, line 1: expected the header `{}`",
+            path.display(),
+            eis_core::spectrum::CANONICAL_HEADER
+        )));
+    }
+    let mut f = Vec::new();
+    let mut z = Vec::new();
+    for (n, line) in lines.enumerate() {
+        if line.trim().is_empty() {
+            continue;
+        }
+        let mut vals = [0.0; 3];
+        let mut fields = line.split(',');
+        for (col, v) in vals.iter_mut().enumerate() {
+            let cell = fields.next().unwrap_or("").trim();
+            *v = cell.parse().map_err(|_| {
+                bad(anyhow::anyhow!(
+                    "{}, line {}, column {}: `{cell}` is not a number",
+                    path.display(),
+                    n + 2,
+                    col + 1
+                ))
+            })?;
+        }
+        f.push(vals[0]);
+        z.push(num_complex::Complex64::new(vals[1], vals[2]));
+    }
+    let mut s = eis_core::Spectrum::new(f, z);
+    s.meta.source = Some(path.display().to_string());
+    s.meta.spectrum = 1;
+    Ok(vec![s])
+}

@@ -1,1 +1,3 @@
-//! e2e
+//! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
+
+mod simulate;

@@ -1,1 +1,103 @@
-//! Shared helpers for the end-to-end tests.
+//! Shared helpers for the end-to-end tests: locating (and building once) the real `eis` binary, scratch
+//! directories, and a runner that shows stdout and stderr when an expectation fails.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+use std::sync::OnceLock;
+
+/// The workspace root.
+pub fn root() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .expect("tests/ sits in the workspace")
+        .to_path_buf()
+}
+
+/// Path of the `eis` binary, built once per test process with the cargo that runs the tests.
+pub fn eis_bin() -> &'static Path {
+    static BIN: OnceLock<PathBuf> = OnceLock::new();
+    BIN.get_or_init(|| {
+        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
+        let status = Command::new(cargo)
+            .args(["build", "--quiet", "-p", "eis-cli", "--bin", "eis"])
+            .current_dir(root())
+            .status()
+            .expect("run cargo build for the eis binary");
+        assert!(status.success(), "building the eis binary failed");
+        let target = std::env::var_os("CARGO_TARGET_DIR")
+            .map(PathBuf::from)
+            .unwrap_or_else(|| root().join("target"));
+        let bin = target.join("debug").join(format!("eis{}", std::env::consts::EXE_SUFFIX));
+        assert!(bin.is_file(), "no binary at {}", bin.display());
+        bin
+    })
+}
+
+/// A fresh scratch directory for one test, removed and re-created.
+pub fn scratch(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir()
+        .join(format!("eis-e2e-{}", std::process::id()))
+        .join(name);
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).expect("create scratch dir");
+    dir
+}
+
+/// The result of one run of `eis`.
+#[derive(Debug)]
+pub struct Run {
+    /// Exit status code (-1 if killed by a signal).
+    pub code: i32,
+    /// Standard output as text.
+    pub stdout: String,
+    /// Standard error as text.
+    pub stderr: String,
+}
+
+impl Run {
+    fn from(out: Output) -> Run {
+        Run {
+            code: out.status.code().unwrap_or(-1),
+            stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
+            stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
+        }
+    }
+
+    /// Asserts the exit status, showing both streams when it differs.
+    #[track_caller]
+    pub fn expect_code(self, code: i32) -> Run {
+        assert_eq!(
+            self.code, code,
+            "exit status {} (wanted {code})\n--- stdout ---\n{}\n--- stderr ---\n{}",
+            self.code, self.stdout, self.stderr
+        );
+        self
+    }
+}
+
+/// Runs `eis` with `args` in `dir`.
+pub fn eis(dir: &Path, args: &[&str]) -> Run {
+    let out = Command::new(eis_bin())
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .expect("start eis");
+    Run::from(out)
+}
+
+/// Reads a canonical spectrum CSV into (frequency, real, imaginary) rows.
+pub fn read_canonical(text: &str) -> Vec<(f64, f64, f64)> {
+    let mut lines = text.lines();
+    assert_eq!(
+        lines.next(),
+        Some("frequency_hz,z_real_ohm,z_imag_ohm"),
+        "canonical header"
+    );
+    lines
+        .map(|l| {
+            let v: Vec<f64> = l.split(',').map(|x| x.parse().expect("number")).collect();
+            assert_eq!(v.len(), 3, "three columns in {l:?}");
+            (v[0], v[1], v[2])
+        })
+        .collect()
+}
