@@ -45,7 +45,7 @@ pub enum CircuitErrorKind {
     },
     /// A property given twice: `R0{1, 2}`.
     Repeated(&'static str),
-    /// Lower bound above upper: `R0{10..1}`.
+    /// Lower bound not below the upper: `R0{10..1}`.
     InvertedBounds {
         /// Lower bound.
         lower: f64,
@@ -72,6 +72,8 @@ pub enum CircuitErrorKind {
     },
     /// An unclosed annotation: `R0{50`.
     UnclosedAnnotation,
+    /// Braces or a parameter line with nothing in them: `R0{}`.
+    EmptyAnnotation,
     /// A word that is not a number, a range or `fixed` inside an annotation: `R0{big}`.
     UnknownAnnotation(String),
     /// A parameter line or option naming no parameter of the circuit: `Rx = 5` in a file.
@@ -100,7 +102,10 @@ impl fmt::Display for CircuitErrorKind {
                 "unexpected `{c}`; expected an element, `(`, `+` (series) or `|` (parallel)"
             ),
             DanglingOperator(op) => {
-                write!(f, "`{op}` needs a circuit on both sides; expected an element or `(`")
+                write!(
+                    f,
+                    "`{op}` needs a circuit on both sides; expected an element or `(`"
+                )
             }
             DoubledOperator(a, b) => write!(
                 f,
@@ -110,9 +115,14 @@ impl fmt::Display for CircuitErrorKind {
             UnmatchedCloseParen => write!(f, "this `)` has no matching `(`"),
             EmptyGroup => write!(f, "empty parentheses; expected a circuit inside"),
             MissingOperator => {
-                write!(f, "expected `+` (series) or `|` (parallel) between these parts")
+                write!(
+                    f,
+                    "expected `+` (series) or `|` (parallel) between these parts"
+                )
             }
-            DuplicateName(name) => write!(f, "the name `{name}` is used twice; names must be unique"),
+            DuplicateName(name) => {
+                write!(f, "the name `{name}` is used twice; names must be unique")
+            }
             BadNumber(text) => write!(
                 f,
                 "`{text}` is not a number; expected e.g. `50`, `4.7u`, `2k`, `1e-3`"
@@ -134,7 +144,7 @@ impl fmt::Display for CircuitErrorKind {
             Repeated(what) => write!(f, "the {what} is given twice"),
             InvertedBounds { lower, upper } => write!(
                 f,
-                "lower bound {} is above upper bound {}",
+                "lower bound {} is not below upper bound {}",
                 crate::number::format_si(*lower),
                 crate::number::format_si(*upper)
             ),
@@ -159,6 +169,10 @@ impl fmt::Display for CircuitErrorKind {
                 crate::number::format_si(*value)
             ),
             UnclosedAnnotation => write!(f, "this `{{` is never closed; expected `}}`"),
+            EmptyAnnotation => write!(
+                f,
+                "empty annotation; expected a value, a range `lo..hi` or `fixed`"
+            ),
             UnknownAnnotation(word) => write!(
                 f,
                 "`{word}` is not an annotation; expected a value, a range `lo..hi` or `fixed`"
@@ -177,37 +191,61 @@ impl fmt::Display for CircuitErrorKind {
 
 /// An error in circuit text, with the text itself so it can be shown with a caret under the fault.
 #[derive(Debug, Clone, PartialEq)]
-pub struct CircuitError {
-    /// What went wrong.
-    pub kind: CircuitErrorKind,
-    /// Where, as a byte range into `text`.
-    pub span: Span,
-    /// The whole circuit text.
-    pub text: String,
-    /// Where the text came from (a file path), if not typed inline.
-    pub origin: Option<String>,
+pub struct CircuitError(Box<Inner>);
+
+#[derive(Debug, Clone, PartialEq)]
+struct Inner {
+    kind: CircuitErrorKind,
+    span: Span,
+    text: String,
+    origin: Option<String>,
 }
 
 impl CircuitError {
     pub(crate) fn new(kind: CircuitErrorKind, span: Span, text: &str) -> Self {
-        CircuitError {
+        CircuitError(Box::new(Inner {
             kind,
             span,
             text: text.to_owned(),
             origin: None,
-        }
+        }))
+    }
+
+    pub(crate) fn set_text(&mut self, text: &str) {
+        self.0.text = text.to_owned();
     }
 
     /// Names the file the text came from.
     pub fn with_origin(mut self, origin: impl Into<String>) -> Self {
-        self.origin = Some(origin.into());
+        self.0.origin = Some(origin.into());
         self
+    }
+
+    /// What went wrong.
+    pub fn kind(&self) -> &CircuitErrorKind {
+        &self.0.kind
+    }
+
+    /// Where, as a byte range into [`CircuitError::text`].
+    pub fn span(&self) -> Span {
+        self.0.span.clone()
+    }
+
+    /// The whole circuit text.
+    pub fn text(&self) -> &str {
+        &self.0.text
+    }
+
+    /// Where the text came from (a file path), if not typed inline.
+    pub fn origin(&self) -> Option<&str> {
+        self.0.origin.as_deref()
     }
 
     /// 1-based line and column (in characters) of the start of the span.
     pub fn line_col(&self) -> (usize, usize) {
-        let start = self.span.start.min(self.text.len());
-        let before = &self.text[..floor_char(&self.text, start)];
+        let text = &self.0.text;
+        let start = self.0.span.start.min(text.len());
+        let before = &text[..floor_char(text, start)];
         let line = before.matches('\n').count() + 1;
         let col = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
         (line, col)
@@ -232,20 +270,24 @@ impl fmt::Display for CircuitError {
     /// ```
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         let (line, col) = self.line_col();
-        writeln!(f, "circuit error: {}", self.kind)?;
-        match &self.origin {
+        let Inner {
+            kind,
+            span,
+            text,
+            origin,
+        } = &*self.0;
+        writeln!(f, "circuit error: {kind}")?;
+        match origin {
             Some(o) => writeln!(f, " --> {o}, line {line}, column {col}")?,
             None => writeln!(f, " --> line {line}, column {col}")?,
         }
-        let start = floor_char(&self.text, self.span.start.min(self.text.len()));
-        let line_start = self.text[..start].rfind('\n').map_or(0, |i| i + 1);
-        let line_end = self.text[start..]
-            .find('\n')
-            .map_or(self.text.len(), |i| start + i);
-        let shown = self.text[line_start..line_end].trim_end_matches('\r');
-        let end = floor_char(&self.text, self.span.end.clamp(start, line_end.max(start)));
-        let pad = self.text[line_start..start].chars().count();
-        let width = self.text[start..end].chars().count().max(1);
+        let start = floor_char(text, span.start.min(text.len()));
+        let line_start = text[..start].rfind('\n').map_or(0, |i| i + 1);
+        let line_end = text[start..].find('\n').map_or(text.len(), |i| start + i);
+        let shown = text[line_start..line_end].trim_end_matches('\r');
+        let end = floor_char(text, span.end.clamp(start, line_end.max(start)));
+        let pad = text[line_start..start].chars().count();
+        let width = text[start..end].chars().count().max(1);
         writeln!(f, "  | {shown}")?;
         write!(f, "  | {}{}", " ".repeat(pad), "^".repeat(width))
     }

@@ -53,7 +53,7 @@ pub fn parse(text: &str) -> Result<Circuit, CircuitError> {
     let masked = String::from_utf8(masked).expect("blanking whole characters keeps UTF-8");
     // Errors are built against the masked text and shown with the original.
     parse_masked(text, &masked, &lines).map_err(|mut e| {
-        e.text = text.to_owned();
+        e.set_text(text);
         e
     })
 }
@@ -532,7 +532,7 @@ fn parse_annotation(
     }
     if !any {
         return Err(CircuitError::new(
-            K::UnknownAnnotation(String::new()),
+            K::EmptyAnnotation,
             body.start.saturating_sub(1)..body.end + 1,
             text,
         ));
@@ -566,7 +566,7 @@ fn parse_param_line(
     let items = words(text, range.start + eq + 1..range.end);
     if items.is_empty() {
         return Err(CircuitError::new(
-            K::UnknownAnnotation(String::new()),
+            K::EmptyAnnotation,
             range.end..range.end,
             text,
         ));
@@ -711,18 +711,32 @@ pub(crate) fn closest<'a>(name: &str, candidates: impl Iterator<Item = &'a str>)
         .map(|(_, c)| c.to_owned())
 }
 
+/// Edit distance counting insertions, deletions, substitutions and swaps of neighbours as one edit
+/// (optimal string alignment), so `Rtc` is one edit from `Rct`.
 fn levenshtein(a: &str, b: &str) -> usize {
+    let a: Vec<char> = a.chars().collect();
     let b: Vec<char> = b.chars().collect();
-    let mut prev: Vec<usize> = (0..=b.len()).collect();
-    for (i, ca) in a.chars().enumerate() {
-        let mut cur = vec![i + 1; b.len() + 1];
-        for (j, cb) in b.iter().enumerate() {
-            let sub = prev[j] + usize::from(ca != *cb);
-            cur[j + 1] = sub.min(prev[j + 1] + 1).min(cur[j] + 1);
-        }
-        prev = cur;
+    let w = b.len() + 1;
+    let mut d = vec![0usize; (a.len() + 1) * w];
+    for i in 0..=a.len() {
+        d[i * w] = i;
     }
-    prev[b.len()]
+    for (j, slot) in d.iter_mut().enumerate().take(w) {
+        *slot = j;
+    }
+    for i in 1..=a.len() {
+        for j in 1..=b.len() {
+            let cost = usize::from(a[i - 1] != b[j - 1]);
+            let mut v = (d[(i - 1) * w + j] + 1)
+                .min(d[i * w + j - 1] + 1)
+                .min(d[(i - 1) * w + j - 1] + cost);
+            if i > 1 && j > 1 && a[i - 1] == b[j - 2] && a[i - 2] == b[j - 1] {
+                v = v.min(d[(i - 2) * w + j - 2] + 1);
+            }
+            d[i * w + j] = v;
+        }
+    }
+    d[a.len() * w + b.len()]
 }
 
 /// See [`Circuit::apply_override`].
@@ -758,7 +772,7 @@ pub(crate) fn apply_override(circuit: &mut Circuit, arg: &str) -> Result<(), Cir
         .collect();
     if items.is_empty() {
         return Err(CircuitError::new(
-            K::UnknownAnnotation(String::new()),
+            K::EmptyAnnotation,
             arg.len()..arg.len(),
             arg,
         ));
