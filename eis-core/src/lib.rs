@@ -29,6 +29,7 @@
 pub mod circuit;
 pub mod element;
 pub mod eval;
+pub mod fit;
 pub mod number;
 pub mod simulate;
 pub mod spectrum;

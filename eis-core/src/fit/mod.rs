@@ -1,0 +1,582 @@
+//! Weighted complex nonlinear least squares (CNLS) fitting of a circuit to a spectrum.
+//!
+//! # Method
+//!
+//! - Residuals: `w ∘ (Z_model − Z_data)`, real parts stacked over imaginary parts (2N residuals). The
+//!   weights are computed from the **data** (see [`Weighting`]); χ² is the sum of squared weighted
+//!   residuals.
+//! - Levenberg–Marquardt (the `levenberg-marquardt` crate, a port of MINPACK's `lmder`; Moré 1978,
+//!   Lecture Notes in Math. 630, 105) on internal coordinates that keep every bound: log for positive
+//!   quantities, a logistic map for bounded ones. The Jacobian comes from the compiled plan through the
+//!   chain rule of the transforms. A trial step that evaluates to non-finite numbers is rejected (large
+//!   residuals), never fatal.
+//! - Starting values: see [`start`](self) — a time-constant grid with resistances by non-negative least
+//!   squares for circuits of the usual battery blocks, the best distinct grid points as starts, then moves
+//!   that shift one arc elsewhere; a deterministic spread of starts otherwise. A warm start (a previous
+//!   result) is tried first when given.
+//! - Uncertainties: covariance `s²·(JᵀJ)⁻¹` with J the weighted Jacobian with respect to the parameters
+//!   at the optimum and `s² = χ²/(2N − P)` the reduced χ² (the covariance is always scaled by the
+//!   reduced χ², whatever the weighting). Standard errors are the square roots of its diagonal.
+//! - Model comparison: AIC = n·ln(χ²/n) + 2P and BIC = n·ln(χ²/n) + P·ln n with n = 2N residuals and P
+//!   free parameters (Akaike 1974; Schwarz 1978).
+//!
+//! ```
+//! use eis_core::{circuit::parse, fit::{fit, FitSettings}, simulate::simulate, eval::{Plan, log_frequencies}};
+//! let c = parse("R0 + Rct|Qdl").unwrap();
+//! let truth = [2.0, 40.0, 5e-5, 0.85];
+//! let data = simulate(&Plan::compile(&c), &truth, &log_frequencies(1e5, 1e-2, 10), None);
+//! let r = fit(&c, &data, &FitSettings::default(), None).unwrap();
+//! assert!(r.converged);
+//! for (got, want) in r.values.iter().zip(truth) {
+//!     assert!((got - want).abs() < 1e-6 * want);
+//! }
+//! ```
+
+mod problem;
+pub(crate) mod start;
+mod stats;
+
+use crate::circuit::Circuit;
+use crate::eval::Plan;
+use crate::spectrum::Spectrum;
+use levenberg_marquardt::{LevenbergMarquardt, TerminationReason};
+use num_complex::Complex64;
+use problem::{Problem, Transform};
+pub use stats::{Covariance, covariance, runs_test_z};
+
+/// How residuals are weighted. Weights are computed from the data values.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Weighting {
+    /// w′ = w″ = 1/|Z| (Boukamp 1986, Solid State Ionics 20, 31). The default.
+    #[default]
+    Modulus,
+    /// w′ = 1/|Z′|, w″ = 1/|Z″| (Macdonald & Garber 1977, J. Electrochem. Soc. 124, 1022). Each is
+    /// floored at 10⁻³·|Z| so that points where a part crosses zero do not get infinite weight.
+    Proportional,
+    /// w = 1.
+    Unit,
+    /// w = 1/σ from the spectrum's per-point standard deviations.
+    Sigma,
+}
+
+impl Weighting {
+    /// The word used on the command line and in outputs.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Weighting::Modulus => "modulus",
+            Weighting::Proportional => "proportional",
+            Weighting::Unit => "unit",
+            Weighting::Sigma => "sigma",
+        }
+    }
+}
+
+/// Settings of a fit. Build with [`FitSettings::default`] and the `with_*` setters.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FitSettings {
+    /// Residual weighting. Default: [`Weighting::Modulus`].
+    pub weighting: Weighting,
+    /// Number of grid starting points tried. Default 8.
+    pub starts: usize,
+    /// Relative tolerance on χ² and on the step (ftol, xtol, gtol of the solver) for each start.
+    /// Default 1e-10.
+    pub tolerance: f64,
+    /// Solver patience: at most `patience·(P + 1)` evaluations per start. Default 100.
+    pub patience: usize,
+    /// Try moving each arc to other time constants after the best start. Default true.
+    pub arc_moves: bool,
+}
+
+impl Default for FitSettings {
+    fn default() -> Self {
+        FitSettings {
+            weighting: Weighting::Modulus,
+            starts: 8,
+            tolerance: 1e-10,
+            patience: 100,
+            arc_moves: true,
+        }
+    }
+}
+
+impl FitSettings {
+    /// Sets the weighting.
+    pub fn with_weighting(mut self, w: Weighting) -> Self {
+        self.weighting = w;
+        self
+    }
+    /// Sets the number of grid starts (at least 1).
+    pub fn with_starts(mut self, n: usize) -> Self {
+        self.starts = n.max(1);
+        self
+    }
+    /// Sets the solver tolerance.
+    pub fn with_tolerance(mut self, t: f64) -> Self {
+        self.tolerance = t;
+        self
+    }
+    /// Sets the solver patience.
+    pub fn with_patience(mut self, p: usize) -> Self {
+        self.patience = p.max(1);
+        self
+    }
+    /// Enables or disables the arc moves.
+    pub fn with_arc_moves(mut self, on: bool) -> Self {
+        self.arc_moves = on;
+        self
+    }
+}
+
+/// Why a fit could not be attempted.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[non_exhaustive]
+pub enum FitError {
+    /// The spectrum holds no points.
+    #[error("the spectrum is empty")]
+    Empty,
+    /// Frequencies and impedances differ in number.
+    #[error("the spectrum has {frequencies} frequencies but {impedances} impedances")]
+    LengthMismatch {
+        /// Number of frequencies.
+        frequencies: usize,
+        /// Number of impedances.
+        impedances: usize,
+    },
+    /// A frequency or impedance is NaN, infinite, or a frequency is not positive.
+    #[error(
+        "point {index} (frequency {frequency} Hz) is not a finite value with positive frequency"
+    )]
+    BadPoint {
+        /// 0-based index of the point.
+        index: usize,
+        /// Its frequency.
+        frequency: f64,
+    },
+    /// Fewer residuals than free parameters plus one.
+    #[error(
+        "{points} points give {residuals} residuals, too few for {free} free parameters (need more than {free})"
+    )]
+    TooFewPoints {
+        /// Points in the spectrum.
+        points: usize,
+        /// 2 × points.
+        residuals: usize,
+        /// Free parameters.
+        free: usize,
+    },
+    /// Every parameter is fixed.
+    #[error("every parameter is fixed; nothing to fit")]
+    NothingFree,
+    /// A starting value lies outside its bounds.
+    #[error("starting value {value} of `{name}` lies outside its bounds {lower}..{upper}")]
+    StartOutsideBounds {
+        /// Parameter name.
+        name: String,
+        /// The value.
+        value: f64,
+        /// Lower bound.
+        lower: f64,
+        /// Upper bound.
+        upper: f64,
+    },
+    /// σ weighting without usable σ values.
+    #[error("sigma weighting needs a positive standard deviation at every point")]
+    MissingSigma,
+    /// A warm start of the wrong length.
+    #[error("the warm start has {got} values but the circuit has {want} parameters")]
+    WarmStartLength {
+        /// Values given.
+        got: usize,
+        /// Parameters of the circuit.
+        want: usize,
+    },
+}
+
+/// The outcome of a fit: parameters with uncertainties, statistics and warnings. "Did not converge" is
+/// reported here (`converged == false`, a warning), not as an error.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FitResult {
+    /// Values of every parameter, in circuit order (fixed ones at their fixed value).
+    pub values: Vec<f64>,
+    /// Standard errors (None for fixed parameters and for those the data cannot determine).
+    pub stderr: Vec<Option<f64>>,
+    /// Whether each parameter was fixed.
+    pub fixed: Vec<bool>,
+    /// Whether each free parameter ended on (or practically on) one of its bounds.
+    pub at_bound: Vec<bool>,
+    /// Indices of the free parameters; `correlation` and `covariance` are over these.
+    pub free: Vec<usize>,
+    /// Covariance matrix of the free parameters (row-major, free × free), scaled by the reduced χ².
+    pub covariance: Vec<f64>,
+    /// Correlation matrix of the free parameters (row-major, free × free).
+    pub correlation: Vec<f64>,
+    /// Sum of squared weighted residuals.
+    pub chi_square: f64,
+    /// χ²/(2N − P).
+    pub reduced_chi_square: f64,
+    /// Akaike information criterion, n·ln(χ²/n) + 2P with n = 2N.
+    pub aic: f64,
+    /// Bayesian information criterion, n·ln(χ²/n) + P·ln n.
+    pub bic: f64,
+    /// Number of points N.
+    pub points: usize,
+    /// Degrees of freedom 2N − P.
+    pub dof: usize,
+    /// Solver iterations (Jacobian evaluations) of the winning run, summed with its polish.
+    pub iterations: usize,
+    /// Residual evaluations over every start tried.
+    pub evaluations: usize,
+    /// Number of starting points tried.
+    pub starts_tried: usize,
+    /// Why the winning run stopped.
+    pub termination: String,
+    /// Whether the winning run met a convergence criterion.
+    pub converged: bool,
+    /// The model at each data point.
+    pub model: Vec<Complex64>,
+    /// Residuals relative to |Z_data|: (Z_model − Z_data)/|Z_data|.
+    pub relative_residuals: Vec<Complex64>,
+    /// Weighting used.
+    pub weighting: Weighting,
+    /// Warnings in plain words.
+    pub warnings: Vec<String>,
+}
+
+impl FitResult {
+    /// The value of parameter `name` in `circuit`.
+    pub fn value(&self, circuit: &Circuit, name: &str) -> Option<f64> {
+        circuit.param_index(name).map(|i| self.values[i])
+    }
+
+    /// Relative standard error of parameter `i` (None where the SE is unknown).
+    pub fn relative_error(&self, i: usize) -> Option<f64> {
+        self.stderr[i].map(|s| s / self.values[i].abs())
+    }
+
+    /// Covariance between parameters `i` and `j` (circuit indices); 0 if either is fixed.
+    pub fn covariance_of(&self, i: usize, j: usize) -> f64 {
+        let (Some(a), Some(b)) = (
+            self.free.iter().position(|&k| k == i),
+            self.free.iter().position(|&k| k == j),
+        ) else {
+            return 0.0;
+        };
+        self.covariance[a * self.free.len() + b]
+    }
+}
+
+/// Prepared data of one fit: angular frequencies, data and weights.
+struct Prepared {
+    omegas: Vec<f64>,
+    data: Vec<Complex64>,
+    w_re: Vec<f64>,
+    w_im: Vec<f64>,
+}
+
+fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitError> {
+    let n = spectrum.frequency_hz.len();
+    if n == 0 {
+        return Err(FitError::Empty);
+    }
+    if spectrum.z.len() != n {
+        return Err(FitError::LengthMismatch {
+            frequencies: n,
+            impedances: spectrum.z.len(),
+        });
+    }
+    for (i, (&f, z)) in spectrum.frequency_hz.iter().zip(&spectrum.z).enumerate() {
+        if !(f.is_finite() && f > 0.0 && z.re.is_finite() && z.im.is_finite()) || z.norm() == 0.0 {
+            return Err(FitError::BadPoint {
+                index: i,
+                frequency: f,
+            });
+        }
+    }
+    let (w_re, w_im): (Vec<f64>, Vec<f64>) = match weighting {
+        Weighting::Modulus => spectrum
+            .z
+            .iter()
+            .map(|z| (1.0 / z.norm(), 1.0 / z.norm()))
+            .unzip(),
+        Weighting::Proportional => spectrum
+            .z
+            .iter()
+            .map(|z| {
+                let floor = 1e-3 * z.norm();
+                (1.0 / z.re.abs().max(floor), 1.0 / z.im.abs().max(floor))
+            })
+            .unzip(),
+        Weighting::Unit => (vec![1.0; n], vec![1.0; n]),
+        Weighting::Sigma => {
+            let s = spectrum.sigma.as_ref().ok_or(FitError::MissingSigma)?;
+            if s.len() != n || s.iter().any(|&v| !(v.is_finite() && v > 0.0)) {
+                return Err(FitError::MissingSigma);
+            }
+            s.iter().map(|&v| (1.0 / v, 1.0 / v)).unzip()
+        }
+    };
+    Ok(Prepared {
+        omegas: spectrum.omegas(),
+        data: spectrum.z.clone(),
+        w_re,
+        w_im,
+    })
+}
+
+/// One Levenberg–Marquardt run from `start`.
+struct Run {
+    params: Vec<f64>,
+    chi_square: f64,
+    iterations: usize,
+    evaluations: usize,
+    termination: TerminationReason,
+}
+
+fn run_lm(
+    plan: &Plan,
+    prep: &Prepared,
+    free: &[usize],
+    transforms: &[Transform],
+    start: &[f64],
+    tolerance: f64,
+    patience: usize,
+) -> Run {
+    let problem = Problem::new(
+        plan,
+        &prep.omegas,
+        &prep.data,
+        &prep.w_re,
+        &prep.w_im,
+        start.to_vec(),
+        free,
+        transforms,
+    );
+    let (problem, report) = LevenbergMarquardt::new()
+        .with_ftol(tolerance)
+        .with_xtol(tolerance)
+        .with_gtol(tolerance)
+        .with_patience(patience)
+        .minimize(problem);
+    let chi = if problem.is_finite() {
+        problem.chi_square()
+    } else {
+        f64::INFINITY
+    };
+    Run {
+        chi_square: chi,
+        iterations: problem.jacobian_calls.get().max(1),
+        evaluations: report.number_of_evaluations,
+        params: problem.params.clone(),
+        termination: report.termination,
+    }
+}
+
+/// Fits `circuit` to `spectrum`.
+///
+/// Starting points: `warm` (a previous result's values, e.g. the neighbouring spectrum of the same cell)
+/// is tried first; if that run converges with no warning sign it is taken as it is. Otherwise the
+/// circuit's own initial values (when every free parameter has one) and the automatic starts are tried
+/// as well, and the lowest χ² wins.
+///
+/// # Errors
+///
+/// [`FitError`] for input that cannot be fitted at all: an empty spectrum, non-finite values, fewer
+/// residuals than free parameters, nothing free, a start outside the bounds, σ weighting without σ.
+pub fn fit(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    warm: Option<&[f64]>,
+) -> Result<FitResult, FitError> {
+    let prep = prepare(spectrum, settings.weighting)?;
+    let plan = Plan::compile(circuit);
+    let np = circuit.params.len();
+    let fixed: Vec<bool> = circuit.params.iter().map(|p| p.fixed).collect();
+    let free: Vec<usize> = (0..np).filter(|&i| !fixed[i]).collect();
+    if free.is_empty() {
+        return Err(FitError::NothingFree);
+    }
+    let n = prep.omegas.len();
+    if 2 * n <= free.len() {
+        return Err(FitError::TooFewPoints {
+            points: n,
+            residuals: 2 * n,
+            free: free.len(),
+        });
+    }
+    let base = circuit.default_values();
+    for (i, &v) in base.iter().enumerate() {
+        let (lo, hi) = circuit.bounds(i);
+        if !(v >= lo && v <= hi) {
+            return Err(FitError::StartOutsideBounds {
+                name: circuit.params[i].name.clone(),
+                value: v,
+                lower: lo,
+                upper: hi,
+            });
+        }
+    }
+    let transforms = start::transforms(circuit, &free);
+    let ctx = start::Context {
+        circuit,
+        omegas: &prep.omegas,
+        data: &prep.data,
+        w_re: &prep.w_re,
+        w_im: &prep.w_im,
+        base: &base,
+        fixed: &fixed,
+    };
+    let lm = |s: &[f64]| {
+        run_lm(
+            &plan,
+            &prep,
+            &free,
+            &transforms,
+            s,
+            settings.tolerance,
+            settings.patience,
+        )
+    };
+
+    let mut evaluations = 0;
+    let mut tried = 0;
+    let mut best: Option<Run> = None;
+    let consider =
+        |run: Run, best: &mut Option<Run>, evaluations: &mut usize, tried: &mut usize| {
+            *evaluations += run.evaluations;
+            *tried += 1;
+            if best.as_ref().is_none_or(|b| run.chi_square < b.chi_square) {
+                *best = Some(run);
+            }
+        };
+
+    if let Some(w) = warm {
+        if w.len() != np {
+            return Err(FitError::WarmStartLength {
+                got: w.len(),
+                want: np,
+            });
+        }
+        let mut s = base.clone();
+        for &i in &free {
+            s[i] = w[i];
+            let (lo, hi) = circuit.bounds(i);
+            if !(s[i] > lo && s[i] < hi && s[i].is_finite()) {
+                s[i] = base[i];
+            }
+        }
+        let run = lm(&s);
+        consider(run, &mut best, &mut evaluations, &mut tried);
+        let b = best.as_ref().expect("just set");
+        if b.termination.was_successful() {
+            let result = finish(
+                circuit,
+                &plan,
+                &prep,
+                &free,
+                &transforms,
+                b,
+                settings,
+                evaluations,
+                tried,
+            );
+            if result.warnings.is_empty() {
+                return Ok(result);
+            }
+        }
+    }
+
+    if circuit
+        .params
+        .iter()
+        .all(|p| p.fixed || p.initial.is_some())
+    {
+        consider(lm(&base), &mut best, &mut evaluations, &mut tried);
+    }
+    let terms = start::recognise(circuit);
+    let starts = match &terms {
+        Some(t) => start::grid_starts(&ctx, t, settings.starts),
+        None => start::spread_starts(&ctx, 2 * settings.starts),
+    };
+    for s in &starts {
+        consider(lm(s), &mut best, &mut evaluations, &mut tried);
+    }
+    if settings.arc_moves {
+        if let (Some(t), Some(b)) = (&terms, &best) {
+            let moves = start::arc_moves(&ctx, t, &b.params);
+            for s in &moves {
+                consider(lm(s), &mut best, &mut evaluations, &mut tried);
+            }
+        }
+    }
+    let mut b = best.expect("at least one start was tried");
+    if let Some(t) = &terms {
+        start::order_identical_arcs(&ctx, t, &mut b.params);
+    }
+    // Polish the winner with tight tolerances so that noise-free data are met to round-off.
+    let polish = run_lm(
+        &plan,
+        &prep,
+        &free,
+        &transforms,
+        &b.params,
+        1e-15,
+        settings.patience,
+    );
+    evaluations += polish.evaluations;
+    if polish.chi_square <= b.chi_square {
+        let iterations = b.iterations + polish.iterations;
+        b = Run {
+            iterations,
+            ..polish
+        };
+    }
+    Ok(finish(
+        circuit,
+        &plan,
+        &prep,
+        &free,
+        &transforms,
+        &b,
+        settings,
+        evaluations,
+        tried,
+    ))
+}
+
+#[allow(clippy::too_many_arguments)]
+fn finish(
+    circuit: &Circuit,
+    plan: &Plan,
+    prep: &Prepared,
+    free: &[usize],
+    transforms: &[Transform],
+    run: &Run,
+    settings: &FitSettings,
+    evaluations: usize,
+    tried: usize,
+) -> FitResult {
+    let problem = Problem::new(
+        plan,
+        &prep.omegas,
+        &prep.data,
+        &prep.w_re,
+        &prep.w_im,
+        run.params.clone(),
+        free,
+        transforms,
+    );
+    stats::summarise(stats::Summary {
+        circuit,
+        problem: &problem,
+        prep_data: &prep.data,
+        free,
+        transforms,
+        run_iterations: run.iterations,
+        evaluations,
+        tried,
+        termination: &run.termination,
+        weighting: settings.weighting,
+    })
+}

@@ -1,0 +1,309 @@
+//! The weighted complex least-squares problem handed to Levenberg–Marquardt, in transformed parameters
+//! that keep every bound.
+
+use crate::eval::{Plan, Workspace};
+use levenberg_marquardt::LeastSquaresProblem;
+use nalgebra::{DMatrix, DVector, Dyn, Owned};
+use num_complex::Complex64;
+
+/// How a free parameter p is mapped to an unbounded internal coordinate x.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) enum Transform {
+    /// p = exp(x): positive, unbounded above.
+    Log,
+    /// p = lo + exp(x): above a positive lower bound.
+    LogShift { lo: f64 },
+    /// ln p = ln lo + (ln hi − ln lo)·σ(x): positive with both bounds, spread over decades.
+    LogLogistic { ln_lo: f64, ln_hi: f64 },
+    /// p = lo + (hi − lo)·σ(x): bounded, may reach zero (CPE exponents).
+    Logistic { lo: f64, hi: f64 },
+    /// p = hi·σ(x): positive with only an upper bound.
+    UpperLogistic { hi: f64 },
+}
+
+/// Internal coordinates are clamped to this magnitude so exp and σ never overflow.
+const X_LIMIT: f64 = 600.0;
+
+fn sigmoid(x: f64) -> f64 {
+    1.0 / (1.0 + (-x).exp())
+}
+
+/// ln(s/(1−s)), with s pulled strictly inside (0, 1).
+fn logit(s: f64) -> f64 {
+    let s = s.clamp(1e-15, 1.0 - 1e-15);
+    (s / (1.0 - s)).ln()
+}
+
+impl Transform {
+    /// Chooses the transform for bounds (lo, hi) of a parameter whose domain is positive (`positive`)
+    /// or an interval.
+    pub(crate) fn for_bounds(lo: f64, hi: f64, positive: bool) -> Transform {
+        match (lo > 0.0, hi.is_finite()) {
+            (true, true) if positive => Transform::LogLogistic {
+                ln_lo: lo.ln(),
+                ln_hi: hi.ln(),
+            },
+            (_, true) if positive && lo == 0.0 => Transform::UpperLogistic { hi },
+            (_, true) => Transform::Logistic { lo, hi },
+            (true, false) => Transform::LogShift { lo },
+            (false, false) => Transform::Log,
+        }
+    }
+
+    /// p(x).
+    pub(crate) fn to_param(self, x: f64) -> f64 {
+        let x = x.clamp(-X_LIMIT, X_LIMIT);
+        match self {
+            Transform::Log => x.exp(),
+            Transform::LogShift { lo } => lo + x.exp(),
+            Transform::LogLogistic { ln_lo, ln_hi } => (ln_lo + (ln_hi - ln_lo) * sigmoid(x)).exp(),
+            Transform::Logistic { lo, hi } => lo + (hi - lo) * sigmoid(x),
+            Transform::UpperLogistic { hi } => hi * sigmoid(x),
+        }
+    }
+
+    /// dp/dx at x.
+    pub(crate) fn derivative(self, x: f64) -> f64 {
+        if x.abs() > X_LIMIT {
+            return 0.0;
+        }
+        match self {
+            Transform::Log => x.exp(),
+            Transform::LogShift { .. } => x.exp(),
+            Transform::LogLogistic { ln_lo, ln_hi } => {
+                let s = sigmoid(x);
+                self.to_param(x) * (ln_hi - ln_lo) * s * (1.0 - s)
+            }
+            Transform::Logistic { lo, hi } => {
+                let s = sigmoid(x);
+                (hi - lo) * s * (1.0 - s)
+            }
+            Transform::UpperLogistic { hi } => {
+                let s = sigmoid(x);
+                hi * s * (1.0 - s)
+            }
+        }
+    }
+
+    /// x(p), for p inside the bounds (values on a bound are moved just inside).
+    pub(crate) fn to_internal(self, p: f64) -> f64 {
+        match self {
+            Transform::Log => p.max(f64::MIN_POSITIVE).ln(),
+            Transform::LogShift { lo } => (p - lo).max(lo * 1e-12).ln(),
+            Transform::LogLogistic { ln_lo, ln_hi } => logit((p.ln() - ln_lo) / (ln_hi - ln_lo)),
+            Transform::Logistic { lo, hi } => logit((p - lo) / (hi - lo)),
+            Transform::UpperLogistic { hi } => logit(p / hi),
+        }
+    }
+
+    /// Whether x sits so far out that p is on its bound for practical purposes.
+    pub(crate) fn at_bound(self, x: f64) -> bool {
+        match self {
+            Transform::Log => false,
+            Transform::LogShift { .. } => x < -25.0,
+            _ => x.abs() > 14.0,
+        }
+    }
+}
+
+/// Residuals r = w ∘ (Z_model − Z_data), real parts then imaginary parts, and their Jacobian with respect
+/// to the internal coordinates of the free parameters.
+pub(crate) struct Problem<'a> {
+    pub plan: &'a Plan,
+    pub omegas: &'a [f64],
+    pub data: &'a [Complex64],
+    /// Weight (square root of the statistical weight) of the real and imaginary residual at each point.
+    pub w_re: &'a [f64],
+    pub w_im: &'a [f64],
+    /// Full parameter vector; the free entries are overwritten from x.
+    pub params: Vec<f64>,
+    pub free: &'a [usize],
+    pub transforms: &'a [Transform],
+    x: DVector<f64>,
+    z: Vec<Complex64>,
+    jac: Vec<Complex64>,
+    ws: Workspace,
+    residuals: DVector<f64>,
+    ok: bool,
+    pub jacobian_calls: std::cell::Cell<usize>,
+}
+
+/// Residual used in place of a non-finite one, so that a bad trial step is rejected, not fatal.
+const PENALTY: f64 = 1e10;
+
+impl<'a> Problem<'a> {
+    #[allow(clippy::too_many_arguments)]
+    pub(crate) fn new(
+        plan: &'a Plan,
+        omegas: &'a [f64],
+        data: &'a [Complex64],
+        w_re: &'a [f64],
+        w_im: &'a [f64],
+        params: Vec<f64>,
+        free: &'a [usize],
+        transforms: &'a [Transform],
+    ) -> Problem<'a> {
+        let n = omegas.len();
+        let x = DVector::from_iterator(
+            free.len(),
+            free.iter()
+                .zip(transforms)
+                .map(|(&i, t)| t.to_internal(params[i])),
+        );
+        let mut p = Problem {
+            plan,
+            omegas,
+            data,
+            w_re,
+            w_im,
+            params,
+            free,
+            transforms,
+            x: x.clone(),
+            z: vec![Complex64::new(0.0, 0.0); n],
+            jac: vec![Complex64::new(0.0, 0.0); n * plan.n_params()],
+            ws: plan.workspace(),
+            residuals: DVector::zeros(2 * n),
+            ok: false,
+            jacobian_calls: std::cell::Cell::new(0),
+        };
+        p.set_params(&x);
+        p
+    }
+
+    /// Internal coordinates of the current point.
+    pub(crate) fn params_internal(&self) -> &DVector<f64> {
+        &self.x
+    }
+
+    /// Sum of squared residuals at the current point.
+    pub(crate) fn chi_square(&self) -> f64 {
+        self.residuals.norm_squared()
+    }
+
+    /// The model impedance at the current point.
+    pub(crate) fn model(&self) -> &[Complex64] {
+        &self.z
+    }
+
+    /// Whether the current point evaluated to finite numbers.
+    pub(crate) fn is_finite(&self) -> bool {
+        self.ok
+    }
+
+    /// Jacobian of the residuals with respect to the free parameters themselves (not x), for the
+    /// covariance.
+    pub(crate) fn jacobian_in_params(&self) -> DMatrix<f64> {
+        let n = self.omegas.len();
+        let np = self.plan.n_params();
+        let mut j = DMatrix::zeros(2 * n, self.free.len());
+        for (c, &k) in self.free.iter().enumerate() {
+            for i in 0..n {
+                let d = self.jac[i * np + k];
+                j[(i, c)] = self.w_re[i] * d.re;
+                j[(n + i, c)] = self.w_im[i] * d.im;
+            }
+        }
+        j
+    }
+}
+
+impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
+    type ResidualStorage = Owned<f64, Dyn>;
+    type JacobianStorage = Owned<f64, Dyn, Dyn>;
+    type ParameterStorage = Owned<f64, Dyn>;
+
+    fn set_params(&mut self, x: &DVector<f64>) {
+        self.x.copy_from(x);
+        for ((&i, t), &xi) in self.free.iter().zip(self.transforms).zip(x.iter()) {
+            self.params[i] = t.to_param(xi);
+        }
+        self.plan.eval(
+            &self.params,
+            self.omegas,
+            &mut self.z,
+            Some(&mut self.jac),
+            &mut self.ws,
+        );
+        let n = self.omegas.len();
+        let mut ok = true;
+        for i in 0..n {
+            let d = self.z[i] - self.data[i];
+            let (a, b) = (self.w_re[i] * d.re, self.w_im[i] * d.im);
+            ok &= a.is_finite() && b.is_finite();
+            self.residuals[i] = a;
+            self.residuals[n + i] = b;
+        }
+        if !ok {
+            self.residuals.fill(PENALTY);
+        }
+        self.ok = ok;
+    }
+
+    fn params(&self) -> DVector<f64> {
+        self.x.clone()
+    }
+
+    fn residuals(&self) -> Option<DVector<f64>> {
+        Some(self.residuals.clone())
+    }
+
+    fn jacobian(&self) -> Option<DMatrix<f64>> {
+        self.jacobian_calls.set(self.jacobian_calls.get() + 1);
+        let n = self.omegas.len();
+        let np = self.plan.n_params();
+        let mut j = DMatrix::zeros(2 * n, self.free.len());
+        if !self.ok {
+            return Some(j);
+        }
+        for (c, (&k, t)) in self.free.iter().zip(self.transforms).enumerate() {
+            let dp = t.derivative(self.x[c]);
+            for i in 0..n {
+                let d = self.jac[i * np + k] * dp;
+                j[(i, c)] = self.w_re[i] * d.re;
+                j[(n + i, c)] = self.w_im[i] * d.im;
+            }
+        }
+        Some(j)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn transforms_invert_and_differentiate() {
+        let cases = [
+            (Transform::for_bounds(0.0, f64::INFINITY, true), 3.7),
+            (Transform::for_bounds(1e-3, f64::INFINITY, true), 0.5),
+            (Transform::for_bounds(1e-3, 1e3, true), 42.0),
+            (Transform::for_bounds(0.0, 1.0, false), 0.83),
+            (Transform::for_bounds(0.5, 1.0, false), 0.93),
+            (Transform::for_bounds(0.0, 5.0, true), 0.01),
+        ];
+        for (t, p) in cases {
+            let x = t.to_internal(p);
+            assert!((t.to_param(x) - p).abs() <= 1e-12 * p, "{t:?}");
+            let h = 1e-6;
+            let fd = (t.to_param(x + h) - t.to_param(x - h)) / (2.0 * h);
+            assert!((fd - t.derivative(x)).abs() <= 1e-6 * fd.abs(), "{t:?}");
+        }
+    }
+
+    #[test]
+    fn transforms_keep_bounds_for_any_x() {
+        let t = Transform::for_bounds(1e-3, 1e3, true);
+        for x in [-1e308, -700.0, 0.0, 700.0, 1e308] {
+            let p = t.to_param(x);
+            assert!(
+                (1e-3 * (1.0 - 1e-12)..=1e3 * (1.0 + 1e-12)).contains(&p),
+                "{x} -> {p}"
+            );
+        }
+        let t = Transform::for_bounds(0.0, 1.0, false);
+        for x in [-1e308, 0.0, 1e308] {
+            assert!((0.0..=1.0).contains(&t.to_param(x)));
+        }
+    }
+}
