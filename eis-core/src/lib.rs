@@ -27,6 +27,7 @@
 #![warn(missing_docs)]
 
 pub mod circuit;
+pub mod derive;
 pub mod element;
 pub mod eval;
 pub mod fit;

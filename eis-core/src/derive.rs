@@ -1,0 +1,459 @@
+//! Battery quantities derived from a fitted circuit, each with a standard error by the delta method
+//! (first-order propagation through the fit covariance: var f = ∇fᵀ·Cov·∇f).
+//!
+//! - **Ohmic resistance**: Re Z(ω → ∞), the series resistance seen at high frequency (electrolyte,
+//!   separator, contacts, leads). Computed exactly from the circuit tree: capacitive elements, CPEs and
+//!   diffusion elements short, inductors open (their series reactance does not change the real part).
+//! - **Arcs**: every resistance in parallel with a capacitive element (C or CPE), also when the
+//!   resistive branch holds diffusion elements (a Randles arc). For each: resistance R, time constant
+//!   τ (RC, or (RQ)^(1/n) for a CPE), characteristic frequency 1/(2πτ), effective capacitance (C itself,
+//!   or for a CPE the Brug et al. 1984 formula C = Q^(1/n)·(1/R_s + 1/R)^((n−1)/n) with R_s the ohmic
+//!   resistance; Brug, van den Eeden, Sluyters-Rehbach & Sluyters 1984, J. Electroanal. Chem. 176, 275),
+//!   and a role.
+//! - **Roles**: from the circuit file's `role` lines; otherwise by this rule: an arc whose branch holds a
+//!   diffusion element is the charge transfer; if none is, the slowest arc (largest τ) is; of the
+//!   remaining arcs the fastest is the surface film and the others are "other".
+//! - **Charge-transfer (interface) resistance**: the sum of the arcs' resistances.
+//! - **Diffusion resistance**: the sum of R of the finite diffusion elements (`Wt`, `Wr`); a
+//!   semi-infinite Warburg has no finite resistance and is reported by its σ.
+//! - **DC resistance**: Re Z(ω → 0) when the circuit passes direct current (no blocking capacitor,
+//!   CPE, reflective diffusion or semi-infinite Warburg on every path).
+//!
+//! Gradients are analytic for arc quantities; for the two limits they are central differences of the
+//! exact limit function (a rational function of the resistances).
+
+use crate::circuit::{Circuit, Node, Role};
+use crate::fit::FitResult;
+use std::f64::consts::PI;
+
+/// A derived value with its standard error (None where the fit cannot give one).
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Quantity {
+    /// The value.
+    pub value: f64,
+    /// Its standard error.
+    pub stderr: Option<f64>,
+}
+
+/// One arc of the circuit.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Arc {
+    /// Name of the arc's resistor.
+    pub resistor: String,
+    /// Name of its capacitive element.
+    pub capacitor: String,
+    /// Resistance (Ω).
+    pub resistance: Quantity,
+    /// Time constant (s).
+    pub time_constant: Quantity,
+    /// Characteristic frequency 1/(2πτ) (Hz).
+    pub peak_frequency: Quantity,
+    /// Effective capacitance (F).
+    pub capacitance: Quantity,
+    /// Physical role.
+    pub role: Role,
+    /// Whether the role came from the circuit file (else from the ordering rule).
+    pub role_from_circuit: bool,
+    /// Whether the data determine the arc (resistance with a relative error of at most 100 %).
+    pub determined: bool,
+}
+
+/// All derived quantities of a fit.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Derived {
+    /// High-frequency real resistance (Ω).
+    pub ohmic_resistance: Option<Quantity>,
+    /// Sum of the arc resistances (Ω).
+    pub charge_transfer_resistance: Option<Quantity>,
+    /// Sum of the finite diffusion resistances (Ω).
+    pub diffusion_resistance: Option<Quantity>,
+    /// Sum of semi-infinite Warburg coefficients σ (Ω·s^−½), when the circuit has any.
+    pub warburg_sigma: Option<Quantity>,
+    /// Real resistance at zero frequency, where finite (Ω).
+    pub dc_resistance: Option<Quantity>,
+    /// The arcs, in circuit order.
+    pub arcs: Vec<Arc>,
+}
+
+/// Estimates from the DC resistance and an open-circuit voltage.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct ShortCircuitEstimate {
+    /// Open-circuit voltage used (V).
+    pub ocv: f64,
+    /// V/R_dc (A): the current a dead short would draw if the cell stayed linear. An estimate only.
+    pub short_circuit_current: Quantity,
+    /// V²/(4R_dc) (W): power into a matched load.
+    pub matched_load_power: Quantity,
+}
+
+/// The caution printed beside short-circuit estimates.
+pub const SHORT_CIRCUIT_CAUTION: &str = "estimates from a linear small-signal model, not ratings: a real \
+cell departs from them at high current, and shorting a cell is dangerous (heat, fire, venting). Never test \
+them by shorting a cell; follow your lab's safety rules";
+
+/// Propagates a gradient (pairs of circuit parameter index and ∂f/∂p) through the fit covariance.
+/// None if a free parameter involved has no standard error.
+fn delta(r: &FitResult, grad: &[(usize, f64)]) -> Option<f64> {
+    let mut var = 0.0;
+    for &(i, gi) in grad {
+        if gi == 0.0 || r.fixed[i] {
+            continue;
+        }
+        r.stderr[i]?;
+        for &(j, gj) in grad {
+            if gj != 0.0 && !r.fixed[j] {
+                var += gi * gj * r.covariance_of(i, j);
+            }
+        }
+    }
+    Some(var.max(0.0).sqrt())
+}
+
+/// A real-part limit of a subtree: `open` means its impedance diverges (no current through it).
+#[derive(Debug, Clone, Copy)]
+struct Lim {
+    real: f64,
+    open: bool,
+}
+
+fn limit(c: &Circuit, node: &Node, p: &[f64], high: bool) -> Lim {
+    let fin = |real| Lim { real, open: false };
+    let open = |real| Lim { real, open: true };
+    match node {
+        Node::Element(i) => {
+            let e = &c.elements[*i];
+            let q = &p[e.first_param..e.first_param + e.kind.params.len()];
+            match (e.kind.symbol, high) {
+                ("R", _) => fin(q[0]),
+                ("C", true) => fin(0.0),
+                ("C", false) => open(0.0),
+                ("L", true) => open(0.0),
+                ("L", false) => fin(0.0),
+                ("Q", _) if q[1] == 0.0 => fin(1.0 / q[0]),
+                ("Q", true) => fin(0.0),
+                ("Q", false) => open(f64::INFINITY),
+                ("W", true) => fin(0.0),
+                ("W", false) => open(f64::INFINITY),
+                ("Wt", true) | ("Wr", true) | ("G", true) => fin(0.0),
+                ("Wt", false) | ("G", false) => fin(q[0]),
+                ("Wr", false) => open(q[0] / 3.0),
+                // A kind added later without a limit here: be honest and call the limit unknown.
+                _ => open(f64::NAN),
+            }
+        }
+        Node::Series(ch) => {
+            let mut out = fin(0.0);
+            for n in ch {
+                let l = limit(c, n, p, high);
+                out.real += l.real;
+                out.open |= l.open;
+            }
+            out
+        }
+        Node::Parallel(ch) => {
+            let lims: Vec<Lim> = ch.iter().map(|n| limit(c, n, p, high)).collect();
+            let closed: Vec<f64> = lims.iter().filter(|l| !l.open).map(|l| l.real).collect();
+            if closed.is_empty() {
+                return open(f64::NAN);
+            }
+            if closed.iter().any(|&r| r == 0.0) {
+                return fin(0.0);
+            }
+            fin(1.0 / closed.iter().map(|r| 1.0 / r).sum::<f64>())
+        }
+    }
+}
+
+/// Value and central-difference gradient of a limit (only over resistances that matter).
+fn limit_quantity(c: &Circuit, r: &FitResult, high: bool) -> Option<Quantity> {
+    let base = limit(c, &c.root, &r.values, high);
+    if (!high && base.open) || !base.real.is_finite() {
+        return None;
+    }
+    let mut grad = Vec::new();
+    for &i in &r.free {
+        let h = 1e-6 * r.values[i].abs().max(1e-300);
+        let mut up = r.values.clone();
+        up[i] += h;
+        let mut dn = r.values.clone();
+        dn[i] -= h;
+        let g = (limit(c, &c.root, &up, high).real - limit(c, &c.root, &dn, high).real) / (2.0 * h);
+        if g.is_finite() && g != 0.0 {
+            grad.push((i, g));
+        }
+    }
+    Some(Quantity {
+        value: base.real,
+        stderr: delta(r, &grad),
+    })
+}
+
+/// An arc found in the tree: resistor and capacitive element (element indices), and whether its
+/// branch holds a diffusion element.
+struct ArcShape {
+    resistor: usize,
+    capacitor: usize,
+    with_diffusion: bool,
+}
+
+fn find_arcs(c: &Circuit, node: &Node, out: &mut Vec<ArcShape>) {
+    match node {
+        Node::Element(_) => {}
+        Node::Series(ch) => ch.iter().for_each(|n| find_arcs(c, n, out)),
+        Node::Parallel(ch) => {
+            let caps: Vec<usize> = ch
+                .iter()
+                .filter_map(|n| match n {
+                    Node::Element(i) if c.elements[*i].kind.capacitive => Some(*i),
+                    _ => None,
+                })
+                .collect();
+            let others: Vec<&Node> = ch
+                .iter()
+                .filter(|n| !matches!(n, Node::Element(i) if c.elements[*i].kind.capacitive))
+                .collect();
+            if caps.len() == 1 && others.len() == 1 {
+                let parts: Vec<&Node> = match others[0] {
+                    Node::Series(s) => s.iter().collect(),
+                    n => vec![n],
+                };
+                let resistors: Vec<usize> = parts
+                    .iter()
+                    .filter_map(|n| match n {
+                        Node::Element(i) if c.elements[*i].kind.symbol == "R" => Some(*i),
+                        _ => None,
+                    })
+                    .collect();
+                let with_diffusion = parts.iter().any(|n| {
+                    matches!(n, Node::Element(i) if matches!(c.elements[*i].kind.symbol, "W" | "Wt" | "Wr" | "G"))
+                });
+                if resistors.len() == 1 {
+                    out.push(ArcShape {
+                        resistor: resistors[0],
+                        capacitor: caps[0],
+                        with_diffusion,
+                    });
+                }
+            }
+            ch.iter().for_each(|n| find_arcs(c, n, out));
+        }
+    }
+}
+
+/// Derives the battery quantities of a fitted circuit.
+pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
+    let p = &r.values;
+    let ohmic = limit_quantity(c, r, true);
+    let dc = limit_quantity(c, r, false);
+    let rs = ohmic.map(|q| q.value).unwrap_or(0.0);
+    // Gradient of the ohmic resistance, for Brug capacitances that depend on it.
+    let ohmic_grad: Vec<(usize, f64)> = r
+        .free
+        .iter()
+        .filter_map(|&i| {
+            let h = 1e-6 * p[i].abs().max(1e-300);
+            let mut up = p.clone();
+            up[i] += h;
+            let mut dn = p.clone();
+            dn[i] -= h;
+            let g =
+                (limit(c, &c.root, &up, true).real - limit(c, &c.root, &dn, true).real) / (2.0 * h);
+            (g.is_finite() && g != 0.0).then_some((i, g))
+        })
+        .collect();
+
+    let mut shapes = Vec::new();
+    find_arcs(c, &c.root, &mut shapes);
+    let mut arcs: Vec<Arc> = shapes
+        .iter()
+        .map(|s| {
+            let ri = c.elements[s.resistor].first_param;
+            let ce = &c.elements[s.capacitor];
+            let ci = ce.first_param;
+            let rv = p[ri];
+            let resistance = Quantity {
+                value: rv,
+                stderr: delta(r, &[(ri, 1.0)]),
+            };
+            let (tau, tau_grad, cap, cap_grad): (f64, Vec<(usize, f64)>, f64, Vec<(usize, f64)>) =
+                if ce.kind.symbol == "C" {
+                    let cv = p[ci];
+                    (rv * cv, vec![(ri, cv), (ci, rv)], cv, vec![(ci, 1.0)])
+                } else {
+                    let (q, n) = (p[ci], p[ci + 1]);
+                    let tau = (rv * q).powf(1.0 / n);
+                    let tg = vec![
+                        (ri, tau / (n * rv)),
+                        (ci, tau / (n * q)),
+                        (ci + 1, -tau * (rv * q).ln() / (n * n)),
+                    ];
+                    // Brug: ln C = (1/n) ln Q + ((n−1)/n) ln S, S = 1/R_s + 1/R.
+                    let (cap, mut cg) = if rs > 0.0 {
+                        let sum = 1.0 / rs + 1.0 / rv;
+                        let cap = q.powf(1.0 / n) * sum.powf((n - 1.0) / n);
+                        let dln_ds = (n - 1.0) / n / sum;
+                        let mut g = vec![
+                            (ci, cap / (n * q)),
+                            (ci + 1, cap * (-q.ln() / (n * n) + sum.ln() / (n * n))),
+                            (ri, cap * dln_ds * (-1.0 / (rv * rv))),
+                        ];
+                        for &(i, gi) in &ohmic_grad {
+                            g.push((i, cap * dln_ds * (-1.0 / (rs * rs)) * gi));
+                        }
+                        (cap, g)
+                    } else {
+                        // No series resistance: the R_s → ∞ limit, C = Q^(1/n)·R^((1−n)/n).
+                        let cap = q.powf(1.0 / n) * rv.powf((1.0 - n) / n);
+                        (
+                            cap,
+                            vec![
+                                (ci, cap / (n * q)),
+                                (ci + 1, cap * (-q.ln() / (n * n) - rv.ln() / (n * n))),
+                                (ri, cap * (1.0 - n) / (n * rv)),
+                            ],
+                        )
+                    };
+                    cg = merge(cg);
+                    (tau, tg, cap, cg)
+                };
+            let tau_se = delta(r, &tau_grad);
+            let determined =
+                resistance.stderr.is_some_and(|se| se <= rv.abs()) && r.free.contains(&ri);
+            Arc {
+                resistor: c.elements[s.resistor].name.clone(),
+                capacitor: ce.name.clone(),
+                resistance,
+                time_constant: Quantity {
+                    value: tau,
+                    stderr: tau_se,
+                },
+                peak_frequency: Quantity {
+                    value: 1.0 / (2.0 * PI * tau),
+                    stderr: tau_se.map(|se| se / (2.0 * PI * tau * tau)),
+                },
+                capacitance: Quantity {
+                    value: cap,
+                    stderr: delta(r, &cap_grad),
+                },
+                role: Role::Other,
+                role_from_circuit: false,
+                determined: determined || (r.fixed[ri]),
+            }
+        })
+        .collect();
+    assign_roles(c, &shapes, &mut arcs);
+
+    let sum_of = |idx: &[usize]| -> Option<Quantity> {
+        if idx.is_empty() {
+            return None;
+        }
+        let grad: Vec<(usize, f64)> = idx.iter().map(|&i| (i, 1.0)).collect();
+        Some(Quantity {
+            value: idx.iter().map(|&i| p[i]).sum(),
+            stderr: delta(r, &grad),
+        })
+    };
+    let arc_r: Vec<usize> = shapes
+        .iter()
+        .map(|s| c.elements[s.resistor].first_param)
+        .collect();
+    let diff_r: Vec<usize> = c
+        .elements
+        .iter()
+        .filter(|e| matches!(e.kind.symbol, "Wt" | "Wr"))
+        .map(|e| e.first_param)
+        .collect();
+    let sigma: Vec<usize> = c
+        .elements
+        .iter()
+        .filter(|e| e.kind.symbol == "W")
+        .map(|e| e.first_param)
+        .collect();
+    Derived {
+        ohmic_resistance: ohmic,
+        charge_transfer_resistance: sum_of(&arc_r),
+        diffusion_resistance: sum_of(&diff_r),
+        warburg_sigma: sum_of(&sigma),
+        dc_resistance: dc,
+        arcs,
+    }
+}
+
+/// Adds up repeated indices of a gradient.
+fn merge(mut g: Vec<(usize, f64)>) -> Vec<(usize, f64)> {
+    g.sort_by_key(|x| x.0);
+    let mut out: Vec<(usize, f64)> = Vec::with_capacity(g.len());
+    for (i, v) in g {
+        match out.last_mut() {
+            Some(last) if last.0 == i => last.1 += v,
+            _ => out.push((i, v)),
+        }
+    }
+    out
+}
+
+fn assign_roles(c: &Circuit, shapes: &[ArcShape], arcs: &mut [Arc]) {
+    let mut unassigned: Vec<usize> = Vec::new();
+    for (k, a) in arcs.iter_mut().enumerate() {
+        if let Some(role) = c.role_of(&a.resistor) {
+            a.role = role;
+            a.role_from_circuit = true;
+        } else {
+            unassigned.push(k);
+        }
+    }
+    if unassigned.is_empty() {
+        return;
+    }
+    let has_ct = arcs
+        .iter()
+        .any(|a| a.role == Role::ChargeTransfer && a.role_from_circuit);
+    let mut ct_given = has_ct;
+    for &k in &unassigned {
+        if shapes[k].with_diffusion && !ct_given {
+            arcs[k].role = Role::ChargeTransfer;
+            ct_given = true;
+        }
+    }
+    let mut rest: Vec<usize> = unassigned
+        .iter()
+        .copied()
+        .filter(|&k| arcs[k].role != Role::ChargeTransfer)
+        .collect();
+    rest.sort_by(|&a, &b| {
+        arcs[a]
+            .time_constant
+            .value
+            .total_cmp(&arcs[b].time_constant.value)
+    });
+    if !ct_given {
+        if let Some(k) = rest.pop() {
+            arcs[k].role = Role::ChargeTransfer;
+        }
+    }
+    let has_film = arcs.iter().any(|a| a.role == Role::Film);
+    for (pos, &k) in rest.iter().enumerate() {
+        arcs[k].role = if pos == 0 && !has_film {
+            Role::Film
+        } else {
+            Role::Other
+        };
+    }
+}
+
+/// Short-circuit current V/R_dc and matched-load power V²/(4R_dc) with their standard errors.
+/// Read [`SHORT_CIRCUIT_CAUTION`] before using them.
+pub fn short_circuit(ocv: f64, dc: Quantity) -> ShortCircuitEstimate {
+    let r = dc.value;
+    ShortCircuitEstimate {
+        ocv,
+        short_circuit_current: Quantity {
+            value: ocv / r,
+            stderr: dc.stderr.map(|se| ocv.abs() * se / (r * r)),
+        },
+        matched_load_power: Quantity {
+            value: ocv * ocv / (4.0 * r),
+            stderr: dc.stderr.map(|se| ocv * ocv * se / (4.0 * r * r)),
+        },
+    }
+}
