@@ -32,6 +32,7 @@ pub mod element;
 pub mod eval;
 pub mod fit;
 pub mod number;
+pub mod report;
 pub mod simulate;
 pub mod spectrum;
 

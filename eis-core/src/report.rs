@@ -1,0 +1,284 @@
+//! The fit document: one serialisable record of a fit (`eis fit --json`, one line of a batch's
+//! `results.jsonl`), and reading a previous one back as a warm start.
+
+use crate::circuit::{Circuit, print};
+use crate::derive::{Derived, Quantity, SHORT_CIRCUIT_CAUTION, ShortCircuitEstimate};
+use crate::fit::FitResult;
+use serde::{Deserialize, Serialize};
+
+/// One parameter of a fit document.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ParameterEntry {
+    /// Parameter name (`Rct`, `Qdl.n`).
+    pub name: String,
+    /// Fitted (or fixed) value.
+    pub value: f64,
+    /// Standard error; null when fixed or undetermined.
+    pub stderr: Option<f64>,
+    /// stderr/|value|; null when stderr is.
+    pub relative_error: Option<f64>,
+    /// SI unit.
+    pub unit: String,
+    /// Held fixed.
+    pub fixed: bool,
+    /// Ended on a bound.
+    pub at_bound: bool,
+}
+
+/// One arc of a fit document.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ArcEntry {
+    /// Resistor of the arc.
+    pub resistor: String,
+    /// Capacitive element of the arc.
+    pub capacitor: String,
+    /// Resistance (Ω).
+    pub resistance_ohm: f64,
+    /// Its standard error.
+    pub resistance_ohm_stderr: Option<f64>,
+    /// Time constant (s).
+    pub time_constant_s: f64,
+    /// Its standard error.
+    pub time_constant_s_stderr: Option<f64>,
+    /// Characteristic frequency (Hz).
+    pub peak_frequency_hz: f64,
+    /// Its standard error.
+    pub peak_frequency_hz_stderr: Option<f64>,
+    /// Effective capacitance (F).
+    pub capacitance_f: f64,
+    /// Its standard error.
+    pub capacitance_f_stderr: Option<f64>,
+    /// Role: film, charge-transfer, contact or other.
+    pub role: String,
+    /// Whether the data determine this arc.
+    pub determined: bool,
+}
+
+/// Derived quantities of a fit document; null where the model has no such quantity.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DerivedEntry {
+    /// High-frequency real resistance.
+    pub ohmic_resistance_ohm: Option<f64>,
+    /// Its standard error.
+    pub ohmic_resistance_ohm_stderr: Option<f64>,
+    /// Sum of the arc resistances.
+    pub charge_transfer_resistance_ohm: Option<f64>,
+    /// Its standard error.
+    pub charge_transfer_resistance_ohm_stderr: Option<f64>,
+    /// Sum of finite diffusion resistances.
+    pub diffusion_resistance_ohm: Option<f64>,
+    /// Its standard error.
+    pub diffusion_resistance_ohm_stderr: Option<f64>,
+    /// Real resistance at zero frequency.
+    pub dc_resistance_ohm: Option<f64>,
+    /// Its standard error.
+    pub dc_resistance_ohm_stderr: Option<f64>,
+    /// Sum of semi-infinite Warburg coefficients.
+    pub warburg_sigma_ohm_s_half: Option<f64>,
+    /// Its standard error.
+    pub warburg_sigma_ohm_s_half_stderr: Option<f64>,
+    /// The arcs.
+    pub arcs: Vec<ArcEntry>,
+}
+
+/// Fit statistics of a fit document.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StatisticsEntry {
+    /// Sum of squared weighted residuals.
+    pub chi_square: f64,
+    /// χ²/(2N − P).
+    pub reduced_chi_square: f64,
+    /// Akaike information criterion.
+    pub aic: f64,
+    /// Bayesian information criterion.
+    pub bic: f64,
+    /// Number of points.
+    pub points: usize,
+    /// Degrees of freedom.
+    pub dof: usize,
+    /// Solver iterations of the winning start.
+    pub iterations: usize,
+    /// Residual evaluations over all starts.
+    pub evaluations: usize,
+    /// Starting points tried.
+    pub starts: usize,
+    /// Whether the solver converged.
+    pub converged: bool,
+    /// Why it stopped.
+    pub termination: String,
+    /// Weighting used.
+    pub weighting: String,
+    /// How standard errors were obtained.
+    pub covariance: String,
+}
+
+/// Short-circuit estimates with their caution.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ShortCircuitEntry {
+    /// Open-circuit voltage (V).
+    pub ocv_v: f64,
+    /// V/R_dc (A).
+    pub short_circuit_current_a: f64,
+    /// Its standard error.
+    pub short_circuit_current_a_stderr: Option<f64>,
+    /// V²/(4R_dc) (W).
+    pub matched_load_power_w: f64,
+    /// Its standard error.
+    pub matched_load_power_w_stderr: Option<f64>,
+    /// Safety caution.
+    pub caution: String,
+}
+
+/// Correlations among the free parameters.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CorrelationEntry {
+    /// Names of the free parameters, in matrix order.
+    pub parameters: Vec<String>,
+    /// Correlation matrix rows.
+    pub matrix: Vec<Vec<f64>>,
+}
+
+/// The whole document.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitDocument {
+    /// Source file of the spectrum, when known.
+    #[serde(default)]
+    pub file: Option<String>,
+    /// Spectrum number within the file.
+    #[serde(default)]
+    pub spectrum: Option<usize>,
+    /// Canonical circuit text.
+    pub model: String,
+    /// Parameters in circuit order.
+    pub parameters: Vec<ParameterEntry>,
+    /// Derived quantities.
+    pub derived: DerivedEntry,
+    /// Fit statistics.
+    pub statistics: StatisticsEntry,
+    /// Correlations of the free parameters.
+    pub correlation: CorrelationEntry,
+    /// Warnings in plain words.
+    pub warnings: Vec<String>,
+    /// Short-circuit estimates, when an open-circuit voltage was given.
+    #[serde(default)]
+    pub short_circuit: Option<ShortCircuitEntry>,
+}
+
+fn split(q: Option<Quantity>) -> (Option<f64>, Option<f64>) {
+    match q {
+        Some(q) => (Some(q.value), q.stderr),
+        None => (None, None),
+    }
+}
+
+/// Builds the document of a fit.
+pub fn document(
+    c: &Circuit,
+    r: &FitResult,
+    d: &Derived,
+    short: Option<&ShortCircuitEstimate>,
+) -> FitDocument {
+    let parameters = c
+        .params
+        .iter()
+        .enumerate()
+        .map(|(i, p)| ParameterEntry {
+            name: p.name.clone(),
+            value: r.values[i],
+            stderr: r.stderr[i],
+            relative_error: r.relative_error(i),
+            unit: c.unit(i).to_owned(),
+            fixed: r.fixed[i],
+            at_bound: r.at_bound[i],
+        })
+        .collect();
+    let (ohm, ohm_se) = split(d.ohmic_resistance);
+    let (ct, ct_se) = split(d.charge_transfer_resistance);
+    let (dif, dif_se) = split(d.diffusion_resistance);
+    let (dc, dc_se) = split(d.dc_resistance);
+    let (sig, sig_se) = split(d.warburg_sigma);
+    let nf = r.free.len();
+    FitDocument {
+        file: None,
+        spectrum: None,
+        model: print(c),
+        parameters,
+        derived: DerivedEntry {
+            ohmic_resistance_ohm: ohm,
+            ohmic_resistance_ohm_stderr: ohm_se,
+            charge_transfer_resistance_ohm: ct,
+            charge_transfer_resistance_ohm_stderr: ct_se,
+            diffusion_resistance_ohm: dif,
+            diffusion_resistance_ohm_stderr: dif_se,
+            dc_resistance_ohm: dc,
+            dc_resistance_ohm_stderr: dc_se,
+            warburg_sigma_ohm_s_half: sig,
+            warburg_sigma_ohm_s_half_stderr: sig_se,
+            arcs: d
+                .arcs
+                .iter()
+                .map(|a| ArcEntry {
+                    resistor: a.resistor.clone(),
+                    capacitor: a.capacitor.clone(),
+                    resistance_ohm: a.resistance.value,
+                    resistance_ohm_stderr: a.resistance.stderr,
+                    time_constant_s: a.time_constant.value,
+                    time_constant_s_stderr: a.time_constant.stderr,
+                    peak_frequency_hz: a.peak_frequency.value,
+                    peak_frequency_hz_stderr: a.peak_frequency.stderr,
+                    capacitance_f: a.capacitance.value,
+                    capacitance_f_stderr: a.capacitance.stderr,
+                    role: a.role.as_str().to_owned(),
+                    determined: a.determined,
+                })
+                .collect(),
+        },
+        statistics: StatisticsEntry {
+            chi_square: r.chi_square,
+            reduced_chi_square: r.reduced_chi_square,
+            aic: r.aic,
+            bic: r.bic,
+            points: r.points,
+            dof: r.dof,
+            iterations: r.iterations,
+            evaluations: r.evaluations,
+            starts: r.starts_tried,
+            converged: r.converged,
+            termination: r.termination.clone(),
+            weighting: r.weighting.as_str().to_owned(),
+            covariance: "s^2 (J^T J)^-1 with s^2 the reduced chi-square".to_owned(),
+        },
+        correlation: CorrelationEntry {
+            parameters: r.free.iter().map(|&i| c.params[i].name.clone()).collect(),
+            matrix: (0..nf)
+                .map(|a| r.correlation[a * nf..(a + 1) * nf].to_vec())
+                .collect(),
+        },
+        warnings: r.warnings.clone(),
+        short_circuit: short.map(|s| ShortCircuitEntry {
+            ocv_v: s.ocv,
+            short_circuit_current_a: s.short_circuit_current.value,
+            short_circuit_current_a_stderr: s.short_circuit_current.stderr,
+            matched_load_power_w: s.matched_load_power.value,
+            matched_load_power_w_stderr: s.matched_load_power.stderr,
+            caution: SHORT_CIRCUIT_CAUTION.to_owned(),
+        }),
+    }
+}
+
+impl FitDocument {
+    /// Values for a warm start of `circuit`: each parameter takes the document's value of the same
+    /// name, others keep the circuit's initial or default value. Returns the values and the names
+    /// that were not found.
+    pub fn warm_start_for(&self, c: &Circuit) -> (Vec<f64>, Vec<String>) {
+        let mut v = c.default_values();
+        let mut missing = Vec::new();
+        for (i, p) in c.params.iter().enumerate() {
+            match self.parameters.iter().find(|e| e.name == p.name) {
+                Some(e) if e.value.is_finite() => v[i] = e.value,
+                _ => missing.push(p.name.clone()),
+            }
+        }
+        (v, missing)
+    }
+}
