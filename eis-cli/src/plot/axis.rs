@@ -401,7 +401,7 @@ mod tests {
         assert_eq!(labels, ["0", "10", "20", "30", "40", "50"]);
         let t = linear_ticks(Range { lo: -1.5, hi: 1.5 }, &si_unit(1.5, "Ω"), 8);
         assert_eq!(t.first().map(|t| t.label.as_str()), Some("\u{2212}1.5"));
-        assert!(t.iter().any(|t| t.label == "0"));
+        assert!(t.iter().any(|t| t.label == "0.0"));
     }
 
     #[test]

@@ -140,6 +140,9 @@ impl AxisSpec {
             };
             if self.integer {
                 ticks.retain(|t| (t.value - t.value.round()).abs() < 1e-9);
+                for t in &mut ticks {
+                    t.label = axis::format_tick(t.value / self.unit.scale, 0);
+                }
             }
             let axis = Axis {
                 range: self.range,

@@ -38,21 +38,23 @@ fn prominent_maxima(y: &[f64], min_prominence: f64) -> Vec<usize> {
         if !y[i].is_finite() || !(y[i] > y[i - 1]) || !(y[i] >= y[i + 1]) {
             continue;
         }
-        let side = |range: &mut dyn Iterator<Item = usize>| -> Option<f64> {
+        // Lowest value between the peak and the nearest higher point on one side (an equal point
+        // counts as higher on the left, so a flat double top is one peak).
+        let side = |range: &mut dyn Iterator<Item = usize>, equal_is_higher: bool| -> Option<f64> {
             let mut lowest = y[i];
             for j in range {
                 if !y[j].is_finite() {
                     break;
                 }
-                if y[j] > y[i] {
+                if y[j] > y[i] || (equal_is_higher && y[j] == y[i]) {
                     return Some(lowest);
                 }
                 lowest = lowest.min(y[j]);
             }
             Some(lowest)
         };
-        let left = side(&mut (0..i).rev());
-        let right = side(&mut (i + 1..n));
+        let left = side(&mut (0..i).rev(), true);
+        let right = side(&mut (i + 1..n), false);
         if let (Some(l), Some(r)) = (left, right) {
             if y[i] - l.max(r) >= min_prominence {
                 out.push(i);
