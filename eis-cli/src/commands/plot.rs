@@ -16,8 +16,8 @@
 
 use crate::io::{Failure, Outcome, bad, read_spectra, write_atomic};
 use crate::plot::{
-    self, BodePlot, DrtPeak, DrtPlot, Format, NyquistPlot, OverlayPlot, OverlaySpectrum, Plot, ResidualPlot,
-    SeriesData, TrendPlot, TrendPoint, TrendSeries,
+    self, BodePlot, DrtPeak, DrtPlot, Format, NyquistPlot, OverlayPlot, OverlaySpectrum, Plot,
+    ResidualPlot, SeriesData, TrendPlot, TrendPoint, TrendSeries,
 };
 use anyhow::anyhow;
 use eis_core::Spectrum;
@@ -54,7 +54,8 @@ pub enum FormatArg {
 
 /// Draw plots of spectra, fits, residuals, DRTs and trends as SVG or PNG.
 #[derive(clap::Args)]
-#[command(after_help = "JSON inputs (residuals, drt, trend, --fit) are described in `eis plot` docs:
+#[command(
+    after_help = "JSON inputs (residuals, drt, trend, --fit) are described in `eis plot` docs:
   curve:     {\"label\", \"frequency_hz\", \"z_real_ohm\", \"z_imag_ohm\"}
   residuals: {\"frequency_hz\", \"re_rel\", \"im_rel\", \"band\"?}
   drt:       {\"tau_s\", \"gamma_ohm\", \"peaks\"?: [{\"tau_s\", \"gamma_ohm\", \"label\"?}]}
@@ -65,7 +66,8 @@ Examples:
   eis plot cell.csv -o cell-nyquist.svg
   eis plot cell.csv --kind bode --format png -o cell-bode.png
   eis plot soc-*.csv --kind overlay --color-by soc -o overlay.png
-  eis plot drt.json --kind drt -o drt.svg")]
+  eis plot drt.json --kind drt -o drt.svg"
+)]
 pub struct Args {
     /// Input files: spectra for nyquist, bode and overlay; one JSON file for residuals, drt and trend
     /// (or a spectrum with --fit for residuals).
@@ -116,7 +118,13 @@ pub fn run(args: Args) -> Outcome {
         Some(FormatArg::Png) => Some(Format::Png),
         None => None,
     };
-    write_plot(&plot, &args.output, format, (args.width, args.height), &inputs)?;
+    write_plot(
+        &plot,
+        &args.output,
+        format,
+        (args.width, args.height),
+        &inputs,
+    )?;
     Ok(ExitCode::SUCCESS)
 }
 
@@ -149,11 +157,19 @@ fn build(args: &Args) -> Result<Plot, Failure> {
             let mut series: Vec<SeriesData> = spectra
                 .iter()
                 .map(|(name, s)| {
-                    let label = if single && fit.is_none() { String::new() } else { name.clone() };
+                    let label = if single && fit.is_none() {
+                        String::new()
+                    } else {
+                        name.clone()
+                    };
                     SeriesData::markers(label, s.frequency_hz.clone(), s.z.clone())
                 })
                 .collect();
-            let subject = if single { spectra[0].0.clone() } else { format!("{} spectra", spectra.len()) };
+            let subject = if single {
+                spectra[0].0.clone()
+            } else {
+                format!("{} spectra", spectra.len())
+            };
             if args.kind == Kind::Bode {
                 series.extend(fit);
                 return Ok(Plot::Bode(BodePlot {
@@ -180,9 +196,15 @@ fn build(args: &Args) -> Result<Plot, Failure> {
         Kind::Overlay => {
             let spectra = read_all(&args.inputs)?;
             let (values, label) = colour_values(&spectra, args.color_by.as_deref());
-            let by = args.color_by.as_deref().map_or("file order".to_owned(), str::to_owned);
+            let by = args
+                .color_by
+                .as_deref()
+                .map_or("file order".to_owned(), str::to_owned);
             Ok(Plot::Overlay(OverlayPlot {
-                title: title(format!("Nyquist overlay: {} spectra by {by}", spectra.len())),
+                title: title(format!(
+                    "Nyquist overlay: {} spectra by {by}",
+                    spectra.len()
+                )),
                 spectra: spectra
                     .into_iter()
                     .zip(values)
@@ -238,8 +260,10 @@ fn one_input(args: &Args) -> Result<&Path, Failure> {
 }
 
 fn stem(path: &Path) -> String {
-    path.file_stem()
-        .map_or_else(|| path.display().to_string(), |s| s.to_string_lossy().into_owned())
+    path.file_stem().map_or_else(
+        || path.display().to_string(),
+        |s| s.to_string_lossy().into_owned(),
+    )
 }
 
 fn read_text(path: &Path) -> Result<String, Failure> {
@@ -277,7 +301,12 @@ fn read_all(inputs: &[PathBuf]) -> Result<Vec<(String, Spectrum)>, Failure> {
 /// Colour values for an overlay from metadata field `field`, falling back to file order (1, 2, ...)
 /// when it is not given or not a number in every spectrum. Returns the values and the bar title.
 fn colour_values(spectra: &[(String, Spectrum)], field: Option<&str>) -> (Vec<f64>, String) {
-    let order = || ((1..=spectra.len()).map(|i| i as f64).collect(), "spectrum (file order)".to_owned());
+    let order = || {
+        (
+            (1..=spectra.len()).map(|i| i as f64).collect(),
+            "spectrum (file order)".to_owned(),
+        )
+    };
     let Some(field) = field else { return order() };
     let values: Option<Vec<f64>> = spectra
         .iter()
@@ -402,7 +431,10 @@ fn parse_residuals(text: &str) -> anyhow::Result<ResidualPlot> {
 fn residuals_against(data: &Path, fit: &Path) -> Result<ResidualPlot, Failure> {
     let spectra = read_spectra(data)?;
     let [s] = spectra.as_slice() else {
-        return Err(bad(anyhow!("{}: residuals need exactly one spectrum", data.display())));
+        return Err(bad(anyhow!(
+            "{}: residuals need exactly one spectrum",
+            data.display()
+        )));
     };
     let model = read_curve(fit)?;
     let matches = model.freq.len() == s.len()
@@ -419,15 +451,14 @@ fn residuals_against(data: &Path, fit: &Path) -> Result<ResidualPlot, Failure> {
             data.display()
         )));
     }
-    let (re, im) = s
-        .z
-        .iter()
-        .zip(&model.z)
-        .map(|(d, m)| {
-            let scale = m.norm();
-            ((d.re - m.re) / scale, (d.im - m.im) / scale)
-        })
-        .unzip();
+    let (re, im) =
+        s.z.iter()
+            .zip(&model.z)
+            .map(|(d, m)| {
+                let scale = m.norm();
+                ((d.re - m.re) / scale, (d.im - m.im) / scale)
+            })
+            .unzip();
     Ok(ResidualPlot {
         title: String::new(),
         freq: s.frequency_hz.clone(),
@@ -458,7 +489,10 @@ struct DrtJson {
 /// Parses a DRT: `{"tau_s", "gamma_ohm", "peaks"?}`; peaks are found when absent.
 fn parse_drt(text: &str) -> anyhow::Result<DrtPlot> {
     let d: DrtJson = serde_json::from_str(text)?;
-    same_len("drt", &[("tau_s", d.tau_s.len()), ("gamma_ohm", d.gamma_ohm.len())])?;
+    same_len(
+        "drt",
+        &[("tau_s", d.tau_s.len()), ("gamma_ohm", d.gamma_ohm.len())],
+    )?;
     let (tau, gamma) = (numbers(d.tau_s), numbers(d.gamma_ohm));
     let peaks = match d.peaks {
         Some(p) => p
@@ -544,8 +578,10 @@ mod tests {
 
     #[test]
     fn curve_json_with_nulls_and_length_check() {
-        let c = parse_curve(r#"{"frequency_hz": [10, 1], "z_real_ohm": [1, null], "z_imag_ohm": [-1, -2]}"#)
-            .unwrap();
+        let c = parse_curve(
+            r#"{"frequency_hz": [10, 1], "z_real_ohm": [1, null], "z_imag_ohm": [-1, -2]}"#,
+        )
+        .unwrap();
         assert_eq!(c.label, "fit");
         assert!(c.z[1].re.is_nan());
         let e = parse_curve(r#"{"frequency_hz": [10], "z_real_ohm": [1, 2], "z_imag_ohm": [1]}"#)
@@ -557,10 +593,15 @@ mod tests {
 
     #[test]
     fn drt_peaks_found_when_absent() {
-        let tau: Vec<f64> = (0..41).map(|k| 10f64.powf(-5.0 + k as f64 * 0.15)).collect();
+        let tau: Vec<f64> = (0..41)
+            .map(|k| 10f64.powf(-5.0 + k as f64 * 0.15))
+            .collect();
         let gamma: Vec<f64> = tau
             .iter()
-            .map(|t| (-(t.log10() + 3.0).powi(2) * 4.0).exp() + 0.5 * (-(t.log10() + 0.5).powi(2) * 4.0).exp())
+            .map(|t| {
+                (-(t.log10() + 3.0).powi(2) * 4.0).exp()
+                    + 0.5 * (-(t.log10() + 0.5).powi(2) * 4.0).exp()
+            })
             .collect();
         let text = serde_json::json!({"tau_s": tau, "gamma_ohm": gamma}).to_string();
         let d = parse_drt(&text).unwrap();

@@ -112,7 +112,7 @@ pub struct Unit {
 
 /// The SI-prefixed unit for values up to `max_abs` in magnitude.
 pub fn si_unit(max_abs: f64, unit: &str) -> Unit {
-    if unit.is_empty() || unit == "%" || unit == "°" || !(max_abs > 0.0) || !max_abs.is_finite() {
+    if unit.is_empty() || unit == "%" || unit == "°" || !max_abs.is_finite() || max_abs <= 0.0 {
         return Unit {
             scale: 1.0,
             text: unit.to_owned(),
@@ -206,7 +206,10 @@ impl Axis {
 /// Formats a displayed tick value with `decimals` decimals and a true minus sign.
 pub fn format_tick(v: f64, decimals: usize) -> String {
     let s = format!("{v:.decimals$}");
-    let zero = s.trim_start_matches('-').chars().all(|c| c == '0' || c == '.');
+    let zero = s
+        .trim_start_matches('-')
+        .chars()
+        .all(|c| c == '0' || c == '.');
     if zero {
         return s.trim_start_matches('-').to_owned();
     }
@@ -229,14 +232,14 @@ fn nice_step(raw: f64) -> f64 {
 pub fn linear_ticks(range: Range, unit: &Unit, max_count: usize) -> Vec<Tick> {
     let (lo, hi) = (range.lo / unit.scale, range.hi / unit.scale);
     let span = hi - lo;
-    if !(span > 0.0) || !span.is_finite() {
+    if !span.is_finite() || span <= 0.0 {
         return Vec::new();
     }
     let step = nice_step(span / max_count.max(1) as f64);
     let decimals = (-step.log10().floor()).max(0.0) as usize;
     let first = (lo / step).ceil();
     let last = (hi / step).floor();
-    if !(last - first < 1000.0) {
+    if !(last - first).is_finite() || last - first >= 1000.0 {
         return Vec::new();
     }
     let mut out = Vec::new();
@@ -255,7 +258,7 @@ pub fn linear_ticks(range: Range, unit: &Unit, max_count: usize) -> Vec<Tick> {
 /// Log ticks over `range` with at most `max_count` labels; returns labelled and minor ticks.
 pub fn log_ticks(range: Range, max_count: usize) -> (Vec<Tick>, Vec<f64>) {
     let (a, b) = (range.lo.log10(), range.hi.log10());
-    if !(b > a) || !a.is_finite() || !b.is_finite() {
+    if !a.is_finite() || !b.is_finite() || b <= a {
         return (Vec::new(), Vec::new());
     }
     let (d0, d1) = (a.ceil() as i32, b.floor() as i32);
@@ -306,7 +309,10 @@ pub fn log_ticks(range: Range, max_count: usize) -> (Vec<Tick>, Vec<f64>) {
     for set in SETS {
         let values = at(set);
         if values.len() >= 2 && values.len() <= max_count.max(2) {
-            let minor = at(SETS[0]).into_iter().filter(|v| !values.contains(v)).collect();
+            let minor = at(SETS[0])
+                .into_iter()
+                .filter(|v| !values.contains(v))
+                .collect();
             let ticks = values
                 .into_iter()
                 .map(|v| Tick {
@@ -318,7 +324,10 @@ pub fn log_ticks(range: Range, max_count: usize) -> (Vec<Tick>, Vec<f64>) {
         }
     }
     // Narrower than one mantissa step: fall back to linear ticks.
-    (linear_ticks(range, &si_unit(0.0, ""), max_count), Vec::new())
+    (
+        linear_ticks(range, &si_unit(0.0, ""), max_count),
+        Vec::new(),
+    )
 }
 
 /// A short plain number: `0.02`, `500`, `2×10⁶`.
@@ -354,13 +363,8 @@ pub fn quantity(v: f64, unit: &str) -> String {
     }
     let u = si_unit(v.abs(), unit);
     let shown = v / u.scale;
-    let digits = if shown.abs() >= 100.0 {
-        0
-    } else if shown.abs() >= 10.0 {
-        0
-    } else {
-        1
-    };
+    // Two significant digits, or all the integer digits of larger values.
+    let digits = if shown.abs() >= 10.0 { 0 } else { 1 };
     let s = format!("{shown:.digits$}");
     let s = if s.contains('.') {
         s.trim_end_matches('0').trim_end_matches('.').to_owned()
@@ -396,7 +400,14 @@ mod tests {
     #[test]
     fn linear_ticks_are_nice_and_inside() {
         let u = si_unit(0.05, "Ω");
-        let t = linear_ticks(Range { lo: -0.003, hi: 0.05 }, &u, 6);
+        let t = linear_ticks(
+            Range {
+                lo: -0.003,
+                hi: 0.05,
+            },
+            &u,
+            6,
+        );
         let labels: Vec<&str> = t.iter().map(|t| t.label.as_str()).collect();
         assert_eq!(labels, ["0", "10", "20", "30", "40", "50"]);
         let t = linear_ticks(Range { lo: -1.5, hi: 1.5 }, &si_unit(1.5, "Ω"), 8);
@@ -406,20 +417,50 @@ mod tests {
 
     #[test]
     fn log_ticks_at_decades() {
-        let (t, minor) = log_ticks(Range { lo: 0.008, hi: 1.2e5 }, 10);
+        let (t, minor) = log_ticks(
+            Range {
+                lo: 0.008,
+                hi: 1.2e5,
+            },
+            10,
+        );
         let labels: Vec<&str> = t.iter().map(|t| t.label.as_str()).collect();
-        assert_eq!(labels, ["10⁻²", "10⁻¹", "10⁰", "10¹", "10²", "10³", "10⁴", "10⁵"]);
+        assert_eq!(
+            labels,
+            ["10⁻²", "10⁻¹", "10⁰", "10¹", "10²", "10³", "10⁴", "10⁵"]
+        );
         assert!(minor.contains(&0.02));
         let (t, _) = log_ticks(Range { lo: 1e-9, hi: 1e9 }, 6);
         assert!(t.len() <= 6 && t.len() >= 4, "{t:?}");
-        let (t, _) = log_ticks(Range { lo: 150.0, hi: 900.0 }, 8);
+        let (t, _) = log_ticks(
+            Range {
+                lo: 150.0,
+                hi: 900.0,
+            },
+            8,
+        );
         let labels: Vec<&str> = t.iter().map(|t| t.label.as_str()).collect();
-        assert_eq!(labels, ["200", "300", "400", "500", "600", "700", "800", "900"]);
-        let (t, minor) = log_ticks(Range { lo: 55.0, hi: 340.0 }, 3);
+        assert_eq!(
+            labels,
+            ["200", "300", "400", "500", "600", "700", "800", "900"]
+        );
+        let (t, minor) = log_ticks(
+            Range {
+                lo: 55.0,
+                hi: 340.0,
+            },
+            3,
+        );
         let labels: Vec<&str> = t.iter().map(|t| t.label.as_str()).collect();
         assert_eq!(labels, ["100", "200", "300"]);
         assert!(minor.contains(&60.0));
-        let (t, _) = log_ticks(Range { lo: 100.0, hi: 101.0 }, 8);
+        let (t, _) = log_ticks(
+            Range {
+                lo: 100.0,
+                hi: 101.0,
+            },
+            8,
+        );
         assert!(!t.is_empty());
     }
 
@@ -431,7 +472,11 @@ mod tests {
         assert!(r.span() > 0.0);
         let r = Range { lo: 10.0, hi: 10.0 }.padded(0.05, true);
         assert!(r.lo < 10.0 && r.hi > 10.0);
-        let r = Range { lo: -1e300, hi: 1e300 }.padded(0.05, false);
+        let r = Range {
+            lo: -1e300,
+            hi: 1e300,
+        }
+        .padded(0.05, false);
         assert!(r.span().is_finite());
     }
 

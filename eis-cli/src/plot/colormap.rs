@@ -221,7 +221,9 @@ mod tests {
         let l: Vec<f64> = lut().iter().map(|c| c[0]).collect();
         assert!(l.windows(2).all(|w| w[1] > w[0]), "lookup table lightness");
         // After 8-bit rounding, at the resolution a colour bar shows.
-        let shown: Vec<f64> = (0..=32).map(|k| oklab_of(sequential(k as f64 / 32.0))[0]).collect();
+        let shown: Vec<f64> = (0..=32)
+            .map(|k| oklab_of(sequential(k as f64 / 32.0))[0])
+            .collect();
         assert!(shown.windows(2).all(|w| w[1] > w[0]), "{shown:?}");
         assert!(shown[0] < 0.32 && shown[32] > 0.80);
     }
@@ -242,7 +244,10 @@ mod tests {
         assert_eq!(sequential(f64::NAN), Rgb(0x99, 0x99, 0x99));
         for c in lut() {
             let rgb = oklab_to_linear_srgb(*c);
-            assert!(rgb.iter().all(|v| (-1e-6..=1.0 + 1e-6).contains(v)), "{rgb:?}");
+            assert!(
+                rgb.iter().all(|v| (-1e-6..=1.0 + 1e-6).contains(v)),
+                "{rgb:?}"
+            );
         }
     }
 }

@@ -29,9 +29,10 @@ pub struct Sizes {
 }
 
 impl Sizes {
-    /// Sizes for a picture of `width` × `height` pixels (tuned at 900 × 650).
+    /// Sizes for a picture of `width` × `height` pixels (tuned at 900 × 650). They follow the
+    /// picture's area, so a tall narrow picture keeps readable text.
     pub fn for_page(width: f64, height: f64) -> Sizes {
-        let k = (width / 900.0).min(height / 650.0).clamp(0.6, 4.0);
+        let k = ((width * height) / (900.0 * 650.0)).sqrt().clamp(0.75, 4.0);
         Sizes {
             title: 22.0 * k,
             label: 18.0 * k,
@@ -197,8 +198,16 @@ impl Panel {
     }
     /// Pixel position of a data point (non-finite when it cannot be shown).
     pub fn pt(&self, x: f64, y: f64) -> (f64, f64) {
-        let ok_x = if self.x.log { axis::usable_log(x) } else { axis::usable(x) };
-        let ok_y = if self.y.log { axis::usable_log(y) } else { axis::usable(y) };
+        let ok_x = if self.x.log {
+            axis::usable_log(x)
+        } else {
+            axis::usable(x)
+        };
+        let ok_y = if self.y.log {
+            axis::usable_log(y)
+        } else {
+            axis::usable(y)
+        };
         if ok_x && ok_y {
             (self.px(x), self.py(y))
         } else {
@@ -325,7 +334,10 @@ pub fn draw_axes(sc: &mut Scene, p: &Panel, s: &Sizes) {
     if p.x_labels {
         sc.text(
             p.x.title.clone(),
-            ((r.x0 + r.x1) / 2.0, r.y1 + major + 4.0 + s.tick + s.label * 0.6),
+            (
+                (r.x0 + r.x1) / 2.0,
+                r.y1 + major + 4.0 + s.tick + s.label * 0.6,
+            ),
             s.label,
             INK,
             HAlign::Center,
@@ -333,15 +345,17 @@ pub fn draw_axes(sc: &mut Scene, p: &Panel, s: &Sizes) {
             false,
         );
     }
-    let widest = p
-        .y
-        .ticks
-        .iter()
-        .map(|t| measure(&t.label, s.tick).0)
-        .fold(0.0, f64::max);
+    let widest =
+        p.y.ticks
+            .iter()
+            .map(|t| measure(&t.label, s.tick).0)
+            .fold(0.0, f64::max);
     sc.text(
         p.y.title.clone(),
-        (r.x0 - major - 4.0 - widest - s.tick * 0.5 - s.label * 0.6, (r.y0 + r.y1) / 2.0),
+        (
+            r.x0 - major - 4.0 - widest - s.tick * 0.5 - s.label * 0.6,
+            (r.y0 + r.y1) / 2.0,
+        ),
         s.label,
         INK,
         HAlign::Center,
@@ -425,8 +439,11 @@ pub fn draw_legend(sc: &mut Scene, entries: &[Entry], area: Rect, s: &Sizes) {
     let gap = s.legend * 1.4;
     let row_h = s.legend * 1.5;
     for (r, row) in legend_rows(entries, area.w(), s).iter().enumerate() {
-        let total: f64 =
-            row.iter().map(|&i| entry_width(&entries[i], s)).sum::<f64>() + gap * (row.len() as f64 - 1.0);
+        let total: f64 = row
+            .iter()
+            .map(|&i| entry_width(&entries[i], s))
+            .sum::<f64>()
+            + gap * (row.len() as f64 - 1.0);
         let mut x = area.x0 + (area.w() - total).max(0.0) / 2.0;
         let y = area.y0 + s.legend * 0.5 + row_h * (r as f64 + 0.5);
         for &i in row {
@@ -483,7 +500,11 @@ impl ColorBar {
     /// Position 0..=1 of `v` on the bar.
     pub fn frac(&self, v: f64) -> f64 {
         let span = self.range.span();
-        if span > 0.0 { ((v - self.range.lo) / span).clamp(0.0, 1.0) } else { 0.5 }
+        if span > 0.0 {
+            ((v - self.range.lo) / span).clamp(0.0, 1.0)
+        } else {
+            0.5
+        }
     }
 
     fn ticks(&self, px: f64, s: &Sizes) -> Vec<Tick> {
@@ -525,12 +546,23 @@ impl ColorBar {
         for t in &ticks {
             let y = bottom - self.frac(t.value) * (bottom - top);
             sc.line((bx1, y), (bx1 + 5.0, y), INK, 1.0);
-            sc.text(t.label.clone(), (bx1 + 8.0, y), s.legend, INK, HAlign::Left, VAlign::Middle, false);
+            sc.text(
+                t.label.clone(),
+                (bx1 + 8.0, y),
+                s.legend,
+                INK,
+                HAlign::Left,
+                VAlign::Middle,
+                false,
+            );
             widest = widest.max(measure(&t.label, s.legend).0);
         }
         sc.text(
             self.label.clone(),
-            (bx1 + 8.0 + widest + s.legend * 0.8 + s.legend * 0.5, (top + bottom) / 2.0),
+            (
+                bx1 + 8.0 + widest + s.legend * 0.8 + s.legend * 0.5,
+                (top + bottom) / 2.0,
+            ),
             s.legend,
             INK,
             HAlign::Center,
@@ -562,7 +594,15 @@ pub fn page(
     let (w, h) = (sc.width, sc.height);
     let mut top = s.pad;
     if !title.is_empty() {
-        sc.text(title.to_owned(), (w / 2.0, s.pad), s.title, INK, HAlign::Center, VAlign::Top, false);
+        sc.text(
+            title.to_owned(),
+            (w / 2.0, s.pad),
+            s.title,
+            INK,
+            HAlign::Center,
+            VAlign::Top,
+            false,
+        );
         top += s.title * 1.35;
     }
     let inner_w = w - 2.0 * s.pad;
@@ -652,7 +692,15 @@ pub fn draw_annotations(
             let to = (anchor.0.clamp(r.x0, r.x1), anchor.1.clamp(r.y0, r.y1));
             sc.line(*anchor, to, MUTED, 1.0);
         }
-        sc.text(text.clone(), c, s.note, INK, HAlign::Center, VAlign::Middle, false);
+        sc.text(
+            text.clone(),
+            c,
+            s.note,
+            INK,
+            HAlign::Center,
+            VAlign::Middle,
+            false,
+        );
         taken.push(r);
     }
 }

@@ -4,13 +4,13 @@
 use super::axis::{self, Range};
 use super::colormap::{self, FLAG, Rgb};
 use super::frame::{
-    self, AxisSpec, ColorBar, Entry, Panel, Rect, Sample, Sizes, draw_annotations, draw_axes, draw_grid,
-    draw_legend, draw_no_data, place_panel, refit_panel,
+    self, AxisSpec, ColorBar, Entry, Panel, Rect, Sample, Sizes, draw_annotations, draw_axes,
+    draw_grid, draw_legend, draw_no_data, place_panel, refit_panel,
 };
 use super::scene::{MUTED, Paint, Scene, Shape};
 use super::{
-    Annotation, BodePlot, DrtPeak, DrtPlot, NyquistPlot, OverlayPlot, Plot, ResidualPlot, SeriesData, Style,
-    TrendPlot,
+    Annotation, BodePlot, DrtPeak, DrtPlot, NyquistPlot, OverlayPlot, Plot, ResidualPlot,
+    SeriesData, Style, TrendPlot,
 };
 use num_complex::Complex64;
 
@@ -35,7 +35,9 @@ fn prominent_maxima(y: &[f64], min_prominence: f64) -> Vec<usize> {
     let n = y.len();
     let mut out = Vec::new();
     for i in 1..n.saturating_sub(1) {
-        if !y[i].is_finite() || !(y[i] > y[i - 1]) || !(y[i] >= y[i + 1]) {
+        let (before, after) = (y[i - 1], y[i + 1]);
+        if !y[i].is_finite() || before.is_nan() || after.is_nan() || y[i] <= before || y[i] < after
+        {
             continue;
         }
         // Lowest value between the peak and the nearest higher point on one side (an equal point
@@ -126,7 +128,7 @@ fn nyquist_points(z: &[Complex64]) -> Vec<(f64, f64)> {
 /// Widens the ranges so that Ω per pixel is the same on both axes for a `w` × `h` plotting area.
 fn equalize(x: Range, y: Range, w: f64, h: f64, grow_up: bool) -> (Range, Range) {
     let k = (x.span() / w).max(y.span() / h);
-    if !(k > 0.0) || !k.is_finite() {
+    if !k.is_finite() || k <= 0.0 {
         return (x, y);
     }
     let mid = 0.5 * (x.lo + x.hi);
@@ -172,7 +174,11 @@ fn nyquist_panel(body: Rect, pts: &[(f64, f64)], anchors: &[(f64, f64)], s: &Siz
     let base_y = yr.padded(0.05, false);
     let grow_up = yr.hi > 0.0;
     let room = s.note * 2.0 + s.marker * 6.0 + 8.0;
-    let top_anchor = anchors.iter().map(|a| a.1).filter(|v| axis::usable(*v)).fold(f64::NEG_INFINITY, f64::max);
+    let top_anchor = anchors
+        .iter()
+        .map(|a| a.1)
+        .filter(|v| axis::usable(*v))
+        .fold(f64::NEG_INFINITY, f64::max);
     let (mut ex, mut ey) = (base_x, base_y);
     let mut left = 0.0;
     let mut k_prev: f64 = 0.0;
@@ -230,7 +236,12 @@ fn series_entries(series: &[SeriesData], shapes: bool) -> Vec<Entry> {
 }
 
 fn shape_of(i: usize) -> Shape {
-    [Shape::Circle, Shape::Square, Shape::Triangle, Shape::Diamond][i % 4]
+    [
+        Shape::Circle,
+        Shape::Square,
+        Shape::Triangle,
+        Shape::Diamond,
+    ][i % 4]
 }
 
 /// Draws one series of pixel points in its style.
@@ -248,7 +259,8 @@ fn draw_series(sc: &mut Scene, pts: &[(f64, f64)], style: Style, c: Rgb, shape: 
 fn nyquist(sc: &mut Scene, plot: &NyquistPlot, s: &Sizes) {
     let entries = series_entries(&plot.series, true);
     let page = frame::page(sc, &plot.title, &entries, None, s);
-    let per_series: Vec<Vec<(f64, f64)>> = plot.series.iter().map(|d| nyquist_points(&d.z)).collect();
+    let per_series: Vec<Vec<(f64, f64)>> =
+        plot.series.iter().map(|d| nyquist_points(&d.z)).collect();
     let all: Vec<(f64, f64)> = per_series.iter().flatten().copied().collect();
     let anchors: Vec<(f64, f64)> = plot.annotations.iter().map(|a| (a.z.re, -a.z.im)).collect();
     let panel = nyquist_panel(page.body, &all, &anchors, s);
@@ -274,10 +286,19 @@ fn nyquist(sc: &mut Scene, plot: &NyquistPlot, s: &Sizes) {
 }
 
 fn overlay(sc: &mut Scene, plot: &OverlayPlot, s: &Sizes) {
-    let values: Vec<f64> = plot.spectra.iter().map(|o| o.value).filter(|v| axis::usable(*v)).collect();
+    let values: Vec<f64> = plot
+        .spectra
+        .iter()
+        .map(|o| o.value)
+        .filter(|v| axis::usable(*v))
+        .collect();
     let range = Range::of(values.iter().copied(), false).unwrap_or(Range { lo: 0.0, hi: 1.0 });
     let integer = !values.is_empty() && values.iter().all(|v| v.fract() == 0.0);
-    let range = if range.span() > 0.0 { range } else { range.padded(0.05, false) };
+    let range = if range.span() > 0.0 {
+        range
+    } else {
+        range.padded(0.05, false)
+    };
     let bar = ColorBar {
         label: plot.colorbar_label.clone(),
         range,
@@ -301,7 +322,8 @@ fn overlay(sc: &mut Scene, plot: &OverlayPlot, s: &Sizes) {
         };
         let px: Vec<(f64, f64)> = per[i].iter().map(|p| panel.pt(p.0, p.1)).collect();
         sc.path(&px, c, s.line * 0.75);
-        px.iter().for_each(|&p| sc.marker(Shape::Circle, p, s.marker * 0.75, c));
+        px.iter()
+            .for_each(|&p| sc.marker(Shape::Circle, p, s.marker * 0.75, c));
     }
     if all.is_empty() {
         draw_no_data(sc, &panel, s, "no finite impedance values to show");
@@ -433,8 +455,22 @@ fn residuals(sc: &mut Scene, plot: &ResidualPlot, s: &Sizes) {
         v.sort_by(|a, b| a.0.total_cmp(&b.0));
         v.iter().map(|p| panel.pt(p.0, p.1)).collect::<Vec<_>>()
     };
-    draw_series(sc, &sorted(&re), Style::MarkersAndLine, c_re, Shape::Circle, s);
-    draw_series(sc, &sorted(&im), Style::MarkersAndLine, c_im, Shape::Triangle, s);
+    draw_series(
+        sc,
+        &sorted(&re),
+        Style::MarkersAndLine,
+        c_re,
+        Shape::Circle,
+        s,
+    );
+    draw_series(
+        sc,
+        &sorted(&im),
+        Style::MarkersAndLine,
+        c_im,
+        Shape::Triangle,
+        s,
+    );
     if re.is_empty() && im.is_empty() {
         draw_no_data(sc, &panel, s, "no finite residuals to show");
     }
@@ -475,18 +511,28 @@ fn drt(sc: &mut Scene, plot: &DrtPlot, s: &Sizes) {
         .iter()
         .filter(|p| axis::usable_log(p.tau) && axis::usable(p.gamma))
         .collect();
-    let tr = Range::of(pts.iter().map(|p| p.0).chain(peaks.iter().map(|p| p.tau)), true)
-        .unwrap_or(Range { lo: 1e-6, hi: 1.0 })
-        .padded(0.03, true);
-    let gr = Range::of(pts.iter().map(|p| p.1).chain(peaks.iter().map(|p| p.gamma)), false)
-        .unwrap_or(Range { lo: 0.0, hi: 1.0 })
-        .including(0.0);
+    let tr = Range::of(
+        pts.iter().map(|p| p.0).chain(peaks.iter().map(|p| p.tau)),
+        true,
+    )
+    .unwrap_or(Range { lo: 1e-6, hi: 1.0 })
+    .padded(0.03, true);
+    let gr = Range::of(
+        pts.iter().map(|p| p.1).chain(peaks.iter().map(|p| p.gamma)),
+        false,
+    )
+    .unwrap_or(Range { lo: 0.0, hi: 1.0 })
+    .including(0.0);
     // Headroom above the highest peak for its label.
     let gr = Range {
         lo: gr.lo - gr.span() * 0.03,
         hi: gr.hi + gr.span() * if peaks.is_empty() { 0.06 } else { 0.22 },
     };
-    let gr = if gr.span() > 0.0 { gr } else { gr.padded(0.05, false) };
+    let gr = if gr.span() > 0.0 {
+        gr
+    } else {
+        gr.padded(0.05, false)
+    };
     let xs = AxisSpec::log(tr, "τ", "s", false);
     let ys = AxisSpec::linear(gr, "γ", "Ω");
     let (panel, _) = place_panel(page.body, &xs, &ys, true, 0.0, s);
@@ -501,7 +547,10 @@ fn drt(sc: &mut Scene, plot: &DrtPlot, s: &Sizes) {
     let notes: Vec<((f64, f64), String)> = peaks
         .iter()
         .map(|p| {
-            let text = p.label.clone().unwrap_or_else(|| format!("τ = {}", axis::quantity(p.tau, "s")));
+            let text = p
+                .label
+                .clone()
+                .unwrap_or_else(|| format!("τ = {}", axis::quantity(p.tau, "s")));
             (panel.pt(p.tau, p.gamma), text)
         })
         .collect();
@@ -510,7 +559,10 @@ fn drt(sc: &mut Scene, plot: &DrtPlot, s: &Sizes) {
     for w in px.windows(2) {
         for k in 0..4 {
             let f = k as f64 / 4.0;
-            obstacles.push((w[0].0 + (w[1].0 - w[0].0) * f, w[0].1 + (w[1].1 - w[0].1) * f));
+            obstacles.push((
+                w[0].0 + (w[1].0 - w[0].0) * f,
+                w[0].1 + (w[1].1 - w[0].1) * f,
+            ));
         }
     }
     obstacles.extend(px.last().copied());
@@ -519,7 +571,11 @@ fn drt(sc: &mut Scene, plot: &DrtPlot, s: &Sizes) {
 }
 
 fn trend(sc: &mut Scene, plot: &TrendPlot, s: &Sizes) {
-    let any_flag = plot.series.iter().flat_map(|c| &c.points).any(|p| p.flagged);
+    let any_flag = plot
+        .series
+        .iter()
+        .flat_map(|c| &c.points)
+        .any(|p| p.flagged);
     let any_err = plot
         .series
         .iter()
@@ -530,7 +586,11 @@ fn trend(sc: &mut Scene, plot: &TrendPlot, s: &Sizes) {
         .iter()
         .enumerate()
         .map(|(i, c)| Entry {
-            label: if c.label.is_empty() { format!("series {}", i + 1) } else { c.label.clone() },
+            label: if c.label.is_empty() {
+                format!("series {}", i + 1)
+            } else {
+                c.label.clone()
+            },
             sample: Sample::MarkerLine(shape_of(i), colormap::series(i)),
         })
         .collect();
@@ -548,7 +608,11 @@ fn trend(sc: &mut Scene, plot: &TrendPlot, s: &Sizes) {
     }
     let page = frame::page(sc, &plot.title, &entries, None, s);
     let ok = |p: &&super::TrendPoint| axis::usable(p.x) && axis::usable(p.y);
-    let err = |p: &super::TrendPoint| p.y_err.filter(|e| axis::usable(*e) && *e > 0.0).unwrap_or(0.0);
+    let err = |p: &super::TrendPoint| {
+        p.y_err
+            .filter(|e| axis::usable(*e) && *e > 0.0)
+            .unwrap_or(0.0)
+    };
     let points = || plot.series.iter().flat_map(|c| c.points.iter()).filter(ok);
     let xr = Range::of(points().map(|p| p.x), false).unwrap_or(Range { lo: 0.0, hi: 1.0 });
     let yr = Range::union(
@@ -617,7 +681,13 @@ mod tests {
 
     #[test]
     fn equalize_gives_same_ohm_per_pixel() {
-        let (x, y) = equalize(Range { lo: 0.0, hi: 100.0 }, Range { lo: 0.0, hi: 10.0 }, 700.0, 400.0, true);
+        let (x, y) = equalize(
+            Range { lo: 0.0, hi: 100.0 },
+            Range { lo: 0.0, hi: 10.0 },
+            700.0,
+            400.0,
+            true,
+        );
         assert!((x.span() / 700.0 - y.span() / 400.0).abs() < 1e-12);
         assert_eq!(y.lo, 0.0);
         assert_eq!(x.span(), 100.0);

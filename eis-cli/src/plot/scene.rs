@@ -17,14 +17,9 @@ pub const FAMILY: &str = "DejaVu Sans, sans-serif";
 /// Registers the embedded font with plotters once; every text measurement and PNG needs it.
 pub fn ensure_font() -> Result<(), PlotError> {
     static DONE: OnceLock<bool> = OnceLock::new();
-    let ok = *DONE.get_or_init(|| {
-        plotters::style::register_font(FAMILY, FontStyle::Normal, FONT).is_ok()
-    });
-    if ok {
-        Ok(())
-    } else {
-        Err(PlotError::Font)
-    }
+    let ok = *DONE
+        .get_or_init(|| plotters::style::register_font(FAMILY, FontStyle::Normal, FONT).is_ok());
+    if ok { Ok(()) } else { Err(PlotError::Font) }
 }
 
 fn font(size: f64) -> FontDesc<'static> {
@@ -252,14 +247,23 @@ impl Scene {
             Shape::Square => {
                 let s = r * 0.9;
                 self.prims.push(Prim::Polygon {
-                    pts: vec![(x - s, y - s), (x + s, y - s), (x + s, y + s), (x - s, y + s)],
+                    pts: vec![
+                        (x - s, y - s),
+                        (x + s, y - s),
+                        (x + s, y + s),
+                        (x - s, y + s),
+                    ],
                     paint,
                 });
             }
             Shape::Triangle => {
                 let s = r * 1.2;
                 self.prims.push(Prim::Polygon {
-                    pts: vec![(x, y - s), (x + s * 0.87, y + s * 0.5), (x - s * 0.87, y + s * 0.5)],
+                    pts: vec![
+                        (x, y - s),
+                        (x + s * 0.87, y + s * 0.5),
+                        (x - s * 0.87, y + s * 0.5),
+                    ],
                     paint,
                 });
             }

@@ -47,7 +47,12 @@ fn slope(x: &[f64], y: &[f64]) -> f64 {
 #[test]
 fn nyquist_has_equal_scaling_in_every_shape_of_picture() {
     let (f, z) = cell();
-    for (w, h) in [(900.0, 650.0), (600.0, 900.0), (1600.0, 500.0), (300.0, 200.0)] {
+    for (w, h) in [
+        (900.0, 650.0),
+        (600.0, 900.0),
+        (1600.0, 500.0),
+        (300.0, 200.0),
+    ] {
         let sc = kinds::scene(&nyquist_of(f.clone(), z.clone()), w, h);
         let px = circles(&sc);
         assert_eq!(px.len(), z.len(), "one marker per point at {w}×{h}");
@@ -56,7 +61,10 @@ fn nyquist_has_equal_scaling_in_every_shape_of_picture() {
         let kx = slope(&re, &px.iter().map(|p| p.0).collect::<Vec<_>>());
         let ky = slope(&im, &px.iter().map(|p| p.1).collect::<Vec<_>>());
         assert!(kx > 0.0 && ky < 0.0, "x right, −Z″ up");
-        assert!((kx / -ky - 1.0).abs() < 1e-9, "pixels per Ω {kx} vs {ky} at {w}×{h}");
+        assert!(
+            (kx / -ky - 1.0).abs() < 1e-9,
+            "pixels per Ω {kx} vs {ky} at {w}×{h}"
+        );
     }
 }
 
@@ -107,13 +115,22 @@ fn well_formed(svg: &str) -> Result<usize, String> {
         count += 1;
         rest = &rest[j + 1..];
     }
-    if stack.is_empty() { Ok(count) } else { Err(format!("unclosed {stack:?}")) }
+    if stack.is_empty() {
+        Ok(count)
+    } else {
+        Err(format!("unclosed {stack:?}"))
+    }
 }
 
 fn every_kind() -> Vec<Plot> {
     let (f, z) = cell();
-    let tau: Vec<f64> = (0..60).map(|k| 10f64.powf(-6.0 + 0.12 * k as f64)).collect();
-    let gamma: Vec<f64> = tau.iter().map(|t| 0.01 * (-(t.log10() + 2.0).powi(2)).exp()).collect();
+    let tau: Vec<f64> = (0..60)
+        .map(|k| 10f64.powf(-6.0 + 0.12 * k as f64))
+        .collect();
+    let gamma: Vec<f64> = tau
+        .iter()
+        .map(|t| 0.01 * (-(t.log10() + 2.0).powi(2)).exp())
+        .collect();
     vec![
         nyquist_of(f.clone(), z.clone()),
         Plot::Bode(BodePlot {
@@ -194,9 +211,12 @@ fn overlay_draws_a_colour_bar() {
         .prims
         .iter()
         .filter_map(|p| match p {
-            Prim::Rect { a, paint, fill: true, .. } if paint.rgb != super::colormap::Rgb(255, 255, 255) => {
-                Some((a.0, paint.rgb))
-            }
+            Prim::Rect {
+                a,
+                paint,
+                fill: true,
+                ..
+            } if paint.rgb != super::colormap::Rgb(255, 255, 255) => Some((a.0, paint.rgb)),
             _ => None,
         })
         .collect();
@@ -222,9 +242,23 @@ fn odd_data_never_panics() {
     let spectra: Vec<(Vec<f64>, Vec<Complex64>)> = vec![
         (vec![], vec![]),
         (vec![1e3], vec![c(0.01, -0.002)]),
-        (vec![1e3, 1e4, 1e5], vec![c(0.01, 0.001), c(0.011, 0.01), c(0.012, 0.1)]),
-        (vec![1e-6, 1.0, 1e9], vec![c(1e-3, -1e-9), c(1e8, -5e7), c(1e9, -1.0)]),
-        (vec![10.0, f64::NAN, -1.0, 0.0], vec![c(f64::NAN, 1.0), c(1.0, f64::INFINITY), c(1.0, -1.0), c(2.0, -1.0)]),
+        (
+            vec![1e3, 1e4, 1e5],
+            vec![c(0.01, 0.001), c(0.011, 0.01), c(0.012, 0.1)],
+        ),
+        (
+            vec![1e-6, 1.0, 1e9],
+            vec![c(1e-3, -1e-9), c(1e8, -5e7), c(1e9, -1.0)],
+        ),
+        (
+            vec![10.0, f64::NAN, -1.0, 0.0],
+            vec![
+                c(f64::NAN, 1.0),
+                c(1.0, f64::INFINITY),
+                c(1.0, -1.0),
+                c(2.0, -1.0),
+            ],
+        ),
         (vec![1.0, 2.0], vec![c(5.0, -1.0), c(5.0, -1.0)]),
         (vec![1.0, 2.0], vec![c(0.0, 0.0), c(0.0, 0.0)]),
         (vec![1.0, 2.0], vec![c(1e305, -1e305), c(-1e305, 1e305)]),
@@ -296,14 +330,26 @@ fn odd_data_never_panics() {
 #[test]
 fn sizes_outside_the_limits_are_errors() {
     let plot = every_kind().remove(0);
-    assert!(matches!(render(&plot, Format::Svg, 50, 650), Err(PlotError::Size { .. })));
-    assert!(matches!(render(&plot, Format::Png, 900, 20_000), Err(PlotError::Size { .. })));
+    assert!(matches!(
+        render(&plot, Format::Svg, 50, 650),
+        Err(PlotError::Size { .. })
+    ));
+    assert!(matches!(
+        render(&plot, Format::Png, 900, 20_000),
+        Err(PlotError::Size { .. })
+    ));
 }
 
 #[test]
 fn format_from_extension() {
     use std::path::Path;
-    assert_eq!(Format::from_extension(Path::new("a/b.PNG")), Some(Format::Png));
-    assert_eq!(Format::from_extension(Path::new("b.svg")), Some(Format::Svg));
+    assert_eq!(
+        Format::from_extension(Path::new("a/b.PNG")),
+        Some(Format::Png)
+    );
+    assert_eq!(
+        Format::from_extension(Path::new("b.svg")),
+        Some(Format::Svg)
+    );
     assert_eq!(Format::from_extension(Path::new("b.pdf")), None);
 }
