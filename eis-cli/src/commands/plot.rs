@@ -118,6 +118,14 @@ pub fn run(args: Args) -> Outcome {
         Some(FormatArg::Png) => Some(Format::Png),
         None => None,
     };
+    if let (Some(asked), Some(by_name)) = (format, Format::from_extension(&args.output)) {
+        if asked != by_name {
+            eprintln!(
+                "warning: writing {asked:?} to {}, whose extension says {by_name:?}",
+                args.output.display()
+            );
+        }
+    }
     write_plot(
         &plot,
         &args.output,

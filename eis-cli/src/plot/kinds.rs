@@ -132,10 +132,16 @@ fn equalize(x: Range, y: Range, w: f64, h: f64, grow_up: bool) -> (Range, Range)
         return (x, y);
     }
     let mid = 0.5 * (x.lo + x.hi);
-    let xr = Range {
+    let mut xr = Range {
         lo: mid - 0.5 * k * w,
         hi: mid + 0.5 * k * w,
     };
+    // Widening a range of positive resistances should not invent negative ones: start at zero
+    // (or as near to it as the width allows) instead of centring.
+    if x.lo >= 0.0 && xr.lo < 0.0 {
+        let lo = (x.hi - k * w).max(0.0).min(x.lo);
+        xr = Range { lo, hi: lo + k * w };
+    }
     let yr = if grow_up {
         Range {
             lo: y.lo,
@@ -691,5 +697,15 @@ mod tests {
         assert!((x.span() / 700.0 - y.span() / 400.0).abs() < 1e-12);
         assert_eq!(y.lo, 0.0);
         assert_eq!(x.span(), 100.0);
+        // A tall area widens x; a positive range starts at zero rather than going negative.
+        let (x, y) = equalize(
+            Range { lo: 10.0, hi: 50.0 },
+            Range { lo: 0.0, hi: 80.0 },
+            400.0,
+            400.0,
+            true,
+        );
+        assert_eq!((x.lo, x.hi), (0.0, 80.0));
+        assert_eq!(y.span(), 80.0);
     }
 }
