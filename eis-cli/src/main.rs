@@ -4,6 +4,7 @@
 
 mod commands;
 mod io;
+mod plot;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -20,6 +21,7 @@ struct Cli {
 enum Command {
     Simulate(commands::simulate::Args),
     Inspect(commands::inspect::Args),
+    Plot(commands::plot::Args),
 }
 
 fn main() -> ExitCode {
@@ -27,6 +29,7 @@ fn main() -> ExitCode {
     let outcome = match cli.command {
         Command::Simulate(a) => commands::simulate::run(a),
         Command::Inspect(a) => commands::inspect::run(a),
+        Command::Plot(a) => commands::plot::run(a),
     };
     match outcome {
         Ok(code) => code,

@@ -1,4 +1,5 @@
 //! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
 
+mod plot;
 mod reference_impedance;
 mod simulate;

@@ -1,4 +1,5 @@
 //! One module per subcommand: arguments (clap) and a `run` that calls the library.
 
 pub mod inspect;
+pub mod plot;
 pub mod simulate;
