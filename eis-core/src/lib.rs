@@ -27,8 +27,10 @@
 #![warn(missing_docs)]
 
 pub mod circuit;
+pub mod drt;
 pub mod element;
 pub mod eval;
+pub mod nnls;
 pub mod number;
 pub mod simulate;
 pub mod spectrum;
