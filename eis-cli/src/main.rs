@@ -20,6 +20,7 @@ struct Cli {
 enum Command {
     Simulate(commands::simulate::Args),
     Inspect(commands::inspect::Args),
+    Drt(commands::drt::Args),
 }
 
 fn main() -> ExitCode {
@@ -27,6 +28,7 @@ fn main() -> ExitCode {
     let outcome = match cli.command {
         Command::Simulate(a) => commands::simulate::run(a),
         Command::Inspect(a) => commands::inspect::run(a),
+        Command::Drt(a) => commands::drt::run(a),
     };
     match outcome {
         Ok(code) => code,

@@ -1,3 +1,4 @@
 //! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
 
+mod drt;
 mod simulate;

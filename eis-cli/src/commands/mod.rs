@@ -1,4 +1,5 @@
 //! One module per subcommand: arguments (clap) and a `run` that calls the library.
 
+pub mod drt;
 pub mod inspect;
 pub mod simulate;
