@@ -928,7 +928,6 @@ impl DrtSetup {
         mut warnings: Vec<String>,
     ) -> Result<DrtResult, DrtError> {
         let n = self.omega.len();
-        let m = self.centres.len();
         let mut col = 0;
         let mut r_inf = 0.0;
         if self.has_r_inf {
@@ -993,7 +992,6 @@ impl DrtSetup {
                 "the DRT result is not finite",
             )));
         }
-        let _ = m;
         Ok(DrtResult {
             lambda,
             lambda_method: self.options.lambda.name(),
