@@ -22,6 +22,7 @@ enum Command {
     Simulate(commands::simulate::Args),
     Inspect(commands::inspect::Args),
     Plot(commands::plot::Args),
+    Drt(commands::drt::Args),
 }
 
 fn main() -> ExitCode {
@@ -30,6 +31,7 @@ fn main() -> ExitCode {
         Command::Simulate(a) => commands::simulate::run(a),
         Command::Inspect(a) => commands::inspect::run(a),
         Command::Plot(a) => commands::plot::run(a),
+        Command::Drt(a) => commands::drt::run(a),
     };
     match outcome {
         Ok(code) => code,

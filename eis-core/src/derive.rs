@@ -91,6 +91,9 @@ pub const SHORT_CIRCUIT_CAUTION: &str = "estimates from a linear small-signal mo
 cell departs from them at high current, and shorting a cell is dangerous (heat, fire, venting). Never test \
 them by shorting a cell; follow your lab's safety rules";
 
+/// Pairs of circuit parameter index and partial derivative.
+type Gradient = Vec<(usize, f64)>;
+
 /// Propagates a gradient (pairs of circuit parameter index and ∂f/∂p) through the fit covariance.
 /// None if a free parameter involved has no standard error.
 fn delta(r: &FitResult, grad: &[(usize, f64)]) -> Option<f64> {
@@ -156,7 +159,7 @@ fn limit(c: &Circuit, node: &Node, p: &[f64], high: bool) -> Lim {
             if closed.is_empty() {
                 return open(f64::NAN);
             }
-            if closed.iter().any(|&r| r == 0.0) {
+            if closed.contains(&0.0) {
                 return fin(0.0);
             }
             fin(1.0 / closed.iter().map(|r| 1.0 / r).sum::<f64>())
@@ -275,7 +278,7 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
                 value: rv,
                 stderr: delta(r, &[(ri, 1.0)]),
             };
-            let (tau, tau_grad, cap, cap_grad): (f64, Vec<(usize, f64)>, f64, Vec<(usize, f64)>) =
+            let (tau, tau_grad, cap, cap_grad): (f64, Gradient, f64, Gradient) =
                 if ce.kind.symbol == "C" {
                     let cv = p[ci];
                     (rv * cv, vec![(ri, cv), (ci, rv)], cv, vec![(ci, 1.0)])

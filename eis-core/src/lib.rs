@@ -28,9 +28,11 @@
 
 pub mod circuit;
 pub mod derive;
+pub mod drt;
 pub mod element;
 pub mod eval;
 pub mod fit;
+pub mod nnls;
 pub mod number;
 pub mod report;
 pub mod simulate;

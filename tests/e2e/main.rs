@@ -1,5 +1,6 @@
 //! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
 
+mod drt;
 mod plot;
 mod reference_impedance;
 mod simulate;

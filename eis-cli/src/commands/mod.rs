@@ -1,5 +1,6 @@
 //! One module per subcommand: arguments (clap) and a `run` that calls the library.
 
+pub mod drt;
 pub mod inspect;
 pub mod plot;
 pub mod simulate;

@@ -1,0 +1,145 @@
+//! `eis drt` on spectra that `eis simulate` writes.
+
+use eis_tests::{eis, scratch};
+
+/// An RC element's DRT is R·δ(ln τ − ln RC): one peak at τ = RC holding R (REFERENCES.md §5).
+#[test]
+fn drt_of_an_rc_reports_one_peak_as_json_and_csv() {
+    let dir = scratch("drt-rc");
+    eis(
+        &dir,
+        &[
+            "simulate",
+            "--model",
+            "R0 + R1|C1",
+            "--set",
+            "R0=5",
+            "--set",
+            "R1=50",
+            "--set",
+            "C1=20u",
+            "--fmin",
+            "0.1",
+            "--fmax",
+            "100k",
+            "--noise",
+            "0.002",
+            "--seed",
+            "3",
+            "-o",
+            "rc.csv",
+        ],
+    )
+    .expect_code(0);
+    let run = eis(&dir, &["drt", "rc.csv", "--json", "-o", "rc-drt.csv"]).expect_code(0);
+    let v: serde_json::Value = serde_json::from_str(&run.stdout).expect("JSON on stdout");
+    for key in [
+        "lambda",
+        "r_inf_ohm",
+        "r_pol_ohm",
+        "tau_s",
+        "gamma_ohm",
+        "peaks",
+    ] {
+        assert!(v.get(key).is_some(), "missing `{key}` in {}", run.stdout);
+    }
+    let peaks = v["peaks"].as_array().unwrap();
+    assert_eq!(peaks.len(), 1, "{peaks:?}");
+    let tau = peaks[0]["tau_s"].as_f64().unwrap();
+    let r = peaks[0]["resistance_ohm"].as_f64().unwrap();
+    let f = peaks[0]["frequency_hz"].as_f64().unwrap();
+    assert!((tau / 1e-3 - 1.0).abs() < 0.03, "τ = {tau}");
+    assert!((r / 50.0 - 1.0).abs() < 0.02, "R = {r}");
+    assert!((f * 2.0 * std::f64::consts::PI * tau - 1.0).abs() < 1e-9);
+    assert!((v["r_inf_ohm"].as_f64().unwrap() / 5.0 - 1.0).abs() < 0.02);
+    assert_eq!(
+        v["tau_s"].as_array().unwrap().len(),
+        v["gamma_ohm"].as_array().unwrap().len()
+    );
+
+    let csv = std::fs::read_to_string(dir.join("rc-drt.csv")).unwrap();
+    let mut lines = csv.lines();
+    assert_eq!(lines.next(), Some("tau_s,frequency_hz,gamma_ohm"));
+    let rows: Vec<Vec<f64>> = lines
+        .map(|l| l.split(',').map(|x| x.parse().unwrap()).collect())
+        .collect();
+    assert_eq!(rows.len(), v["tau_s"].as_array().unwrap().len());
+    assert!(rows.iter().all(|r| r.len() == 3 && r[2] >= 0.0));
+    assert!(rows.windows(2).all(|w| w[0][0] < w[1][0]), "τ ascending");
+}
+
+#[test]
+fn drt_summary_and_options() {
+    let dir = scratch("drt-options");
+    eis(
+        &dir,
+        &[
+            "simulate",
+            "--model",
+            "R0 + R1|C1 + R2|C2",
+            "--set",
+            "R0=2",
+            "--set",
+            "R1=40",
+            "--set",
+            "C1=250n",
+            "--set",
+            "R2=20",
+            "--set",
+            "C2=50u",
+            "--fmin",
+            "0.1",
+            "--fmax",
+            "100k",
+            "-o",
+            "two.csv",
+        ],
+    )
+    .expect_code(0);
+    let run = eis(&dir, &["drt", "two.csv"]).expect_code(0);
+    assert!(run.stdout.contains("peaks        2"), "{}", run.stdout);
+    for extra in [
+        &["--lambda", "1e-4"][..],
+        &["--lambda-method", "lcurve"],
+        &["--penalty", "1"],
+        &["--part", "imag"],
+        &["--part", "real", "--inductance"],
+    ] {
+        let mut args = vec!["drt", "two.csv", "--json"];
+        args.extend_from_slice(extra);
+        let run = eis(&dir, &args).expect_code(0);
+        let v: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+        assert_eq!(v["peaks"].as_array().unwrap().len(), 2, "{extra:?}");
+    }
+}
+
+#[test]
+fn drt_bad_input_exits_with_2() {
+    let dir = scratch("drt-bad");
+    let run = eis(&dir, &["drt", "missing.csv"]).expect_code(2);
+    assert!(
+        run.stderr.contains("cannot read missing.csv"),
+        "{}",
+        run.stderr
+    );
+    std::fs::write(
+        dir.join("short.csv"),
+        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n1,3,-0.5\n",
+    )
+    .unwrap();
+    let run = eis(&dir, &["drt", "short.csv"]).expect_code(2);
+    assert!(run.stderr.contains("needs at least 5"), "{}", run.stderr);
+    std::fs::write(
+        dir.join("zero.csv"),
+        "frequency_hz,z_real_ohm,z_imag_ohm\n1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
+    )
+    .unwrap();
+    let run = eis(&dir, &["drt", "zero.csv"]).expect_code(2);
+    assert!(run.stderr.contains("point 3"), "{}", run.stderr);
+    eis(&dir, &["drt", "zero.csv", "--penalty", "3"]).expect_code(2);
+    eis(&dir, &["drt", "zero.csv", "--lambda", "-1"]).expect_code(2);
+    let run = eis(&dir, &["drt", "zero.csv", "--json", "-o", "-"]).expect_code(2);
+    assert!(run.stderr.contains("stdout"), "{}", run.stderr);
+    let help = eis(&dir, &["drt", "--help"]).expect_code(0);
+    assert!(help.stdout.contains("Examples:") && help.stdout.contains("eis drt"));
+}
