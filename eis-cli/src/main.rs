@@ -2,7 +2,9 @@
 //! `eis-core`, writes files and maps outcomes to exit codes: 0 success, 1 a computation failed or a
 //! result is suspect, 2 bad input or usage.
 
+mod args;
 mod commands;
+mod format;
 mod io;
 mod plot;
 
@@ -23,6 +25,7 @@ enum Command {
     Inspect(commands::inspect::Args),
     Plot(commands::plot::Args),
     Drt(commands::drt::Args),
+    Fit(commands::fit::Args),
 }
 
 fn main() -> ExitCode {
@@ -32,6 +35,7 @@ fn main() -> ExitCode {
         Command::Inspect(a) => commands::inspect::run(a),
         Command::Plot(a) => commands::plot::run(a),
         Command::Drt(a) => commands::drt::run(a),
+        Command::Fit(a) => commands::fit::run(a),
     };
     match outcome {
         Ok(code) => code,

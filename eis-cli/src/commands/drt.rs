@@ -21,7 +21,7 @@ pub struct Args {
     #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(1..))]
     spectrum: Option<u32>,
     /// Fixed regularisation strength λ (skips the automatic choice).
-    #[arg(long, value_parser = parse_nonnegative, conflicts_with = "lambda_method")]
+    #[arg(long, value_parser = crate::args::nonnegative, conflicts_with = "lambda_method")]
     lambda: Option<f64>,
     /// How λ is chosen automatically.
     #[arg(long, value_enum, default_value_t = Method::Gcv)]
@@ -62,13 +62,6 @@ enum Fitted {
     Real,
     /// Imaginary part only.
     Imag,
-}
-
-fn parse_nonnegative(s: &str) -> Result<f64, String> {
-    match eis_core::number::parse_si(s) {
-        Some(v) if v >= 0.0 => Ok(v),
-        _ => Err(format!("`{s}` is not a non-negative number")),
-    }
 }
 
 fn parse_fraction(s: &str) -> Result<f64, String> {

@@ -1,6 +1,7 @@
 //! One module per subcommand: arguments (clap) and a `run` that calls the library.
 
 pub mod drt;
+pub mod fit;
 pub mod inspect;
 pub mod plot;
 pub mod simulate;

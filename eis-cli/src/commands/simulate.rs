@@ -22,10 +22,10 @@ pub struct Args {
     #[arg(long = "set", value_name = "NAME=VALUE")]
     set: Vec<String>,
     /// Lowest frequency in Hz.
-    #[arg(long, default_value = "0.01", value_parser = parse_positive)]
+    #[arg(long, default_value = "0.01", value_parser = crate::args::positive)]
     fmin: f64,
     /// Highest frequency in Hz.
-    #[arg(long, default_value = "100000", value_parser = parse_positive)]
+    #[arg(long, default_value = "100000", value_parser = crate::args::positive)]
     fmax: f64,
     /// Points per decade.
     #[arg(long, default_value_t = 10, value_parser = clap::value_parser!(u32).range(1..=1000))]
@@ -34,7 +34,7 @@ pub struct Args {
     #[arg(long, conflicts_with_all = ["fmin", "fmax", "ppd"])]
     freq_file: Option<PathBuf>,
     /// Gaussian noise relative to |Z| on real and imaginary parts independently (0.01 = 1 %).
-    #[arg(long, value_parser = parse_nonnegative)]
+    #[arg(long, value_parser = crate::args::nonnegative)]
     noise: Option<f64>,
     /// Seed of the noise generator.
     #[arg(long, default_value_t = 1, requires = "noise")]
@@ -42,20 +42,6 @@ pub struct Args {
     /// Output file (default: stdout).
     #[arg(long, short)]
     output: Option<PathBuf>,
-}
-
-fn parse_positive(s: &str) -> Result<f64, String> {
-    match eis_core::number::parse_si(s) {
-        Some(v) if v > 0.0 => Ok(v),
-        _ => Err(format!("`{s}` is not a positive number")),
-    }
-}
-
-fn parse_nonnegative(s: &str) -> Result<f64, String> {
-    match eis_core::number::parse_si(s) {
-        Some(v) if v >= 0.0 => Ok(v),
-        _ => Err(format!("`{s}` is not a non-negative number")),
-    }
 }
 
 /// Reads frequencies: one per line or the first field of delimited lines; blank lines, `#` comments

@@ -1,0 +1,427 @@
+//! `eis fit`: fit a circuit to a spectrum and report parameters, battery quantities and statistics.
+
+use crate::format::{quantity, short, table, with_error, with_error_plain};
+use crate::io::{Failure, Outcome, apply_overrides, bad, load_model, read_spectra, write_output};
+use anyhow::anyhow;
+use eis_core::derive::{SHORT_CIRCUIT_CAUTION, derive, short_circuit};
+use eis_core::fit::{FitError, FitResult, FitSettings, Weighting, fit};
+use eis_core::number::format_float;
+use eis_core::report::{FitDocument, document};
+use eis_core::{Circuit, Spectrum};
+use std::fmt::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+/// Fit an equivalent circuit to a spectrum by weighted complex nonlinear least squares, with automatic
+/// starting values, and report parameters ± standard errors, ohmic / charge-transfer / diffusion / DC
+/// resistances, arcs, fit statistics and warnings.
+#[derive(clap::Args)]
+#[command(
+    after_help = "Examples:\n  eis fit cell.csv --model circuits/two-interfaces.circ\n  eis fit cell.csv --model 'R0 + Rct|Qdl' --fix Qdl.n=0.9 --bound Rct=1m..10 --json\n  eis fit cycle200.csv --model m.circ --start-from cycle150.json -o fitted.csv\n  eis fit cell.csv --model m.circ --ocv 1.45\n\nStandard errors come from the covariance s^2 (J^T J)^-1 at the optimum, with s^2 the reduced chi-square.\nExit status: 0 fitted, 1 not converged or failed, 2 bad input."
+)]
+pub struct Args {
+    /// Spectrum file.
+    input: PathBuf,
+    /// Circuit file (.circ) or inline expression.
+    #[arg(long, short)]
+    model: String,
+    /// Which spectrum of the file, from 1.
+    #[arg(long, value_name = "N", default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..))]
+    spectrum: u32,
+    /// Residual weighting.
+    #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
+    weight: WeightArg,
+    /// Starting value, NAME=VALUE (repeatable).
+    #[arg(long = "set", value_name = "NAME=VALUE")]
+    set: Vec<String>,
+    /// Hold a parameter fixed, NAME or NAME=VALUE (repeatable).
+    #[arg(long = "fix", value_name = "NAME[=VALUE]")]
+    fix: Vec<String>,
+    /// Bounds, NAME=LO..HI (repeatable; either side may be left empty).
+    #[arg(long = "bound", value_name = "NAME=LO..HI")]
+    bound: Vec<String>,
+    /// Ignore points below this frequency (Hz).
+    #[arg(long, value_parser = crate::args::positive)]
+    fmin: Option<f64>,
+    /// Ignore points above this frequency (Hz).
+    #[arg(long, value_parser = crate::args::positive)]
+    fmax: Option<f64>,
+    /// Warm start from a previous result (the JSON of `eis fit --json`).
+    #[arg(long, value_name = "RESULT.json")]
+    start_from: Option<PathBuf>,
+    /// Open-circuit voltage (V): adds estimated short-circuit current and matched-load power.
+    #[arg(long, value_parser = crate::args::number)]
+    ocv: Option<f64>,
+    /// Number of grid starting points.
+    #[arg(long, default_value_t = 8, value_parser = clap::value_parser!(u32).range(1..=200))]
+    starts: u32,
+    /// Print one JSON document on stdout instead of the table.
+    #[arg(long)]
+    json: bool,
+    /// Write the data with the fitted model beside it (CSV).
+    #[arg(long, short, value_name = "FITTED.csv")]
+    output: Option<PathBuf>,
+    /// Write a Nyquist plot of data and fit (SVG or PNG by extension).
+    #[arg(long, value_name = "FILE")]
+    plot: Option<PathBuf>,
+}
+
+#[derive(Clone, Copy, clap::ValueEnum)]
+enum WeightArg {
+    /// 1/|Z| on both parts (default).
+    Modulus,
+    /// 1/|Z'| and 1/|Z''| separately.
+    Proportional,
+    /// No weighting.
+    Unit,
+    /// 1/sigma from the data's standard deviations.
+    Sigma,
+}
+
+impl From<WeightArg> for Weighting {
+    fn from(w: WeightArg) -> Weighting {
+        match w {
+            WeightArg::Modulus => Weighting::Modulus,
+            WeightArg::Proportional => Weighting::Proportional,
+            WeightArg::Unit => Weighting::Unit,
+            WeightArg::Sigma => Weighting::Sigma,
+        }
+    }
+}
+
+/// Builds the circuit with all command-line overrides applied.
+fn circuit_with_overrides(args: &Args) -> Result<Circuit, Failure> {
+    let mut c = load_model(&args.model)?;
+    apply_overrides(&mut c, args.set.iter().map(String::as_str))?;
+    apply_overrides(&mut c, args.bound.iter().map(String::as_str))?;
+    let fixes: Vec<String> = args.fix.iter().map(|f| format!("{f} fixed")).collect();
+    apply_overrides(&mut c, fixes.iter().map(String::as_str))?;
+    Ok(c)
+}
+
+fn pick_spectrum(args: &Args) -> Result<Spectrum, Failure> {
+    let mut spectra = read_spectra(&args.input)?;
+    let n = spectra.len();
+    let k = args.spectrum as usize;
+    if k > n {
+        return Err(bad(anyhow!(
+            "{} holds {n} spectra; --spectrum {k} does not exist",
+            args.input.display()
+        )));
+    }
+    let mut s = spectra.swap_remove(k - 1);
+    s.crop(args.fmin, args.fmax);
+    Ok(s)
+}
+
+/// Runs the command.
+pub fn run(args: Args) -> Outcome {
+    let circuit = circuit_with_overrides(&args)?;
+    let spectrum = pick_spectrum(&args)?;
+    let warm = match &args.start_from {
+        Some(p) => {
+            let text = std::fs::read_to_string(p)
+                .map_err(|e| bad(anyhow!("cannot read {}: {e}", p.display())))?;
+            let doc: FitDocument = serde_json::from_str(&text)
+                .map_err(|e| bad(anyhow!("{} is not a fit result: {e}", p.display())))?;
+            let (values, missing) = doc.warm_start_for(&circuit);
+            if !missing.is_empty() {
+                eprintln!(
+                    "note: {} has no value for {}; using the circuit's start",
+                    p.display(),
+                    missing.join(", ")
+                );
+            }
+            Some(values)
+        }
+        None => None,
+    };
+    let settings = FitSettings::default()
+        .with_weighting(args.weight.into())
+        .with_starts(args.starts as usize);
+    let result = fit(&circuit, &spectrum, &settings, warm.as_deref()).map_err(|e| match e {
+        FitError::MissingSigma => bad(anyhow!("{}: {e}", args.input.display())),
+        e => bad(anyhow!("cannot fit {}: {e}", args.input.display())),
+    })?;
+    let derived = derive(&circuit, &result);
+    let short = match (args.ocv, derived.dc_resistance) {
+        (Some(v), Some(dc)) => Some(short_circuit(v, dc)),
+        (Some(_), None) => {
+            eprintln!("note: the model has no finite DC resistance; no short-circuit estimate");
+            None
+        }
+        _ => None,
+    };
+    let mut doc = document(&circuit, &result, &derived, short.as_ref());
+    doc.file = Some(args.input.display().to_string());
+    doc.spectrum = Some(args.spectrum as usize);
+
+    let mut inputs = vec![args.input.clone()];
+    if let Some(p) = &args.start_from {
+        inputs.push(p.clone());
+    }
+    if args.model.ends_with(".circ") {
+        inputs.push(PathBuf::from(&args.model));
+    }
+    if let Some(out) = &args.output {
+        write_output(Some(out), &fitted_csv(&spectrum, &result), &inputs)?;
+    }
+    if let Some(p) = &args.plot {
+        write_fit_plot(p, &circuit, &spectrum, &result, &inputs)?;
+    }
+    let text = if args.json {
+        let mut s = serde_json::to_string_pretty(&doc)
+            .map_err(|e| Failure::Failed(anyhow!("cannot encode the result: {e}")))?;
+        s.push('\n');
+        s
+    } else {
+        human(&doc, &spectrum)
+    };
+    write_output(None, &text, &inputs)?;
+    Ok(if result.converged {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    })
+}
+
+/// Data and model side by side.
+fn fitted_csv(s: &Spectrum, r: &FitResult) -> String {
+    let mut out = String::from(
+        "frequency_hz,z_real_ohm,z_imag_ohm,model_real_ohm,model_imag_ohm,residual_real_rel,residual_imag_rel\n",
+    );
+    for i in 0..s.len() {
+        let _ = writeln!(
+            out,
+            "{},{},{},{},{},{},{}",
+            format_float(s.frequency_hz[i]),
+            format_float(s.z[i].re),
+            format_float(s.z[i].im),
+            format_float(r.model[i].re),
+            format_float(r.model[i].im),
+            format_float(r.relative_residuals[i].re),
+            format_float(r.relative_residuals[i].im)
+        );
+    }
+    out
+}
+
+fn write_fit_plot(
+    path: &std::path::Path,
+    c: &Circuit,
+    s: &Spectrum,
+    r: &FitResult,
+    inputs: &[PathBuf],
+) -> Result<(), Failure> {
+    use crate::plot::{Annotation, NyquistPlot, Plot, SeriesData};
+    // The model on a fine grid over the measured window.
+    let (lo, hi) = s
+        .frequency_hz
+        .iter()
+        .fold((f64::INFINITY, 0.0f64), |(a, b), &f| (a.min(f), b.max(f)));
+    let freq = eis_core::eval::log_frequencies(hi, lo, 40);
+    let plan = eis_core::Plan::compile(c);
+    let omegas: Vec<f64> = freq.iter().map(|&f| eis_core::eval::angular(f)).collect();
+    let z = plan.impedances(&r.values, &omegas);
+    let d = derive(c, r);
+    let annotations = d
+        .arcs
+        .iter()
+        .filter(|a| a.peak_frequency.value >= lo && a.peak_frequency.value <= hi)
+        .map(|a| {
+            let w = eis_core::eval::angular(a.peak_frequency.value);
+            Annotation {
+                z: plan.impedance(&r.values, w),
+                text: format!(
+                    "{} {}",
+                    a.resistor,
+                    quantity(a.peak_frequency.value, 3, "Hz")
+                ),
+            }
+        })
+        .collect();
+    let plot = Plot::Nyquist(NyquistPlot {
+        title: format!("Fit of {}", eis_core::circuit::print_expression(c)),
+        series: vec![
+            SeriesData::markers("data", s.frequency_hz.clone(), s.z.clone()),
+            SeriesData::line("fit", freq, z),
+        ],
+        annotations,
+    });
+    crate::commands::plot::write_plot(&plot, path, None, (900, 650), inputs)
+}
+
+/// The readable report.
+fn human(doc: &FitDocument, s: &Spectrum) -> String {
+    let mut out = String::new();
+    let (lo, hi) = s
+        .frequency_hz
+        .iter()
+        .fold((f64::INFINITY, 0.0f64), |(a, b), &f| (a.min(f), b.max(f)));
+    let _ = writeln!(out, "model     {}", doc.model.replace('\n', "; "));
+    let _ = writeln!(
+        out,
+        "spectrum  {} #{} ({} points, {} to {})\n",
+        doc.file.as_deref().unwrap_or("-"),
+        doc.spectrum.unwrap_or(1),
+        s.len(),
+        quantity(hi, 4, "Hz"),
+        quantity(lo, 4, "Hz")
+    );
+    let rows: Vec<Vec<String>> = doc
+        .parameters
+        .iter()
+        .map(|p| {
+            vec![
+                p.name.clone(),
+                if p.fixed {
+                    format!("{} (fixed)", short(p.value))
+                } else if p.unit == "1" {
+                    with_error_plain(p.value, p.stderr)
+                } else {
+                    with_error(p.value, p.stderr)
+                },
+                p.relative_error
+                    .map(|r| format!("{:.2} %", 100.0 * r))
+                    .unwrap_or_else(|| "-".into()),
+                p.unit.clone(),
+                if p.at_bound {
+                    "at bound".into()
+                } else {
+                    String::new()
+                },
+            ]
+        })
+        .collect();
+    out.push_str(&table(
+        &["parameter", "value ± SE", "rel. error", "unit", ""],
+        &rows,
+    ));
+    let d = &doc.derived;
+    out.push_str("\nbattery quantities\n");
+    let mut q = Vec::new();
+    let mut push = |name: &str, v: Option<f64>, se: Option<f64>, unit: &str| {
+        if let Some(v) = v {
+            q.push(vec![name.to_owned(), with_error(v, se), unit.to_owned()]);
+        }
+    };
+    push(
+        "ohmic resistance",
+        d.ohmic_resistance_ohm,
+        d.ohmic_resistance_ohm_stderr,
+        "Ohm",
+    );
+    push(
+        "charge-transfer (interface) resistance",
+        d.charge_transfer_resistance_ohm,
+        d.charge_transfer_resistance_ohm_stderr,
+        "Ohm",
+    );
+    push(
+        "diffusion resistance",
+        d.diffusion_resistance_ohm,
+        d.diffusion_resistance_ohm_stderr,
+        "Ohm",
+    );
+    push(
+        "Warburg coefficient",
+        d.warburg_sigma_ohm_s_half,
+        d.warburg_sigma_ohm_s_half_stderr,
+        "Ohm s^-1/2",
+    );
+    push(
+        "DC resistance",
+        d.dc_resistance_ohm,
+        d.dc_resistance_ohm_stderr,
+        "Ohm",
+    );
+    if let Some(sc) = &doc.short_circuit {
+        push(
+            "short-circuit current (estimate)",
+            Some(sc.short_circuit_current_a),
+            sc.short_circuit_current_a_stderr,
+            "A",
+        );
+        push(
+            "matched-load power (estimate)",
+            Some(sc.matched_load_power_w),
+            sc.matched_load_power_w_stderr,
+            "W",
+        );
+    }
+    for line in table(&["quantity", "value ± SE", "unit"], &q)
+        .lines()
+        .skip(1)
+    {
+        let _ = writeln!(out, "  {line}");
+    }
+    if doc.derived.dc_resistance_ohm.is_none() {
+        out.push_str("  (no finite DC resistance: the model blocks direct current)\n");
+    }
+    if !d.arcs.is_empty() {
+        out.push_str("\narcs\n");
+        let rows: Vec<Vec<String>> = d
+            .arcs
+            .iter()
+            .map(|a| {
+                vec![
+                    format!("{}|{}", a.resistor, a.capacitor),
+                    a.role.clone(),
+                    with_error(a.resistance_ohm, a.resistance_ohm_stderr),
+                    with_error(a.time_constant_s, a.time_constant_s_stderr),
+                    with_error(a.peak_frequency_hz, a.peak_frequency_hz_stderr),
+                    with_error(a.capacitance_f, a.capacitance_f_stderr),
+                    if a.determined {
+                        String::new()
+                    } else {
+                        "NOT DETERMINED by the data".into()
+                    },
+                ]
+            })
+            .collect();
+        for line in table(
+            &[
+                "arc",
+                "role",
+                "R (Ohm)",
+                "tau (s)",
+                "f (Hz)",
+                "C_eff (F)",
+                "",
+            ],
+            &rows,
+        )
+        .lines()
+        {
+            let _ = writeln!(out, "  {line}");
+        }
+    }
+    let st = &doc.statistics;
+    let _ = writeln!(
+        out,
+        "\nfit       chi-square {} ({} weighting), reduced {}, AIC {:.1}, BIC {:.1}",
+        short(st.chi_square),
+        st.weighting,
+        short(st.reduced_chi_square),
+        st.aic,
+        st.bic
+    );
+    let _ = writeln!(
+        out,
+        "          {} points, {} iterations, {} evaluations over {} starts; {}",
+        st.points, st.iterations, st.evaluations, st.starts, st.termination
+    );
+    out.push_str(
+        "          standard errors from s^2 (J^T J)^-1 at the optimum, s^2 = reduced chi-square\n",
+    );
+    if !doc.warnings.is_empty() {
+        out.push_str("\nwarnings\n");
+        for w in &doc.warnings {
+            let _ = writeln!(out, "  - {w}");
+        }
+    }
+    if doc.short_circuit.is_some() {
+        let _ = writeln!(out, "\ncaution: {SHORT_CIRCUIT_CAUTION}");
+    }
+    out
+}
