@@ -23,21 +23,10 @@ pub fn with_error(value: f64, se: Option<f64>) -> String {
             let unit = 10f64.powi(group);
             let (v, e) = (value / unit, se / unit);
             let decimals = (1 - e.log10().floor() as i32).clamp(0, 12) as usize;
-            let prefix = match group {
-                -15 => "f",
-                -12 => "p",
-                -9 => "n",
-                -6 => "u",
-                -3 => "m",
-                3 => "k",
-                6 => "M",
-                9 => "G",
-                12 => "T",
-                _ => "",
-            };
+            let prefix = prefix(group);
             format!("{v:.decimals$}{prefix} ± {e:.decimals$}{prefix}")
         }
-        Some(se) if se == 0.0 => format!("{} ± 0", format_si(value)),
+        Some(0.0) => format!("{} ± 0", format_si(value)),
         _ => format!("{} ± n/a", short(value)),
     }
 }
@@ -57,12 +46,24 @@ pub fn quantity(value: f64, digits: usize, unit: &str) -> String {
     if value == 0.0 || !value.is_finite() {
         return format!("{value} {unit}");
     }
-    let d = digits.max(1) - 1;
-    let rounded: f64 = format!("{value:.d$e}").parse().unwrap_or(value);
-    let text = format_si(rounded);
-    match text.find(|c: char| c.is_ascii_alphabetic() && c != 'e') {
-        Some(i) if !text[..i].contains('e') => format!("{} {}{unit}", &text[..i], &text[i..]),
-        _ => format!("{text} {unit}"),
+    let group = ((value.abs().log10().floor() as i32).div_euclid(3) * 3).clamp(-15, 12);
+    let scaled = value / 10f64.powi(group);
+    let decimals = (digits as i32 - 1 - scaled.abs().log10().floor() as i32).max(0) as usize;
+    format!("{scaled:.decimals$} {}{unit}", prefix(group))
+}
+
+fn prefix(group: i32) -> &'static str {
+    match group {
+        -15 => "f",
+        -12 => "p",
+        -9 => "n",
+        -6 => "u",
+        -3 => "m",
+        3 => "k",
+        6 => "M",
+        9 => "G",
+        12 => "T",
+        _ => "",
     }
 }
 
