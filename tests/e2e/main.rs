@@ -1,6 +1,7 @@
 //! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
 
 mod drt;
+mod fit;
 mod plot;
 mod reference_impedance;
 mod simulate;

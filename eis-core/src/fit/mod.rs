@@ -239,6 +239,8 @@ pub struct FitResult {
     pub relative_residuals: Vec<Complex64>,
     /// Weighting used.
     pub weighting: Weighting,
+    /// Whether a runs test found a trend in the residuals (the model misses a feature).
+    pub systematic_residuals: bool,
     /// Warnings in plain words.
     pub warnings: Vec<String>,
 }
@@ -375,7 +377,9 @@ fn run_lm(
 /// Fits `circuit` to `spectrum`.
 ///
 /// Starting points: `warm` (a previous result's values, e.g. the neighbouring spectrum of the same cell)
-/// is tried first; if that run converges with no warning sign it is taken as it is. Otherwise the
+/// is tried first; if that run converges with no parameter on a bound and no trend in its residuals it is
+/// taken as it is (correlations and poorly determined parameters belong to the model and data, not to
+/// the start, so they do not count against it). Otherwise the
 /// circuit's own initial values (when every free parameter has one) and the automatic starts are tried
 /// as well, and the lowest χ² wins.
 ///
@@ -481,7 +485,7 @@ pub fn fit(
                 evaluations,
                 tried,
             );
-            if result.warnings.is_empty() {
+            if !result.systematic_residuals && !result.at_bound.iter().any(|b| *b) {
                 return Ok(result);
             }
         }

@@ -259,12 +259,14 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         .map(|(zm, zd)| (zm - zd) / zd.norm())
         .collect();
     let max_rel = relative.iter().map(|r| r.norm()).fold(0.0, f64::max);
+    let mut systematic = false;
     if max_rel > 1e-9 {
         let re: Vec<f64> = relative.iter().map(|r| r.re).collect();
         let im: Vec<f64> = relative.iter().map(|r| r.im).collect();
         for (part, v) in [("real", &re), ("imaginary", &im)] {
             if let Some(z) = runs_test_z(v) {
                 if z < RUNS_Z {
+                    systematic = true;
                     warnings.push(format!(
                         "residuals of the {part} part follow a trend (runs test z = {z:.1}): the model misses a feature of the spectrum"
                     ));
@@ -300,6 +302,7 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         model,
         relative_residuals: relative,
         weighting: s.weighting,
+        systematic_residuals: systematic,
         warnings,
     }
 }
