@@ -37,6 +37,7 @@ pub mod number;
 pub mod report;
 pub mod simulate;
 pub mod spectrum;
+pub mod trend;
 
 pub use circuit::{Circuit, CircuitError};
 pub use eval::Plan;

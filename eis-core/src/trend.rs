@@ -1,0 +1,536 @@
+//! Trends of fitted quantities over a campaign: per cell (and SOC level) and quantity, the change from the
+//! baseline, the growth rate with its uncertainty, the point where a change began, and flags with plain
+//! explanations tied to the physics.
+//!
+//! # Method
+//!
+//! - A *series* is one cell's values of one quantity against x (cycle, SOC, time or any numeric field),
+//!   sorted by x. When x is not SOC and the records hold several SOC levels, each level is its own series,
+//!   so that SOC dependence is not mistaken for ageing.
+//! - Change: relative to the baseline point (the first, or the first at or after a chosen x).
+//! - Growth rate: ordinary least-squares slope with its standard error from the residual scatter
+//!   (the scatter of repeated spectra is usually larger than single-fit standard errors). For x = cycle it
+//!   is also given relative to the baseline per 100 cycles.
+//! - Onset: the x where a "flat, then linear" hinge model y = a + b·max(0, x − x₀) fits best (x₀ over the
+//!   measured points), reported when the hinge explains the data clearly better than a flat line.
+//! - Soft short: the polarisation part (total − ohmic, with total the DC resistance or else the sum of
+//!   the resistances) falls to less than a fraction of its running level (default half) and stays there.
+//!
+//! Flags are engineering hints to guide the analyst, not safety verdicts; each carries that caution.
+
+use serde::Serialize;
+
+/// One record: a fitted spectrum of a cell.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Record {
+    /// Cell identifier.
+    pub cell: String,
+    /// The x value (cycle, SOC, time, ...).
+    pub x: f64,
+    /// SOC of the spectrum, when known (used to keep SOC levels apart).
+    pub soc: Option<f64>,
+    /// Quantities: name, value, standard error.
+    pub values: Vec<(String, f64, Option<f64>)>,
+    /// Whether the spectrum passed the Kramers–Kronig check, when known.
+    pub kk_valid: Option<bool>,
+    /// Where it came from (file and spectrum), for flags.
+    pub source: String,
+}
+
+/// Thresholds of the flags. Build with [`TrendSettings::default`] and `with_*`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TrendSettings {
+    /// A resistance whose fitted trend grew by at least this many percent is flagged. Default 20.
+    pub growth_percent: f64,
+    /// ...and whose slope is at least this many standard errors above zero. Default 3.
+    pub slope_sigmas: f64,
+    /// A soft short is flagged when the polarisation resistance falls below this fraction of its running
+    /// level. Default 0.5.
+    pub short_fraction: f64,
+    /// The onset is reported when the hinge model reduces the residual sum of squares of a flat line by at
+    /// least this fraction. Default 0.5.
+    pub onset_gain: f64,
+}
+
+impl Default for TrendSettings {
+    fn default() -> Self {
+        TrendSettings {
+            growth_percent: 20.0,
+            slope_sigmas: 3.0,
+            short_fraction: 0.5,
+            onset_gain: 0.5,
+        }
+    }
+}
+
+impl TrendSettings {
+    /// Sets the growth threshold in percent.
+    pub fn with_growth_percent(mut self, v: f64) -> Self {
+        self.growth_percent = v;
+        self
+    }
+    /// Sets the slope significance in standard errors.
+    pub fn with_slope_sigmas(mut self, v: f64) -> Self {
+        self.slope_sigmas = v;
+        self
+    }
+    /// Sets the soft-short fraction.
+    pub fn with_short_fraction(mut self, v: f64) -> Self {
+        self.short_fraction = v;
+        self
+    }
+}
+
+/// One series: a quantity of a cell against x.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Series {
+    /// Cell (with ` @ SOC n` when SOC levels are kept apart).
+    pub cell: String,
+    /// Quantity name (results column).
+    pub quantity: String,
+    /// x values, ascending.
+    pub x: Vec<f64>,
+    /// Values.
+    pub y: Vec<f64>,
+    /// Standard errors (null where unknown).
+    pub y_stderr: Vec<Option<f64>>,
+    /// Change of each point from the baseline, %.
+    pub change_percent: Vec<f64>,
+    /// Least-squares slope (per unit x).
+    pub slope: Option<f64>,
+    /// Its standard error.
+    pub slope_stderr: Option<f64>,
+    /// Slope relative to the baseline value per 100 units of x, % (per 100 cycles for x = cycle).
+    pub slope_percent_per_100: Option<f64>,
+    /// Where a change began (hinge model), when the data show one.
+    pub onset_x: Option<f64>,
+    /// Points flagged in this series (indices into x).
+    pub flagged: Vec<usize>,
+}
+
+/// What a flag says.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum FlagKind {
+    /// Ohmic resistance growing.
+    OhmicGrowth,
+    /// An arc (interface) resistance growing.
+    InterfaceGrowth,
+    /// Diffusion resistance growing.
+    TransportGrowth,
+    /// Total resistance falling suddenly toward the ohmic value.
+    PossibleSoftShort,
+    /// A spectrum that failed the Kramers–Kronig check.
+    InvalidMeasurement,
+}
+
+impl FlagKind {
+    /// The word used in outputs.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            FlagKind::OhmicGrowth => "ohmic-growth",
+            FlagKind::InterfaceGrowth => "interface-growth",
+            FlagKind::TransportGrowth => "transport-growth",
+            FlagKind::PossibleSoftShort => "possible-soft-short",
+            FlagKind::InvalidMeasurement => "invalid-measurement",
+        }
+    }
+}
+
+/// The caution every flag carries.
+pub const FLAG_CAUTION: &str = "This is an engineering hint from impedance data, not a safety verdict; \
+handle suspect cells by your lab's own rules.";
+
+/// A flag raised on a series.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Flag {
+    /// Cell.
+    pub cell: String,
+    /// Quantity.
+    pub quantity: String,
+    /// Kind.
+    pub kind: FlagKind,
+    /// Where it began.
+    pub onset_x: Option<f64>,
+    /// Change from the baseline to the last point, %.
+    pub change_percent: Option<f64>,
+    /// Plain explanation, ending with the caution.
+    pub explanation: String,
+}
+
+/// The whole analysis.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TrendReport {
+    /// Name of x.
+    pub x_name: String,
+    /// Every series.
+    pub series: Vec<Series>,
+    /// Every flag.
+    pub flags: Vec<Flag>,
+}
+
+/// How a quantity column is read for flags.
+fn quantity_kind(name: &str) -> Option<FlagKind> {
+    if name.starts_with("ohmic_resistance") {
+        Some(FlagKind::OhmicGrowth)
+    } else if name.starts_with("charge_transfer_resistance") || name.starts_with("arc_") {
+        Some(FlagKind::InterfaceGrowth)
+    } else if name.starts_with("diffusion_resistance") {
+        Some(FlagKind::TransportGrowth)
+    } else {
+        None
+    }
+}
+
+fn explain(
+    kind: FlagKind,
+    quantity: &str,
+    change: f64,
+    onset: Option<f64>,
+    x_name: &str,
+) -> String {
+    let since = onset
+        .map(|x| format!(" from {x_name} {} on", trim(x)))
+        .unwrap_or_default();
+    let what = match kind {
+        FlagKind::OhmicGrowth => format!(
+            "The ohmic resistance grew by {change:.0} %{since}. The series resistance holds electrolyte, \
+separator and contacts: likely causes are electrolyte loss or drying, separator degradation, or a degrading \
+contact between active material and current collector (or at the terminals)."
+        ),
+        FlagKind::InterfaceGrowth => format!(
+            "The interface resistance ({quantity}) grew by {change:.0} %{since}. Arc resistances belong to \
+interfaces: likely causes are a growing surface film or passivation layer, or loss of active area."
+        ),
+        FlagKind::TransportGrowth => format!(
+            "The diffusion resistance grew by {change:.0} %{since}: mass transport is becoming limiting \
+(electrolyte depletion, pore clogging, thicker diffusion layer)."
+        ),
+        FlagKind::PossibleSoftShort => format!(
+            "The total resistance fell suddenly toward the ohmic value{since} (polarisation part down by \
+{:.0} %): a possible soft short, for example through dendrites. Such a cell may self-discharge or heat.",
+            -change
+        ),
+        FlagKind::InvalidMeasurement => "This spectrum failed the Kramers-Kronig check: the cell was probably \
+not stable during the sweep (drift, temperature, a film still forming) or the measurement was disturbed; \
+its fitted values should not be trusted."
+            .to_owned(),
+    };
+    format!("{what} {FLAG_CAUTION}")
+}
+
+fn trim(x: f64) -> String {
+    crate::number::format_float(x)
+}
+
+/// Ordinary least squares y = a + b x: (a, b, se_b). None with fewer than three points or no spread.
+fn line_fit(x: &[f64], y: &[f64]) -> Option<(f64, f64, f64)> {
+    let n = x.len();
+    if n < 3 {
+        return None;
+    }
+    let nf = n as f64;
+    let mx = x.iter().sum::<f64>() / nf;
+    let my = y.iter().sum::<f64>() / nf;
+    let sxx: f64 = x.iter().map(|v| (v - mx).powi(2)).sum();
+    if sxx <= 0.0 {
+        return None;
+    }
+    let sxy: f64 = x.iter().zip(y).map(|(a, b)| (a - mx) * (b - my)).sum();
+    let b = sxy / sxx;
+    let a = my - b * mx;
+    let rss: f64 = x.iter().zip(y).map(|(u, v)| (v - a - b * u).powi(2)).sum();
+    let se = (rss / (nf - 2.0) / sxx).sqrt();
+    Some((a, b, se))
+}
+
+/// Best hinge y = a + b·max(0, x − x₀) over x₀ in the measured x (excluding the last two points).
+/// Returns (x₀, rss_hinge, rss_flat).
+fn hinge(x: &[f64], y: &[f64]) -> Option<(f64, f64, f64)> {
+    let n = x.len();
+    if n < 4 {
+        return None;
+    }
+    let my = y.iter().sum::<f64>() / n as f64;
+    let rss_flat: f64 = y.iter().map(|v| (v - my).powi(2)).sum();
+    let mut best: Option<(f64, f64)> = None;
+    for k in 0..n - 2 {
+        let x0 = x[k];
+        let u: Vec<f64> = x.iter().map(|&v| (v - x0).max(0.0)).collect();
+        let Some((a, b, _)) = line_fit(&u, y) else {
+            continue;
+        };
+        let rss: f64 = u.iter().zip(y).map(|(p, q)| (q - a - b * p).powi(2)).sum();
+        if best.is_none_or(|(_, r)| rss < r - 1e-12 * rss_flat) {
+            best = Some((x0, rss));
+        }
+    }
+    best.map(|(x0, r)| (x0, r, rss_flat))
+}
+
+/// Analyses the records: one series per cell (and SOC level) and quantity, and the flags.
+pub fn analyse(
+    records: &[Record],
+    x_name: &str,
+    quantities: &[String],
+    settings: &TrendSettings,
+) -> TrendReport {
+    let split_soc = x_name != "soc"
+        && records
+            .iter()
+            .filter_map(|r| r.soc)
+            .fold(Vec::<f64>::new(), |mut v, s| {
+                if !v.iter().any(|u| (u - s).abs() < 1e-9) {
+                    v.push(s);
+                }
+                v
+            })
+            .len()
+            > 1;
+    let key = |r: &Record| -> String {
+        match (split_soc, r.soc) {
+            (true, Some(s)) => format!("{} @ SOC {}", r.cell, trim(s)),
+            _ => r.cell.clone(),
+        }
+    };
+    let mut keys: Vec<String> = Vec::new();
+    for r in records {
+        let k = key(r);
+        if !keys.contains(&k) {
+            keys.push(k);
+        }
+    }
+    let mut series = Vec::new();
+    let mut flags = Vec::new();
+    for k in &keys {
+        let mut rs: Vec<&Record> = records.iter().filter(|r| &key(r) == k).collect();
+        rs.sort_by(|a, b| a.x.total_cmp(&b.x));
+        for r in &rs {
+            if r.kk_valid == Some(false) {
+                flags.push(Flag {
+                    cell: k.clone(),
+                    quantity: r.source.clone(),
+                    kind: FlagKind::InvalidMeasurement,
+                    onset_x: Some(r.x),
+                    change_percent: None,
+                    explanation: explain(FlagKind::InvalidMeasurement, "", 0.0, None, x_name),
+                });
+            }
+        }
+        for q in quantities {
+            let pts: Vec<(f64, f64, Option<f64>, bool)> = rs
+                .iter()
+                .filter_map(|r| {
+                    r.values
+                        .iter()
+                        .find(|(n, _, _)| n == q)
+                        .filter(|(_, v, _)| v.is_finite())
+                        .map(|(_, v, se)| (r.x, *v, *se, r.kk_valid != Some(false)))
+                })
+                .collect();
+            if pts.is_empty() {
+                continue;
+            }
+            let x: Vec<f64> = pts.iter().map(|p| p.0).collect();
+            let y: Vec<f64> = pts.iter().map(|p| p.1).collect();
+            let base = y[0];
+            let change: Vec<f64> = y.iter().map(|v| 100.0 * (v - base) / base.abs()).collect();
+            // Trend statistics on the trusted points only.
+            let (tx, ty): (Vec<f64>, Vec<f64>) =
+                pts.iter().filter(|p| p.3).map(|p| (p.0, p.1)).unzip();
+            let lf = line_fit(&tx, &ty);
+            let hinge_fit = hinge(&tx, &ty);
+            let onset = hinge_fit.and_then(|(x0, rss_h, rss_f)| {
+                (rss_f > 0.0 && rss_h <= (1.0 - settings.onset_gain) * rss_f && x0 > tx[0])
+                    .then_some(x0)
+            });
+            let mut s = Series {
+                cell: k.clone(),
+                quantity: q.clone(),
+                x: x.clone(),
+                y: y.clone(),
+                y_stderr: pts.iter().map(|p| p.2).collect(),
+                change_percent: change.clone(),
+                slope: lf.map(|l| l.1),
+                slope_stderr: lf.map(|l| l.2),
+                slope_percent_per_100: lf.map(|l| 100.0 * 100.0 * l.1 / base.abs()),
+                onset_x: onset,
+                flagged: Vec::new(),
+            };
+            if let (Some(kind), Some((a, b, se))) = (quantity_kind(q), lf) {
+                // Change along the fitted trend, so that one noisy end point neither raises nor hides
+                // a flag.
+                let (x_first, x_last) = (tx[0], tx[tx.len() - 1]);
+                let y_first = a + b * x_first;
+                let fitted_change = 100.0 * b * (x_last - x_first) / y_first.abs();
+                let hinge_change = hinge_fit.and_then(|(x0, _, _)| {
+                    let u: Vec<f64> = tx.iter().map(|&v| (v - x0).max(0.0)).collect();
+                    line_fit(&u, &ty)
+                        .map(|(ha, hb, _)| 100.0 * hb * (x_last - x0).max(0.0) / ha.abs())
+                });
+                let grew = fitted_change.max(hinge_change.unwrap_or(f64::NEG_INFINITY));
+                let significant = b > 0.0 && (se == 0.0 || b / se >= settings.slope_sigmas);
+                if grew >= settings.growth_percent && significant {
+                    let last = *change.last().expect("non-empty");
+                    s.flagged = (0..x.len())
+                        .filter(|&i| onset.is_none_or(|o| x[i] >= o))
+                        .collect();
+                    flags.push(Flag {
+                        cell: k.clone(),
+                        quantity: q.clone(),
+                        kind,
+                        onset_x: onset,
+                        change_percent: Some(last),
+                        explanation: explain(kind, q, last, onset, x_name),
+                    });
+                }
+            }
+            series.push(s);
+        }
+        if let Some(f) = soft_short(&rs, k, x_name, settings) {
+            flags.push(f);
+        }
+    }
+    TrendReport {
+        x_name: x_name.to_owned(),
+        series,
+        flags,
+    }
+}
+
+fn value(r: &Record, name: &str) -> Option<f64> {
+    r.values
+        .iter()
+        .find(|(n, _, _)| n == name)
+        .map(|(_, v, _)| *v)
+        .filter(|v| v.is_finite())
+}
+
+/// Polarisation resistance (total minus ohmic) of a record.
+fn polarisation(r: &Record) -> Option<f64> {
+    let ohmic = value(r, "ohmic_resistance_ohm")?;
+    let total = value(r, "dc_resistance_ohm").or_else(|| {
+        let ct = value(r, "charge_transfer_resistance_ohm").unwrap_or(0.0);
+        let d = value(r, "diffusion_resistance_ohm").unwrap_or(0.0);
+        Some(ohmic + ct + d)
+    })?;
+    Some(total - ohmic)
+}
+
+fn soft_short(rs: &[&Record], cell: &str, x_name: &str, s: &TrendSettings) -> Option<Flag> {
+    let pts: Vec<(f64, f64)> = rs
+        .iter()
+        .filter(|r| r.kk_valid != Some(false))
+        .filter_map(|r| polarisation(r).map(|p| (r.x, p)))
+        .collect();
+    if pts.len() < 3 {
+        return None;
+    }
+    // Running level: the median of the points so far; a drop must persist to the end.
+    for k in 2..pts.len() {
+        let mut before: Vec<f64> = pts[..k].iter().map(|p| p.1).collect();
+        before.sort_by(f64::total_cmp);
+        let level = before[before.len() / 2];
+        if level <= 0.0 {
+            continue;
+        }
+        if pts[k..].iter().all(|p| p.1 < s.short_fraction * level) {
+            let last = pts[pts.len() - 1].1;
+            let change = 100.0 * (last - level) / level;
+            return Some(Flag {
+                cell: cell.to_owned(),
+                quantity: "polarisation_resistance_ohm".to_owned(),
+                kind: FlagKind::PossibleSoftShort,
+                onset_x: Some(pts[k].0),
+                change_percent: Some(change),
+                explanation: explain(
+                    FlagKind::PossibleSoftShort,
+                    "",
+                    change,
+                    Some(pts[k].0),
+                    x_name,
+                ),
+            });
+        }
+    }
+    None
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn record(cell: &str, x: f64, ohmic: f64, ct: f64) -> Record {
+        Record {
+            cell: cell.into(),
+            x,
+            soc: None,
+            values: vec![
+                ("ohmic_resistance_ohm".into(), ohmic, Some(0.001)),
+                ("charge_transfer_resistance_ohm".into(), ct, Some(0.01)),
+            ],
+            kk_valid: Some(true),
+            source: format!("{cell}_{x}"),
+        }
+    }
+
+    #[test]
+    fn least_squares_line_matches_hand_values() {
+        // y = 1 + 2x exactly: slope 2, zero standard error.
+        let (a, b, se) = line_fit(&[0.0, 1.0, 2.0, 3.0], &[1.0, 3.0, 5.0, 7.0]).unwrap();
+        assert!((a - 1.0).abs() < 1e-12 && (b - 2.0).abs() < 1e-12 && se < 1e-12);
+        // y = (0, 1, 0, 1) on x = (0, 1, 2, 3): b = 0.2, rss = 0.8, se = sqrt(0.8/2/5) = 0.2828
+        let (_, b, se) = line_fit(&[0.0, 1.0, 2.0, 3.0], &[0.0, 1.0, 0.0, 1.0]).unwrap();
+        assert!((b - 0.2).abs() < 1e-12 && (se - 0.282_842_712).abs() < 1e-8);
+    }
+
+    #[test]
+    fn growth_after_an_onset_is_flagged_with_that_onset() {
+        let mut recs = Vec::new();
+        for k in 0..11 {
+            let x = 50.0 * k as f64;
+            let ohmic = if x < 200.0 {
+                0.1
+            } else {
+                0.1 + 0.0004 * (x - 200.0)
+            };
+            recs.push(record(
+                "A",
+                x,
+                ohmic + 0.0005 * ((k * 7 % 3) as f64 - 1.0),
+                0.5,
+            ));
+            recs.push(record(
+                "B",
+                x,
+                0.1 + 0.0005 * ((k * 5 % 3) as f64 - 1.0),
+                0.5,
+            ));
+        }
+        let q = vec![
+            "ohmic_resistance_ohm".to_owned(),
+            "charge_transfer_resistance_ohm".to_owned(),
+        ];
+        let rep = analyse(&recs, "cycle", &q, &TrendSettings::default());
+        assert_eq!(rep.flags.len(), 1, "{:?}", rep.flags);
+        let f = &rep.flags[0];
+        assert_eq!((f.cell.as_str(), f.kind), ("A", FlagKind::OhmicGrowth));
+        assert_eq!(f.onset_x, Some(200.0));
+        assert!(f.explanation.contains("not a safety verdict"));
+    }
+
+    #[test]
+    fn a_sudden_fall_of_polarisation_is_a_possible_soft_short() {
+        let recs: Vec<Record> = (0..8)
+            .map(|k| record("C", k as f64 * 50.0, 0.1, if k < 6 { 0.5 } else { 0.05 }))
+            .collect();
+        let q = vec!["charge_transfer_resistance_ohm".to_owned()];
+        let rep = analyse(&recs, "cycle", &q, &TrendSettings::default());
+        let f = rep
+            .flags
+            .iter()
+            .find(|f| f.kind == FlagKind::PossibleSoftShort)
+            .unwrap();
+        assert_eq!(f.onset_x, Some(300.0));
+    }
+}
