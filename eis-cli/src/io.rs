@@ -44,8 +44,12 @@ pub fn load_model(arg: &str) -> Result<Circuit, Failure> {
         let text = std::fs::read_to_string(path)
             .with_context(|| format!("cannot read circuit file {}", path.display()))
             .map_err(Failure::BadInput)?;
-        eis_core::circuit::parse(&text)
-            .map_err(|e| bad(anyhow::anyhow!("{}", e.with_origin(path.display().to_string()))))
+        eis_core::circuit::parse(&text).map_err(|e| {
+            bad(anyhow::anyhow!(
+                "{}",
+                e.with_origin(path.display().to_string())
+            ))
+        })
     } else {
         eis_core::circuit::parse(arg).map_err(|e| bad(anyhow::anyhow!("{e}")))
     }

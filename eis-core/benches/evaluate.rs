@@ -27,15 +27,7 @@ fn bench(c: &mut Criterion) {
         b.iter(|| plan.eval(black_box(&PARAMS), &omegas, &mut z, None, &mut ws))
     });
     c.bench_function("impedance_and_jacobian_61x10", |b| {
-        b.iter(|| {
-            plan.eval(
-                black_box(&PARAMS),
-                &omegas,
-                &mut z,
-                Some(&mut jac),
-                &mut ws,
-            )
-        })
+        b.iter(|| plan.eval(black_box(&PARAMS), &omegas, &mut z, Some(&mut jac), &mut ws))
     });
 }
 

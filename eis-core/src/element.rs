@@ -120,7 +120,10 @@ pub static KINDS: &[ElementKind] = &[
         symbol: "Q",
         name: "constant-phase element",
         formula: "1/(Q (jw)^n)",
-        params: &[positive("Q", "F s^(n-1)", 1e-5, "CPE coefficient"), EXPONENT],
+        params: &[
+            positive("Q", "F s^(n-1)", 1e-5, "CPE coefficient"),
+            EXPONENT,
+        ],
         impedance: cpe,
         capacitive: true,
     },
@@ -128,12 +131,7 @@ pub static KINDS: &[ElementKind] = &[
         symbol: "W",
         name: "semi-infinite Warburg",
         formula: "sigma (1-j)/sqrt(w)",
-        params: &[positive(
-            "sigma",
-            "Ohm s^-1/2",
-            10.0,
-            "Warburg coefficient",
-        )],
+        params: &[positive("sigma", "Ohm s^-1/2", 10.0, "Warburg coefficient")],
         impedance: warburg,
         capacitive: false,
     },
@@ -421,9 +419,17 @@ mod tests {
                     .collect();
                 for &w in &omegas() {
                     let (z, dz) = eval(kind, &p, w);
-                    assert!(z.re.is_finite() && z.im.is_finite(), "{} p={p:?} w={w}", kind.symbol);
+                    assert!(
+                        z.re.is_finite() && z.im.is_finite(),
+                        "{} p={p:?} w={w}",
+                        kind.symbol
+                    );
                     for d in dz {
-                        assert!(d.re.is_finite() && d.im.is_finite(), "{} d p={p:?} w={w}", kind.symbol);
+                        assert!(
+                            d.re.is_finite() && d.im.is_finite(),
+                            "{} d p={p:?} w={w}",
+                            kind.symbol
+                        );
                     }
                 }
             }
@@ -445,7 +451,12 @@ mod tests {
                 let zc = branch(&[3.0, tau], w, &mut dc, false);
                 assert!((zs - zc).norm() / zc.norm() < 1e-13, "{zs} vs {zc}");
                 for k in 0..2 {
-                    assert!((ds[k] - dc[k]).norm() / dc[k].norm() < 1e-12, "{} vs {}", ds[k], dc[k]);
+                    assert!(
+                        (ds[k] - dc[k]).norm() / dc[k].norm() < 1e-12,
+                        "{} vs {}",
+                        ds[k],
+                        dc[k]
+                    );
                 }
             }
         }

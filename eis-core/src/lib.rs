@@ -29,9 +29,11 @@
 pub mod circuit;
 pub mod element;
 pub mod eval;
+pub mod import;
 pub mod number;
 pub mod simulate;
 pub mod spectrum;
+pub mod validate;
 
 pub use circuit::{Circuit, CircuitError};
 pub use eval::Plan;

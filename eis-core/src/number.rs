@@ -147,7 +147,8 @@ mod tests {
     #[test]
     fn rejects_non_numbers() {
         for text in [
-            "", "m", "1e3k", "inf", "nan", "1x", "1..2", "0x10", "1e", "--1", "1.2.3", "1e400", "k1",
+            "", "m", "1e3k", "inf", "nan", "1x", "1..2", "0x10", "1e", "--1", "1.2.3", "1e400",
+            "k1",
         ] {
             assert_eq!(parse_si(text), None, "{text:?}");
         }
@@ -199,7 +200,17 @@ pub fn format_float(x: f64) -> String {
 mod float_tests {
     #[test]
     fn format_float_round_trips() {
-        for v in [0.0, 1.0, -3.25e-7, 1e-5, 9.99e-6, 1e16, 123.456, 6.02214076e23, -0.1] {
+        for v in [
+            0.0,
+            1.0,
+            -3.25e-7,
+            1e-5,
+            9.99e-6,
+            1e16,
+            123.456,
+            6.02214076e23,
+            -0.1,
+        ] {
             let s = super::format_float(v);
             assert_eq!(s.parse::<f64>().unwrap(), v, "{s}");
         }

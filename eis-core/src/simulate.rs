@@ -21,7 +21,12 @@ pub struct Noise {
 /// # Panics
 ///
 /// If `params.len() != plan.n_params()`.
-pub fn simulate(plan: &Plan, params: &[f64], frequency_hz: &[f64], noise: Option<Noise>) -> Spectrum {
+pub fn simulate(
+    plan: &Plan,
+    params: &[f64],
+    frequency_hz: &[f64],
+    noise: Option<Noise>,
+) -> Spectrum {
     let omegas: Vec<f64> = frequency_hz.iter().map(|&f| angular(f)).collect();
     let mut z = plan.impedances(params, &omegas);
     if let Some(n) = noise {

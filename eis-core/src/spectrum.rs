@@ -139,7 +139,8 @@ impl Spectrum {
             .map(|&f| fmin.is_none_or(|lo| f >= lo) && fmax.is_none_or(|hi| f <= hi))
             .collect();
         let mut k = keep.iter();
-        self.frequency_hz.retain(|_| *k.next().expect("same length"));
+        self.frequency_hz
+            .retain(|_| *k.next().expect("same length"));
         let mut k = keep.iter();
         self.z.retain(|_| *k.next().expect("same length"));
         if let Some(s) = &mut self.sigma {

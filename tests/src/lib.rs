@@ -27,7 +27,9 @@ pub fn eis_bin() -> &'static Path {
         let target = std::env::var_os("CARGO_TARGET_DIR")
             .map(PathBuf::from)
             .unwrap_or_else(|| root().join("target"));
-        let bin = target.join("debug").join(format!("eis{}", std::env::consts::EXE_SUFFIX));
+        let bin = target
+            .join("debug")
+            .join(format!("eis{}", std::env::consts::EXE_SUFFIX));
         assert!(bin.is_file(), "no binary at {}", bin.display());
         bin
     })

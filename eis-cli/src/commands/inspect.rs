@@ -7,7 +7,9 @@ use std::process::ExitCode;
 
 /// Show a circuit in canonical form with its parameters (name, unit, initial value, bounds, fixed).
 #[derive(clap::Args)]
-#[command(after_help = "Example:\n  eis inspect --model 'R0 + Rct{50, 1..1k}|Qdl{n=0.9 fixed}'\n  eis inspect --model circuits/randles-transmissive.circ")]
+#[command(
+    after_help = "Example:\n  eis inspect --model 'R0 + Rct{50, 1..1k}|Qdl{n=0.9 fixed}'\n  eis inspect --model circuits/randles-transmissive.circ"
+)]
 pub struct Args {
     /// Circuit file (.circ) or inline expression.
     #[arg(long, short)]

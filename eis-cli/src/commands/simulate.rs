@@ -11,7 +11,9 @@ use std::process::ExitCode;
 /// Simulate the impedance spectrum of a circuit and write it as CSV
 /// (frequency_hz,z_real_ohm,z_imag_ohm; high to low frequency; capacitive Z'' negative).
 #[derive(clap::Args)]
-#[command(after_help = "Examples:\n  eis simulate --model 'R0 + Rct|Qdl' --set R0=0.2 --set Rct=1.5 --set Qdl.Q=2m -o cell.csv\n  eis simulate --model circuits/randles-semi-infinite.circ --fmin 0.01 --fmax 1e5 --ppd 10 --noise 0.005 --seed 7")]
+#[command(
+    after_help = "Examples:\n  eis simulate --model 'R0 + Rct|Qdl' --set R0=0.2 --set Rct=1.5 --set Qdl.Q=2m -o cell.csv\n  eis simulate --model circuits/randles-semi-infinite.circ --fmin 0.01 --fmax 1e5 --ppd 10 --noise 0.005 --seed 7"
+)]
 pub struct Args {
     /// Circuit file (.circ) or inline expression.
     #[arg(long, short)]

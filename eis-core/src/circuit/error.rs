@@ -100,7 +100,10 @@ impl fmt::Display for CircuitErrorKind {
                 "unexpected `{c}`; expected an element, `(`, `+` (series) or `|` (parallel)"
             ),
             DanglingOperator(op) => {
-                write!(f, "`{op}` needs a circuit on both sides; expected an element or `(`")
+                write!(
+                    f,
+                    "`{op}` needs a circuit on both sides; expected an element or `(`"
+                )
             }
             DoubledOperator(a, b) => write!(
                 f,
@@ -110,9 +113,14 @@ impl fmt::Display for CircuitErrorKind {
             UnmatchedCloseParen => write!(f, "this `)` has no matching `(`"),
             EmptyGroup => write!(f, "empty parentheses; expected a circuit inside"),
             MissingOperator => {
-                write!(f, "expected `+` (series) or `|` (parallel) between these parts")
+                write!(
+                    f,
+                    "expected `+` (series) or `|` (parallel) between these parts"
+                )
             }
-            DuplicateName(name) => write!(f, "the name `{name}` is used twice; names must be unique"),
+            DuplicateName(name) => {
+                write!(f, "the name `{name}` is used twice; names must be unique")
+            }
             BadNumber(text) => write!(
                 f,
                 "`{text}` is not a number; expected e.g. `50`, `4.7u`, `2k`, `1e-3`"
