@@ -4,6 +4,7 @@
 
 mod commands;
 mod io;
+mod reader_args;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -20,6 +21,8 @@ struct Cli {
 enum Command {
     Simulate(commands::simulate::Args),
     Inspect(commands::inspect::Args),
+    Convert(commands::convert::Args),
+    Check(commands::check::Args),
 }
 
 fn main() -> ExitCode {
@@ -27,6 +30,8 @@ fn main() -> ExitCode {
     let outcome = match cli.command {
         Command::Simulate(a) => commands::simulate::run(a),
         Command::Inspect(a) => commands::inspect::run(a),
+        Command::Convert(a) => commands::convert::run(a),
+        Command::Check(a) => commands::check::run(a),
     };
     match outcome {
         Ok(code) => code,

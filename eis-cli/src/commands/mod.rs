@@ -1,4 +1,6 @@
 //! One module per subcommand: arguments (clap) and a `run` that calls the library.
 
+pub mod check;
+pub mod convert;
 pub mod inspect;
 pub mod simulate;

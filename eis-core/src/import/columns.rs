@@ -538,7 +538,7 @@ pub(crate) fn map_columns(
     };
     let cartesian = find(Role::Real).zip(find(Role::Imaginary));
     let z = match cartesian {
-        Some((ri, ii)) if !(polar_asked && !overridden(Role::Real)) => ZCols::Cartesian {
+        Some((ri, ii)) if !polar_asked || overridden(Role::Real) => ZCols::Cartesian {
             re: Col {
                 index: ri,
                 scale: scale(Role::Real, ri)?,

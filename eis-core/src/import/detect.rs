@@ -106,7 +106,7 @@ pub(crate) fn split(line: &str, d: Delimiter, out: &mut Vec<String>) {
         }
     }
     let last = cur.trim();
-    if !(last.is_empty() && !out.is_empty()) {
+    if !last.is_empty() || out.is_empty() {
         out.push(last.to_owned());
     }
 }

@@ -140,6 +140,17 @@ impl Default for ReaderOptions {
     }
 }
 
+/// `x` times a unit factor; a decimal submultiple divides by its inverse, so that `26` mΩ gives the
+/// double nearest to 0.026 rather than `26 × 0.001`.
+fn scaled(x: f64, scale: f64) -> f64 {
+    let inv = 1.0 / scale.abs();
+    if scale.abs() < 1.0 && (inv - inv.round()).abs() < 1e-9 * inv {
+        x / (inv.round() * scale.signum())
+    } else {
+        x * scale
+    }
+}
+
 /// A spectrum as read, with what the reader noticed on the way.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Imported {
@@ -438,7 +449,7 @@ impl<R: BufRead> SpectrumReader<R> {
                 }
             }
         }
-        let f = vals[0] * map.freq.scale;
+        let f = scaled(vals[0], map.freq.scale);
         // Boundaries before this row.
         let split = self.options.split;
         let by_column = matches!(split, Split::Auto | Split::Column);
@@ -542,7 +553,7 @@ impl<R: BufRead> SpectrumReader<R> {
                 z.extend(
                     b.a.iter()
                         .zip(&b.b)
-                        .map(|(&x, &y)| Complex64::new(x * re.scale, y * s)),
+                        .map(|(&x, &y)| Complex64::new(scaled(x, re.scale), scaled(y, s))),
                 );
             }
             ZCols::Polar {
@@ -575,7 +586,7 @@ impl<R: BufRead> SpectrumReader<R> {
                 z.extend(
                     b.a.iter()
                         .zip(&b.b)
-                        .map(|(&m, &p)| Complex64::from_polar(m * modulus.scale, p * s)),
+                        .map(|(&m, &p)| Complex64::from_polar(scaled(m, modulus.scale), p * s)),
                 );
             }
         }
