@@ -96,6 +96,48 @@ fn short(x: f64) -> String {
     }
 }
 
+/// JSON documents written as they come: one document alone, several as an array, so memory does not
+/// grow with the number of spectra.
+struct JsonOut {
+    first: Option<Value>,
+    count: usize,
+}
+
+impl JsonOut {
+    fn push(&mut self, v: Value) -> Result<(), Failure> {
+        self.count += 1;
+        match self.count {
+            1 => self.first = Some(v),
+            2 => {
+                let first = self.first.take().unwrap_or(Value::Null);
+                emit(&format!("[\n{},\n{}", pretty(&first)?, pretty(&v)?))?;
+            }
+            _ => emit(&format!(",\n{}", pretty(&v)?))?,
+        }
+        Ok(())
+    }
+
+    fn finish(self) -> Result<(), Failure> {
+        match (self.count, self.first) {
+            (0, _) => emit("[]\n"),
+            (1, Some(v)) => emit(&format!("{}\n", pretty(&v)?)),
+            _ => emit("\n]\n"),
+        }
+    }
+}
+
+fn pretty(v: &Value) -> Result<String, Failure> {
+    serde_json::to_string_pretty(v).map_err(|e| Failure::Failed(anyhow!("cannot write JSON: {e}")))
+}
+
+fn emit(text: &str) -> Result<(), Failure> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    out.write_all(text.as_bytes())
+        .and_then(|_| out.flush())
+        .map_err(|e| Failure::Failed(anyhow!("cannot write to stdout: {e}")))
+}
+
 fn document(file: &str, s: &eis_core::Spectrum, r: &KkReport) -> Value {
     let meta: serde_json::Map<String, Value> = s
         .meta
@@ -133,11 +175,19 @@ pub fn run(args: Args) -> Outcome {
         max_residual_percent: args.max_residual,
         rms_residual_percent: args.rms_residual,
     };
-    let mut docs: Vec<Value> = Vec::new();
+    let mut docs = JsonOut {
+        first: None,
+        count: 0,
+    };
+    let json = args.json;
     let mut all_valid = true;
-    let report_error = |docs: &mut Vec<Value>, file: &str, spectrum: Option<usize>, msg: String| {
+    let report_error = |docs: &mut JsonOut, file: &str, spectrum: Option<usize>, msg: String| {
         eprintln!("error: {msg}");
-        docs.push(json!({"file": file, "spectrum": spectrum, "valid": false, "error": msg}));
+        if json {
+            docs.push(json!({"file": file, "spectrum": spectrum, "valid": false, "error": msg}))
+        } else {
+            Ok(())
+        }
     };
     for input in &args.inputs {
         let file = input.display().to_string();
@@ -145,7 +195,7 @@ pub fn run(args: Args) -> Outcome {
             Ok(r) => r,
             Err(e) => {
                 all_valid = false;
-                report_error(&mut docs, &file, None, e.to_string());
+                report_error(&mut docs, &file, None, e.to_string())?;
                 continue;
             }
         };
@@ -154,7 +204,7 @@ pub fn run(args: Args) -> Outcome {
                 Ok(i) => i,
                 Err(e) => {
                     all_valid = false;
-                    report_error(&mut docs, &file, e.spectrum, e.to_string());
+                    report_error(&mut docs, &file, e.spectrum, e.to_string())?;
                     continue;
                 }
             };
@@ -170,7 +220,7 @@ pub fn run(args: Args) -> Outcome {
                         &file,
                         Some(s.meta.spectrum),
                         format!("{file}, spectrum {}: {e}", s.meta.spectrum),
-                    );
+                    )?;
                 }
                 Ok(r) => {
                     all_valid &= r.valid;
@@ -191,22 +241,16 @@ pub fn run(args: Args) -> Outcome {
                                 short(hi)
                             ));
                         }
-                        println!("{line}");
+                        emit(&format!("{line}\n"))?;
+                    } else {
+                        docs.push(document(&file, &s, &r))?;
                     }
-                    docs.push(document(&file, &s, &r));
                 }
             }
         }
     }
-    if args.json {
-        let out = if docs.len() == 1 {
-            docs.pop().unwrap_or(Value::Null)
-        } else {
-            Value::Array(docs)
-        };
-        let text = serde_json::to_string_pretty(&out)
-            .map_err(|e| Failure::Failed(anyhow!("cannot write JSON: {e}")))?;
-        println!("{text}");
+    if json {
+        docs.finish()?;
     }
     Ok(if all_valid {
         ExitCode::SUCCESS
