@@ -22,10 +22,12 @@
 //! **Departure from the paper**, which keeps the first M with μ < c: with a coarse grid of τₖ,
 //! negative Rₖ also appear while the model still under-fits (a sharp time constant between two grid
 //! points is interpolated with both signs), so an early dip of μ is not a reliable sign of
-//! over-fitting; noise-free test spectra of depressed arcs and diffusion stopped at residuals of
-//! 1–2 %. Here M is raised until μ has stayed below c for five successive M (the over-fitting regime)
-//! or M reaches its cap, and the fit kept is the one with the smallest weighted residual among those
-//! with μ ≥ c, i.e. the best fit that μ does not mark as over-fitted.
+//! over-fitting; noise-free test spectra of an ideal RC arc, depressed arcs and diffusion stopped at
+//! residuals of 1–5 %. Here M is raised until μ has stayed below c for five successive M (the
+//! over-fitting regime) and some fit with μ ≥ c already meets the residual limits below, or until M
+//! reaches its cap; the fit kept is the one with the smallest weighted residual among those with
+//! μ ≥ c, i.e. the best fit that μ does not mark as over-fitted. A spectrum is therefore called
+//! suspect only after every M up to the cap has been tried.
 //!
 //! The residuals relative to |Z|, Δ′ᵢ = (Z′ᵢ − Ẑ′ᵢ)/|Zᵢ| and Δ″ᵢ = (Z″ᵢ − Ẑ″ᵢ)/|Zᵢ|, then
 //! decide the verdict.
@@ -119,8 +121,8 @@ pub struct KkReport {
     pub valid: bool,
     /// μ of the chosen fit.
     pub mu: f64,
-    /// Whether the search ended in the over-fitting regime (μ below c for five successive M) rather
-    /// than at the largest M allowed.
+    /// Whether the search ended in the over-fitting regime (μ below c for five successive M, with a
+    /// fit within the limits found) rather than at the largest M allowed.
     pub mu_reached: bool,
     /// Number of Voigt elements M.
     pub elements: usize,
@@ -158,6 +160,16 @@ struct Fit {
     mu: f64,
     /// Weighted sum of squared residuals.
     chi2: f64,
+    /// Largest weighted residual (a Δ′ or Δ″).
+    max_abs: f64,
+}
+
+impl Fit {
+    /// Whether the fit meets both residual limits.
+    fn passes(&self, n: usize, o: &KkOptions) -> bool {
+        100.0 * self.max_abs <= o.max_residual_percent
+            && 100.0 * (self.chi2 / (2 * n) as f64).sqrt() <= o.rms_residual_percent
+    }
 }
 
 /// Successive M with μ below c that end the search.
@@ -227,7 +239,9 @@ fn fit(w: &[f64], z: &[num_complex::Complex64], m: usize, d: Design) -> Fit {
     let mut x = svd
         .solve(&b, 1e-13 * smax)
         .unwrap_or_else(|_| DVector::zeros(cols));
-    let chi2 = (&a * &x - &b).norm_squared();
+    let r = &a * &x - &b;
+    let chi2 = r.norm_squared();
+    let max_abs = r.amax();
     for (j, &s) in norms.iter().enumerate() {
         x[j] /= s;
     }
@@ -247,7 +261,13 @@ fn fit(w: &[f64], z: &[num_complex::Complex64], m: usize, d: Design) -> Fit {
     } else {
         1.0
     };
-    Fit { x, taus, mu, chi2 }
+    Fit {
+        x,
+        taus,
+        mu,
+        chi2,
+        max_abs,
+    }
 }
 
 fn model(f: &Fit, w: f64, d: Design) -> num_complex::Complex64 {
@@ -307,8 +327,8 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         Some(m) => (fit(&w, &s.z, m.clamp(1, m_cap), design), true),
         None => {
             let m_max = options.max_elements.unwrap_or(n).clamp(1, m_cap);
-            // Raise M until μ has stayed below c for PATIENCE successive M (or M is at its cap);
-            // keep the fit with the smallest residual among those with μ ≥ c.
+            // Raise M until μ has stayed below c for PATIENCE successive M and a fit with μ ≥ c meets
+            // the limits (or M is at its cap); keep the best fit among those with μ ≥ c.
             let mut best: Option<Fit> = None;
             let mut first: Option<Fit> = None;
             let mut run = 0;
@@ -325,7 +345,8 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
                     if first.is_none() {
                         first = Some(f);
                     }
-                    if run >= PATIENCE {
+                    let good = best.as_ref().is_some_and(|b| b.passes(n, options));
+                    if run >= PATIENCE && good {
                         reached = true;
                         break;
                     }
