@@ -124,44 +124,65 @@ pub fn write_output(path: Option<&Path>, text: &str, inputs: &[PathBuf]) -> Resu
     }
 }
 
-#[allow(dead_code)] // used by the commands that read spectra
-/// Reads the spectra of one input file. For now: the canonical CSV that `eis simulate` writes (the
-/// generic reader of potentiostat exports replaces this).
-pub fn read_spectra(path: &Path) -> Result<Vec<eis_core::Spectrum>, Failure> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| bad(anyhow::anyhow!("cannot read {}: {e}", path.display())))?;
-    let mut lines = text.lines();
-    if lines.next().map(str::trim) != Some(eis_core::spectrum::CANONICAL_HEADER) {
-        return Err(bad(anyhow::anyhow!(
-            "{}, line 1: expected the header `{}`",
-            path.display(),
-            eis_core::spectrum::CANONICAL_HEADER
-        )));
+/// Reads the spectra of one input file with the generic reader, printing its warnings on stderr.
+/// For commands that take one file (`fit`, `drt`, `plot`), where an unreadable file is bad input.
+///
+/// # Errors
+///
+/// The first error of the file (unreadable, no table, a bad spectrum) as a [`Failure::BadInput`]
+/// (exit status 2); batch commands use [`read_many`] to keep the good spectra of a partly bad file.
+pub fn read_spectra(
+    path: &Path,
+    options: &eis_core::import::ReaderOptions,
+) -> Result<Vec<eis_core::Spectrum>, Failure> {
+    let file = read_one(path, options);
+    match file.errors.into_iter().next() {
+        Some(e) => Err(Failure::BadInput(anyhow::anyhow!("{e}"))),
+        None => Ok(file.spectra),
     }
-    let mut f = Vec::new();
-    let mut z = Vec::new();
-    for (n, line) in lines.enumerate() {
-        if line.trim().is_empty() {
-            continue;
+}
+
+/// The outcome of reading one input: the spectra read and the errors met (an unreadable file gives
+/// one error and no spectra; a bad spectrum gives one error and the others are kept).
+#[derive(Debug)]
+#[allow(dead_code)] // read by the batch commands
+pub struct FileSpectra {
+    /// The input.
+    pub path: PathBuf,
+    /// Spectra read, in file order.
+    pub spectra: Vec<eis_core::Spectrum>,
+    /// Errors, in file order.
+    pub errors: Vec<eis_core::import::DataError>,
+}
+
+/// Reads one input, keeping the good spectra of a partly bad file; warnings go to stderr.
+pub fn read_one(path: &Path, options: &eis_core::import::ReaderOptions) -> FileSpectra {
+    let mut out = FileSpectra {
+        path: path.to_path_buf(),
+        spectra: Vec::new(),
+        errors: Vec::new(),
+    };
+    match eis_core::import::SpectrumReader::open(path, options.clone()) {
+        Err(e) => out.errors.push(e),
+        Ok(reader) => {
+            for item in reader {
+                match item {
+                    Ok(imported) => {
+                        for w in &imported.warnings {
+                            eprintln!("{w}");
+                        }
+                        out.spectra.push(imported.spectrum);
+                    }
+                    Err(e) => out.errors.push(e),
+                }
+            }
         }
-        let mut vals = [0.0; 3];
-        let mut fields = line.split(',');
-        for (col, v) in vals.iter_mut().enumerate() {
-            let cell = fields.next().unwrap_or("").trim();
-            *v = cell.parse().map_err(|_| {
-                bad(anyhow::anyhow!(
-                    "{}, line {}, column {}: `{cell}` is not a number",
-                    path.display(),
-                    n + 2,
-                    col + 1
-                ))
-            })?;
-        }
-        f.push(vals[0]);
-        z.push(num_complex::Complex64::new(vals[1], vals[2]));
     }
-    let mut s = eis_core::Spectrum::new(f, z);
-    s.meta.source = Some(path.display().to_string());
-    s.meta.spectrum = 1;
-    Ok(vec![s])
+    out
+}
+
+/// Reads several inputs; one bad file does not stop the others.
+#[allow(dead_code)] // for the batch commands
+pub fn read_many(paths: &[PathBuf], options: &eis_core::import::ReaderOptions) -> Vec<FileSpectra> {
+    paths.iter().map(|p| read_one(p, options)).collect()
 }

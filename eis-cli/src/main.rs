@@ -7,6 +7,7 @@ mod commands;
 mod format;
 mod io;
 mod plot;
+mod reader_args;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -26,6 +27,8 @@ enum Command {
     Plot(commands::plot::Args),
     Drt(commands::drt::Args),
     Fit(commands::fit::Args),
+    Convert(commands::convert::Args),
+    Check(commands::check::Args),
 }
 
 fn main() -> ExitCode {
@@ -36,6 +39,8 @@ fn main() -> ExitCode {
         Command::Plot(a) => commands::plot::run(a),
         Command::Drt(a) => commands::drt::run(a),
         Command::Fit(a) => commands::fit::run(a),
+        Command::Convert(a) => commands::convert::run(a),
+        Command::Check(a) => commands::check::run(a),
     };
     match outcome {
         Ok(code) => code,

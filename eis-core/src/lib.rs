@@ -32,12 +32,14 @@ pub mod drt;
 pub mod element;
 pub mod eval;
 pub mod fit;
+pub mod import;
 pub mod nnls;
 pub mod number;
 pub mod report;
 pub mod simulate;
 pub mod spectrum;
 pub mod trend;
+pub mod validate;
 
 pub use circuit::{Circuit, CircuitError};
 pub use eval::Plan;

@@ -251,8 +251,23 @@ fn bad_input_exits_2_with_a_clear_message() {
         "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n",
     )
     .unwrap();
-    let run = eis(&dir, &["fit", "two.csv", "--model", "R0 + R1|Q1 + R2|Q2"]).expect_code(2);
-    assert!(run.stderr.contains("too few"), "{}", run.stderr);
+    let run = eis(&dir, &["fit", "two.csv", "--model", "R0 + R1|Q1"]).expect_code(2);
+    assert!(
+        run.stderr.contains("fewer than the minimum"),
+        "{}",
+        run.stderr
+    );
+    std::fs::write(
+        dir.join("three.csv"),
+        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n1,3,-1\n",
+    )
+    .unwrap();
+    let run = eis(&dir, &["fit", "three.csv", "--model", "R0 + R1|Q1 + R2|Q2"]).expect_code(2);
+    assert!(
+        run.stderr.contains("too few for 7 free parameters"),
+        "{}",
+        run.stderr
+    );
     std::fs::write(
         dir.join("nan.csv"),
         "frequency_hz,z_real_ohm,z_imag_ohm\n100,NaN,-1\n10,2,-1\n1,3,-1\n",

@@ -1,5 +1,7 @@
 //! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
 
+mod check;
+mod convert;
 mod drt;
 mod fit;
 mod plot;

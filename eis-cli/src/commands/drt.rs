@@ -44,6 +44,8 @@ pub struct Args {
     /// Write γ on the fine τ grid as CSV (tau_s,frequency_hz,gamma_ohm); `-` for stdout.
     #[arg(long, short, value_name = "DRT.csv")]
     output: Option<PathBuf>,
+    #[command(flatten)]
+    reader: crate::reader_args::ReaderArgs,
 }
 
 #[derive(Clone, Copy, clap::ValueEnum)]
@@ -78,7 +80,7 @@ pub fn run(args: Args) -> Outcome {
             "--json and -o - both write to stdout; write the CSV to a file"
         )));
     }
-    let spectra = read_spectra(&args.input)?;
+    let spectra = read_spectra(&args.input, &args.reader.options()?)?;
     let spectrum = match (args.spectrum, spectra.len()) {
         (_, 0) => return Err(bad(anyhow!("{} holds no spectrum", args.input.display()))),
         (None, 1) => &spectra[0],

@@ -40,12 +40,6 @@ pub struct Args {
     /// Bounds, NAME=LO..HI (repeatable; either side may be left empty).
     #[arg(long = "bound", value_name = "NAME=LO..HI")]
     bound: Vec<String>,
-    /// Ignore points below this frequency (Hz).
-    #[arg(long, value_parser = crate::args::positive)]
-    fmin: Option<f64>,
-    /// Ignore points above this frequency (Hz).
-    #[arg(long, value_parser = crate::args::positive)]
-    fmax: Option<f64>,
     /// Warm start from a previous result (the JSON of `eis fit --json`).
     #[arg(long, value_name = "RESULT.json")]
     start_from: Option<PathBuf>,
@@ -64,6 +58,8 @@ pub struct Args {
     /// Write a Nyquist plot of data and fit (SVG or PNG by extension).
     #[arg(long, value_name = "FILE")]
     plot: Option<PathBuf>,
+    #[command(flatten)]
+    reader: crate::reader_args::ReaderArgs,
 }
 
 #[derive(Clone, Copy, clap::ValueEnum)]
@@ -100,7 +96,7 @@ fn circuit_with_overrides(args: &Args) -> Result<Circuit, Failure> {
 }
 
 fn pick_spectrum(args: &Args) -> Result<Spectrum, Failure> {
-    let mut spectra = read_spectra(&args.input)?;
+    let mut spectra = read_spectra(&args.input, &args.reader.options()?)?;
     let n = spectra.len();
     let k = args.spectrum as usize;
     if k > n {
@@ -109,9 +105,7 @@ fn pick_spectrum(args: &Args) -> Result<Spectrum, Failure> {
             args.input.display()
         )));
     }
-    let mut s = spectra.swap_remove(k - 1);
-    s.crop(args.fmin, args.fmax);
-    Ok(s)
+    Ok(spectra.swap_remove(k - 1))
 }
 
 /// Runs the command.

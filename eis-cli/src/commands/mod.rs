@@ -1,5 +1,7 @@
 //! One module per subcommand: arguments (clap) and a `run` that calls the library.
 
+pub mod check;
+pub mod convert;
 pub mod drt;
 pub mod fit;
 pub mod inspect;

@@ -101,6 +101,8 @@ pub struct Args {
     /// Do not mark the characteristic frequencies of arcs (Nyquist) or peaks (DRT).
     #[arg(long)]
     no_marks: bool,
+    #[command(flatten)]
+    reader: crate::reader_args::ReaderArgs,
 }
 
 /// Runs the command.
@@ -159,7 +161,7 @@ fn build(args: &Args) -> Result<Plot, Failure> {
     let title = |default: String| args.title.clone().unwrap_or(default);
     match args.kind {
         Kind::Nyquist | Kind::Bode => {
-            let spectra = read_all(&args.inputs)?;
+            let spectra = read_all(&args.inputs, &args.reader.options()?)?;
             let fit = args.fit.as_deref().map(read_curve).transpose()?;
             let single = spectra.len() == 1;
             let mut series: Vec<SeriesData> = spectra
@@ -202,7 +204,7 @@ fn build(args: &Args) -> Result<Plot, Failure> {
             }))
         }
         Kind::Overlay => {
-            let spectra = read_all(&args.inputs)?;
+            let spectra = read_all(&args.inputs, &args.reader.options()?)?;
             let (values, label) = colour_values(&spectra, args.color_by.as_deref());
             let by = args
                 .color_by
@@ -229,7 +231,7 @@ fn build(args: &Args) -> Result<Plot, Failure> {
         Kind::Residuals => {
             let input = one_input(args)?;
             let mut r = match &args.fit {
-                Some(fit) => residuals_against(input, fit)?,
+                Some(fit) => residuals_against(input, fit, &args.reader.options()?)?,
                 None => parse_residuals(&read_text(input)?).map_err(|e| json_error(input, e))?,
             };
             if r.title.is_empty() {
@@ -283,10 +285,18 @@ fn json_error(path: &Path, e: anyhow::Error) -> Failure {
 }
 
 /// Reads every spectrum of every input, named by file stem (and number within the file).
-fn read_all(inputs: &[PathBuf]) -> Result<Vec<(String, Spectrum)>, Failure> {
+fn read_all(
+    inputs: &[PathBuf],
+    options: &eis_core::import::ReaderOptions,
+) -> Result<Vec<(String, Spectrum)>, Failure> {
     let mut out = Vec::new();
+    // A plot can show even a single point.
+    let options = &eis_core::import::ReaderOptions {
+        min_points: 1,
+        ..options.clone()
+    };
     for path in inputs {
-        let spectra = read_spectra(path)?;
+        let spectra = read_spectra(path, options)?;
         let many = spectra.len() > 1;
         for s in spectra {
             let name = if many {
@@ -436,8 +446,12 @@ fn parse_residuals(text: &str) -> anyhow::Result<ResidualPlot> {
 
 /// Relative residuals (data − model) / |model| of the spectrum in `data` against the curve in
 /// `fit`, which must list the same frequencies.
-fn residuals_against(data: &Path, fit: &Path) -> Result<ResidualPlot, Failure> {
-    let spectra = read_spectra(data)?;
+fn residuals_against(
+    data: &Path,
+    fit: &Path,
+    options: &eis_core::import::ReaderOptions,
+) -> Result<ResidualPlot, Failure> {
+    let spectra = read_spectra(data, options)?;
     let [s] = spectra.as_slice() else {
         return Err(bad(anyhow!(
             "{}: residuals need exactly one spectrum",

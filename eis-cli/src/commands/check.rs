@@ -1,0 +1,260 @@
+//! `eis check`: Kramers–Kronig validation of every spectrum of the inputs.
+
+use crate::io::{Failure, Outcome};
+use crate::reader_args::ReaderArgs;
+use anyhow::anyhow;
+use eis_core::import::SpectrumReader;
+use eis_core::validate::{KkOptions, KkReport, Tail, kramers_kronig};
+use serde_json::{Value, json};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+/// Check spectra for Kramers-Kronig consistency (linear Voigt-series test, Schönleber, Klotz &
+/// Ivers-Tiffée 2014). A spectrum is valid when no point's residual exceeds --max-residual and the
+/// rms residual is within --rms-residual (both in % of |Z|); otherwise it is suspect and the
+/// frequency range of the offending points is given. Exit status 0 all valid, 1 any suspect or
+/// unreadable, 2 bad usage.
+#[derive(clap::Args)]
+#[command(
+    after_help = "Examples:\n  eis check cell.csv\n  eis check run*.txt --json --max-residual 2 --capacitance on"
+)]
+pub struct Args {
+    /// Input files.
+    #[arg(required = true, value_name = "INPUT")]
+    inputs: Vec<PathBuf>,
+    /// One JSON document per spectrum (an array for several) on stdout.
+    #[arg(long)]
+    json: bool,
+    /// μ threshold: fits with μ below it count as over-fitted.
+    #[arg(long, default_value_t = 0.85, value_parser = parse_fraction)]
+    mu: f64,
+    /// Largest residual of any point, % of |Z|, for a valid spectrum.
+    #[arg(long, default_value_t = 1.0, value_parser = parse_percent)]
+    max_residual: f64,
+    /// Largest rms residual, % of |Z|, for a valid spectrum.
+    #[arg(long, default_value_t = 0.5, value_parser = parse_percent)]
+    rms_residual: f64,
+    /// Fixed number of Voigt elements instead of the automatic choice.
+    #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
+    elements: Option<u32>,
+    /// Series capacitance for a capacitive low-frequency tail: auto, on, off.
+    #[arg(long, value_enum, default_value = "auto")]
+    capacitance: TailArg,
+    /// Series inductance for an inductive high-frequency tail: auto, on, off.
+    #[arg(long, value_enum, default_value = "auto")]
+    inductance: TailArg,
+    #[command(flatten)]
+    reader: ReaderArgs,
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum TailArg {
+    Auto,
+    On,
+    Off,
+}
+
+impl From<TailArg> for Tail {
+    fn from(t: TailArg) -> Tail {
+        match t {
+            TailArg::Auto => Tail::Auto,
+            TailArg::On => Tail::On,
+            TailArg::Off => Tail::Off,
+        }
+    }
+}
+
+fn parse_fraction(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if v > 0.0 && v <= 1.0 => Ok(v),
+        _ => Err(format!("`{s}` is not a number in (0, 1]")),
+    }
+}
+
+fn parse_percent(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if v > 0.0 && v.is_finite() => Ok(v),
+        _ => Err(format!("`{s}` is not a positive percentage")),
+    }
+}
+
+/// Four significant digits, for messages.
+fn short(x: f64) -> String {
+    if x == 0.0 || !x.is_finite() {
+        return format!("{x}");
+    }
+    let digits = 3 - x.abs().log10().floor() as i32;
+    if (0..=12).contains(&digits) {
+        let s = format!("{x:.*}", digits as usize);
+        if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_owned()
+        } else {
+            s
+        }
+    } else {
+        format!("{x:.3e}")
+    }
+}
+
+/// JSON documents written as they come: one document alone, several as an array, so memory does not
+/// grow with the number of spectra.
+struct JsonOut {
+    first: Option<Value>,
+    count: usize,
+}
+
+impl JsonOut {
+    fn push(&mut self, v: Value) -> Result<(), Failure> {
+        self.count += 1;
+        match self.count {
+            1 => self.first = Some(v),
+            2 => {
+                let first = self.first.take().unwrap_or(Value::Null);
+                emit(&format!("[\n{},\n{}", pretty(&first)?, pretty(&v)?))?;
+            }
+            _ => emit(&format!(",\n{}", pretty(&v)?))?,
+        }
+        Ok(())
+    }
+
+    fn finish(self) -> Result<(), Failure> {
+        match (self.count, self.first) {
+            (0, _) => emit("[]\n"),
+            (1, Some(v)) => emit(&format!("{}\n", pretty(&v)?)),
+            _ => emit("\n]\n"),
+        }
+    }
+}
+
+fn pretty(v: &Value) -> Result<String, Failure> {
+    serde_json::to_string_pretty(v).map_err(|e| Failure::Failed(anyhow!("cannot write JSON: {e}")))
+}
+
+fn emit(text: &str) -> Result<(), Failure> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    out.write_all(text.as_bytes())
+        .and_then(|_| out.flush())
+        .map_err(|e| Failure::Failed(anyhow!("cannot write to stdout: {e}")))
+}
+
+fn document(file: &str, s: &eis_core::Spectrum, r: &KkReport) -> Value {
+    let meta: serde_json::Map<String, Value> = s
+        .meta
+        .fields
+        .iter()
+        .map(|(k, v)| (k.clone(), serde_json::to_value(v).unwrap_or(Value::Null)))
+        .collect();
+    json!({
+        "file": file,
+        "spectrum": s.meta.spectrum,
+        "valid": r.valid,
+        "mu": r.mu,
+        "elements": r.elements,
+        "residual_rms_percent": r.residual_rms_percent,
+        "residual_max_percent": r.residual_max_percent,
+        "suspect_frequency_range_hz": r.suspect_frequency_range_hz.map(|(a, b)| vec![a, b]),
+        "points": s.len(),
+        "series_capacitance_f": r.capacitance,
+        "series_inductance_h": r.inductance,
+        "max_residual_percent_limit": r.max_residual_percent,
+        "rms_residual_percent_limit": r.rms_residual_percent,
+        "metadata": meta,
+    })
+}
+
+/// Runs the command.
+pub fn run(args: Args) -> Outcome {
+    let reader_options = args.reader.options()?;
+    let kk = KkOptions {
+        mu_threshold: args.mu,
+        elements: args.elements.map(|m| m as usize),
+        max_elements: None,
+        capacitance: args.capacitance.into(),
+        inductance: args.inductance.into(),
+        max_residual_percent: args.max_residual,
+        rms_residual_percent: args.rms_residual,
+    };
+    let mut docs = JsonOut {
+        first: None,
+        count: 0,
+    };
+    let json = args.json;
+    let mut all_valid = true;
+    let report_error = |docs: &mut JsonOut, file: &str, spectrum: Option<usize>, msg: String| {
+        eprintln!("error: {msg}");
+        if json {
+            docs.push(json!({"file": file, "spectrum": spectrum, "valid": false, "error": msg}))
+        } else {
+            Ok(())
+        }
+    };
+    for input in &args.inputs {
+        let file = input.display().to_string();
+        let reader = match SpectrumReader::open(input, reader_options.clone()) {
+            Ok(r) => r,
+            Err(e) => {
+                all_valid = false;
+                report_error(&mut docs, &file, None, e.to_string())?;
+                continue;
+            }
+        };
+        for item in reader {
+            let imported = match item {
+                Ok(i) => i,
+                Err(e) => {
+                    all_valid = false;
+                    report_error(&mut docs, &file, e.spectrum, e.to_string())?;
+                    continue;
+                }
+            };
+            for w in &imported.warnings {
+                eprintln!("{w}");
+            }
+            let s = imported.spectrum;
+            match kramers_kronig(&s, &kk) {
+                Err(e) => {
+                    all_valid = false;
+                    report_error(
+                        &mut docs,
+                        &file,
+                        Some(s.meta.spectrum),
+                        format!("{file}, spectrum {}: {e}", s.meta.spectrum),
+                    )?;
+                }
+                Ok(r) => {
+                    all_valid &= r.valid;
+                    if !args.json {
+                        let verdict = if r.valid { "valid" } else { "suspect" };
+                        let mut line = format!(
+                            "{file} #{}: {verdict} (mu {:.2}, {} elements, residual rms {} %, max {} %)",
+                            s.meta.spectrum,
+                            r.mu,
+                            r.elements,
+                            short(r.residual_rms_percent),
+                            short(r.residual_max_percent)
+                        );
+                        if let Some((lo, hi)) = r.suspect_frequency_range_hz {
+                            line.push_str(&format!(
+                                "; residuals above the limit from {} to {} Hz",
+                                short(lo),
+                                short(hi)
+                            ));
+                        }
+                        emit(&format!("{line}\n"))?;
+                    } else {
+                        docs.push(document(&file, &s, &r))?;
+                    }
+                }
+            }
+        }
+    }
+    if json {
+        docs.finish()?;
+    }
+    Ok(if all_valid {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    })
+}

@@ -1,0 +1,182 @@
+//! `eis convert`: every spectrum of any readable export as a canonical CSV, plus an index.
+
+use crate::io::{Failure, Outcome, write_atomic};
+use crate::reader_args::ReaderArgs;
+use anyhow::anyhow;
+use eis_core::import::SpectrumReader;
+use eis_core::number::format_float;
+use eis_core::spectrum::MetaValue;
+use std::collections::HashSet;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+/// Convert delimited-text exports to canonical spectrum CSV files (frequency_hz,z_real_ohm,z_imag_ohm;
+/// high to low frequency), one file per spectrum named <input stem>_<n>.csv, and write
+/// DIR/index.csv with one row per spectrum (file, spectrum, points, fmin_hz, fmax_hz, metadata,
+/// error). A file that cannot be read is listed with its error; the others are still converted.
+/// Exit status 1 if anything failed.
+#[derive(clap::Args)]
+#[command(
+    after_help = "Examples:\n  eis convert run1.txt run2.csv --out canonical/\n  eis convert cell*_c*.csv --out out/ --name-pattern 'cell{cell}_c{cycle}' --columns freq=1,re=2,im=3 --imag-sign minus-z"
+)]
+pub struct Args {
+    /// Input files.
+    #[arg(required = true, value_name = "INPUT")]
+    inputs: Vec<PathBuf>,
+    /// Output folder (created if missing).
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    #[command(flatten)]
+    reader: ReaderArgs,
+}
+
+struct Row {
+    file: String,
+    spectrum: Option<usize>,
+    points: Option<usize>,
+    fmin: Option<f64>,
+    fmax: Option<f64>,
+    meta: Vec<(String, MetaValue)>,
+    error: Option<String>,
+}
+
+impl Row {
+    fn failed(file: String, spectrum: Option<usize>, error: String) -> Row {
+        Row {
+            file,
+            spectrum,
+            points: None,
+            fmin: None,
+            fmax: None,
+            meta: Vec::new(),
+            error: Some(error),
+        }
+    }
+}
+
+/// Runs the command.
+pub fn run(args: Args) -> Outcome {
+    let options = args.reader.options()?;
+    std::fs::create_dir_all(&args.out)
+        .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", args.out.display())))?;
+    let mut rows: Vec<Row> = Vec::new();
+    let mut written: HashSet<String> = HashSet::new();
+    let mut failed = false;
+    for input in &args.inputs {
+        let file = input.display().to_string();
+        let stem = input
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "spectrum".to_owned());
+        let reader = match SpectrumReader::open(input, options.clone()) {
+            Ok(r) => r,
+            Err(e) => {
+                eprintln!("error: {e}");
+                rows.push(Row::failed(file, None, e.to_string()));
+                failed = true;
+                continue;
+            }
+        };
+        for item in reader {
+            let imported = match item {
+                Ok(i) => i,
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    rows.push(Row::failed(file.clone(), e.spectrum, e.to_string()));
+                    failed = true;
+                    continue;
+                }
+            };
+            for w in &imported.warnings {
+                eprintln!("{w}");
+            }
+            let s = imported.spectrum;
+            let n = s.meta.spectrum;
+            let name = format!("{stem}_{n}.csv");
+            if !written.insert(name.clone()) {
+                let msg = format!("{file}: output name {name} is already used by an earlier input");
+                eprintln!("error: {msg}");
+                rows.push(Row::failed(file.clone(), Some(n), msg));
+                failed = true;
+                continue;
+            }
+            if let Err(f) = write_atomic(
+                &args.out.join(&name),
+                s.to_canonical_csv().as_bytes(),
+                &args.inputs,
+            ) {
+                let msg = match f {
+                    Failure::BadInput(e) | Failure::Failed(e) => format!("{e:#}"),
+                };
+                eprintln!("error: {msg}");
+                rows.push(Row::failed(file.clone(), Some(n), msg));
+                failed = true;
+                continue;
+            }
+            let (lo, hi) = s
+                .frequency_hz
+                .iter()
+                .fold((f64::INFINITY, 0.0f64), |(a, b), &f| (a.min(f), b.max(f)));
+            rows.push(Row {
+                file: file.clone(),
+                spectrum: Some(n),
+                points: Some(s.len()),
+                fmin: Some(lo),
+                fmax: Some(hi),
+                meta: s.meta.fields,
+                error: None,
+            });
+        }
+    }
+    let index = index_csv(&rows).map_err(|e| Failure::Failed(anyhow!("index: {e}")))?;
+    write_atomic(&args.out.join("index.csv"), &index, &args.inputs)?;
+    let ok = rows.iter().filter(|r| r.error.is_none()).count();
+    eprintln!(
+        "converted {ok} spectra from {} files into {}",
+        args.inputs.len(),
+        args.out.display()
+    );
+    Ok(if failed {
+        ExitCode::from(1)
+    } else {
+        ExitCode::SUCCESS
+    })
+}
+
+/// The index: file, spectrum, points, fmin_hz, fmax_hz, the metadata fields in order of first
+/// appearance, error.
+fn index_csv(rows: &[Row]) -> Result<Vec<u8>, csv::Error> {
+    let mut keys: Vec<String> = Vec::new();
+    for r in rows {
+        for (k, _) in &r.meta {
+            if !keys.contains(k) {
+                keys.push(k.clone());
+            }
+        }
+    }
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header: Vec<&str> = vec!["file", "spectrum", "points", "fmin_hz", "fmax_hz"];
+    header.extend(keys.iter().map(String::as_str));
+    header.push("error");
+    w.write_record(&header)?;
+    let opt = |x: Option<String>| x.unwrap_or_default();
+    for r in rows {
+        let mut rec = vec![
+            r.file.clone(),
+            opt(r.spectrum.map(|n| n.to_string())),
+            opt(r.points.map(|n| n.to_string())),
+            opt(r.fmin.map(format_float)),
+            opt(r.fmax.map(format_float)),
+        ];
+        for k in &keys {
+            rec.push(opt(r
+                .meta
+                .iter()
+                .find(|(n, _)| n == k)
+                .map(|(_, v)| v.to_string())));
+        }
+        rec.push(r.error.clone().unwrap_or_default());
+        w.write_record(&rec)?;
+    }
+    w.into_inner().map_err(|e| e.into_error().into())
+}

@@ -1,0 +1,455 @@
+//! Text decoding and table detection: encoding, delimiter, decimal mark, header and where data start.
+//!
+//! Each line is decoded on its own: UTF-8 when it is valid UTF-8 (a byte-order mark on the first line
+//! is dropped), Windows-1252 otherwise (a superset of Latin-1 for printable text, so `°` and `µ` from
+//! either come through). Decoding never fails.
+
+/// Decodes one line (without its `\n`), dropping a trailing `\r`.
+pub(crate) fn decode_line(bytes: &[u8], first: bool) -> String {
+    let mut b = bytes;
+    if first {
+        b = b.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(b);
+    }
+    if let Some(rest) = b.strip_suffix(b"\r") {
+        b = rest;
+    }
+    match std::str::from_utf8(b) {
+        Ok(s) => s.to_owned(),
+        Err(_) => b.iter().map(|&c| windows_1252(c)).collect(),
+    }
+}
+
+/// The character of a Windows-1252 byte; bytes 0x80–0x9F that the code page leaves undefined map to
+/// the Latin-1 control characters of the same value.
+fn windows_1252(b: u8) -> char {
+    const HIGH: [char; 32] = [
+        '\u{20AC}', '\u{81}', '\u{201A}', '\u{192}', '\u{201E}', '\u{2026}', '\u{2020}',
+        '\u{2021}', '\u{2C6}', '\u{2030}', '\u{160}', '\u{2039}', '\u{152}', '\u{8D}', '\u{17D}',
+        '\u{8F}', '\u{90}', '\u{2018}', '\u{2019}', '\u{201C}', '\u{201D}', '\u{2022}', '\u{2013}',
+        '\u{2014}', '\u{2DC}', '\u{2122}', '\u{161}', '\u{203A}', '\u{153}', '\u{9D}', '\u{17E}',
+        '\u{178}',
+    ];
+    match b {
+        0x80..=0x9F => HIGH[(b - 0x80) as usize],
+        _ => b as char,
+    }
+}
+
+/// How fields are separated.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Delimiter {
+    /// A tab.
+    Tab,
+    /// A semicolon.
+    Semicolon,
+    /// A comma.
+    Comma,
+    /// One or more spaces or tabs.
+    Whitespace,
+}
+
+impl Delimiter {
+    const ALL: [Delimiter; 4] = [
+        Delimiter::Tab,
+        Delimiter::Semicolon,
+        Delimiter::Comma,
+        Delimiter::Whitespace,
+    ];
+}
+
+/// Whether a line is a comment: starts with `#`, `%`, `!` or `//` after leading blanks.
+pub(crate) fn is_comment(line: &str) -> bool {
+    let t = line.trim_start();
+    t.starts_with('#') || t.starts_with('%') || t.starts_with('!') || t.starts_with("//")
+}
+
+/// The line without its comment marker.
+fn strip_comment(line: &str) -> &str {
+    let t = line.trim_start();
+    t.strip_prefix("//")
+        .or_else(|| t.strip_prefix(['#', '%', '!']))
+        .unwrap_or(t)
+}
+
+/// Splits a line into fields, honouring double quotes (a delimiter inside quotes is text) and removing
+/// the quotes and surrounding blanks. With a one-character delimiter, a single trailing empty field
+/// (a line ending in the delimiter) is dropped.
+pub(crate) fn split(line: &str, d: Delimiter, out: &mut Vec<String>) {
+    out.clear();
+    if d == Delimiter::Whitespace {
+        split_whitespace(line, out);
+        return;
+    }
+    let sep = match d {
+        Delimiter::Tab => '\t',
+        Delimiter::Semicolon => ';',
+        Delimiter::Comma => ',',
+        Delimiter::Whitespace => unreachable!("handled above"),
+    };
+    let mut cur = String::new();
+    let mut quoted = false;
+    for c in line.chars() {
+        // A quote opens quoting only at the start of a field, so `Z"` (a double prime) stays text.
+        if quoted {
+            if c == '"' {
+                quoted = false;
+            } else {
+                cur.push(c);
+            }
+        } else if c == '"' && cur.trim().is_empty() {
+            quoted = true;
+        } else if c == sep {
+            out.push(cur.trim().to_owned());
+            cur.clear();
+        } else {
+            cur.push(c);
+        }
+    }
+    let last = cur.trim();
+    if !last.is_empty() || out.is_empty() {
+        out.push(last.to_owned());
+    }
+}
+
+fn split_whitespace(line: &str, out: &mut Vec<String>) {
+    let mut cur = String::new();
+    let mut quoted = false;
+    for c in line.chars() {
+        if quoted {
+            if c == '"' {
+                quoted = false;
+            } else {
+                cur.push(c);
+            }
+        } else if c == '"' && cur.is_empty() {
+            quoted = true;
+        } else if c == ' ' || c == '\t' {
+            if !cur.is_empty() {
+                out.push(std::mem::take(&mut cur));
+            }
+        } else {
+            cur.push(c);
+        }
+    }
+    if !cur.is_empty() {
+        out.push(cur);
+    }
+}
+
+/// Splits a header line of a whitespace-delimited table on runs of two or more blanks or on tabs, so
+/// that `Z' (Ohm)` stays one field.
+fn split_wide(line: &str) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut cur = String::new();
+    let mut spaces = 0;
+    for c in line.chars() {
+        if c == '\t' || (c == ' ' && spaces >= 1) {
+            if !cur.trim().is_empty() {
+                out.push(cur.trim().to_owned());
+            }
+            cur.clear();
+            spaces = 0;
+        } else if c == ' ' {
+            spaces += 1;
+            cur.push(c);
+        } else {
+            spaces = 0;
+            cur.push(c);
+        }
+    }
+    if !cur.trim().is_empty() {
+        out.push(cur.trim().to_owned());
+    }
+    out.into_iter()
+        .map(|s| s.trim_matches('"').to_owned())
+        .collect()
+}
+
+/// Reads a cell as a number with the given decimal mark. NaN and infinities read as numbers (the
+/// reader reports them as such later); an empty cell does not.
+pub(crate) fn parse_number(cell: &str, decimal_comma: bool) -> Option<f64> {
+    let t = cell.trim();
+    if t.is_empty() || t.len() > 64 {
+        return None;
+    }
+    if decimal_comma && t.contains(',') {
+        if t.matches(',').count() > 1 || t.contains('.') {
+            return None;
+        }
+        t.replace(',', ".").parse().ok()
+    } else {
+        t.parse().ok()
+    }
+}
+
+/// The table structure found in the first lines of a file.
+#[derive(Debug, Clone)]
+pub(crate) struct Layout {
+    pub delimiter: Delimiter,
+    pub decimal_comma: bool,
+    /// Fields per data line (the most common count).
+    pub fields: usize,
+    /// Index into the sample of the first data line.
+    pub data_start: usize,
+    /// Header words, one per field, if a header was found (a units line below the names is merged in
+    /// as `name (unit)`).
+    pub header: Option<Vec<String>>,
+    /// The header line or lines as written, to recognise them when repeated between spectra.
+    pub header_text: Vec<String>,
+}
+
+fn numeric_fields(fields: &[String], decimal_comma: bool) -> usize {
+    fields
+        .iter()
+        .filter(|f| parse_number(f, decimal_comma).is_some())
+        .count()
+}
+
+/// Finds the layout from a sample of non-blank lines. Returns `None` if no line holds three or more
+/// numbers under any delimiter.
+pub(crate) fn detect(sample: &[String]) -> Option<Layout> {
+    let mut best: Option<(usize, usize, usize, Delimiter, bool)> = None; // (score, numbers, pref, d, comma)
+    let mut fields = Vec::new();
+    for (pref, d) in Delimiter::ALL.into_iter().enumerate() {
+        for comma in [false, true] {
+            if comma && d == Delimiter::Comma {
+                continue;
+            }
+            // Data lines: three or more numeric fields; score by the most common field count.
+            let mut counts: Vec<(usize, usize, usize)> = Vec::new(); // (fields, lines, numbers)
+            for line in sample.iter().filter(|l| !is_comment(l)) {
+                split(line, d, &mut fields);
+                let n = numeric_fields(&fields, comma);
+                if n >= 3 {
+                    match counts.iter_mut().find(|c| c.0 == fields.len()) {
+                        Some(c) => {
+                            c.1 += 1;
+                            c.2 += n;
+                        }
+                        None => counts.push((fields.len(), 1, n)),
+                    }
+                }
+            }
+            let Some(&(_, lines, numbers)) = counts.iter().max_by_key(|c| (c.1, c.2)) else {
+                continue;
+            };
+            // Prefer more data lines, then more numbers, then the earlier delimiter, then a point.
+            let key = (lines, numbers, usize::MAX - (2 * pref + comma as usize));
+            if best.is_none_or(|b| key > (b.0, b.1, b.2)) {
+                best = Some((key.0, key.1, key.2, d, comma));
+            }
+        }
+    }
+    let (_, _, _, delimiter, decimal_comma) = best?;
+    // The field count of data lines and the first line of the first run of data lines.
+    let mut per_line: Vec<Option<usize>> = Vec::with_capacity(sample.len());
+    for line in sample {
+        if is_comment(line) {
+            per_line.push(None);
+            continue;
+        }
+        split(line, delimiter, &mut fields);
+        let n = numeric_fields(&fields, decimal_comma);
+        per_line.push((n >= 3).then_some(fields.len()));
+    }
+    let mut tally: Vec<(usize, usize)> = Vec::new();
+    for n in per_line.iter().flatten() {
+        match tally.iter_mut().find(|t| t.0 == *n) {
+            Some(t) => t.1 += 1,
+            None => tally.push((*n, 1)),
+        }
+    }
+    let n_fields = tally.iter().max_by_key(|t| t.1)?.0;
+    let data_start = per_line.iter().position(|p| *p == Some(n_fields))?;
+    let (header, header_text) = find_header(sample, data_start, delimiter, n_fields, decimal_comma);
+    Some(Layout {
+        delimiter,
+        decimal_comma,
+        fields: n_fields,
+        data_start,
+        header,
+        header_text,
+    })
+}
+
+/// Header words of a candidate line if it has `n` fields and at least one of them is not a number.
+fn header_fields(line: &str, d: Delimiter, n: usize, comma: bool) -> Option<Vec<String>> {
+    let text = strip_comment(line);
+    let mut f = Vec::new();
+    split(text, d, &mut f);
+    if f.len() != n && d == Delimiter::Whitespace {
+        f = split_wide(text);
+    }
+    if f.len() > n && f[n..].iter().all(|s| s.is_empty()) {
+        f.truncate(n);
+    }
+    let words = f
+        .iter()
+        .filter(|s| parse_number(s, comma).is_none())
+        .count();
+    (f.len() == n && words > 0 && words * 2 >= n).then_some(f)
+}
+
+fn find_header(
+    sample: &[String],
+    data_start: usize,
+    d: Delimiter,
+    n: usize,
+    comma: bool,
+) -> (Option<Vec<String>>, Vec<String>) {
+    if data_start == 0 {
+        return (None, Vec::new());
+    }
+    let below = &sample[data_start - 1];
+    let Some(lower) = header_fields(below, d, n, comma) else {
+        return (None, Vec::new());
+    };
+    // A units line under the names: every non-empty field is a unit.
+    let is_units = lower
+        .iter()
+        .all(|w| w.is_empty() || super::columns::is_unit_word(w));
+    if is_units && data_start >= 2 {
+        if let Some(upper) = header_fields(&sample[data_start - 2], d, n, comma) {
+            let merged = upper
+                .iter()
+                .zip(&lower)
+                .map(|(name, unit)| {
+                    let unit = unit
+                        .trim_start_matches(['(', '['])
+                        .trim_end_matches([')', ']']);
+                    if unit.is_empty() {
+                        name.clone()
+                    } else {
+                        format!("{name} ({unit})")
+                    }
+                })
+                .collect();
+            let texts = vec![
+                sample[data_start - 2].trim().to_owned(),
+                below.trim().to_owned(),
+            ];
+            return (Some(merged), texts);
+        }
+    }
+    (Some(lower), vec![below.trim().to_owned()])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn lines(text: &str) -> Vec<String> {
+        text.lines()
+            .filter(|l| !l.trim().is_empty())
+            .map(String::from)
+            .collect()
+    }
+
+    #[test]
+    fn decodes_utf8_bom_crlf_and_windows_1252() {
+        assert_eq!(decode_line(b"\xEF\xBB\xBFfreq\r", true), "freq");
+        assert_eq!(decode_line("Z (\u{3a9})".as_bytes(), false), "Z (\u{3a9})");
+        // Latin-1 degree and micro signs, and the Windows-1252 en dash (0x96).
+        assert_eq!(
+            decode_line(b"phase (\xB0) \xB5s \x96", false),
+            "phase (\u{b0}) \u{b5}s \u{2013}"
+        );
+    }
+
+    #[test]
+    fn splits_quotes_and_trailing_delimiter() {
+        let mut f = Vec::new();
+        split("\"a;b\"; 2 ;3;", Delimiter::Semicolon, &mut f);
+        assert_eq!(f, ["a;b", "2", "3"]);
+        split("  1  2\t3 ", Delimiter::Whitespace, &mut f);
+        assert_eq!(f, ["1", "2", "3"]);
+        assert_eq!(
+            split_wide("Freq (Hz)   Z' (Ohm)  Z'' (Ohm)"),
+            ["Freq (Hz)", "Z' (Ohm)", "Z'' (Ohm)"]
+        );
+    }
+
+    #[test]
+    fn numbers_with_either_decimal_mark() {
+        assert_eq!(parse_number("1,5", true), Some(1.5));
+        assert_eq!(parse_number("1,5", false), None);
+        assert_eq!(parse_number("1.5", true), Some(1.5));
+        assert_eq!(parse_number("1,5,6", true), None);
+        assert_eq!(parse_number("-2.5e3", false), Some(-2500.0));
+        assert!(parse_number("NaN", false).unwrap().is_nan());
+        assert_eq!(parse_number("", false), None);
+    }
+
+    /// (sample text, delimiter, decimal comma, fields, data start, header present)
+    #[test]
+    fn detects_layouts() {
+        let cases: &[(&str, Delimiter, bool, usize, usize, bool)] = &[
+            (
+                "f,re,im\n1,2,3\n4,5,6\n",
+                Delimiter::Comma,
+                false,
+                3,
+                1,
+                true,
+            ),
+            (
+                "f;re;im\n1,5;2,5;-3,5\n4;5;6\n",
+                Delimiter::Semicolon,
+                true,
+                3,
+                1,
+                true,
+            ),
+            ("f\tre\tim\n1.5\t2\t3\n", Delimiter::Tab, false, 3, 1, true),
+            (
+                "1,5 2,5 3,5\n4,5 5 6\n",
+                Delimiter::Whitespace,
+                true,
+                3,
+                0,
+                false,
+            ),
+            (
+                "Instrument: X\nDate: 1.2.2024\nf re im\n1 2 3\n4 5 6\n",
+                Delimiter::Whitespace,
+                false,
+                3,
+                3,
+                true,
+            ),
+            (
+                "# comment\nfreq,re,im,cycle\n1,2,3,1\n",
+                Delimiter::Comma,
+                false,
+                4,
+                2,
+                true,
+            ),
+            (
+                "f,re,im\nHz,Ohm,Ohm\n1,2,3\n",
+                Delimiter::Comma,
+                false,
+                3,
+                2,
+                true,
+            ),
+        ];
+        for &(text, d, comma, n, start, header) in cases {
+            let l = detect(&lines(text)).unwrap_or_else(|| panic!("{text:?}"));
+            assert_eq!(
+                (
+                    l.delimiter,
+                    l.decimal_comma,
+                    l.fields,
+                    l.data_start,
+                    l.header.is_some()
+                ),
+                (d, comma, n, start, header),
+                "{text:?}"
+            );
+        }
+        let l = detect(&lines("f,re,im\nHz,Ohm,Ohm\n1,2,3\n")).unwrap();
+        assert_eq!(l.header.unwrap(), ["f (Hz)", "re (Ohm)", "im (Ohm)"]);
+        assert!(detect(&lines("just text\nmore text\n1,2\n")).is_none());
+    }
+}

@@ -1,0 +1,115 @@
+//! `eis check` (Kramers–Kronig, linear Voigt-series test of Schönleber, Klotz & Ivers-Tiffée 2014,
+//! Electrochim. Acta 131, 20–27) on spectra simulated here (issue 4).
+
+use eis_tests::{eis, read_canonical, root, scratch};
+
+fn simulate(dir: &std::path::Path, name: &str, circuit: &str, noise: &str) {
+    let model = root().join("circuits").join(circuit);
+    eis(
+        dir,
+        &[
+            "simulate",
+            "--model",
+            model.to_str().unwrap(),
+            "--noise",
+            noise,
+            "--seed",
+            "3",
+            "-o",
+            name,
+        ],
+    )
+    .expect_code(0);
+}
+
+#[test]
+fn issue_4_check_passes_a_consistent_spectrum() {
+    let dir = scratch("check-valid");
+    simulate(&dir, "ok.csv", "randles-transmissive.circ", "0.002");
+    let run = eis(&dir, &["check", "ok.csv"]).expect_code(0);
+    assert!(
+        run.stdout.starts_with("ok.csv #1: valid (mu "),
+        "{}",
+        run.stdout
+    );
+    let run = eis(&dir, &["check", "ok.csv", "--json"]).expect_code(0);
+    let doc: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(doc["file"], "ok.csv");
+    assert_eq!(doc["spectrum"], 1);
+    assert_eq!(doc["valid"], true);
+    assert!(doc["suspect_frequency_range_hz"].is_null());
+    assert!(doc["mu"].as_f64().unwrap() >= 0.85);
+    assert!(doc["elements"].as_u64().unwrap() > 3);
+    assert!(doc["residual_rms_percent"].as_f64().unwrap() < 0.3);
+    assert!(doc["residual_max_percent"].as_f64().unwrap() < 1.0);
+}
+
+#[test]
+fn issue_4_check_flags_corrupted_points_and_unreadable_files() {
+    let dir = scratch("check-suspect");
+    simulate(&dir, "ok.csv", "two-interfaces.circ", "0.001");
+    let rows = read_canonical(&std::fs::read_to_string(dir.join("ok.csv")).unwrap());
+    // Three points near 10 Hz read 5 % high (a contact fault during part of the sweep).
+    let mut text = String::from("frequency_hz,z_real_ohm,z_imag_ohm\n");
+    for (f, re, im) in &rows {
+        let k = if (7.0..14.0).contains(f) { 1.05 } else { 1.0 };
+        text.push_str(&format!("{f},{},{im}\n", re * k));
+    }
+    std::fs::write(dir.join("bad.csv"), text).unwrap();
+    std::fs::write(dir.join("empty.csv"), "").unwrap();
+    let run = eis(&dir, &["check", "ok.csv", "bad.csv", "empty.csv", "--json"]).expect_code(1);
+    let docs: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    let docs = docs.as_array().expect("an array for several spectra");
+    assert_eq!(docs.len(), 3);
+    assert_eq!(docs[0]["valid"], true);
+    assert_eq!(docs[1]["valid"], false);
+    let range = docs[1]["suspect_frequency_range_hz"].as_array().unwrap();
+    let (lo, hi) = (range[0].as_f64().unwrap(), range[1].as_f64().unwrap());
+    // The range covers the corrupted points (7.9, 10 and 12.6 Hz) and stays within a decade of them.
+    let corrupted: Vec<f64> = rows
+        .iter()
+        .map(|r| r.0)
+        .filter(|f| (7.0..14.0).contains(f))
+        .collect();
+    assert_eq!(corrupted.len(), 3);
+    assert!(lo <= corrupted[2] && hi >= corrupted[0], "{lo}..{hi}");
+    assert!(lo > 1.0 && hi < 100.0, "{lo}..{hi}");
+    assert_eq!(docs[2]["valid"], false);
+    assert_eq!(
+        docs[2]["error"],
+        "empty.csv: found no table of numbers (no line holds three or more numeric fields)"
+    );
+    let run = eis(&dir, &["check", "bad.csv"]).expect_code(1);
+    assert!(run.stdout.contains("bad.csv #1: suspect"), "{}", run.stdout);
+    assert!(
+        run.stdout.contains("residuals above the limit from"),
+        "{}",
+        run.stdout
+    );
+    // A looser limit accepts it.
+    eis(
+        &dir,
+        &[
+            "check",
+            "bad.csv",
+            "--max-residual",
+            "10",
+            "--rms-residual",
+            "10",
+        ],
+    )
+    .expect_code(0);
+}
+
+#[test]
+fn issue_4_check_bad_usage_exits_2() {
+    let dir = scratch("check-usage");
+    for args in [
+        &["check", "a.csv", "--mu", "2"][..],
+        &["check", "a.csv", "--max-residual", "-1"][..],
+        &["check", "a.csv", "--capacitance", "maybe"][..],
+        &["check"][..],
+    ] {
+        eis(&dir, args).expect_code(2);
+    }
+}
