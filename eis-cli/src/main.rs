@@ -29,6 +29,8 @@ enum Command {
     Fit(commands::fit::Args),
     Convert(commands::convert::Args),
     Check(commands::check::Args),
+    Batch(commands::batch::Args),
+    Trend(commands::trend::Args),
 }
 
 fn main() -> ExitCode {
@@ -41,6 +43,8 @@ fn main() -> ExitCode {
         Command::Fit(a) => commands::fit::run(a),
         Command::Convert(a) => commands::convert::run(a),
         Command::Check(a) => commands::check::run(a),
+        Command::Batch(a) => commands::batch::run(a),
+        Command::Trend(a) => commands::trend::run(a),
     };
     match outcome {
         Ok(code) => code,

@@ -26,6 +26,7 @@
 #![forbid(unsafe_code)]
 #![warn(missing_docs)]
 
+pub mod campaign;
 pub mod circuit;
 pub mod derive;
 pub mod drt;
@@ -36,6 +37,7 @@ pub mod import;
 pub mod nnls;
 pub mod number;
 pub mod report;
+pub mod scenario;
 pub mod simulate;
 pub mod spectrum;
 pub mod trend;

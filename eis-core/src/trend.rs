@@ -363,14 +363,32 @@ pub fn analyse(
                 let (x_first, x_last) = (tx[0], tx[tx.len() - 1]);
                 let y_first = a + b * x_first;
                 let fitted_change = 100.0 * b * (x_last - x_first) / y_first.abs();
-                let hinge_change = hinge_fit.and_then(|(x0, _, _)| {
+                // A change counts when the straight line, or the hinge model at a detected onset,
+                // shows growth of at least the threshold with a slope at least `slope_sigmas`
+                // standard errors above zero.
+                let strong = |slope: f64, se: f64| {
+                    slope > 0.0 && (se == 0.0 || slope / se >= settings.slope_sigmas)
+                };
+                // The change must also stand out from the uncertainty of the single fits: at least
+                // `slope_sigmas` times the typical standard error of a difference of two points.
+                let mut ses: Vec<f64> = pts.iter().filter_map(|p| p.2).collect();
+                ses.sort_by(f64::total_cmp);
+                let point_se = ses.get(ses.len() / 2).copied().unwrap_or(0.0);
+                let beyond_fit_error = |delta: f64| {
+                    delta >= settings.slope_sigmas * point_se * std::f64::consts::SQRT_2
+                };
+                let line_ok = fitted_change >= settings.growth_percent
+                    && strong(b, se)
+                    && beyond_fit_error(b * (x_last - x_first));
+                let hinge_ok = onset.is_some_and(|x0| {
                     let u: Vec<f64> = tx.iter().map(|&v| (v - x0).max(0.0)).collect();
-                    line_fit(&u, &ty)
-                        .map(|(ha, hb, _)| 100.0 * hb * (x_last - x0).max(0.0) / ha.abs())
+                    line_fit(&u, &ty).is_some_and(|(ha, hb, hse)| {
+                        100.0 * hb * (x_last - x0).max(0.0) / ha.abs() >= settings.growth_percent
+                            && strong(hb, hse)
+                            && beyond_fit_error(hb * (x_last - x0).max(0.0))
+                    })
                 });
-                let grew = fitted_change.max(hinge_change.unwrap_or(f64::NEG_INFINITY));
-                let significant = b > 0.0 && (se == 0.0 || b / se >= settings.slope_sigmas);
-                if grew >= settings.growth_percent && significant {
+                if line_ok || hinge_ok {
                     let last = *change.last().expect("non-empty");
                     s.flagged = (0..x.len())
                         .filter(|&i| onset.is_none_or(|o| x[i] >= o))
@@ -533,4 +551,152 @@ mod tests {
             .unwrap();
         assert_eq!(f.onset_x, Some(300.0));
     }
+}
+
+/// Rows of a campaign's `results.csv` turned into trend records.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ResultsTable {
+    /// Records with a numeric x (failed rows and rows without x are left out).
+    pub records: Vec<Record>,
+    /// Quantity columns available (those with a `_stderr` sibling and at least one value).
+    pub quantities: Vec<String>,
+    /// Rows left out, with why.
+    pub skipped: Vec<String>,
+}
+
+/// Reads `results.csv` text (as written by a batch) into records against `x` (`cycle`, `soc`, `time` or
+/// any numeric column). Only rows whose SOC lies within 0.5 of `at_soc` are kept when it is given.
+///
+/// # Errors
+///
+/// A message naming the line when the text is not such a table or lacks the x column.
+pub fn read_results_csv(text: &str, x: &str, at_soc: Option<f64>) -> Result<ResultsTable, String> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .flexible(false)
+        .from_reader(text.as_bytes());
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| format!("line 1: {e}"))?
+        .iter()
+        .map(str::to_owned)
+        .collect();
+    let col = |name: &str| header.iter().position(|h| h == name);
+    let (Some(file_col), Some(status_col)) = (col("file"), col("status")) else {
+        return Err("line 1: not a results table (no `file` and `status` columns)".into());
+    };
+    let Some(x_col) = col(x) else {
+        return Err(format!(
+            "line 1: no column `{x}`; numeric columns include {}",
+            header
+                .iter()
+                .filter(|h| !h.ends_with("_stderr"))
+                .take(12)
+                .cloned()
+                .collect::<Vec<_>>()
+                .join(", ")
+        ));
+    };
+    let quantity_cols: Vec<(String, usize, usize)> = header
+        .iter()
+        .enumerate()
+        .filter_map(|(i, h)| {
+            let se = col(&format!("{h}_stderr"))?;
+            Some((h.clone(), i, se))
+        })
+        .collect();
+    let cell_col = col("cell");
+    let soc_col = col("soc");
+    let kk_col = col("kk_valid");
+    let spectrum_col = col("spectrum");
+    let mut records = Vec::new();
+    let mut skipped = Vec::new();
+    let mut seen: Vec<bool> = vec![false; quantity_cols.len()];
+    for (n, row) in rdr.records().enumerate() {
+        let line = n + 2;
+        let row = row.map_err(|e| format!("line {line}: {e}"))?;
+        let get = |i: usize| row.get(i).unwrap_or("").trim();
+        if get(status_col) == "failed" {
+            skipped.push(format!("line {line}: {} failed", get(file_col)));
+            continue;
+        }
+        let Ok(xv) = get(x_col).parse::<f64>() else {
+            skipped.push(format!("line {line}: no numeric {x}"));
+            continue;
+        };
+        let soc = soc_col.and_then(|c| get(c).parse::<f64>().ok());
+        if let (Some(target), Some(s)) = (at_soc, soc) {
+            if (s - target).abs() > 0.5 {
+                continue;
+            }
+        }
+        let cell = match cell_col {
+            Some(c) if !get(c).is_empty() => get(c).to_owned(),
+            _ => std::path::Path::new(get(file_col))
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_default(),
+        };
+        let mut values = Vec::new();
+        for (k, (name, vi, si)) in quantity_cols.iter().enumerate() {
+            if let Ok(v) = get(*vi).parse::<f64>() {
+                seen[k] = true;
+                values.push((name.clone(), v, get(*si).parse::<f64>().ok()));
+            }
+        }
+        records.push(Record {
+            cell,
+            x: xv,
+            soc: if at_soc.is_some() { None } else { soc },
+            values,
+            kk_valid: kk_col.and_then(|c| get(c).parse::<bool>().ok()),
+            source: format!(
+                "{} #{}",
+                get(file_col),
+                spectrum_col.map(get).unwrap_or("1")
+            ),
+        });
+    }
+    let quantities = quantity_cols
+        .iter()
+        .zip(&seen)
+        .filter(|(_, s)| **s)
+        .map(|((n, _, _), _)| n.clone())
+        .collect();
+    Ok(ResultsTable {
+        records,
+        quantities,
+        skipped,
+    })
+}
+
+/// `trends.csv`: one row per point of every series.
+pub fn trends_csv(report: &TrendReport) -> String {
+    use crate::number::format_float;
+    let mut out = format!(
+        "cell,quantity,{},y,y_stderr,change_percent,slope,slope_stderr,onset,flagged\n",
+        report.x_name
+    );
+    for s in &report.series {
+        for i in 0..s.x.len() {
+            let opt = |v: Option<f64>| v.map(format_float).unwrap_or_default();
+            let cell = if s.cell.contains([',', '"']) {
+                format!("\"{}\"", s.cell.replace('"', "\"\""))
+            } else {
+                s.cell.clone()
+            };
+            out.push_str(&format!(
+                "{cell},{},{},{},{},{},{},{},{},{}\n",
+                s.quantity,
+                format_float(s.x[i]),
+                format_float(s.y[i]),
+                opt(s.y_stderr[i]),
+                format_float(s.change_percent[i]),
+                opt(s.slope),
+                opt(s.slope_stderr),
+                opt(s.onset_x),
+                s.flagged.contains(&i)
+            ));
+        }
+    }
+    out
 }

@@ -47,7 +47,7 @@ pub struct Args {
     #[arg(long, value_parser = crate::args::number)]
     ocv: Option<f64>,
     /// Number of grid starting points.
-    #[arg(long, default_value_t = 8, value_parser = clap::value_parser!(u32).range(1..=200))]
+    #[arg(long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
     starts: u32,
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]

@@ -77,7 +77,7 @@ impl Weighting {
 pub struct FitSettings {
     /// Residual weighting. Default: [`Weighting::Modulus`].
     pub weighting: Weighting,
-    /// Number of grid starting points tried. Default 8.
+    /// Number of grid starting points tried. Default 16.
     pub starts: usize,
     /// Relative tolerance on χ² and on the step (ftol, xtol, gtol of the solver) for each start.
     /// Default 1e-10.
@@ -92,7 +92,7 @@ impl Default for FitSettings {
     fn default() -> Self {
         FitSettings {
             weighting: Weighting::Modulus,
-            starts: 8,
+            starts: 16,
             tolerance: 1e-10,
             patience: 100,
             arc_moves: true,

@@ -1,0 +1,214 @@
+//! `eis batch`: check and fit every spectrum of a campaign.
+
+use crate::io::{Failure, Outcome, bad, load_model};
+use anyhow::anyhow;
+use eis_core::campaign::{BatchError, BatchSettings, run_batch};
+use eis_core::fit::{FitSettings, Weighting};
+use indicatif::{ProgressBar, ProgressStyle};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+/// Check (Kramers-Kronig) and fit every spectrum of many files in parallel, warm-starting each fit
+/// from the previous spectrum of the same cell and SOC; write DIR/results.csv and DIR/results.jsonl.
+#[derive(clap::Args)]
+#[command(
+    after_help = "Examples:\n  eis batch data/ --model circuits/two-interfaces.circ --out results --name-pattern 'cell{cell}_c{cycle}_soc{soc}'\n  eis batch 'runs/*.csv' --model m.circ --out results --jobs 2 --resume\n  eis trend results/results.csv --x cycle\n\nInputs are files, folders (searched recursively for .csv, .txt, .tsv, .dat) and globs.\nStatus per spectrum: ok, suspect (failed the Kramers-Kronig check, or fit warnings that matter), failed.\nExit status: 0 none failed, 1 any failed, 2 bad usage."
+)]
+pub struct Args {
+    /// Input files, folders or globs.
+    #[arg(required = true, value_name = "INPUT")]
+    inputs: Vec<String>,
+    /// Circuit file (.circ) or inline expression.
+    #[arg(long, short)]
+    model: String,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// Worker threads (default: all cores).
+    #[arg(long, value_parser = clap::value_parser!(u32).range(1..=256))]
+    jobs: Option<u32>,
+    /// Skip spectra already in the results (after an interrupted run).
+    #[arg(long)]
+    resume: bool,
+    /// Fit every spectrum from automatic starting values (no warm start from its neighbour).
+    #[arg(long)]
+    no_warm_start: bool,
+    /// Residual weighting.
+    #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
+    weight: WeightArg,
+    /// Also write DIR/report.html (campaign summary, trends and flags).
+    #[arg(long)]
+    report: bool,
+    #[command(flatten)]
+    reader: crate::reader_args::ReaderArgs,
+}
+
+#[derive(Clone, Copy, clap::ValueEnum)]
+enum WeightArg {
+    Modulus,
+    Proportional,
+    Unit,
+}
+
+/// Files under `dir` with a data extension, recursively, sorted; hidden entries are skipped.
+fn walk(dir: &Path, out: &mut Vec<PathBuf>) {
+    let Ok(rd) = std::fs::read_dir(dir) else {
+        return;
+    };
+    let mut entries: Vec<PathBuf> = rd.flatten().map(|e| e.path()).collect();
+    entries.sort();
+    for p in entries {
+        let hidden = p
+            .file_name()
+            .is_some_and(|n| n.to_string_lossy().starts_with('.'));
+        if hidden {
+            continue;
+        }
+        if p.is_dir() {
+            walk(&p, out);
+        } else if p.extension().is_some_and(|e| {
+            matches!(
+                e.to_string_lossy().to_ascii_lowercase().as_str(),
+                "csv" | "txt" | "tsv" | "dat"
+            )
+        }) {
+            out.push(p);
+        }
+    }
+}
+
+/// `*` and `?` in the last path component.
+fn glob_match(pattern: &[char], name: &[char]) -> bool {
+    match (pattern.first(), name.first()) {
+        (None, None) => true,
+        (Some('*'), _) => {
+            glob_match(&pattern[1..], name) || (!name.is_empty() && glob_match(pattern, &name[1..]))
+        }
+        (Some('?'), Some(_)) => glob_match(&pattern[1..], &name[1..]),
+        (Some(p), Some(n)) if p == n => glob_match(&pattern[1..], &name[1..]),
+        _ => false,
+    }
+}
+
+/// Expands inputs: globs, folders, files (missing files are kept so they are reported as failed).
+pub fn expand(inputs: &[String]) -> Result<Vec<PathBuf>, Failure> {
+    let mut out = Vec::new();
+    for arg in inputs {
+        let path = PathBuf::from(arg);
+        let name = path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        if name.contains(['*', '?']) {
+            let dir = path
+                .parent()
+                .filter(|d| !d.as_os_str().is_empty())
+                .unwrap_or(Path::new("."));
+            let pat: Vec<char> = name.chars().collect();
+            let mut found: Vec<PathBuf> = std::fs::read_dir(dir)
+                .map_err(|e| bad(anyhow!("cannot list {}: {e}", dir.display())))?
+                .flatten()
+                .map(|e| e.path())
+                .filter(|p| {
+                    p.is_file()
+                        && p.file_name().is_some_and(|n| {
+                            glob_match(&pat, &n.to_string_lossy().chars().collect::<Vec<_>>())
+                        })
+                })
+                .collect();
+            found.sort();
+            if found.is_empty() {
+                return Err(bad(anyhow!("no file matches {arg}")));
+            }
+            out.extend(found);
+        } else if path.is_dir() {
+            walk(&path, &mut out);
+        } else {
+            out.push(path);
+        }
+    }
+    let out_dedup: Vec<PathBuf> = out
+        .iter()
+        .enumerate()
+        .filter(|(i, p)| !out[..*i].contains(p))
+        .map(|(_, p)| p.clone())
+        .collect();
+    if out_dedup.is_empty() {
+        return Err(bad(anyhow!("no input files found")));
+    }
+    Ok(out_dedup)
+}
+
+/// Runs the command.
+pub fn run(args: Args) -> Outcome {
+    let circuit = load_model(&args.model)?;
+    let inputs = expand(&args.inputs)?;
+    let settings = BatchSettings {
+        fit: FitSettings::default().with_weighting(match args.weight {
+            WeightArg::Modulus => Weighting::Modulus,
+            WeightArg::Proportional => Weighting::Proportional,
+            WeightArg::Unit => Weighting::Unit,
+        }),
+        warm_start: !args.no_warm_start,
+        reader: args.reader.options()?,
+        ..BatchSettings::default()
+    };
+    if let Some(j) = args.jobs {
+        // Only the first call in a process can set the global pool; a second one is harmless.
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(j as usize)
+            .build_global();
+    }
+    let bar = ProgressBar::new(0);
+    bar.set_style(
+        ProgressStyle::with_template(
+            "{spinner} {pos}/{len} spectra [{elapsed_precise}] {per_sec} eta {eta}",
+        )
+        .unwrap_or_else(|_| ProgressStyle::default_bar()),
+    );
+    let progress = |done: usize, total: usize| {
+        if bar.length() != Some(total as u64) {
+            bar.set_length(total as u64);
+        }
+        bar.set_position(done as u64);
+    };
+    let summary = run_batch(
+        &inputs,
+        &circuit,
+        &settings,
+        &args.out,
+        args.resume,
+        &progress,
+    )
+    .map_err(|e| match e {
+        BatchError::OverwritesInput(_) => bad(anyhow!("{e}")),
+        e => Failure::Failed(anyhow!("{e}")),
+    })?;
+    bar.finish_and_clear();
+    eprintln!(
+        "{} spectra: {} ok, {} suspect, {} failed{}",
+        summary.total,
+        summary.ok,
+        summary.suspect,
+        summary.failed,
+        if summary.skipped > 0 {
+            format!(" ({} already done, skipped)", summary.skipped)
+        } else {
+            String::new()
+        }
+    );
+    eprintln!(
+        "results: {} and {}",
+        args.out.join("results.csv").display(),
+        args.out.join("results.jsonl").display()
+    );
+    if args.report {
+        crate::commands::report::write_report(&args.out, &circuit)?;
+        eprintln!("report:  {}", args.out.join("report.html").display());
+    }
+    Ok(if summary.failed > 0 {
+        ExitCode::from(1)
+    } else {
+        ExitCode::SUCCESS
+    })
+}
