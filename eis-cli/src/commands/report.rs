@@ -1,24 +1,310 @@
-//! `eis report`: the campaign report, DIR/report.html.
+//! `eis report`: the campaign report, `DIR/report.html` — one self-contained file (inline SVG, no
+//! scripts, nothing fetched): summary, flags with their reasons, Kramers–Kronig failures, fits with
+//! warnings, failed files, trend plots, a table per cell and Nyquist overlays per cell.
 
-use crate::io::{Failure, Outcome};
+use crate::commands::trend::{analyse_file, default_quantities, quantity_label, trend_plot};
+use crate::format::quantity;
+use crate::io::{Failure, Outcome, bad, write_atomic};
+use crate::plot::{Format, OverlayPlot, OverlaySpectrum, Plot, render};
+use anyhow::anyhow;
 use eis_core::Circuit;
-use std::path::Path;
+use eis_core::campaign::{SpectrumResult, Status};
+use eis_core::import::{ReaderOptions, SpectrumReader};
+use eis_core::trend::{FLAG_CAUTION, TrendReport, TrendSettings};
+use std::collections::BTreeMap;
+use std::fmt::Write;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Write DIR/report.html for a batch output folder.
+/// Write DIR/report.html for a batch output folder: summary, flags, Kramers-Kronig failures, fit
+/// warnings, trend plots, a table per cell and Nyquist overlays. One self-contained HTML file.
 #[derive(clap::Args)]
-#[command(after_help = "Example:\n  eis report results")]
+#[command(after_help = "Example:\n  eis batch data/ --model m.circ --out results --name-pattern 'cell{cell}_c{cycle}_soc{soc}'\n  eis report results --model m.circ")]
 pub struct Args {
-    /// Output folder of `eis batch`.
-    dir: std::path::PathBuf,
+    /// Output folder of `eis batch` (holding results.csv and results.jsonl).
+    dir: PathBuf,
+    /// The circuit the batch fitted (for the report header).
+    #[arg(long, short)]
+    model: Option<String>,
+    #[command(flatten)]
+    reader: crate::reader_args::ReaderArgs,
 }
 
-/// Writes the report of a batch folder.
-pub fn write_report(_dir: &Path, _circuit: &Circuit) -> Result<(), Failure> {
-    Ok(())
+/// Escapes text for HTML.
+fn esc(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+        .replace('"', "&quot;")
+}
+
+/// An SVG of a plot, for inlining (without an XML declaration).
+fn svg(plot: &Plot, size: (u32, u32)) -> String {
+    match render(plot, Format::Svg, size.0, size.1) {
+        Ok(bytes) => {
+            let text = String::from_utf8_lossy(&bytes).into_owned();
+            match text.find("<svg") {
+                Some(i) => text[i..].to_owned(),
+                None => text,
+            }
+        }
+        Err(e) => format!("<p class=\"note\">plot not drawn: {}</p>", esc(&e.to_string())),
+    }
+}
+
+fn read_results(dir: &Path) -> Result<Vec<SpectrumResult>, Failure> {
+    let path = dir.join("results.jsonl");
+    let text = std::fs::read_to_string(&path)
+        .map_err(|e| bad(anyhow!("cannot read {}: {e}", path.display())))?;
+    let mut out = Vec::new();
+    for (n, line) in text.lines().enumerate() {
+        if line.trim().is_empty() {
+            continue;
+        }
+        out.push(
+            serde_json::from_str(line)
+                .map_err(|e| bad(anyhow!("{}, line {}: {e}", path.display(), n + 1)))?,
+        );
+    }
+    Ok(out)
+}
+
+fn meta_num(r: &SpectrumResult, k: &str) -> Option<f64> {
+    r.metadata.get(k).and_then(|v| v.as_f64())
+}
+
+fn cell_of(r: &SpectrumResult) -> String {
+    r.metadata
+        .get("cell")
+        .map(|v| v.to_string())
+        .unwrap_or_else(|| {
+            Path::new(&r.file)
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_default()
+        })
+}
+
+const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222}\
+h1{font-size:1.6em}h2{font-size:1.25em;margin-top:2em;border-bottom:1px solid #ccc}h3{font-size:1.05em}\
+table{border-collapse:collapse;margin:0.5em 0;font-size:0.9em}td,th{border:1px solid #ccc;padding:3px 6px;text-align:left}\
+th{background:#f0f0f0}.flag{color:#a40000}.ok{color:#1a6d1a}.suspect{color:#a06000}.failed{color:#a40000}\
+.caution{border:1px solid #a06000;background:#fff7e6;padding:0.6em 1em}.note{color:#666}svg{max-width:100%;height:auto}";
+
+/// Writes `dir/report.html`.
+pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOptions) -> Result<(), Failure> {
+    let results = read_results(dir)?;
+    let csv = dir.join("results.csv");
+    let has_cycle = results.iter().any(|r| meta_num(r, "cycle").is_some());
+    let x = if has_cycle { "cycle" } else { "spectrum" };
+    let trend: Option<TrendReport> = if has_cycle {
+        Some(analyse_file(&csv, x, &[], None, &TrendSettings::default())?)
+    } else {
+        None
+    };
+    let mut h = String::new();
+    let _ = write!(
+        h,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>Impedance campaign report</title><style>{STYLE}</style></head><body>\n<h1>Impedance campaign report</h1>\n"
+    );
+    let count = |s: Status| results.iter().filter(|r| r.status == s).count();
+    let mut cells: BTreeMap<String, Vec<&SpectrumResult>> = BTreeMap::new();
+    for r in &results {
+        cells.entry(cell_of(r)).or_default().push(r);
+    }
+    let _ = write!(
+        h,
+        "<h2>Summary</h2>\n<p>{} spectra from {} cells: <span class=\"ok\">{} ok</span>, <span class=\"suspect\">{} suspect</span>, <span class=\"failed\">{} failed</span>.</p>\n",
+        results.len(),
+        cells.len(),
+        count(Status::Ok),
+        count(Status::Suspect),
+        count(Status::Failed)
+    );
+    if let Some(c) = circuit {
+        let _ = writeln!(
+            h,
+            "<p>Model: <code>{}</code></p>",
+            esc(&eis_core::circuit::print(c).replace('\n', "; "))
+        );
+    }
+    let _ = writeln!(
+        h,
+        "<div class=\"caution\"><b>Caution.</b> The values and flags in this report are engineering hints from impedance data, not safety verdicts. Charged cells can deliver large currents into a short and many electrolytes are corrosive: handle suspect cells by your lab's own rules, local codes and the instructions of qualified staff.</div>"
+    );
+
+    // Flags.
+    h.push_str("<h2>Flags</h2>\n");
+    match &trend {
+        Some(t) if !t.flags.is_empty() => {
+            h.push_str("<table><tr><th>cell</th><th>kind</th><th>quantity or spectrum</th><th>onset</th><th>change</th><th>explanation</th></tr>\n");
+            for f in &t.flags {
+                let _ = writeln!(
+                    h,
+                    "<tr class=\"flag\"><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                    esc(&f.cell),
+                    f.kind.as_str(),
+                    esc(&f.quantity),
+                    f.onset_x.map(|o| format!("{x} {}", eis_core::number::format_float(o))).unwrap_or_default(),
+                    f.change_percent.map(|c| format!("{c:+.0} %")).unwrap_or_default(),
+                    esc(f.explanation.trim_end_matches(FLAG_CAUTION).trim())
+                );
+            }
+            h.push_str("</table>\n");
+            let _ = writeln!(h, "<p class=\"note\">{}</p>", esc(FLAG_CAUTION));
+        }
+        Some(_) => h.push_str("<p>No trend flags.</p>\n"),
+        None => h.push_str("<p class=\"note\">No cycle numbers in the metadata: no trends analysed.</p>\n"),
+    }
+
+    // Problem spectra.
+    let kk_failed: Vec<&SpectrumResult> = results
+        .iter()
+        .filter(|r| r.kk.as_ref().is_some_and(|k| !k.valid))
+        .collect();
+    h.push_str("<h2>Kramers-Kronig failures</h2>\n");
+    if kk_failed.is_empty() {
+        h.push_str("<p>Every spectrum passed the Kramers-Kronig check.</p>\n");
+    } else {
+        h.push_str("<p>These spectra are not consistent with a linear, stable system: the cell probably changed during the sweep or the measurement was disturbed. Their fitted values should not be trusted.</p>\n<table><tr><th>file</th><th>cell</th><th>max residual</th><th>suspect range</th></tr>\n");
+        for r in &kk_failed {
+            let k = r.kk.as_ref().expect("filtered");
+            let _ = writeln!(
+                h,
+                "<tr><td>{} #{}</td><td>{}</td><td>{:.2} %</td><td>{}</td></tr>",
+                esc(&r.file),
+                r.spectrum,
+                esc(&cell_of(r)),
+                k.residual_max_percent,
+                k.suspect_frequency_range_hz
+                    .map(|(a, b)| format!("{} to {}", quantity(a, 3, "Hz"), quantity(b, 3, "Hz")))
+                    .unwrap_or_default()
+            );
+        }
+        h.push_str("</table>\n");
+    }
+    h.push_str("<h2>Failed files</h2>\n");
+    let failed: Vec<&SpectrumResult> = results.iter().filter(|r| r.status == Status::Failed).collect();
+    if failed.is_empty() {
+        h.push_str("<p>None.</p>\n");
+    } else {
+        h.push_str("<table><tr><th>file</th><th>reason</th></tr>\n");
+        for r in &failed {
+            let _ = writeln!(h, "<tr class=\"failed\"><td>{} #{}</td><td>{}</td></tr>", esc(&r.file), r.spectrum, esc(&r.message));
+        }
+        h.push_str("</table>\n");
+    }
+    h.push_str("<h2>Fits with warnings</h2>\n");
+    let warned: Vec<&SpectrumResult> = results
+        .iter()
+        .filter(|r| r.fit.as_ref().is_some_and(|f| !f.warnings.is_empty()))
+        .collect();
+    if warned.is_empty() {
+        h.push_str("<p>None.</p>\n");
+    } else {
+        h.push_str("<table><tr><th>file</th><th>warnings</th></tr>\n");
+        for r in &warned {
+            let w = r.fit.as_ref().expect("filtered").warnings.join("; ");
+            let _ = writeln!(h, "<tr><td>{} #{}</td><td>{}</td></tr>", esc(&r.file), r.spectrum, esc(&w));
+        }
+        h.push_str("</table>\n");
+    }
+
+    // Trend plots.
+    if let Some(t) = &trend {
+        h.push_str("<h2>Trends</h2>\n<p class=\"note\">Error bars are the standard errors of the single fits; flagged points are marked.</p>\n");
+        let mut quantities: Vec<String> = Vec::new();
+        for s in &t.series {
+            if !quantities.contains(&s.quantity) {
+                quantities.push(s.quantity.clone());
+            }
+        }
+        for q in default_quantities(&quantities) {
+            let _ = writeln!(h, "<h3>{}</h3>", esc(&quantity_label(&q).0));
+            h.push_str(&svg(&trend_plot(t, &q), (900, 520)));
+            h.push('\n');
+        }
+    }
+
+    // Per cell.
+    h.push_str("<h2>Cells</h2>\n");
+    for (cell, rs) in &cells {
+        let _ = writeln!(h, "<h3>Cell {}</h3>", esc(cell));
+        h.push_str("<table><tr><th>file</th><th>cycle</th><th>SOC</th><th>status</th><th>ohmic (Ω)</th><th>interface (Ω)</th><th>diffusion (Ω)</th><th>DC (Ω)</th><th>note</th></tr>\n");
+        let mut sorted = rs.clone();
+        sorted.sort_by(|a, b| {
+            meta_num(a, "cycle")
+                .unwrap_or(0.0)
+                .total_cmp(&meta_num(b, "cycle").unwrap_or(0.0))
+                .then(meta_num(a, "soc").unwrap_or(0.0).total_cmp(&meta_num(b, "soc").unwrap_or(0.0)))
+        });
+        for r in &sorted {
+            let d = r.fit.as_ref().map(|f| &f.derived);
+            let cellv = |v: Option<f64>, se: Option<f64>| match v {
+                Some(v) => crate::format::with_error(v, se),
+                None => "-".into(),
+            };
+            let _ = writeln!(
+                h,
+                "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                esc(Path::new(&r.file).file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default().as_str()),
+                meta_num(r, "cycle").map(eis_core::number::format_float).unwrap_or_default(),
+                meta_num(r, "soc").map(eis_core::number::format_float).unwrap_or_default(),
+                r.status.as_str(),
+                r.status.as_str(),
+                cellv(d.and_then(|d| d.ohmic_resistance_ohm), d.and_then(|d| d.ohmic_resistance_ohm_stderr)),
+                cellv(d.and_then(|d| d.charge_transfer_resistance_ohm), d.and_then(|d| d.charge_transfer_resistance_ohm_stderr)),
+                cellv(d.and_then(|d| d.diffusion_resistance_ohm), d.and_then(|d| d.diffusion_resistance_ohm_stderr)),
+                cellv(d.and_then(|d| d.dc_resistance_ohm), d.and_then(|d| d.dc_resistance_ohm_stderr)),
+                esc(&r.message)
+            );
+        }
+        h.push_str("</table>\n");
+        // Nyquist overlay of the cell's spectra at one SOC level (the one nearest 50 %), coloured by cycle.
+        let socs: Vec<f64> = sorted.iter().filter_map(|r| meta_num(r, "soc")).collect();
+        let level = socs
+            .iter()
+            .copied()
+            .min_by(|a, b| (a - 50.0).abs().total_cmp(&(b - 50.0).abs()));
+        let mut spectra = Vec::new();
+        for r in sorted.iter().filter(|r| r.status != Status::Failed) {
+            if level.is_some() && meta_num(r, "soc") != level {
+                continue;
+            }
+            let Ok(reader) = SpectrumReader::open(Path::new(&r.file), reader.clone()) else {
+                continue;
+            };
+            if let Some(Ok(imp)) = reader.into_iter().nth(r.spectrum - 1) {
+                spectra.push(OverlaySpectrum {
+                    label: r.file.clone(),
+                    freq: imp.spectrum.frequency_hz,
+                    z: imp.spectrum.z,
+                    value: meta_num(r, "cycle").unwrap_or(r.spectrum as f64),
+                });
+            }
+        }
+        if !spectra.is_empty() {
+            let title = match level {
+                Some(l) => format!("Cell {cell} at {} % SOC", eis_core::number::format_float(l)),
+                None => format!("Cell {cell}"),
+            };
+            let plot = Plot::Overlay(OverlayPlot {
+                title,
+                spectra,
+                colorbar_label: if has_cycle { "cycle".into() } else { "spectrum".into() },
+            });
+            h.push_str(&svg(&plot, (900, 600)));
+            h.push('\n');
+        }
+    }
+    h.push_str("<p class=\"note\">Written by eis. Standard errors come from the fit covariance scaled by the reduced chi-square; derived quantities by first-order propagation.</p>\n</body></html>\n");
+    write_atomic(&dir.join("report.html"), h.as_bytes(), &[])
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> Outcome {
+pub fn run(args: Args) -> Outcome {
+    let circuit = args.model.as_deref().map(crate::io::load_model).transpose()?;
+    write_report(&args.dir, circuit.as_ref(), &args.reader.options()?)?;
+    eprintln!("report: {}", args.dir.join("report.html").display());
     Ok(ExitCode::SUCCESS)
 }
