@@ -105,3 +105,26 @@ fn noisy_spectra_are_recovered_within_three_standard_errors() {
     assert!(checked > 100);
     assert!(beyond_three.len() <= 2, "beyond 3 SE: {beyond_three:?}");
 }
+
+/// `fit_from` runs exactly one local fit: from a start near the truth it reaches the truth of
+/// noise-free data; from a poor start it still reports that single run, whatever its outcome.
+#[test]
+fn fit_from_runs_only_the_given_start() {
+    let c = parse("R0 + Rf|Qf + Rct|Qdl").unwrap();
+    let truth = [1.0, 3.0, 1e-5, 0.9, 10.0, 1e-3, 0.9];
+    let freqs = log_frequencies(1e5, 1e-2, 10);
+    let data = simulate(&Plan::compile(&c), &truth, &freqs, None);
+    let near: Vec<f64> = truth.iter().map(|v| v * 1.1).collect();
+    let r = eis_core::fit::fit_from(&c, &data, &FitSettings::default(), &near).unwrap();
+    assert_eq!(r.starts_tried, 1);
+    for (got, want) in r.values.iter().zip(truth) {
+        assert!((got - want).abs() < 1e-6 * want, "{got} vs {want}");
+    }
+    let poor = [1.0; 7];
+    let r = eis_core::fit::fit_from(&c, &data, &FitSettings::default(), &poor).unwrap();
+    assert_eq!(r.starts_tried, 1);
+    assert!(matches!(
+        eis_core::fit::fit_from(&c, &data, &FitSettings::default(), &truth[..3]),
+        Err(eis_core::fit::FitError::WarmStartLength { got: 3, want: 7 })
+    ));
+}

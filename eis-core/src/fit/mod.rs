@@ -389,6 +389,35 @@ pub fn fit(
     settings: &FitSettings,
     warm: Option<&[f64]>,
 ) -> Result<FitResult, FitError> {
+    fit_impl(circuit, spectrum, settings, warm, false)
+}
+
+/// Fits `circuit` to `spectrum` by one Levenberg–Marquardt run from `start` (values of every parameter,
+/// circuit order; fixed parameters keep their circuit values, and a free value outside its bounds is
+/// replaced by the circuit's default). No automatic starts, no arc moves and no polish are tried,
+/// whatever the outcome: this is the single local fit, for comparing solvers from the same start and for
+/// callers that supply their own start strategy. Prefer [`fit`] otherwise.
+///
+/// # Errors
+///
+/// As [`fit`], and [`FitError::WarmStartLength`] if `start` does not hold one value per parameter.
+pub fn fit_from(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    start: &[f64],
+) -> Result<FitResult, FitError> {
+    fit_impl(circuit, spectrum, settings, Some(start), true)
+}
+
+/// [`fit`], or with `single` the warm-start run alone ([`fit_from`]).
+fn fit_impl(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    warm: Option<&[f64]>,
+    single: bool,
+) -> Result<FitResult, FitError> {
     let prep = prepare(spectrum, settings.weighting)?;
     let plan = Plan::compile(circuit);
     let np = circuit.params.len();
@@ -469,7 +498,7 @@ pub fn fit(
         let run = lm(&s);
         consider(run, &mut best, &mut evaluations, &mut tried);
         let b = best.as_ref().expect("just set");
-        if b.termination.was_successful() {
+        if single || b.termination.was_successful() {
             let result = finish(
                 circuit,
                 &plan,
@@ -481,7 +510,7 @@ pub fn fit(
                 evaluations,
                 tried,
             );
-            if result.warnings.is_empty() {
+            if single || result.warnings.is_empty() {
                 return Ok(result);
             }
         }
