@@ -533,9 +533,17 @@ fn fit_impl(
     }
     if settings.arc_moves {
         if let (Some(t), Some(b)) = (&terms, &best) {
+            let before = b.chi_square;
             let moves = start::arc_moves(&ctx, t, &b.params);
             for s in &moves {
                 consider(lm(s), &mut best, &mut evaluations, &mut tried);
+            }
+            // A move may have reached a new basin whose arcs are misassigned: swap once more.
+            if let Some(b) = best.as_ref().filter(|b| b.chi_square < before) {
+                let swaps = start::arc_swaps(&ctx, t, &b.params);
+                for s in &swaps {
+                    consider(lm(s), &mut best, &mut evaluations, &mut tried);
+                }
             }
         }
     }
