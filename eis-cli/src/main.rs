@@ -22,31 +22,43 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
+    Demo(commands::demo::Args),
     Simulate(commands::simulate::Args),
     Inspect(commands::inspect::Args),
-    Plot(commands::plot::Args),
-    Drt(commands::drt::Args),
-    Fit(commands::fit::Args),
     Convert(commands::convert::Args),
     Check(commands::check::Args),
+    Fit(commands::fit::Args),
+    Drt(commands::drt::Args),
     Batch(commands::batch::Args),
     Trend(commands::trend::Args),
+    Report(commands::report::Args),
+    Plot(commands::plot::Args),
+}
+
+fn run(command: Command) -> io::Outcome {
+    match command {
+        Command::Demo(a) => commands::demo::run(a),
+        Command::Simulate(a) => commands::simulate::run(a),
+        Command::Inspect(a) => commands::inspect::run(a),
+        Command::Convert(a) => commands::convert::run(a),
+        Command::Check(a) => commands::check::run(a),
+        Command::Fit(a) => commands::fit::run(a),
+        Command::Drt(a) => commands::drt::run(a),
+        Command::Batch(a) => commands::batch::run(a),
+        Command::Trend(a) => commands::trend::run(a),
+        Command::Report(a) => commands::report::run(a),
+        Command::Plot(a) => commands::plot::run(a),
+    }
+}
+
+/// Runs a command line from inside the program (the demo chains commands this way).
+pub(crate) fn dispatch(args: &[String]) -> io::Outcome {
+    let cli = Cli::try_parse_from(args).map_err(|e| io::bad(anyhow::anyhow!("{e}")))?;
+    run(cli.command)
 }
 
 fn main() -> ExitCode {
-    let cli = Cli::parse();
-    let outcome = match cli.command {
-        Command::Simulate(a) => commands::simulate::run(a),
-        Command::Inspect(a) => commands::inspect::run(a),
-        Command::Plot(a) => commands::plot::run(a),
-        Command::Drt(a) => commands::drt::run(a),
-        Command::Fit(a) => commands::fit::run(a),
-        Command::Convert(a) => commands::convert::run(a),
-        Command::Check(a) => commands::check::run(a),
-        Command::Batch(a) => commands::batch::run(a),
-        Command::Trend(a) => commands::trend::run(a),
-    };
-    match outcome {
+    match run(Cli::parse().command) {
         Ok(code) => code,
         Err(failure) => failure.report(),
     }

@@ -203,7 +203,7 @@ pub fn run(args: Args) -> Outcome {
         args.out.join("results.jsonl").display()
     );
     if args.report {
-        crate::commands::report::write_report(&args.out, &circuit)?;
+        crate::commands::report::write_report(&args.out, Some(&circuit), &settings.reader)?;
         eprintln!("report:  {}", args.out.join("report.html").display());
     }
     Ok(if summary.failed > 0 {

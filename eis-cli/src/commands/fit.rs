@@ -200,7 +200,7 @@ fn fitted_csv(s: &Spectrum, r: &FitResult) -> String {
     out
 }
 
-fn write_fit_plot(
+pub fn write_fit_plot(
     path: &std::path::Path,
     c: &Circuit,
     s: &Spectrum,

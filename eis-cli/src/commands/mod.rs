@@ -3,6 +3,7 @@
 pub mod batch;
 pub mod check;
 pub mod convert;
+pub mod demo;
 pub mod drt;
 pub mod fit;
 pub mod inspect;

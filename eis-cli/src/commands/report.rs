@@ -19,7 +19,9 @@ use std::process::ExitCode;
 /// Write DIR/report.html for a batch output folder: summary, flags, Kramers-Kronig failures, fit
 /// warnings, trend plots, a table per cell and Nyquist overlays. One self-contained HTML file.
 #[derive(clap::Args)]
-#[command(after_help = "Example:\n  eis batch data/ --model m.circ --out results --name-pattern 'cell{cell}_c{cycle}_soc{soc}'\n  eis report results --model m.circ")]
+#[command(
+    after_help = "Example:\n  eis batch data/ --model m.circ --out results --name-pattern 'cell{cell}_c{cycle}_soc{soc}'\n  eis report results --model m.circ"
+)]
 pub struct Args {
     /// Output folder of `eis batch` (holding results.csv and results.jsonl).
     dir: PathBuf,
@@ -48,7 +50,10 @@ fn svg(plot: &Plot, size: (u32, u32)) -> String {
                 None => text,
             }
         }
-        Err(e) => format!("<p class=\"note\">plot not drawn: {}</p>", esc(&e.to_string())),
+        Err(e) => format!(
+            "<p class=\"note\">plot not drawn: {}</p>",
+            esc(&e.to_string())
+        ),
     }
 }
 
@@ -92,7 +97,11 @@ th{background:#f0f0f0}.flag{color:#a40000}.ok{color:#1a6d1a}.suspect{color:#a060
 .caution{border:1px solid #a06000;background:#fff7e6;padding:0.6em 1em}.note{color:#666}svg{max-width:100%;height:auto}";
 
 /// Writes `dir/report.html`.
-pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOptions) -> Result<(), Failure> {
+pub fn write_report(
+    dir: &Path,
+    circuit: Option<&Circuit>,
+    reader: &ReaderOptions,
+) -> Result<(), Failure> {
     let results = read_results(dir)?;
     let csv = dir.join("results.csv");
     let has_cycle = results.iter().any(|r| meta_num(r, "cycle").is_some());
@@ -145,8 +154,12 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
                     esc(&f.cell),
                     f.kind.as_str(),
                     esc(&f.quantity),
-                    f.onset_x.map(|o| format!("{x} {}", eis_core::number::format_float(o))).unwrap_or_default(),
-                    f.change_percent.map(|c| format!("{c:+.0} %")).unwrap_or_default(),
+                    f.onset_x
+                        .map(|o| format!("{x} {}", eis_core::number::format_float(o)))
+                        .unwrap_or_default(),
+                    f.change_percent
+                        .map(|c| format!("{c:+.0} %"))
+                        .unwrap_or_default(),
                     esc(f.explanation.trim_end_matches(FLAG_CAUTION).trim())
                 );
             }
@@ -154,7 +167,9 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
             let _ = writeln!(h, "<p class=\"note\">{}</p>", esc(FLAG_CAUTION));
         }
         Some(_) => h.push_str("<p>No trend flags.</p>\n"),
-        None => h.push_str("<p class=\"note\">No cycle numbers in the metadata: no trends analysed.</p>\n"),
+        None => h.push_str(
+            "<p class=\"note\">No cycle numbers in the metadata: no trends analysed.</p>\n",
+        ),
     }
 
     // Problem spectra.
@@ -184,13 +199,22 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
         h.push_str("</table>\n");
     }
     h.push_str("<h2>Failed files</h2>\n");
-    let failed: Vec<&SpectrumResult> = results.iter().filter(|r| r.status == Status::Failed).collect();
+    let failed: Vec<&SpectrumResult> = results
+        .iter()
+        .filter(|r| r.status == Status::Failed)
+        .collect();
     if failed.is_empty() {
         h.push_str("<p>None.</p>\n");
     } else {
         h.push_str("<table><tr><th>file</th><th>reason</th></tr>\n");
         for r in &failed {
-            let _ = writeln!(h, "<tr class=\"failed\"><td>{} #{}</td><td>{}</td></tr>", esc(&r.file), r.spectrum, esc(&r.message));
+            let _ = writeln!(
+                h,
+                "<tr class=\"failed\"><td>{} #{}</td><td>{}</td></tr>",
+                esc(&r.file),
+                r.spectrum,
+                esc(&r.message)
+            );
         }
         h.push_str("</table>\n");
     }
@@ -205,14 +229,41 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
         h.push_str("<table><tr><th>file</th><th>warnings</th></tr>\n");
         for r in &warned {
             let w = r.fit.as_ref().expect("filtered").warnings.join("; ");
-            let _ = writeln!(h, "<tr><td>{} #{}</td><td>{}</td></tr>", esc(&r.file), r.spectrum, esc(&w));
+            let _ = writeln!(
+                h,
+                "<tr><td>{} #{}</td><td>{}</td></tr>",
+                esc(&r.file),
+                r.spectrum,
+                esc(&w)
+            );
         }
         h.push_str("</table>\n");
     }
 
-    // Trend plots.
-    if let Some(t) = &trend {
-        h.push_str("<h2>Trends</h2>\n<p class=\"note\">Error bars are the standard errors of the single fits; flagged points are marked.</p>\n");
+    // Trend plots, at the SOC level nearest 50 % when there are several.
+    let socs: Vec<f64> = results.iter().filter_map(|r| meta_num(r, "soc")).collect();
+    let plot_soc = socs
+        .iter()
+        .copied()
+        .min_by(|a, b| (a - 50.0).abs().total_cmp(&(b - 50.0).abs()));
+    let plot_trend = match (has_cycle, plot_soc) {
+        (true, Some(s)) => Some(analyse_file(
+            &csv,
+            x,
+            &[],
+            Some(s),
+            &TrendSettings::default(),
+        )?),
+        _ => trend.clone(),
+    };
+    if let Some(t) = &plot_trend {
+        let at = plot_soc
+            .map(|s| format!(" at {} % SOC", eis_core::number::format_float(s)))
+            .unwrap_or_default();
+        let _ = writeln!(
+            h,
+            "<h2>Trends{at}</h2>\n<p class=\"note\">Error bars are the standard errors of the single fits; flagged points are marked. The flags above cover every SOC level.</p>"
+        );
         let mut quantities: Vec<String> = Vec::new();
         for s in &t.series {
             if !quantities.contains(&s.quantity) {
@@ -236,7 +287,11 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
             meta_num(a, "cycle")
                 .unwrap_or(0.0)
                 .total_cmp(&meta_num(b, "cycle").unwrap_or(0.0))
-                .then(meta_num(a, "soc").unwrap_or(0.0).total_cmp(&meta_num(b, "soc").unwrap_or(0.0)))
+                .then(
+                    meta_num(a, "soc")
+                        .unwrap_or(0.0)
+                        .total_cmp(&meta_num(b, "soc").unwrap_or(0.0)),
+                )
         });
         for r in &sorted {
             let d = r.fit.as_ref().map(|f| &f.derived);
@@ -247,15 +302,35 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
             let _ = writeln!(
                 h,
                 "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-                esc(Path::new(&r.file).file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default().as_str()),
-                meta_num(r, "cycle").map(eis_core::number::format_float).unwrap_or_default(),
-                meta_num(r, "soc").map(eis_core::number::format_float).unwrap_or_default(),
+                esc(Path::new(&r.file)
+                    .file_name()
+                    .map(|n| n.to_string_lossy().into_owned())
+                    .unwrap_or_default()
+                    .as_str()),
+                meta_num(r, "cycle")
+                    .map(eis_core::number::format_float)
+                    .unwrap_or_default(),
+                meta_num(r, "soc")
+                    .map(eis_core::number::format_float)
+                    .unwrap_or_default(),
                 r.status.as_str(),
                 r.status.as_str(),
-                cellv(d.and_then(|d| d.ohmic_resistance_ohm), d.and_then(|d| d.ohmic_resistance_ohm_stderr)),
-                cellv(d.and_then(|d| d.charge_transfer_resistance_ohm), d.and_then(|d| d.charge_transfer_resistance_ohm_stderr)),
-                cellv(d.and_then(|d| d.diffusion_resistance_ohm), d.and_then(|d| d.diffusion_resistance_ohm_stderr)),
-                cellv(d.and_then(|d| d.dc_resistance_ohm), d.and_then(|d| d.dc_resistance_ohm_stderr)),
+                cellv(
+                    d.and_then(|d| d.ohmic_resistance_ohm),
+                    d.and_then(|d| d.ohmic_resistance_ohm_stderr)
+                ),
+                cellv(
+                    d.and_then(|d| d.charge_transfer_resistance_ohm),
+                    d.and_then(|d| d.charge_transfer_resistance_ohm_stderr)
+                ),
+                cellv(
+                    d.and_then(|d| d.diffusion_resistance_ohm),
+                    d.and_then(|d| d.diffusion_resistance_ohm_stderr)
+                ),
+                cellv(
+                    d.and_then(|d| d.dc_resistance_ohm),
+                    d.and_then(|d| d.dc_resistance_ohm_stderr)
+                ),
                 esc(&r.message)
             );
         }
@@ -291,7 +366,11 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
             let plot = Plot::Overlay(OverlayPlot {
                 title,
                 spectra,
-                colorbar_label: if has_cycle { "cycle".into() } else { "spectrum".into() },
+                colorbar_label: if has_cycle {
+                    "cycle".into()
+                } else {
+                    "spectrum".into()
+                },
             });
             h.push_str(&svg(&plot, (900, 600)));
             h.push('\n');
@@ -303,7 +382,11 @@ pub fn write_report(dir: &Path, circuit: Option<&Circuit>, reader: &ReaderOption
 
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
-    let circuit = args.model.as_deref().map(crate::io::load_model).transpose()?;
+    let circuit = args
+        .model
+        .as_deref()
+        .map(crate::io::load_model)
+        .transpose()?;
     write_report(&args.dir, circuit.as_ref(), &args.reader.options()?)?;
     eprintln!("report: {}", args.dir.join("report.html").display());
     Ok(ExitCode::SUCCESS)

@@ -393,6 +393,35 @@ pub fn fit(
     settings: &FitSettings,
     warm: Option<&[f64]>,
 ) -> Result<FitResult, FitError> {
+    fit_impl(circuit, spectrum, settings, warm, false)
+}
+
+/// Fits `circuit` to `spectrum` by one Levenberg–Marquardt run from `start` (values of every parameter,
+/// circuit order; fixed parameters keep their circuit values, and a free value outside its bounds is
+/// replaced by the circuit's default). No automatic starts, no arc moves and no polish are tried,
+/// whatever the outcome: this is the single local fit, for comparing solvers from the same start and for
+/// callers that supply their own start strategy. Prefer [`fit`] otherwise.
+///
+/// # Errors
+///
+/// As [`fit`], and [`FitError::WarmStartLength`] if `start` does not hold one value per parameter.
+pub fn fit_from(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    start: &[f64],
+) -> Result<FitResult, FitError> {
+    fit_impl(circuit, spectrum, settings, Some(start), true)
+}
+
+/// [`fit`], or with `single` the warm-start run alone ([`fit_from`]).
+fn fit_impl(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    warm: Option<&[f64]>,
+    single: bool,
+) -> Result<FitResult, FitError> {
     let prep = prepare(spectrum, settings.weighting)?;
     let plan = Plan::compile(circuit);
     let np = circuit.params.len();
@@ -473,7 +502,7 @@ pub fn fit(
         let run = lm(&s);
         consider(run, &mut best, &mut evaluations, &mut tried);
         let b = best.as_ref().expect("just set");
-        if b.termination.was_successful() {
+        if single || b.termination.was_successful() {
             let result = finish(
                 circuit,
                 &plan,
@@ -485,7 +514,7 @@ pub fn fit(
                 evaluations,
                 tried,
             );
-            if !result.systematic_residuals && !result.at_bound.iter().any(|b| *b) {
+            if single || (!result.systematic_residuals && !result.at_bound.iter().any(|b| *b)) {
                 return Ok(result);
             }
         }
@@ -508,9 +537,17 @@ pub fn fit(
     }
     if settings.arc_moves {
         if let (Some(t), Some(b)) = (&terms, &best) {
+            let before = b.chi_square;
             let moves = start::arc_moves(&ctx, t, &b.params);
             for s in &moves {
                 consider(lm(s), &mut best, &mut evaluations, &mut tried);
+            }
+            // A move may have reached a new basin whose arcs are misassigned: swap once more.
+            if let Some(b) = best.as_ref().filter(|b| b.chi_square < before) {
+                let swaps = start::arc_swaps(&ctx, t, &b.params);
+                for s in &swaps {
+                    consider(lm(s), &mut best, &mut evaluations, &mut tried);
+                }
             }
         }
     }

@@ -609,9 +609,10 @@ pub(crate) fn order_identical_arcs(ctx: &Context<'_>, terms: &[Term], p: &mut [f
     }
 }
 
-/// Variants of a fitted point that move one arc to other time constants (one per decade across the
-/// window), with its resistance raised to a tenth of the arcs' total if it had shrunk: this lets a small
-/// arc hidden beside a large one be found, and an arc that merged into its neighbour be re-inserted.
+/// Variants of a fitted point: every pair of arcs swapped (resistance and time constant exchanged), then
+/// each arc moved to other time constants (one per decade across the window), with its resistance raised
+/// to a tenth of the arcs' total if it had shrunk: this lets a small arc hidden beside a large one be
+/// found, and an arc that merged into its neighbour be re-inserted.
 pub(crate) fn arc_moves(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<Vec<f64>> {
     let arcs = arcs(terms);
     if arcs.len() < 2 {
@@ -621,6 +622,7 @@ pub(crate) fn arc_moves(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<
     let total: f64 = arcs.iter().map(|(r, _)| best[*r]).sum();
     let grid = log_grid(0.3 / wmax, 3.0 / wmin, 1.0);
     let mut out = Vec::new();
+    out.extend(arc_swaps(ctx, terms, best));
     for &(r, cap) in &arcs {
         let current = arc_tau(best, r, cap);
         for &tau in &grid {
@@ -630,6 +632,27 @@ pub(crate) fn arc_moves(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<
             let mut p = best.to_vec();
             ctx.put(&mut p, r, best[r].max(0.1 * total));
             set_arc_tau(ctx, &mut p, r, cap, tau);
+            out.push(p);
+        }
+    }
+    out
+}
+
+/// Variants of a fitted point in which two arcs exchange resistance and time constant, one per pair of
+/// arcs. The grid surrogate puts diffusion in series, so it cannot tell which arc's branch holds it; a
+/// fit that hung the diffusion on the wrong arc sits in a local minimum that moving one arc at a time
+/// does not leave.
+pub(crate) fn arc_swaps(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<Vec<f64>> {
+    let arcs = arcs(terms);
+    let mut out = Vec::new();
+    for (a, &(ra, ca)) in arcs.iter().enumerate() {
+        for &(rb, cb) in &arcs[a + 1..] {
+            let (ta, tb) = (arc_tau(best, ra, ca), arc_tau(best, rb, cb));
+            let mut p = best.to_vec();
+            ctx.put(&mut p, ra, best[rb]);
+            ctx.put(&mut p, rb, best[ra]);
+            set_arc_tau(ctx, &mut p, ra, ca, tb);
+            set_arc_tau(ctx, &mut p, rb, cb, ta);
             out.push(p);
         }
     }

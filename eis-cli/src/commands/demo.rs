@@ -1,0 +1,323 @@
+//! `eis demo`: an invented campaign run through the whole pipeline (convert, check and fit in a batch,
+//! trends, plots, report).
+
+use crate::io::{Failure, Outcome, bad, load_model, write_atomic};
+use crate::plot::{DrtPeak, DrtPlot, OverlayPlot, OverlaySpectrum, Plot};
+use anyhow::anyhow;
+use eis_core::import::{NamePattern, ReaderOptions, SpectrumReader};
+use eis_core::scenario;
+use eis_core::trend::{FlagKind, TrendSettings};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+/// Build an invented campaign of five aqueous zinc-manganese-oxide lab cells (spectra at 20, 50 and
+/// 80 % SOC every 25 cycles up to cycle 300, written as export files of varied shape, one cell with a
+/// contact problem, one with a growing interface film, one with a late soft short, one corrupt file and
+/// one drifting spectrum) and run the whole pipeline on it.
+#[derive(clap::Args)]
+#[command(
+    after_help = "Example:\n  eis demo --out eis-demo\n  # then open eis-demo/results/report.html"
+)]
+pub struct Args {
+    /// Folder for everything the demo writes.
+    #[arg(long, default_value = "eis-demo")]
+    out: PathBuf,
+}
+
+fn step(text: &str) {
+    eprintln!("\n== {text}");
+}
+
+/// Runs the command.
+pub fn run(args: Args) -> Outcome {
+    let out = &args.out;
+    let raw = out.join("raw");
+    let converted = out.join("converted");
+    let results = out.join("results");
+    let plots = out.join("plots");
+    for d in [&raw, &converted, &results, &plots] {
+        std::fs::create_dir_all(d)
+            .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", d.display())))?;
+    }
+    let started = std::time::Instant::now();
+
+    step("1. writing the invented campaign (export files of five cells)");
+    let files = scenario::files();
+    for f in &files {
+        write_atomic(&raw.join(&f.name), &f.bytes, &[])?;
+    }
+    let model_path = out.join("model.circ");
+    write_atomic(&model_path, scenario::MODEL_FILE.as_bytes(), &[])?;
+    eprintln!(
+        "{} files in {}; model in {}",
+        files.len(),
+        raw.display(),
+        model_path.display()
+    );
+    let raw_s = raw.display().to_string();
+    let model_s = model_path.display().to_string();
+
+    step("2. converting every export to canonical CSV");
+    let mut convert_args: Vec<String> = vec!["eis".into(), "convert".into()];
+    convert_args.extend(
+        files
+            .iter()
+            .map(|f| raw.join(&f.name).display().to_string()),
+    );
+    convert_args.extend([
+        "--out".into(),
+        converted.display().to_string(),
+        "--name-pattern".into(),
+        scenario::NAME_PATTERN.into(),
+    ]);
+    let _ = crate::dispatch(&convert_args);
+
+    step("3. checking (Kramers-Kronig) and fitting every spectrum");
+    let batch = crate::dispatch(&[
+        "eis".into(),
+        "batch".into(),
+        raw_s.clone(),
+        "--model".into(),
+        model_s.clone(),
+        "--out".into(),
+        results.display().to_string(),
+        "--name-pattern".into(),
+        scenario::NAME_PATTERN.into(),
+    ]);
+    if let Err(f) = batch {
+        return Err(f);
+    }
+
+    step("4. trends over cycles");
+    let trend = crate::commands::trend::analyse_file(
+        &results.join("results.csv"),
+        "cycle",
+        &[],
+        None,
+        &TrendSettings::default(),
+    )?;
+    write_atomic(
+        &results.join("trends.csv"),
+        eis_core::trend::trends_csv(&trend).as_bytes(),
+        &[],
+    )?;
+    let cells_with = |kind: FlagKind| -> Vec<String> {
+        let mut v: Vec<String> = trend
+            .flags
+            .iter()
+            .filter(|f| f.kind == kind)
+            .map(|f| f.cell.split(" @").next().unwrap_or("").to_owned())
+            .collect();
+        v.dedup();
+        v
+    };
+
+    step("5. plots");
+    let reader = ReaderOptions {
+        name_pattern: Some(
+            NamePattern::parse(scenario::NAME_PATTERN).map_err(|e| bad(anyhow!(e)))?,
+        ),
+        ..ReaderOptions::default()
+    };
+    let circuit = load_model(&model_s)?;
+    let mut written = Vec::new();
+    // A fit of a film-grown spectrum.
+    let fit_file = raw.join("Z3_c300_soc50.csv");
+    if let Some(s) = read_first(&fit_file, &reader) {
+        if let Ok(r) =
+            eis_core::fit::fit(&circuit, &s, &eis_core::fit::FitSettings::default(), None)
+        {
+            let p = plots.join("Z3_c300_soc50_fit.png");
+            crate::commands::fit::write_fit_plot(&p, &circuit, &s, &r, &[])?;
+            written.push(p);
+        }
+    }
+    // Overlay of cell Z3 at 50 % SOC coloured by cycle.
+    let spectra: Vec<OverlaySpectrum> = scenario::cycles()
+        .iter()
+        .filter_map(|&c| {
+            let f = raw.join(format!("Z3_c{:03}_soc50.csv", c as u32));
+            read_first(&f, &reader).map(|s| OverlaySpectrum {
+                label: f.display().to_string(),
+                freq: s.frequency_hz,
+                z: s.z,
+                value: c,
+            })
+        })
+        .collect();
+    let p = plots.join("Z3_overlay_soc50.png");
+    crate::commands::plot::write_plot(
+        &Plot::Overlay(OverlayPlot {
+            title: "Cell Z3 at 50 % SOC: the film arc grows with cycling".into(),
+            spectra,
+            colorbar_label: "cycle".into(),
+        }),
+        &p,
+        None,
+        (900, 650),
+        &[],
+    )?;
+    written.push(p);
+    // Trends at 50 % SOC (one series per cell keeps the plots readable).
+    let at50 = crate::commands::trend::analyse_file(
+        &results.join("results.csv"),
+        "cycle",
+        &[],
+        Some(50.0),
+        &TrendSettings::default(),
+    )?;
+    for q in [
+        "ohmic_resistance_ohm",
+        "arc_Rf_resistance_ohm",
+        "dc_resistance_ohm",
+    ] {
+        if at50.series.iter().any(|s| s.quantity == q) {
+            let p = plots.join(format!("trend_{q}.png"));
+            let mut plot = crate::commands::trend::trend_plot(&at50, q);
+            if let Plot::Trend(t) = &mut plot {
+                t.title.push_str(" at 50 % SOC");
+            }
+            crate::commands::plot::write_plot(&plot, &p, None, (1000, 620), &[])?;
+            written.push(p);
+        }
+    }
+    // DRT of a healthy spectrum.
+    if let Some(s) = read_first(&raw.join("Z1_c000_soc50.csv"), &reader) {
+        if let Ok(d) = eis_core::drt::drt(&s, eis_core::drt::DrtOptions::default()) {
+            let p = plots.join("Z1_c000_soc50_drt.png");
+            crate::commands::plot::write_plot(
+                &Plot::Drt(DrtPlot {
+                    title: "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
+                    tau: d.tau_s.clone(),
+                    gamma: d.gamma_ohm.clone(),
+                    peaks: d
+                        .peaks
+                        .iter()
+                        .map(|pk| DrtPeak {
+                            tau: pk.tau_s,
+                            gamma: pk.gamma_ohm,
+                            label: Some(format!(
+                                "{} Ω",
+                                crate::format::quantity(pk.resistance_ohm, 3, "").trim_end()
+                            )),
+                        })
+                        .collect(),
+                }),
+                &p,
+                None,
+                (900, 600),
+                &[],
+            )?;
+            written.push(p);
+        }
+    }
+    for p in &written {
+        eprintln!("  {}", p.display());
+    }
+
+    step("6. report");
+    crate::commands::report::write_report(&results, Some(&circuit), &reader)?;
+
+    // What was found.
+    let summary_results =
+        std::fs::read_to_string(results.join("results.jsonl")).unwrap_or_default();
+    let docs: Vec<eis_core::campaign::SpectrumResult> = summary_results
+        .lines()
+        .filter_map(|l| serde_json::from_str(l).ok())
+        .collect();
+    let failed: Vec<String> = docs
+        .iter()
+        .filter(|r| r.status == eis_core::campaign::Status::Failed)
+        .map(|r| file_name(&r.file))
+        .collect();
+    let kk: Vec<String> = docs
+        .iter()
+        .filter(|r| r.kk.as_ref().is_some_and(|k| !k.valid))
+        .map(|r| file_name(&r.file))
+        .collect();
+    let list = |v: Vec<String>| {
+        if v.is_empty() {
+            "none".to_owned()
+        } else {
+            v.join(", ")
+        }
+    };
+    println!("What the demo found");
+    println!(
+        "  contact or electrolyte problem (ohmic resistance growing): {}",
+        list(cells_with(FlagKind::OhmicGrowth))
+    );
+    println!(
+        "  interface film or passivation (arc resistance growing):    {}",
+        list(cells_with(FlagKind::InterfaceGrowth))
+    );
+    println!(
+        "  transport limitation (diffusion resistance growing):       {}",
+        list(cells_with(FlagKind::TransportGrowth))
+    );
+    println!(
+        "  possible soft short (total resistance collapsing):         {}",
+        list(cells_with(FlagKind::PossibleSoftShort))
+    );
+    println!(
+        "  spectra failing the Kramers-Kronig check (drift):          {}",
+        list(kk)
+    );
+    println!(
+        "  files that could not be read:                              {}",
+        list(failed)
+    );
+    for f in trend
+        .flags
+        .iter()
+        .filter(|f| f.kind != FlagKind::InvalidMeasurement)
+    {
+        println!(
+            "    {} {}: {} from cycle {}",
+            f.cell,
+            f.kind.as_str(),
+            f.change_percent
+                .map(|c| format!("{c:+.0} %"))
+                .unwrap_or_default(),
+            f.onset_x
+                .map(eis_core::number::format_float)
+                .unwrap_or_else(|| "?".into())
+        );
+    }
+    println!("\nWhere everything is");
+    println!("  export files:        {}", raw.display());
+    println!("  canonical spectra:   {}", converted.display());
+    println!(
+        "  fit results:         {}",
+        results.join("results.csv").display()
+    );
+    println!(
+        "  trends:              {}",
+        results.join("trends.csv").display()
+    );
+    println!("  plots:               {}", plots.display());
+    println!(
+        "  report:              {}",
+        results.join("report.html").display()
+    );
+    println!(
+        "\nDone in {:.1} s. The data are invented; flags are engineering hints, not safety verdicts — handle real cells by your lab's rules.",
+        started.elapsed().as_secs_f64()
+    );
+    Ok(ExitCode::SUCCESS)
+}
+
+fn file_name(p: &str) -> String {
+    Path::new(p)
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| p.to_owned())
+}
+
+fn read_first(path: &Path, reader: &ReaderOptions) -> Option<eis_core::Spectrum> {
+    SpectrumReader::open(path, reader.clone())
+        .ok()?
+        .next()?
+        .ok()
+        .map(|i| i.spectrum)
+}
