@@ -279,7 +279,7 @@ fn process(
     entry: &Entry,
     spectrum: &Spectrum,
     settings: &BatchSettings,
-    warm: Option<&[f64]>,
+    warm: Option<&(Vec<f64>, f64)>,
 ) -> SpectrumResult {
     let file = entry.file.display().to_string();
     let mut result = SpectrumResult {
@@ -318,7 +318,13 @@ fn process(
         }
         Err(e) => problems.push(format!("Kramers-Kronig check not possible: {e}")),
     }
-    match fit(circuit, spectrum, &settings.fit, warm) {
+    let fit_settings = settings.fit.with_warm_reference(warm.map(|w| w.1));
+    match fit(
+        circuit,
+        spectrum,
+        &fit_settings,
+        warm.map(|w| w.0.as_slice()),
+    ) {
         Err(e) => {
             result.status = Status::Failed;
             result.message = format!("cannot fit: {e}");
@@ -500,13 +506,16 @@ pub fn run_batch(
             path: None,
             spectra: HashMap::new(),
         };
-        let mut previous: Option<Vec<f64>> = None;
+        let mut previous: Option<(Vec<f64>, f64)> = None;
         for &i in chain {
             let e = &entries[i];
             let key = (e.file.display().to_string(), e.spectrum);
             if let Some(r) = done.get(&key) {
                 // Continue the chain from the stored result.
-                previous = r.fit.as_ref().map(|d| d.warm_start_for(circuit).0);
+                previous = r
+                    .fit
+                    .as_ref()
+                    .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square));
                 continue;
             }
             let result = match cache.get(&e.file, e.spectrum, &settings.reader) {
@@ -515,12 +524,14 @@ pub fn run_batch(
                     ..failed_entry(e)
                 },
                 Ok(s) => {
-                    let warm = previous.as_deref().filter(|_| settings.warm_start);
+                    let warm = previous.as_ref().filter(|_| settings.warm_start);
                     process(circuit, e, &s, settings, warm)
                 }
             };
             previous = match &result.fit {
-                Some(d) if result.status != Status::Failed => Some(d.warm_start_for(circuit).0),
+                Some(d) if result.status != Status::Failed => {
+                    Some((d.warm_start_for(circuit).0, d.statistics.reduced_chi_square))
+                }
                 _ => None,
             };
             record(&result);

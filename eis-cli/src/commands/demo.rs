@@ -73,7 +73,7 @@ pub fn run(args: Args) -> Outcome {
     let _ = crate::dispatch(&convert_args);
 
     step("3. checking (Kramers-Kronig) and fitting every spectrum");
-    let batch = crate::dispatch(&[
+    crate::dispatch(&[
         "eis".into(),
         "batch".into(),
         raw_s.clone(),
@@ -83,10 +83,7 @@ pub fn run(args: Args) -> Outcome {
         results.display().to_string(),
         "--name-pattern".into(),
         scenario::NAME_PATTERN.into(),
-    ]);
-    if let Err(f) = batch {
-        return Err(f);
-    }
+    ])?;
 
     step("4. trends over cycles");
     let trend = crate::commands::trend::analyse_file(

@@ -86,6 +86,11 @@ pub struct FitSettings {
     pub patience: usize,
     /// Try moving each arc to other time constants after the best start. Default true.
     pub arc_moves: bool,
+    /// Reduced χ² of the fit the warm start came from (the neighbouring spectrum of the same cell). A
+    /// warm-started run whose reduced χ² exceeds 1.5 times this value (about three standard deviations
+    /// of χ² for 80 degrees of freedom) is taken to have fallen into another
+    /// basin, and the automatic starts are tried as well. Default none.
+    pub warm_reference: Option<f64>,
 }
 
 impl Default for FitSettings {
@@ -96,6 +101,7 @@ impl Default for FitSettings {
             tolerance: 1e-10,
             patience: 100,
             arc_moves: true,
+            warm_reference: None,
         }
     }
 }
@@ -119,6 +125,11 @@ impl FitSettings {
     /// Sets the solver patience.
     pub fn with_patience(mut self, p: usize) -> Self {
         self.patience = p.max(1);
+        self
+    }
+    /// Sets the reduced χ² of the fit a warm start comes from.
+    pub fn with_warm_reference(mut self, reduced_chi_square: Option<f64>) -> Self {
+        self.warm_reference = reduced_chi_square;
         self
     }
     /// Enables or disables the arc moves.
@@ -514,7 +525,14 @@ fn fit_impl(
                 evaluations,
                 tried,
             );
-            if single || (!result.systematic_residuals && !result.at_bound.iter().any(|b| *b)) {
+            let comparable = settings
+                .warm_reference
+                .is_none_or(|r| result.reduced_chi_square <= 1.5 * r);
+            if single
+                || (comparable
+                    && !result.systematic_residuals
+                    && !result.at_bound.iter().any(|b| *b))
+            {
                 return Ok(result);
             }
         }
