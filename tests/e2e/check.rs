@@ -113,3 +113,34 @@ fn issue_4_check_bad_usage_exits_2() {
         eis(&dir, args).expect_code(2);
     }
 }
+
+#[test]
+fn check_passes_ordinary_noise_with_the_default_limits() {
+    // 0.5 and 1 % noise of |Z| on each part: the largest residual is about 3σ (1.5–3 %), which the
+    // former fixed 1 % per-point limit called suspect; the scatter-relative limit passes it.
+    let dir = scratch("check-noise");
+    for (name, noise) in [("half.csv", "0.005"), ("one.csv", "0.01")] {
+        simulate(&dir, name, "two-interfaces.circ", noise);
+        let run = eis(&dir, &["check", name, "--json"]).expect_code(0);
+        let doc: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+        assert_eq!(doc["valid"], true, "{noise}: {doc}");
+        assert!(
+            doc["residual_max_percent"].as_f64().unwrap() > 1.0,
+            "{noise}: {doc}"
+        );
+        assert_eq!(doc["failed"]["points"], false);
+    }
+    // The former fixed rule is still available and calls the 1 % spectrum suspect.
+    eis(
+        &dir,
+        &[
+            "check",
+            "one.csv",
+            "--outlier-factor",
+            "0",
+            "--rms-residual",
+            "0.5",
+        ],
+    )
+    .expect_code(1);
+}

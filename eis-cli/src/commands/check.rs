@@ -10,10 +10,11 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 /// Check spectra for Kramers-Kronig consistency (linear Voigt-series test, Schönleber, Klotz &
-/// Ivers-Tiffée 2014). A spectrum is valid when no point's residual exceeds --max-residual and the
-/// rms residual is within --rms-residual (both in % of |Z|); otherwise it is suspect and the
-/// frequency range of the offending points is given. Exit status 0 all valid, 1 any suspect or
-/// unreadable, 2 bad usage.
+/// Ivers-Tiffée 2014). A spectrum is suspect when a point's residual exceeds both --max-residual and
+/// --outlier-factor times the residuals' own scatter, when the residual signs follow a trend (runs
+/// test beyond --runs-z with a systematic part above --trend), or when the rms residual exceeds
+/// --rms-residual (all in % of |Z|); the frequency range of the offending points is given. Exit
+/// status 0 all valid, 1 any suspect or unreadable, 2 bad usage.
 #[derive(clap::Args)]
 #[command(
     after_help = "Examples:\n  eis check cell.csv\n  eis check run*.txt --json --max-residual 2 --capacitance on"
@@ -28,12 +29,23 @@ pub struct Args {
     /// μ threshold: fits with μ below it count as over-fitted.
     #[arg(long, default_value_t = 0.85, value_parser = parse_fraction)]
     mu: f64,
-    /// Largest residual of any point, % of |Z|, for a valid spectrum.
+    /// Per-point floor, % of |Z|: a point within it is never flagged.
     #[arg(long, default_value_t = 1.0, value_parser = parse_percent)]
     max_residual: f64,
+    /// A point is flagged above this multiple of the residual scatter (and the floor); 0 for a
+    /// fixed per-point limit.
+    #[arg(long, default_value_t = 5.0, value_parser = parse_non_negative)]
+    outlier_factor: f64,
     /// Largest rms residual, % of |Z|, for a valid spectrum.
-    #[arg(long, default_value_t = 0.5, value_parser = parse_percent)]
+    #[arg(long, default_value_t = 2.0, value_parser = parse_percent)]
     rms_residual: f64,
+    /// Critical z of the runs test on residual signs (fewer runs than chance by this many standard
+    /// deviations is a trend).
+    #[arg(long, default_value_t = 3.5, value_parser = parse_percent)]
+    runs_z: f64,
+    /// Smallest systematic residual, % of |Z|, that counts as a trend.
+    #[arg(long, default_value_t = 0.3, value_parser = parse_percent)]
+    trend: f64,
     /// Fixed number of Voigt elements instead of the automatic choice.
     #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
     elements: Option<u32>,
@@ -68,6 +80,13 @@ fn parse_fraction(s: &str) -> Result<f64, String> {
     match s.parse::<f64>() {
         Ok(v) if v > 0.0 && v <= 1.0 => Ok(v),
         _ => Err(format!("`{s}` is not a number in (0, 1]")),
+    }
+}
+
+fn parse_non_negative(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if v >= 0.0 && v.is_finite() => Ok(v),
+        _ => Err(format!("`{s}` is not a non-negative number")),
     }
 }
 
@@ -154,6 +173,11 @@ fn document(file: &str, s: &eis_core::Spectrum, r: &KkReport) -> Value {
         "residual_rms_percent": r.residual_rms_percent,
         "residual_max_percent": r.residual_max_percent,
         "suspect_frequency_range_hz": r.suspect_frequency_range_hz.map(|(a, b)| vec![a, b]),
+        "failed": r.failed,
+        "residual_scatter_percent": r.residual_scatter_percent,
+        "residual_systematic_percent": r.residual_systematic_percent,
+        "runs_z": r.runs_z,
+        "point_limit_percent": r.point_limit_percent,
         "points": s.len(),
         "series_capacitance_f": r.capacitance,
         "series_inductance_h": r.inductance,
@@ -173,7 +197,10 @@ pub fn run(args: Args) -> Outcome {
         capacitance: args.capacitance.into(),
         inductance: args.inductance.into(),
         max_residual_percent: args.max_residual,
+        outlier_factor: args.outlier_factor,
         rms_residual_percent: args.rms_residual,
+        runs_z: args.runs_z,
+        trend_percent: args.trend,
     };
     let mut docs = JsonOut {
         first: None,
@@ -235,8 +262,18 @@ pub fn run(args: Args) -> Outcome {
                             short(r.residual_max_percent)
                         );
                         if let Some((lo, hi)) = r.suspect_frequency_range_hz {
+                            let why: Vec<&str> = [
+                                (r.failed.points, "points"),
+                                (r.failed.trend, "trend"),
+                                (r.failed.rms, "rms"),
+                            ]
+                            .iter()
+                            .filter(|(f, _)| *f)
+                            .map(|(_, w)| *w)
+                            .collect();
                             line.push_str(&format!(
-                                "; residuals above the limit from {} to {} Hz",
+                                "; failed: {}; residuals above the limit from {} to {} Hz",
+                                why.join(", "),
                                 short(lo),
                                 short(hi)
                             ));
