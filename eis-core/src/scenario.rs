@@ -2,7 +2,7 @@
 //!
 //! Five laboratory zinc–manganese-oxide cells with a mildly acidic aqueous zinc sulfate electrolyte,
 //! measured at 20, 50 and 80 % SOC every 25 cycles from cycle 0 to 300. The cells are described by
-//! `L0 + R0 + Rf|Qf + (Rct + Wd)|Qdl` (cable inductance, ohmic resistance, surface film, charge transfer
+//! `L0 + R0 + Rf|Qf + (Rct + Wtd)|Qdl` (cable inductance, ohmic resistance, surface film, charge transfer
 //! with transmissive diffusion). Charge transfer is slowest at the ends of the SOC range.
 //!
 //! Planted behaviour (the numbers are invented, chosen to look like a lab cell):
@@ -22,7 +22,7 @@ use crate::simulate::{Noise, add_noise};
 use num_complex::Complex64;
 
 /// The model the demo fits.
-pub const MODEL: &str = "L0 + R0 + Rf|Qf + (Rct + Wd)|Qdl";
+pub const MODEL: &str = "L0 + R0 + Rf|Qf + (Rct + Wtd)|Qdl";
 
 /// The circuit file text of the demo model, with starting bounds and roles.
 pub const MODEL_FILE: &str = "# Demo model: zinc-manganese-oxide lab cell\n\
@@ -45,7 +45,7 @@ pub struct DemoFile {
     pub bytes: Vec<u8>,
 }
 
-/// Parameters of a cell at a cycle and SOC (in the order of [`MODEL`] with `Wd` as `Wtd`), and the
+/// Parameters of a cell at a cycle and SOC (in the order of [`MODEL`]), and the
 /// shunt resistance of a soft short if one is present.
 pub fn cell_state(cell: &str, cycle: f64, soc: f64) -> ([f64; 10], Option<f64>) {
     let s = soc / 100.0;
