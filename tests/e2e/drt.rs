@@ -137,7 +137,8 @@ fn drt_bad_input_exits_with_2() {
     // The reader drops the zero point with a warning naming its line; four points are then too few.
     let run = eis(&dir, &["drt", "zero.csv"]).expect_code(2);
     assert!(
-        run.stderr.contains("zero.csv, line 4: warning: impedance is zero; point dropped"),
+        run.stderr
+            .contains("zero.csv, line 4: warning: impedance is zero; point dropped"),
         "{}",
         run.stderr
     );
