@@ -36,6 +36,7 @@ pub mod import;
 pub mod nnls;
 pub mod number;
 pub mod report;
+pub mod select;
 pub mod simulate;
 pub mod spectrum;
 pub mod trend;
