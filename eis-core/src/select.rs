@@ -235,9 +235,17 @@ impl Selection {
         &self.candidates[0]
     }
 
-    /// One serialisable entry per candidate, in rank order.
+    /// One serialisable entry per candidate, in rank order, with its BIC relative to the winner's.
     pub fn entries(&self) -> Vec<CandidateEntry> {
-        self.candidates.iter().map(CandidateEntry::from).collect()
+        let best = self.winner().result.as_ref().map_or(0.0, |r| r.bic);
+        self.candidates
+            .iter()
+            .map(|c| {
+                let mut e = CandidateEntry::from(c);
+                e.delta_bic = e.bic.map(|b| b - best);
+                e
+            })
+            .collect()
     }
 }
 
@@ -500,20 +508,11 @@ pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and d
 
 /// Builds the document of a model choice from the winner's fit document.
 pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> AutoDocument {
-    let best = selection.winner().result.as_ref().map_or(0.0, |r| r.bic);
-    let candidates = selection
-        .entries()
-        .into_iter()
-        .map(|mut e| {
-            e.delta_bic = e.bic.map(|b| b - best);
-            e
-        })
-        .collect();
     AutoDocument {
         fit,
         drt_peaks: selection.drt_peaks,
         selection_rule: SELECTION_RULE.to_owned(),
-        candidates,
+        candidates: selection.entries(),
     }
 }
 
