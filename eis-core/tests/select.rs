@@ -115,7 +115,8 @@ fn members_are_mostly_assigned_their_own_circuit() {
         "assigned their own circuit: {right}/{}\n{report}",
         all.len()
     );
-    // Measured: see the assertion's threshold and the commit message; most means at least 80 %.
+    // Measured when written: 36/36 (examples/select_study.rs gives the same). "Most" is asserted as
+    // at least 80 % so that a change of noise realisation does not fail the suite.
     assert!(
         5 * right >= 4 * all.len(),
         "only {right}/{} assigned their own circuit:\n{report}",
