@@ -38,6 +38,7 @@ pub mod nnls;
 pub mod number;
 pub mod report;
 pub mod scenario;
+pub mod select;
 pub mod simulate;
 pub mod spectrum;
 pub mod trend;

@@ -5,6 +5,7 @@ mod check;
 mod convert;
 mod drt;
 mod fit;
+mod fit_auto;
 mod plot;
 mod reference_impedance;
 mod simulate;

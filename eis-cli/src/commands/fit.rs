@@ -7,6 +7,9 @@ use eis_core::derive::{SHORT_CIRCUIT_CAUTION, derive, short_circuit};
 use eis_core::fit::{FitError, FitResult, FitSettings, Weighting, fit};
 use eis_core::number::format_float;
 use eis_core::report::{FitDocument, document};
+use eis_core::select::{
+    SELECTION_RULE, SelectError, SelectOptions, Selection, auto_document, select,
+};
 use eis_core::{Circuit, Spectrum};
 use std::fmt::Write;
 use std::path::PathBuf;
@@ -17,12 +20,13 @@ use std::process::ExitCode;
 /// resistances, arcs, fit statistics and warnings.
 #[derive(clap::Args)]
 #[command(
-    after_help = "Examples:\n  eis fit cell.csv --model circuits/two-interfaces.circ\n  eis fit cell.csv --model 'R0 + Rct|Qdl' --fix Qdl.n=0.9 --bound Rct=1m..10 --json\n  eis fit cycle200.csv --model m.circ --start-from cycle150.json -o fitted.csv\n  eis fit cell.csv --model m.circ --ocv 1.45\n\nStandard errors come from the covariance s^2 (J^T J)^-1 at the optimum, with s^2 the reduced chi-square.\nExit status: 0 fitted, 1 not converged or failed, 2 bad input."
+    after_help = "Examples:\n  eis fit cell.csv --model circuits/two-interfaces.circ\n  eis fit cell.csv --model 'R0 + Rct|Qdl' --fix Qdl.n=0.9 --bound Rct=1m..10 --json\n  eis fit cycle200.csv --model m.circ --start-from cycle150.json -o fitted.csv\n  eis fit cell.csv --model m.circ --ocv 1.45\n  eis fit cell.csv --model auto\n\nStandard errors come from the covariance s^2 (J^T J)^-1 at the optimum, with s^2 the reduced chi-square.\nExit status: 0 fitted, 1 not converged or failed, 2 bad input."
 )]
 pub struct Args {
     /// Spectrum file.
     input: PathBuf,
-    /// Circuit file (.circ) or inline expression.
+    /// Circuit file (.circ), inline expression, or `auto` to choose among 1-3 arcs with or without
+    /// finite diffusion and series inductance (ranked by BIC and a residual check).
     #[arg(long, short)]
     model: String,
     /// Which spectrum of the file, from 1.
@@ -110,6 +114,9 @@ fn pick_spectrum(args: &Args) -> Result<Spectrum, Failure> {
 
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
+    if args.model == "auto" {
+        return run_auto(args);
+    }
     let circuit = circuit_with_overrides(&args)?;
     let spectrum = pick_spectrum(&args)?;
     let warm = match &args.start_from {
@@ -137,7 +144,46 @@ pub fn run(args: Args) -> Outcome {
         FitError::MissingSigma => bad(anyhow!("{}: {e}", args.input.display())),
         e => bad(anyhow!("cannot fit {}: {e}", args.input.display())),
     })?;
-    let derived = derive(&circuit, &result);
+    finish(&args, &circuit, &spectrum, &result, None)
+}
+
+/// `--model auto`: choose a circuit of the library's family, then report as a normal fit with the
+/// ranked candidates added.
+fn run_auto(args: Args) -> Outcome {
+    if !(args.set.is_empty()
+        && args.fix.is_empty()
+        && args.bound.is_empty()
+        && args.start_from.is_none())
+    {
+        return Err(bad(anyhow!(
+            "--model auto chooses its own circuits and takes no --set, --fix, --bound or --start-from"
+        )));
+    }
+    let spectrum = pick_spectrum(&args)?;
+    let options = SelectOptions::default();
+    let options = options.with_fit(options.fit.with_weighting(args.weight.into()));
+    let selection = select(&spectrum, &options).map_err(|e| match e {
+        SelectError::Fit(FitError::MissingSigma) => bad(anyhow!(
+            "{}: {}",
+            args.input.display(),
+            FitError::MissingSigma
+        )),
+        e => bad(anyhow!("cannot fit {}: {e}", args.input.display())),
+    })?;
+    let winner = selection.winner();
+    let result = winner.result.as_ref().expect("the winner is fitted");
+    finish(&args, &winner.circuit, &spectrum, result, Some(&selection))
+}
+
+/// Derived quantities, outputs and the report of a fit (with the candidates of a model choice).
+fn finish(
+    args: &Args,
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    result: &FitResult,
+    selection: Option<&Selection>,
+) -> Outcome {
+    let derived = derive(circuit, result);
     let short = match (args.ocv, derived.dc_resistance) {
         (Some(v), Some(dc)) => Some(short_circuit(v, dc)),
         (Some(_), None) => {
@@ -146,7 +192,7 @@ pub fn run(args: Args) -> Outcome {
         }
         _ => None,
     };
-    let mut doc = document(&circuit, &result, &derived, short.as_ref());
+    let mut doc = document(circuit, result, &derived, short.as_ref());
     doc.file = Some(args.input.display().to_string());
     doc.spectrum = Some(args.spectrum as usize);
 
@@ -158,18 +204,26 @@ pub fn run(args: Args) -> Outcome {
         inputs.push(PathBuf::from(&args.model));
     }
     if let Some(out) = &args.output {
-        write_output(Some(out), &fitted_csv(&spectrum, &result), &inputs)?;
+        write_output(Some(out), &fitted_csv(spectrum, result), &inputs)?;
     }
     if let Some(p) = &args.plot {
-        write_fit_plot(p, &circuit, &spectrum, &result, &inputs)?;
+        write_fit_plot(p, circuit, spectrum, result, &inputs)?;
     }
     let text = if args.json {
-        let mut s = serde_json::to_string_pretty(&doc)
-            .map_err(|e| Failure::Failed(anyhow!("cannot encode the result: {e}")))?;
+        let encoded = match selection {
+            Some(sel) => serde_json::to_string_pretty(&auto_document(sel, doc)),
+            None => serde_json::to_string_pretty(&doc),
+        };
+        let mut s =
+            encoded.map_err(|e| Failure::Failed(anyhow!("cannot encode the result: {e}")))?;
         s.push('\n');
         s
     } else {
-        human(&doc, &spectrum)
+        let mut s = human(&doc, spectrum);
+        if let Some(sel) = selection {
+            s.push_str(&candidates_table(sel));
+        }
+        s
     };
     write_output(None, &text, &inputs)?;
     Ok(if result.converged {
@@ -177,6 +231,52 @@ pub fn run(args: Args) -> Outcome {
     } else {
         ExitCode::from(1)
     })
+}
+
+/// The ranked candidates of `--model auto`.
+fn candidates_table(sel: &Selection) -> String {
+    let entries = sel.entries();
+    let rows: Vec<Vec<String>> = entries
+        .iter()
+        .map(|e| {
+            let num = |v: Option<f64>| v.map_or("-".to_owned(), |v| format!("{v:.1}"));
+            vec![
+                e.rank.map_or("-".to_owned(), |r| r.to_string()),
+                e.label.clone(),
+                num(e.bic),
+                num(e.delta_bic),
+                e.reduced_chi_square.map_or("-".to_owned(), short),
+                match e.systematic_residuals {
+                    Some(true) => "trend".to_owned(),
+                    Some(false) => "random".to_owned(),
+                    None => "-".to_owned(),
+                },
+                e.reason.clone(),
+            ]
+        })
+        .collect();
+    let mut out = format!(
+        "\ncandidates (DRT peaks: {}; {})\n",
+        sel.drt_peaks.map_or("-".to_owned(), |p| p.to_string()),
+        SELECTION_RULE
+    );
+    for line in table(
+        &[
+            "rank",
+            "model",
+            "BIC",
+            "dBIC",
+            "red. chi2",
+            "residuals",
+            "why",
+        ],
+        &rows,
+    )
+    .lines()
+    {
+        let _ = writeln!(out, "  {line}");
+    }
+    out
 }
 
 /// Data and model side by side.

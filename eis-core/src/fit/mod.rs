@@ -91,6 +91,8 @@ pub struct FitSettings {
     /// of χ² for 80 degrees of freedom) is taken to have fallen into another
     /// basin, and the automatic starts are tried as well. Default none.
     pub warm_reference: Option<f64>,
+    /// Also start from the peaks of a DRT of the data (see [`fit_seeded`]). Default true.
+    pub drt_starts: bool,
 }
 
 impl Default for FitSettings {
@@ -102,6 +104,7 @@ impl Default for FitSettings {
             patience: 100,
             arc_moves: true,
             warm_reference: None,
+            drt_starts: true,
         }
     }
 }
@@ -137,7 +140,15 @@ impl FitSettings {
         self.arc_moves = on;
         self
     }
+    /// Enables or disables the starts built from DRT peaks.
+    pub fn with_drt_starts(mut self, on: bool) -> Self {
+        self.drt_starts = on;
+        self
+    }
 }
+
+/// Number of starts built from DRT peaks (the best peak-to-slot assignments).
+const DRT_STARTS: usize = 3;
 
 /// Why a fit could not be attempted.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -385,7 +396,23 @@ fn run_lm(
     }
 }
 
-/// Fits `circuit` to `spectrum`.
+/// Fits `circuit` to `spectrum`; the same as [`fit_seeded`] without a precomputed DRT (one is computed
+/// when the settings ask for DRT starts and the circuit is made of the recognised blocks).
+///
+/// # Errors
+///
+/// As [`fit_seeded`].
+pub fn fit(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    warm: Option<&[f64]>,
+) -> Result<FitResult, FitError> {
+    fit_seeded(circuit, spectrum, settings, warm, None)
+}
+
+/// Fits `circuit` to `spectrum`, with `seed` as the DRT of the same spectrum when the caller has one
+/// (model selection computes it once for every candidate circuit).
 ///
 /// Starting points: `warm` (a previous result's values, e.g. the neighbouring spectrum of the same cell)
 /// is tried first; if that run converges with no parameter on a bound and no trend in its residuals it is
@@ -394,17 +421,24 @@ fn run_lm(
 /// circuit's own initial values (when every free parameter has one) and the automatic starts are tried
 /// as well, and the lowest χ² wins.
 ///
+/// With [`FitSettings::drt_starts`] on, a circuit of recognised blocks also gets starts built from the
+/// peaks of a DRT (`seed`, or one computed here with automatic λ and, when the circuit has a series
+/// inductance, an inductance term): peaks are assigned to arcs and diffusion elements in τ order, with
+/// resistances from the peak areas and R₀ from R∞. A DRT that cannot be computed (too few points) only
+/// means no such starts.
+///
 /// # Errors
 ///
 /// [`FitError`] for input that cannot be fitted at all: an empty spectrum, non-finite values, fewer
 /// residuals than free parameters, nothing free, a start outside the bounds, σ weighting without σ.
-pub fn fit(
+pub fn fit_seeded(
     circuit: &Circuit,
     spectrum: &Spectrum,
     settings: &FitSettings,
     warm: Option<&[f64]>,
+    seed: Option<&crate::drt::DrtResult>,
 ) -> Result<FitResult, FitError> {
-    fit_impl(circuit, spectrum, settings, warm, false)
+    fit_impl(circuit, spectrum, settings, warm, seed, false)
 }
 
 /// Fits `circuit` to `spectrum` by one Levenberg–Marquardt run from `start` (values of every parameter,
@@ -422,7 +456,7 @@ pub fn fit_from(
     settings: &FitSettings,
     start: &[f64],
 ) -> Result<FitResult, FitError> {
-    fit_impl(circuit, spectrum, settings, Some(start), true)
+    fit_impl(circuit, spectrum, settings, Some(start), None, true)
 }
 
 /// [`fit`], or with `single` the warm-start run alone ([`fit_from`]).
@@ -431,6 +465,7 @@ fn fit_impl(
     spectrum: &Spectrum,
     settings: &FitSettings,
     warm: Option<&[f64]>,
+    seed: Option<&crate::drt::DrtResult>,
     single: bool,
 ) -> Result<FitResult, FitError> {
     let prep = prepare(spectrum, settings.weighting)?;
@@ -552,6 +587,29 @@ fn fit_impl(
     };
     for s in &starts {
         consider(lm(s), &mut best, &mut evaluations, &mut tried);
+    }
+    if settings.drt_starts {
+        if let Some(t) = &terms {
+            let computed;
+            let seed = match seed {
+                Some(d) => Some(d),
+                None => {
+                    let with_l = t.iter().any(|x| matches!(x, start::Term::Inductance(_)));
+                    computed = crate::drt::drt(
+                        spectrum,
+                        crate::drt::DrtOptions::default().with_inductance(with_l),
+                    )
+                    .ok();
+                    computed.as_ref()
+                }
+            };
+            let template = starts.first().cloned().unwrap_or_else(|| base.clone());
+            if let Some(d) = seed {
+                for s in &start::drt_starts(&ctx, t, d, &template, DRT_STARTS) {
+                    consider(lm(s), &mut best, &mut evaluations, &mut tried);
+                }
+            }
+        }
     }
     if settings.arc_moves {
         if let (Some(t), Some(b)) = (&terms, &best) {

@@ -1,0 +1,103 @@
+//! `eis fit --model auto` end to end on a spectrum from `eis simulate` (two arcs and transmissive
+//! diffusion, 0.3 % noise, seed 5): the winner, the candidates list in the JSON, the readable table, and
+//! bad input.
+
+use eis_tests::{eis, scratch};
+use serde_json::Value;
+
+const MODEL: &str = "R0 + R1|Q1 + (R2 + Wtd)|Q2";
+const SETS: [&str; 9] = [
+    "R0=1",
+    "R1=3",
+    "Q1.Q=2e-5",
+    "Q1.n=0.9",
+    "R2=10",
+    "Q2.Q=3e-4",
+    "Q2.n=0.85",
+    "Wtd.R=15",
+    "Wtd.tau=5",
+];
+
+fn simulated(name: &str) -> std::path::PathBuf {
+    let dir = scratch(name);
+    let mut args = vec![
+        "simulate", "--model", MODEL, "--noise", "0.003", "--seed", "5", "-o", "s.csv",
+    ];
+    for s in SETS {
+        args.extend(["--set", s]);
+    }
+    eis(&dir, &args).expect_code(0);
+    dir
+}
+
+#[test]
+fn auto_picks_the_simulated_circuit_and_lists_the_candidates() {
+    let dir = simulated("fit_auto_json");
+    let run = eis(&dir, &["fit", "s.csv", "--model", "auto", "--json"]).expect_code(0);
+    let doc: Value = serde_json::from_str(&run.stdout).unwrap();
+    // Same keys as a normal fit document.
+    for key in ["model", "parameters", "derived", "statistics", "warnings"] {
+        assert!(doc.get(key).is_some(), "key {key}");
+    }
+    assert_eq!(
+        doc["model"].as_str().unwrap().lines().next(),
+        Some("R0 + R1|Q1{n=0.5..1} + (R2 + Wtd)|Q2{n=0.5..1}")
+    );
+    let cands = doc["candidates"].as_array().unwrap();
+    assert_eq!(cands.len(), 18, "the whole family is listed");
+    let first = &cands[0];
+    assert_eq!(first["rank"], 1);
+    assert_eq!(first["arcs"], 2);
+    assert_eq!(first["diffusion"], "transmissive");
+    assert_eq!(first["inductance"], false);
+    assert_eq!(first["systematic_residuals"], false);
+    assert_eq!(first["delta_bic"], 0.0);
+    assert_eq!(first["bic"], doc["statistics"]["bic"]);
+    for c in cands {
+        for key in [
+            "model",
+            "bic",
+            "aic",
+            "reduced_chi_square",
+            "systematic_residuals",
+            "rank",
+            "reason",
+        ] {
+            assert!(c.get(key).is_some(), "candidate key {key}");
+        }
+    }
+    // Ranked: BIC rises within the fitted candidates of the winner's tier.
+    let bics: Vec<f64> = cands
+        .iter()
+        .filter(|c| c["tier"] == first["tier"])
+        .map(|c| c["bic"].as_f64().unwrap())
+        .collect();
+    assert!(bics.windows(2).all(|w| w[0] <= w[1]), "{bics:?}");
+    // No point is inductive, so the inductive members are skipped with a reason.
+    assert!(
+        cands
+            .iter()
+            .filter(|c| c["inductance"] == true)
+            .all(|c| c["fitted"] == false && c["reason"].as_str().unwrap().starts_with("skipped"))
+    );
+}
+
+#[test]
+fn readable_report_shows_the_candidates_table() {
+    let dir = simulated("fit_auto_human");
+    let run = eis(&dir, &["fit", "s.csv", "--model", "auto"]).expect_code(0);
+    assert!(
+        run.stdout.contains("candidates (DRT peaks:"),
+        "{}",
+        run.stdout
+    );
+    assert!(run.stdout.contains("2 arcs + transmissive diffusion"));
+    assert!(run.stdout.contains("winner"));
+}
+
+#[test]
+fn auto_with_parameter_overrides_is_bad_input() {
+    let dir = simulated("fit_auto_bad");
+    let run = eis(&dir, &["fit", "s.csv", "--model", "auto", "--fix", "R0=1"]).expect_code(2);
+    assert!(run.stderr.contains("--model auto"), "{}", run.stderr);
+}
