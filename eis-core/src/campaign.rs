@@ -8,8 +8,9 @@
 //! 2. **Series.** Spectra are grouped by cell (the `cell` field, else the file stem) and SOC level (the
 //!    `soc` field, when present), and each group is ordered by cycle, then time, then file and spectrum
 //!    number. A group is cut into chunks of [`BatchSettings::chunk`] spectra.
-//! 3. **Work.** Chunks run in parallel (rayon). Within a chunk each spectrum is checked and fitted, the
-//!    fit warm-started from its predecessor's result; [`crate::fit::fit`] falls back to the automatic
+//! 3. **Work.** The first spectrum of the first chunk is fitted from automatic starts and serves as the
+//!    starting point of every chunk. Chunks then run in parallel (rayon). Within a chunk each spectrum is
+//!    checked and fitted, the fit warm-started from its predecessor's result; [`crate::fit::fit`] falls back to the automatic
 //!    start when the warm start ends on a bound or with trending residuals. Each result is appended, as
 //!    one JSON line, to a journal in the output folder the moment it is done.
 //! 4. **Finish.** `results.jsonl` and `results.csv` are written from the journal, sorted by file and
@@ -501,15 +502,58 @@ pub fn run_batch(
         }
     }
     let work = chains(&entries, settings.chunk);
+    // A template for the first spectrum of every chain: the first spectrum of the first chain, fitted
+    // from automatic starts. Chains start warm from it (and fall back to automatic starts when that is
+    // worse), so a campaign of many short series does not pay a cold fit per series.
+    let template: Option<(Vec<f64>, f64)> = match work.first().and_then(|c| c.first()) {
+        Some(&i) if settings.warm_start => {
+            let e = &entries[i];
+            let key = (e.file.display().to_string(), e.spectrum);
+            let result = match done.get(&key) {
+                Some(r) => Some(r.clone()),
+                None => {
+                    let mut cache = FileCache {
+                        path: None,
+                        spectra: HashMap::new(),
+                    };
+                    cache
+                        .get(&e.file, e.spectrum, &settings.reader)
+                        .ok()
+                        .map(|s| {
+                            let r = process(circuit, e, &s, settings, None);
+                            record(&r);
+                            tick();
+                            r
+                        })
+                }
+            };
+            result.and_then(|r| {
+                r.fit
+                    .filter(|_| r.status == Status::Ok)
+                    .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square))
+            })
+        }
+        _ => None,
+    };
+    let template_key = work
+        .first()
+        .and_then(|c| c.first())
+        .filter(|_| settings.warm_start)
+        .map(|&i| (entries[i].file.display().to_string(), entries[i].spectrum));
     work.par_iter().for_each(|chain| {
         let mut cache = FileCache {
             path: None,
             spectra: HashMap::new(),
         };
-        let mut previous: Option<(Vec<f64>, f64)> = None;
+        let mut previous: Option<(Vec<f64>, f64)> = template.clone();
         for &i in chain {
             let e = &entries[i];
             let key = (e.file.display().to_string(), e.spectrum);
+            if Some(&key) == template_key.as_ref() && !done.contains_key(&key) {
+                // Fitted above as the template.
+                previous = template.clone();
+                continue;
+            }
             if let Some(r) = done.get(&key) {
                 // Continue the chain from the stored result.
                 previous = r

@@ -1,5 +1,6 @@
 //! `eis batch`: check and fit every spectrum of a campaign.
 
+use crate::commands::fit::WeightArg;
 use crate::io::{Failure, Outcome, bad, load_model};
 use anyhow::anyhow;
 use eis_core::campaign::{BatchError, BatchSettings, run_batch};
@@ -41,13 +42,6 @@ pub struct Args {
     report: bool,
     #[command(flatten)]
     reader: crate::reader_args::ReaderArgs,
-}
-
-#[derive(Clone, Copy, clap::ValueEnum)]
-enum WeightArg {
-    Modulus,
-    Proportional,
-    Unit,
 }
 
 /// Files under `dir` with a data extension, recursively, sorted; hidden entries are skipped.
@@ -144,11 +138,7 @@ pub fn run(args: Args) -> Outcome {
     let circuit = load_model(&args.model)?;
     let inputs = expand(&args.inputs)?;
     let settings = BatchSettings {
-        fit: FitSettings::default().with_weighting(match args.weight {
-            WeightArg::Modulus => Weighting::Modulus,
-            WeightArg::Proportional => Weighting::Proportional,
-            WeightArg::Unit => Weighting::Unit,
-        }),
+        fit: FitSettings::default().with_weighting(Weighting::from(args.weight)),
         warm_start: !args.no_warm_start,
         reader: args.reader.options()?,
         ..BatchSettings::default()

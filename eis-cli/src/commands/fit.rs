@@ -66,8 +66,9 @@ pub struct Args {
     reader: crate::reader_args::ReaderArgs,
 }
 
+/// Residual weighting on the command line (shared by `fit` and `batch`).
 #[derive(Clone, Copy, clap::ValueEnum)]
-enum WeightArg {
+pub enum WeightArg {
     /// 1/|Z| on both parts (default).
     Modulus,
     /// 1/|Z'| and 1/|Z''| separately.

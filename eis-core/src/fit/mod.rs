@@ -6,7 +6,7 @@
 //!   weights are computed from the **data** (see [`Weighting`]); χ² is the sum of squared weighted
 //!   residuals.
 //! - Levenberg–Marquardt (the `levenberg-marquardt` crate, a port of MINPACK's `lmder`; Moré 1978,
-//!   Lecture Notes in Math. 630, 105) on internal coordinates that keep every bound: log for positive
+//!   Springer LNM 630, 105) on internal coordinates that keep every bound: log for positive
 //!   quantities, a logistic map for bounded ones. The Jacobian comes from the compiled plan through the
 //!   chain rule of the transforms. A trial step that evaluates to non-finite numbers is rejected (large
 //!   residuals), never fatal.
