@@ -149,3 +149,27 @@ fn drt_bad_input_exits_with_2() {
     let help = eis(&dir, &["drt", "--help"]).expect_code(0);
     assert!(help.stdout.contains("Examples:") && help.stdout.contains("eis drt"));
 }
+
+#[test]
+fn drt_writes_a_plot_when_asked() {
+    let dir = scratch("drt-plot");
+    eis(
+        &dir,
+        &[
+            "simulate",
+            "--model",
+            "R0 + R1|C1",
+            "--set",
+            "R1=50",
+            "--set",
+            "C1=2u",
+            "-o",
+            "s.csv",
+        ],
+    )
+    .expect_code(0);
+    eis(&dir, &["drt", "s.csv", "--plot", "drt.svg"]).expect_code(0);
+    let svg = std::fs::read_to_string(dir.join("drt.svg")).unwrap();
+    assert!(svg.starts_with("<svg") || svg.starts_with("<?xml"));
+    assert!(svg.contains("</svg>"));
+}

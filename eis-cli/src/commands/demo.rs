@@ -2,7 +2,7 @@
 //! trends, plots, report).
 
 use crate::io::{Failure, Outcome, bad, load_model, write_atomic};
-use crate::plot::{DrtPeak, DrtPlot, OverlayPlot, OverlaySpectrum, Plot};
+use crate::plot::{OverlayPlot, OverlaySpectrum, Plot};
 use anyhow::anyhow;
 use eis_core::import::{NamePattern, ReaderOptions, SpectrumReader};
 use eis_core::scenario;
@@ -183,23 +183,10 @@ pub fn run(args: Args) -> Outcome {
         if let Ok(d) = eis_core::drt::drt(&s, eis_core::drt::DrtOptions::default()) {
             let p = plots.join("Z1_c000_soc50_drt.png");
             crate::commands::plot::write_plot(
-                &Plot::Drt(DrtPlot {
-                    title: "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
-                    tau: d.tau_s.clone(),
-                    gamma: d.gamma_ohm.clone(),
-                    peaks: d
-                        .peaks
-                        .iter()
-                        .map(|pk| DrtPeak {
-                            tau: pk.tau_s,
-                            gamma: pk.gamma_ohm,
-                            label: Some(format!(
-                                "{} Ω",
-                                crate::format::quantity(pk.resistance_ohm, 3, "").trim_end()
-                            )),
-                        })
-                        .collect(),
-                }),
+                &crate::commands::drt::drt_plot(
+                    &d,
+                    "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
+                ),
                 &p,
                 None,
                 (900, 600),

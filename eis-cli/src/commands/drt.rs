@@ -44,8 +44,30 @@ pub struct Args {
     /// Write γ on the fine τ grid as CSV (tau_s,frequency_hz,gamma_ohm); `-` for stdout.
     #[arg(long, short, value_name = "DRT.csv")]
     output: Option<PathBuf>,
+    /// Write a plot of γ against τ with the peaks marked (SVG or PNG by extension).
+    #[arg(long, value_name = "FILE")]
+    plot: Option<PathBuf>,
     #[command(flatten)]
     reader: crate::reader_args::ReaderArgs,
+}
+
+/// The DRT plot of a result: γ against τ, each peak marked with its resistance.
+pub fn drt_plot(r: &DrtResult, title: String) -> crate::plot::Plot {
+    use crate::plot::{DrtPeak, DrtPlot, Plot};
+    Plot::Drt(DrtPlot {
+        title,
+        tau: r.tau_s.clone(),
+        gamma: r.gamma_ohm.clone(),
+        peaks: r
+            .peaks
+            .iter()
+            .map(|pk| DrtPeak {
+                tau: pk.tau_s,
+                gamma: pk.gamma_ohm,
+                label: Some(crate::format::quantity(pk.resistance_ohm, 3, "Ω")),
+            })
+            .collect(),
+    })
 }
 
 #[derive(Clone, Copy, clap::ValueEnum)]
@@ -130,6 +152,15 @@ pub fn run(args: Args) -> Outcome {
     let inputs = [args.input.clone()];
     if let Some(path) = &args.output {
         write_output(Some(path), &grid_csv(&result), &inputs)?;
+    }
+    if let Some(path) = &args.plot {
+        let stem = args
+            .input
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        let plot = drt_plot(&result, format!("Distribution of relaxation times: {stem}"));
+        crate::commands::plot::write_plot(&plot, path, None, (900, 600), &inputs)?;
     }
     if args.json {
         let text = serde_json::to_string_pretty(&result)
