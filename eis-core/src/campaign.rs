@@ -546,6 +546,9 @@ pub fn run_batch(
             spectra: HashMap::new(),
         };
         let mut previous: Option<(Vec<f64>, f64)> = template.clone();
+        // Reduced χ² of the chain so far: their median is the reference a warm start is judged by
+        // (single values scatter by ±30 % with the noise, so the last one alone is a poor yardstick).
+        let mut history: Vec<f64> = template.iter().map(|t| t.1).collect();
         for &i in chain {
             let e = &entries[i];
             let key = (e.file.display().to_string(), e.spectrum);
@@ -560,6 +563,9 @@ pub fn run_batch(
                     .fit
                     .as_ref()
                     .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square));
+                if let Some(p) = &previous {
+                    history.push(p.1);
+                }
                 continue;
             }
             let result = match cache.get(&e.file, e.spectrum, &settings.reader) {
@@ -568,8 +574,11 @@ pub fn run_batch(
                     ..failed_entry(e)
                 },
                 Ok(s) => {
-                    let warm = previous.as_ref().filter(|_| settings.warm_start);
-                    process(circuit, e, &s, settings, warm)
+                    let warm = previous
+                        .as_ref()
+                        .filter(|_| settings.warm_start)
+                        .map(|(v, chi)| (v.clone(), median(&history).unwrap_or(*chi)));
+                    process(circuit, e, &s, settings, warm.as_ref())
                 }
             };
             previous = match &result.fit {
@@ -578,6 +587,9 @@ pub fn run_batch(
                 }
                 _ => None,
             };
+            if let Some(p) = &previous {
+                history.push(p.1);
+            }
             record(&result);
             tick();
         }
@@ -612,6 +624,16 @@ pub fn run_batch(
         skipped,
         metadata_columns: columns,
     })
+}
+
+/// Median of a list (None when empty).
+fn median(v: &[f64]) -> Option<f64> {
+    let mut s: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
+    if s.is_empty() {
+        return None;
+    }
+    s.sort_by(f64::total_cmp);
+    Some(s[s.len() / 2])
 }
 
 /// Quotes a CSV field when needed.

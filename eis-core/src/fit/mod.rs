@@ -530,6 +530,15 @@ fn fit_impl(
             }
         };
 
+    // A warm-started result is taken as it is unless it sits on a bound, its residuals trend, or its
+    // reduced χ² is well above that of the fit it came from.
+    let acceptable = |r: &FitResult| {
+        settings
+            .warm_reference
+            .is_none_or(|reference| r.reduced_chi_square <= 1.5 * reference)
+            && !r.systematic_residuals
+            && !r.at_bound.iter().any(|b| *b)
+    };
     if let Some(w) = warm {
         if w.len() != np {
             return Err(FitError::WarmStartLength {
@@ -560,16 +569,35 @@ fn fit_impl(
                 evaluations,
                 tried,
             );
-            let comparable = settings
-                .warm_reference
-                .is_none_or(|r| result.reduced_chi_square <= 1.5 * r);
-            if single
-                || (comparable
-                    && !result.systematic_residuals
-                    && !result.at_bound.iter().any(|b| *b))
-            {
+            if single || acceptable(&result) {
                 return Ok(result);
             }
+        }
+        // Before the full search, a cheap second try: the three best grid points. A series that
+        // stepped into another basin is usually caught here at a fraction of the full cost.
+        if let Some(t) = start::recognise(circuit) {
+            for s in start::grid_starts(&ctx, &t, 3) {
+                consider(lm(&s), &mut best, &mut evaluations, &mut tried);
+            }
+            let mut b = best.take().expect("runs were made");
+            start::order_identical_arcs(&ctx, &t, &mut b.params);
+            if b.termination.was_successful() {
+                let result = finish(
+                    circuit,
+                    &plan,
+                    &prep,
+                    &free,
+                    &transforms,
+                    &b,
+                    settings,
+                    evaluations,
+                    tried,
+                );
+                if acceptable(&result) {
+                    return Ok(result);
+                }
+            }
+            best = Some(b);
         }
     }
 
