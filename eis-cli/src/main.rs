@@ -14,7 +14,12 @@ use std::process::ExitCode;
 
 /// Impedance spectroscopy for battery and electrochemistry labs: simulate, validate, fit and track cells.
 #[derive(Parser)]
-#[command(name = "eis", version, about, long_about = None, propagate_version = true)]
+#[command(
+    name = "eis",
+    version,
+    propagate_version = true,
+    after_help = "Start with `eis demo`. Every command has --help with an example.\n\nCaution: cells can deliver large currents into a short and electrolytes can be corrosive; follow your\nlab's safety rules and local codes. Results and flags are engineering hints, not safety verdicts."
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,

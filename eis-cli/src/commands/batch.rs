@@ -9,7 +9,9 @@ use indicatif::{ProgressBar, ProgressStyle};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Check (Kramers-Kronig) and fit every spectrum of many files in parallel, warm-starting each fit
+/// Check and fit every spectrum of a campaign (many files, in parallel).
+///
+/// Checks (Kramers-Kronig) and fits every spectrum of many files in parallel, warm-starting each fit
 /// from the previous spectrum of the same cell and SOC; write DIR/results.csv and DIR/results.jsonl.
 #[derive(clap::Args)]
 #[command(

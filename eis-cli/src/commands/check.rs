@@ -9,7 +9,9 @@ use serde_json::{Value, json};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-/// Check spectra for Kramers-Kronig consistency (linear Voigt-series test, Schönleber, Klotz &
+/// Check spectra for Kramers-Kronig consistency (valid / suspect).
+///
+/// Checks spectra for Kramers-Kronig consistency (linear Voigt-series test, Schönleber, Klotz &
 /// Ivers-Tiffée 2014). A spectrum is suspect when a point's residual exceeds both --max-residual and
 /// --outlier-factor times the residuals' own scatter, when the residual signs follow a trend (runs
 /// test beyond --runs-z with a systematic part above --trend), or when the rms residual exceeds

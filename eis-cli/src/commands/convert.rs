@@ -10,7 +10,9 @@ use std::collections::HashSet;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-/// Convert delimited-text exports to canonical spectrum CSV files (frequency_hz,z_real_ohm,z_imag_ohm;
+/// Convert potentiostat exports to canonical spectrum CSV files.
+///
+/// Converts delimited-text exports to canonical spectrum CSV files (frequency_hz,z_real_ohm,z_imag_ohm;
 /// high to low frequency), one file per spectrum named STEM_N.csv (the input file stem and the spectrum number from 1), and write
 /// DIR/index.csv with one row per spectrum (file, spectrum, points, fmin_hz, fmax_hz, metadata,
 /// error). A file that cannot be read is listed with its error; the others are still converted.

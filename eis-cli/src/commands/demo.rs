@@ -10,7 +10,9 @@ use eis_core::trend::{FlagKind, TrendSettings};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Build an invented campaign of five aqueous zinc-manganese-oxide lab cells (spectra at 20, 50 and
+/// Run the whole pipeline on an invented campaign (start here).
+///
+/// Builds an invented campaign of five aqueous zinc-manganese-oxide lab cells (spectra at 20, 50 and
 /// 80 % SOC every 25 cycles up to cycle 300, written as export files of varied shape, one cell with a
 /// contact problem, one with a growing interface film, one with a late soft short, one corrupt file and
 /// one drifting spectrum) and run the whole pipeline on it.

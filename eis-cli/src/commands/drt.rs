@@ -7,7 +7,9 @@ use eis_core::number::{format_float, format_si};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-/// Compute the distribution of relaxation times (DRT) of a spectrum by Tikhonov-regularised,
+/// Distribution of relaxation times (DRT) of a spectrum, with its peaks.
+///
+/// Computes the distribution of relaxation times (DRT) of a spectrum by Tikhonov-regularised,
 /// non-negative least squares, and report its peaks (τ, frequency, resistance), R∞ and the
 /// polarisation resistance.
 #[derive(clap::Args)]

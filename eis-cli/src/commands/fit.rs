@@ -15,7 +15,9 @@ use std::fmt::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-/// Fit an equivalent circuit to a spectrum by weighted complex nonlinear least squares, with automatic
+/// Fit an equivalent circuit and report resistances with uncertainties.
+///
+/// Fits an equivalent circuit to a spectrum by weighted complex nonlinear least squares, with automatic
 /// starting values, and report parameters ± standard errors, ohmic / charge-transfer / diffusion / DC
 /// resistances, arcs, fit statistics and warnings.
 #[derive(clap::Args)]

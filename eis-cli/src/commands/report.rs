@@ -16,7 +16,9 @@ use std::fmt::Write;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Write DIR/report.html for a batch output folder: summary, flags, Kramers-Kronig failures, fit
+/// Write the campaign report (one self-contained HTML file).
+///
+/// Writes DIR/report.html for a batch output folder: summary, flags, Kramers-Kronig failures, fit
 /// warnings, trend plots, a table per cell and Nyquist overlays. One self-contained HTML file.
 #[derive(clap::Args)]
 #[command(

@@ -8,7 +8,9 @@ use eis_core::simulate::{Noise, simulate};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-/// Simulate the impedance spectrum of a circuit and write it as CSV
+/// Simulate the spectrum of a circuit as CSV.
+///
+/// Simulates the impedance spectrum of a circuit and writes it as CSV
 /// (frequency_hz,z_real_ohm,z_imag_ohm; high to low frequency; capacitive Z'' negative).
 #[derive(clap::Args)]
 #[command(

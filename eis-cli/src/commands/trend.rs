@@ -10,6 +10,8 @@ use std::fmt::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
+/// Trends per cell against cycle, SOC or time, with flags of what changed.
+///
 /// Trends of the fitted quantities of a campaign (per cell, against cycle, SOC, time or any field):
 /// change from the baseline, growth rate with its uncertainty, onset of a change, and flags with plain
 /// explanations. Writes trends.csv beside the results.
