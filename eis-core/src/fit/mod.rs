@@ -518,6 +518,20 @@ fn fit_impl(
         )
     };
 
+    let conclude = |run: &Run, evaluations: usize, tried: usize| {
+        finish(
+            circuit,
+            &plan,
+            &prep,
+            &free,
+            &transforms,
+            run,
+            settings,
+            evaluations,
+            tried,
+        )
+    };
+
     let mut evaluations = 0;
     let mut tried = 0;
     let mut best: Option<Run> = None;
@@ -558,17 +572,7 @@ fn fit_impl(
         consider(run, &mut best, &mut evaluations, &mut tried);
         let b = best.as_ref().expect("just set");
         if single || b.termination.was_successful() {
-            let result = finish(
-                circuit,
-                &plan,
-                &prep,
-                &free,
-                &transforms,
-                b,
-                settings,
-                evaluations,
-                tried,
-            );
+            let result = conclude(b, evaluations, tried);
             if single || acceptable(&result) {
                 return Ok(result);
             }
@@ -582,17 +586,7 @@ fn fit_impl(
             let mut b = best.take().expect("runs were made");
             start::order_identical_arcs(&ctx, &t, &mut b.params);
             if b.termination.was_successful() {
-                let result = finish(
-                    circuit,
-                    &plan,
-                    &prep,
-                    &free,
-                    &transforms,
-                    &b,
-                    settings,
-                    evaluations,
-                    tried,
-                );
+                let result = conclude(&b, evaluations, tried);
                 if acceptable(&result) {
                     return Ok(result);
                 }
@@ -677,17 +671,7 @@ fn fit_impl(
             ..polish
         };
     }
-    Ok(finish(
-        circuit,
-        &plan,
-        &prep,
-        &free,
-        &transforms,
-        &b,
-        settings,
-        evaluations,
-        tried,
-    ))
+    Ok(conclude(&b, evaluations, tried))
 }
 
 #[allow(clippy::too_many_arguments)]
