@@ -292,8 +292,11 @@ fn interrupted_batch_resumes_to_the_same_results() {
 fn warm_starts_save_evaluations_without_changing_results() {
     let dir = scratch("campaign_warm");
     write_campaign(&dir);
-    run_batch(&dir, "warm", &[]).expect_code(1);
+    run_batch(&dir, "warm", &["--plot", "plots"]).expect_code(1);
     run_batch(&dir, "cold", &["--no-warm-start"]).expect_code(1);
+    // Trend plots were written on request, as PNG.
+    let png = std::fs::read(dir.join("plots/trend_ohmic_resistance_ohm.png")).unwrap();
+    assert_eq!(&png[..8], b"\x89PNG\r\n\x1a\n");
     let load = |name: &str| -> Vec<Value> {
         std::fs::read_to_string(dir.join(name).join("results.jsonl"))
             .unwrap()

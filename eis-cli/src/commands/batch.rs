@@ -42,6 +42,10 @@ pub struct Args {
     /// Also write DIR/report.html (campaign summary, trends and flags).
     #[arg(long)]
     report: bool,
+    /// Also write trend plots (one per battery quantity, at the SOC level nearest 50 %) into this
+    /// folder, as PNG.
+    #[arg(long, value_name = "DIR")]
+    plot: Option<PathBuf>,
     #[command(flatten)]
     reader: crate::reader_args::ReaderArgs,
 }
@@ -135,6 +139,29 @@ pub fn expand(inputs: &[String]) -> Result<Vec<PathBuf>, Failure> {
     Ok(out_dedup)
 }
 
+/// Trend plots of a results table, one PNG per default quantity, at the SOC level nearest 50 %.
+fn write_trend_plots(results: &Path, dir: &Path) -> Result<(), Failure> {
+    use crate::commands::trend::{analyse_file, default_quantities, trend_plot};
+    std::fs::create_dir_all(dir)
+        .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", dir.display())))?;
+    let settings = eis_core::trend::TrendSettings::default();
+    let text = std::fs::read_to_string(results)
+        .map_err(|e| Failure::Failed(anyhow!("cannot read {}: {e}", results.display())))?;
+    let table = eis_core::trend::read_results_csv(&text, "cycle", None)
+        .map_err(|e| Failure::Failed(anyhow!("{}, {e}", results.display())))?;
+    let soc = table
+        .records
+        .iter()
+        .filter_map(|r| r.soc)
+        .min_by(|a, b| (a - 50.0).abs().total_cmp(&(b - 50.0).abs()));
+    let report = analyse_file(results, "cycle", &[], soc, &settings)?;
+    for q in default_quantities(&table.quantities) {
+        let path = dir.join(format!("trend_{q}.png"));
+        crate::commands::plot::write_plot(&trend_plot(&report, &q), &path, None, (1000, 620), &[])?;
+    }
+    Ok(())
+}
+
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
     let circuit = load_model(&args.model)?;
@@ -194,6 +221,10 @@ pub fn run(args: Args) -> Outcome {
         args.out.join("results.csv").display(),
         args.out.join("results.jsonl").display()
     );
+    if let Some(dir) = &args.plot {
+        write_trend_plots(&args.out.join("results.csv"), dir)?;
+        eprintln!("plots:   {}", dir.display());
+    }
     if args.report {
         crate::commands::report::write_report(&args.out, Some(&circuit), &settings.reader)?;
         eprintln!("report:  {}", args.out.join("report.html").display());
