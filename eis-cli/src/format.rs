@@ -53,18 +53,7 @@ pub fn quantity(value: f64, digits: usize, unit: &str) -> String {
 }
 
 fn prefix(group: i32) -> &'static str {
-    match group {
-        -15 => "f",
-        -12 => "p",
-        -9 => "n",
-        -6 => "u",
-        -3 => "m",
-        3 => "k",
-        6 => "M",
-        9 => "G",
-        12 => "T",
-        _ => "",
-    }
+    eis_core::number::si_prefix(group).unwrap_or("")
 }
 
 /// Left-aligned columns separated by two spaces.

@@ -76,6 +76,24 @@ fn looks_numeric(s: &str) -> bool {
     }
 }
 
+/// The SI prefix (ASCII, `u` for micro) of a power of ten that is a multiple of three between
+/// 10⁻¹⁵ and 10¹²; `""` for 10⁰; None outside that range or for other exponents.
+pub fn si_prefix(exponent: i32) -> Option<&'static str> {
+    Some(match exponent {
+        -15 => "f",
+        -12 => "p",
+        -9 => "n",
+        -6 => "u",
+        -3 => "m",
+        0 => "",
+        3 => "k",
+        6 => "M",
+        9 => "G",
+        12 => "T",
+        _ => return None,
+    })
+}
+
 /// Prints `x` with the shortest digits that read back bit-exact through [`parse_si`], using an SI prefix
 /// between femto and tera (`4.7u`, `50`, `1k`), scientific notation outside that range.
 pub fn format_si(x: f64) -> String {
@@ -90,18 +108,8 @@ pub fn format_si(x: f64) -> String {
         return format!("{x}");
     }
     let group = exp.div_euclid(3) * 3;
-    let prefix = match group {
-        -15 => "f",
-        -12 => "p",
-        -9 => "n",
-        -6 => "u",
-        -3 => "m",
-        0 => "",
-        3 => "k",
-        6 => "M",
-        9 => "G",
-        12 => "T",
-        _ => return sci,
+    let Some(prefix) = si_prefix(group) else {
+        return sci;
     };
     let shift = (exp - group) as usize;
     let (sign, mant) = match mant.strip_prefix('-') {

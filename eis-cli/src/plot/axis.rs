@@ -121,18 +121,11 @@ pub fn si_unit(max_abs: f64, unit: &str) -> Unit {
     // A little headroom so that 999.7 stays in the lower group rather than showing 1.0 k.
     let e = (max_abs * (1.0 + 1e-9)).log10().floor() as i32;
     let g = e.div_euclid(3) * 3;
-    let prefix = match g {
-        -15 => "f",
-        -12 => "p",
-        -9 => "n",
-        -6 => "µ",
-        -3 => "m",
-        0 => "",
-        3 => "k",
-        6 => "M",
-        9 => "G",
-        12 => "T",
-        _ => {
+    // Plots show the micro sign; files and tables use ASCII `u`.
+    let prefix = match eis_core::number::si_prefix(g) {
+        Some("u") => "µ",
+        Some(p) => p,
+        None => {
             return Unit {
                 scale: 10f64.powi(g),
                 text: format!("10{} {unit}", superscript(g)),
