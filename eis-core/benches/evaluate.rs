@@ -2,7 +2,7 @@
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use eis_core::circuit::parse;
-use eis_core::eval::{Plan, angular, log_frequencies};
+use eis_core::eval::{Grid, Plan, angular, log_frequencies};
 use num_complex::Complex64;
 use std::hint::black_box;
 
@@ -19,14 +19,15 @@ fn bench(c: &mut Criterion) {
         .map(angular)
         .collect();
     assert_eq!(omegas.len(), 61);
+    let grid = Grid::new(&omegas);
     let mut ws = plan.workspace();
     let mut z = vec![Complex64::new(0.0, 0.0); omegas.len()];
     let mut jac = vec![Complex64::new(0.0, 0.0); omegas.len() * PARAMS.len()];
     c.bench_function("impedance_61", |b| {
-        b.iter(|| plan.eval(black_box(&PARAMS), &omegas, &mut z, None, &mut ws))
+        b.iter(|| plan.eval(black_box(&PARAMS), &grid, &mut z, None, &mut ws))
     });
     c.bench_function("impedance_and_jacobian_61x10", |b| {
-        b.iter(|| plan.eval(black_box(&PARAMS), &omegas, &mut z, Some(&mut jac), &mut ws))
+        b.iter(|| plan.eval(black_box(&PARAMS), &grid, &mut z, Some(&mut jac), &mut ws))
     });
 }
 

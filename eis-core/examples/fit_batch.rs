@@ -47,6 +47,7 @@ fn entry(r: &FitResult, seconds: f64) -> Value {
         "converged": r.converged,
         "starts_tried": r.starts_tried,
         "evaluations": r.evaluations,
+        "iterations": r.iterations,
         "seconds": seconds,
     })
 }

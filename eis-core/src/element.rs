@@ -3,8 +3,11 @@
 //!
 //! # Adding an element
 //!
-//! Write one `fn(params, omega, dz) -> Z` that returns Z(ω) and fills `dz[k] = ∂Z/∂params[k]`, then add one
-//! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function. The parser, the
+//! Write one [`ImpedanceFn`], `fn(params, grid, z, dz)`, that writes Z(ωᵢ) into `z[i]` and
+//! ∂Z(ωᵢ)/∂params`[k]` into `dz[k * grid.len() + i]` for every frequency of the [`Grid`], then add one
+//! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function. Work that
+//! does not depend on the frequency (a phase, a logarithm of a parameter) belongs before the loop over
+//! the grid; ln ω and √ω come precomputed with the grid. The parser, the
 //! printer, the compiled evaluator, the fitter and the CLI pick it up from the table; the test
 //! `every_kind_matches_finite_differences` checks the new derivatives automatically.
 //!
@@ -13,7 +16,7 @@
 //! SI units, ω in rad/s, j² = −1, and the imaginary part carries its own sign (a capacitor has Z″ < 0).
 
 use num_complex::Complex64;
-use std::f64::consts::{FRAC_PI_2, FRAC_PI_4};
+use std::f64::consts::{FRAC_1_SQRT_2, FRAC_PI_2};
 
 /// What values a parameter may take before any user bounds are applied.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -39,9 +42,62 @@ pub struct ParamInfo {
     pub description: &'static str,
 }
 
-/// Signature of an element's impedance function: `(params, omega, dz) -> Z`, writing `∂Z/∂params[k]` into
-/// `dz[k]`. `params` and `dz` have the length of the kind's parameter table.
-pub type ImpedanceFn = fn(&[f64], f64, &mut [Complex64]) -> Complex64;
+/// Angular frequencies together with the per-frequency quantities elements share (ln ω and √ω),
+/// computed once and reused for every evaluation on the same frequencies.
+///
+/// ```
+/// let g = eis_core::element::Grid::new(&[1.0, 100.0]);
+/// assert_eq!(g.len(), 2);
+/// assert_eq!(g.ln_omega()[1], 100f64.ln());
+/// assert_eq!(g.sqrt_omega()[1], 10.0);
+/// ```
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Grid {
+    omega: Vec<f64>,
+    ln_omega: Vec<f64>,
+    sqrt_omega: Vec<f64>,
+}
+
+impl Grid {
+    /// The grid of the angular frequencies `omegas` (rad/s).
+    pub fn new(omegas: &[f64]) -> Grid {
+        Grid {
+            omega: omegas.to_vec(),
+            ln_omega: omegas.iter().map(|w| w.ln()).collect(),
+            sqrt_omega: omegas.iter().map(|w| w.sqrt()).collect(),
+        }
+    }
+
+    /// Number of frequencies.
+    pub fn len(&self) -> usize {
+        self.omega.len()
+    }
+
+    /// Whether the grid has no frequencies.
+    pub fn is_empty(&self) -> bool {
+        self.omega.is_empty()
+    }
+
+    /// ω (rad/s).
+    pub fn omega(&self) -> &[f64] {
+        &self.omega
+    }
+
+    /// ln ω.
+    pub fn ln_omega(&self) -> &[f64] {
+        &self.ln_omega
+    }
+
+    /// √ω.
+    pub fn sqrt_omega(&self) -> &[f64] {
+        &self.sqrt_omega
+    }
+}
+
+/// Signature of an element's impedance function: `(params, grid, z, dz)`, writing Z(ωᵢ) into `z[i]` and
+/// ∂Z(ωᵢ)/∂params`[k]` into `dz[k * grid.len() + i]`. `params` has the length of the kind's parameter
+/// table, `z` the length of the grid and `dz` their product.
+pub type ImpedanceFn = fn(&[f64], &Grid, &mut [Complex64], &mut [Complex64]);
 
 /// One kind of circuit element.
 #[derive(Debug, Clone, Copy)]
@@ -59,6 +115,28 @@ pub struct ElementKind {
     /// Whether the element behaves like a capacitor in parallel with a resistor to form an arc
     /// (used to recognise arcs for derived battery quantities).
     pub capacitive: bool,
+}
+
+impl ElementKind {
+    /// Z and ∂Z/∂params at one angular frequency (allocates; for tests and one-off use — evaluate a
+    /// whole [`Grid`] through [`ElementKind::impedance`] in loops).
+    ///
+    /// ```
+    /// let c = eis_core::element::kind_by_symbol("C").unwrap();
+    /// let (z, dz) = c.eval_at(&[1e-3], 10.0);
+    /// assert!((z.im + 100.0).abs() < 1e-12 && (dz[0].im - 1e5).abs() < 1e-6);
+    /// ```
+    ///
+    /// # Panics
+    ///
+    /// If `params` does not have one value per entry of the kind's parameter table.
+    pub fn eval_at(&self, params: &[f64], omega: f64) -> (Complex64, Vec<Complex64>) {
+        assert_eq!(params.len(), self.params.len(), "parameter count");
+        let mut z = [Complex64::new(0.0, 0.0)];
+        let mut dz = vec![Complex64::new(0.0, 0.0); params.len()];
+        (self.impedance)(params, &Grid::new(&[omega]), &mut z, &mut dz);
+        (z[0], dz)
+    }
 }
 
 impl PartialEq for ElementKind {
@@ -184,47 +262,59 @@ pub fn kind_for_name(name: &str) -> Option<&'static ElementKind> {
 }
 
 const J: Complex64 = Complex64::new(0.0, 1.0);
+const ZERO: Complex64 = Complex64::new(0.0, 0.0);
 
-fn resistor(p: &[f64], _w: f64, dz: &mut [Complex64]) -> Complex64 {
-    dz[0] = Complex64::new(1.0, 0.0);
-    Complex64::new(p[0], 0.0)
+fn resistor(p: &[f64], _g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
+    z.fill(Complex64::new(p[0], 0.0));
+    dz.fill(Complex64::new(1.0, 0.0));
 }
 
-fn capacitor(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
-    let z = Complex64::new(0.0, -1.0 / (w * p[0]));
-    dz[0] = -z / p[0];
-    z
+fn capacitor(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
+    let c = p[0];
+    for ((zi, di), &w) in z.iter_mut().zip(dz.iter_mut()).zip(&g.omega) {
+        *zi = Complex64::new(0.0, -1.0 / (w * c));
+        *di = -*zi / c;
+    }
 }
 
-fn inductor(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
-    dz[0] = Complex64::new(0.0, w);
-    Complex64::new(0.0, w * p[0])
+fn inductor(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
+    for ((zi, di), &w) in z.iter_mut().zip(dz.iter_mut()).zip(&g.omega) {
+        *zi = Complex64::new(0.0, w * p[0]);
+        *di = Complex64::new(0.0, w);
+    }
 }
 
-fn cpe(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
+fn cpe(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
     let (q, n) = (p[0], p[1]);
-    // Polar form avoids overflow in (jw)^n: |Z| = exp(-ln Q - n ln w), arg Z = -n pi/2.
-    let ln_w = w.ln();
-    let z = Complex64::from_polar((-q.ln() - n * ln_w).exp(), -n * FRAC_PI_2);
-    dz[0] = -z / q;
-    dz[1] = -z * Complex64::new(ln_w, FRAC_PI_2);
-    z
+    // Polar form avoids overflow in (jω)^n: |Z| = exp(−ln Q − n ln ω), arg Z = −nπ/2. The phase and
+    // ln Q are the same at every frequency, so only one exp is left per point.
+    let (sin, cos) = (n * FRAC_PI_2).sin_cos();
+    let phase = Complex64::new(cos, -sin);
+    let ln_q = q.ln();
+    let (dq, dn) = dz.split_at_mut(g.len());
+    for (i, &ln_w) in g.ln_omega.iter().enumerate() {
+        let zi = phase * (-ln_q - n * ln_w).exp();
+        z[i] = zi;
+        dq[i] = -zi / q;
+        dn[i] = -zi * Complex64::new(ln_w, FRAC_PI_2);
+    }
 }
 
-fn warburg(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
-    let unit = Complex64::new(1.0, -1.0) / w.sqrt();
-    dz[0] = unit;
-    unit * p[0]
-}
-
-/// √(jωτ) = √(ωτ)·e^{jπ/4}, formed without a complex square root.
-fn sqrt_j_omega_tau(w: f64, tau: f64) -> Complex64 {
-    Complex64::from_polar((w * tau).sqrt(), FRAC_PI_4)
+fn warburg(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
+    for ((zi, di), &sw) in z.iter_mut().zip(dz.iter_mut()).zip(&g.sqrt_omega) {
+        let unit = Complex64::new(1.0, -1.0) / sw;
+        *di = unit;
+        *zi = unit * p[0];
+    }
 }
 
 /// Below this |√(jωτ)| the finite-diffusion functions use their Taylor series in u = jωτ: the next term
 /// is below 1e-16 relative, while the closed forms would lose digits to cancellation.
 const SERIES_LIMIT: f64 = 0.1;
+
+/// Above this Re(2√(jωτ)), e^{−2s} < 2e−22 and is taken as zero: tanh s = coth s = 1 and sech² s =
+/// csch² s = 0 to well below round-off, even after multiplication by |s| in the derivatives.
+const EXP_LIMIT: f64 = 50.0;
 
 /// tanh(s)/s = Σ a_k u^k with u = s²; coefficients from the Bernoulli-number series of tanh.
 const TANH_OVER_S: [f64; 7] = [
@@ -250,8 +340,8 @@ const COTH_OVER_S: [f64; 7] = [
 
 /// Evaluates Σ c_k u^k and Σ k c_k u^k (the latter is u·d/du of the former).
 fn series(c: &[f64], u: Complex64) -> (Complex64, Complex64) {
-    let mut f = Complex64::new(0.0, 0.0);
-    let mut uf = Complex64::new(0.0, 0.0);
+    let mut f = ZERO;
+    let mut uf = ZERO;
     for (k, &ck) in c.iter().enumerate().rev() {
         f = f * u + ck;
         if k > 0 {
@@ -262,78 +352,109 @@ fn series(c: &[f64], u: Complex64) -> (Complex64, Complex64) {
     (f, uf * u)
 }
 
-/// tanh(s) and sech²(s) for Re s > 0, through e^{-2s} so that neither overflows.
-fn tanh_sech2(s: Complex64) -> (Complex64, Complex64) {
-    let e = (-2.0 * s).exp();
+/// e^{−2s} for s = a(1 + j), a ≥ 0, zero where it is below round-off of anything it is added to.
+fn exp_minus_2s(a: f64) -> Complex64 {
+    if 2.0 * a > EXP_LIMIT {
+        return ZERO;
+    }
+    let (sin, cos) = (2.0 * a).sin_cos();
+    Complex64::new(cos, -sin) * (-2.0 * a).exp()
+}
+
+/// The two boundary conditions of finite-length diffusion.
+#[derive(Clone, Copy, PartialEq)]
+enum Boundary {
+    /// tanh: the far boundary passes the species on (transmissive).
+    Transmissive,
+    /// coth: the far boundary blocks it (reflective).
+    Reflective,
+}
+
+/// Z and ∂Z/∂(R, τ) at one frequency, `use_series` choosing the Taylor branch; `sqrt_wt` = √(ωτ).
+fn diffusion_point(
+    boundary: Boundary,
+    r: f64,
+    tau: f64,
+    wt: f64,
+    sqrt_wt: f64,
+    use_series: bool,
+) -> (Complex64, Complex64, Complex64) {
     let one = Complex64::new(1.0, 0.0);
-    let d = one + e;
-    ((one - e) / d, 4.0 * e / (d * d))
-}
-
-/// coth(s) and csch²(s) for Re s > 0, through e^{-2s}.
-fn coth_csch2(s: Complex64) -> (Complex64, Complex64) {
-    let e = (-2.0 * s).exp();
-    let one = Complex64::new(1.0, 0.0);
-    let d = one - e;
-    ((one + e) / d, 4.0 * e / (d * d))
-}
-
-fn diffusion_transmissive(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
-    transmissive_branch(p, w, dz, (w * p[1]).sqrt() < SERIES_LIMIT)
-}
-
-fn transmissive_branch(p: &[f64], w: f64, dz: &mut [Complex64], use_series: bool) -> Complex64 {
-    let (r, tau) = (p[0], p[1]);
-    let s = sqrt_j_omega_tau(w, tau);
     if use_series {
-        let u = J * (w * tau);
-        let (f, uf) = series(&TANH_OVER_S, u);
-        dz[0] = f;
+        let u = J * wt;
+        let (f, ufp) = match boundary {
+            Boundary::Transmissive => series(&TANH_OVER_S, u),
+            // coth(s)/s = 1/u + g(u), and u d/du (1/u) = −1/u.
+            Boundary::Reflective => {
+                let (g, ug) = series(&COTH_OVER_S, u);
+                let inv_u = 1.0 / u;
+                (inv_u + g, ug - inv_u)
+            }
+        };
         // dZ/dτ = R f'(u) du/dτ = R·u f'(u)/τ.
-        dz[1] = r * uf / tau;
-        return r * f;
+        return (r * f, f, r * ufp / tau);
     }
-    let (th, sech2) = tanh_sech2(s);
-    let f = th / s;
-    dz[0] = f;
-    // d/ds[tanh s / s] = (s sech² s − tanh s)/s², ds/dτ = s/(2τ).
-    dz[1] = r * (s * sech2 - th) / (2.0 * tau * s);
-    r * f
+    // √(jωτ) = √(ωτ)·e^{jπ/4} = a(1 + j), without a complex square root.
+    let a = sqrt_wt * FRAC_1_SQRT_2;
+    let s = Complex64::new(a, a);
+    let e = exp_minus_2s(a);
+    // tanh, sech² (or coth, csch²) through e^{−2s}, so that nothing overflows for Re s > 0.
+    let (t, h2, sign) = match boundary {
+        Boundary::Transmissive => {
+            let d = one + e;
+            ((one - e) / d, 4.0 * e / (d * d), 1.0)
+        }
+        Boundary::Reflective => {
+            let d = one - e;
+            ((one + e) / d, 4.0 * e / (d * d), -1.0)
+        }
+    };
+    let f = t / s;
+    // d/ds[tanh s / s] = (s sech² s − tanh s)/s²; d/ds[coth s / s] = −(s csch² s + coth s)/s²;
+    // ds/dτ = s/(2τ).
+    let d_tau = r * (sign * s * h2 - t) / (2.0 * tau * s);
+    (r * f, f, d_tau)
 }
 
-fn diffusion_reflective(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
-    reflective_branch(p, w, dz, (w * p[1]).sqrt() < SERIES_LIMIT)
-}
-
-fn reflective_branch(p: &[f64], w: f64, dz: &mut [Complex64], use_series: bool) -> Complex64 {
+fn diffusion(boundary: Boundary, p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
     let (r, tau) = (p[0], p[1]);
-    let s = sqrt_j_omega_tau(w, tau);
-    if use_series {
-        let u = J * (w * tau);
-        let (g, ug) = series(&COTH_OVER_S, u);
-        let inv_u = 1.0 / u;
-        let f = inv_u + g;
-        dz[0] = f;
-        // u d/du (1/u) = −1/u.
-        dz[1] = r * (ug - inv_u) / tau;
-        return r * f;
+    let sqrt_tau = tau.sqrt();
+    let (dr, dt) = dz.split_at_mut(g.len());
+    for i in 0..g.len() {
+        let sqrt_wt = g.sqrt_omega[i] * sqrt_tau;
+        let (zi, fi, di) = diffusion_point(
+            boundary,
+            r,
+            tau,
+            g.omega[i] * tau,
+            sqrt_wt,
+            sqrt_wt < SERIES_LIMIT,
+        );
+        z[i] = zi;
+        dr[i] = fi;
+        dt[i] = di;
     }
-    let (ch, csch2) = coth_csch2(s);
-    let f = ch / s;
-    dz[0] = f;
-    // d/ds[coth s / s] = −(s csch² s + coth s)/s², ds/dτ = s/(2τ).
-    dz[1] = -r * (s * csch2 + ch) / (2.0 * tau * s);
-    r * f
 }
 
-fn gerischer(p: &[f64], w: f64, dz: &mut [Complex64]) -> Complex64 {
+fn diffusion_transmissive(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
+    diffusion(Boundary::Transmissive, p, g, z, dz);
+}
+
+fn diffusion_reflective(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
+    diffusion(Boundary::Reflective, p, g, z, dz);
+}
+
+fn gerischer(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
     let (r, tau) = (p[0], p[1]);
-    let a = Complex64::new(1.0, w * tau);
-    let f = 1.0 / a.sqrt();
-    dz[0] = f;
-    let z = r * f;
-    dz[1] = -z * J * w / (2.0 * a);
-    z
+    let (dr, dt) = dz.split_at_mut(g.len());
+    for (i, &w) in g.omega.iter().enumerate() {
+        let a = Complex64::new(1.0, w * tau);
+        let f = 1.0 / a.sqrt();
+        let zi = r * f;
+        z[i] = zi;
+        dr[i] = f;
+        dt[i] = -zi * J * w / (2.0 * a);
+    }
 }
 
 #[cfg(test)]
@@ -348,9 +469,40 @@ mod tests {
     }
 
     fn eval(kind: &ElementKind, p: &[f64], w: f64) -> (Complex64, Vec<Complex64>) {
-        let mut dz = vec![Complex64::new(0.0, 0.0); p.len()];
-        let z = (kind.impedance)(p, w, &mut dz);
-        (z, dz)
+        kind.eval_at(p, w)
+    }
+
+    /// The kind's defaults, with 0.7 for interval-bounded parameters (inside, away from the ends).
+    fn typical(kind: &ElementKind) -> Vec<f64> {
+        kind.params
+            .iter()
+            .map(|q| match q.domain {
+                Domain::Positive => q.default,
+                Domain::Interval(..) => 0.7,
+            })
+            .collect()
+    }
+
+    /// Evaluating a whole grid at once gives, point by point, exactly what one-point grids give
+    /// (nothing in an element may depend on the neighbouring frequencies).
+    #[test]
+    fn grid_evaluation_is_pointwise() {
+        let ws = omegas();
+        let g = Grid::new(&ws);
+        for kind in KINDS {
+            let p = typical(kind);
+            let n = ws.len();
+            let mut z = vec![ZERO; n];
+            let mut dz = vec![ZERO; n * p.len()];
+            (kind.impedance)(&p, &g, &mut z, &mut dz);
+            for (i, &w) in ws.iter().enumerate() {
+                let (zi, di) = eval(kind, &p, w);
+                assert_eq!(z[i], zi, "{} at {w}", kind.symbol);
+                for k in 0..p.len() {
+                    assert_eq!(dz[k * n + i], di[k], "{} d{k} at {w}", kind.symbol);
+                }
+            }
+        }
     }
 
     #[test]
@@ -371,14 +523,7 @@ mod tests {
     #[test]
     fn every_kind_matches_finite_differences() {
         for kind in KINDS {
-            let base: Vec<f64> = kind
-                .params
-                .iter()
-                .map(|p| match p.domain {
-                    Domain::Positive => p.default,
-                    Domain::Interval(..) => 0.7,
-                })
-                .collect();
+            let base = typical(kind);
             for &w in &omegas() {
                 let (_, dz) = eval(kind, &base, w);
                 for k in 0..base.len() {
@@ -441,23 +586,42 @@ mod tests {
     /// the derivatives.
     #[test]
     fn series_and_closed_forms_agree_at_the_switch() {
-        type Branch = fn(&[f64], f64, &mut [Complex64], bool) -> Complex64;
-        for branch in [transmissive_branch as Branch, reflective_branch as Branch] {
+        for boundary in [Boundary::Transmissive, Boundary::Reflective] {
             for tau in [1e-3, 1.0, 1e3] {
                 let w = SERIES_LIMIT * SERIES_LIMIT / tau;
-                let mut ds = [Complex64::new(0.0, 0.0); 2];
-                let mut dc = ds;
-                let zs = branch(&[3.0, tau], w, &mut ds, true);
-                let zc = branch(&[3.0, tau], w, &mut dc, false);
+                let (r, wt) = (3.0, w * tau);
+                let (zs, ds0, ds1) = diffusion_point(boundary, r, tau, wt, wt.sqrt(), true);
+                let (zc, dc0, dc1) = diffusion_point(boundary, r, tau, wt, wt.sqrt(), false);
                 assert!((zs - zc).norm() / zc.norm() < 1e-13, "{zs} vs {zc}");
-                for k in 0..2 {
-                    assert!(
-                        (ds[k] - dc[k]).norm() / dc[k].norm() < 1e-12,
-                        "{} vs {}",
-                        ds[k],
-                        dc[k]
-                    );
+                for (a, b) in [(ds0, dc0), (ds1, dc1)] {
+                    assert!((a - b).norm() / b.norm() < 1e-12, "{a} vs {b}");
                 }
+            }
+        }
+    }
+
+    /// Where e^{−2s} is dropped (Re 2s > 50) the closed forms equal their limits tanh = coth = 1 to
+    /// round-off, so the cut is invisible: compare just below and just above it.
+    #[test]
+    fn dropping_the_exponential_is_invisible() {
+        for boundary in [Boundary::Transmissive, Boundary::Reflective] {
+            let a: f64 = EXP_LIMIT / 2.0;
+            let tau = 2.0;
+            for sqrt_wt in [
+                a * 2f64.sqrt() * (1.0 - 1e-9),
+                a * 2f64.sqrt() * (1.0 + 1e-9),
+            ] {
+                let wt = sqrt_wt * sqrt_wt;
+                let (z, f, d) = diffusion_point(boundary, 1.0, tau, wt, sqrt_wt, false);
+                let s = Complex64::new(sqrt_wt * FRAC_1_SQRT_2, sqrt_wt * FRAC_1_SQRT_2);
+                let limit = 1.0 / s;
+                assert!((z - limit).norm() <= 1e-15 * limit.norm(), "{z} vs {limit}");
+                assert!((f - limit).norm() <= 1e-15 * limit.norm());
+                let d_limit = -1.0 / (2.0 * tau * s);
+                assert!(
+                    (d - d_limit).norm() <= 1e-14 * d_limit.norm(),
+                    "{d} vs {d_limit}"
+                );
             }
         }
     }

@@ -4,10 +4,15 @@
 //! A [`Circuit`] is compiled once into a [`Plan`]: a post-order list of element evaluations and
 //! series/parallel combinations. Because parameters are numbered in tree order, the parameters of any
 //! subtree are one contiguous range, so a single derivative array suffices: after a subtree is evaluated,
-//! `d[p]` holds ∂Z_subtree/∂p for its parameters. Combining children then only rescales:
+//! row `d[p]` holds ∂Z_subtree/∂p at every frequency for its parameters. Combining children then only
+//! rescales:
 //!
 //! - series: Z = Σ Zᵢ, and ∂Z/∂p = ∂Zᵢ/∂p unchanged;
 //! - parallel: Z = 1/Σ(1/Zᵢ), and ∂Z/∂p = (Z/Zᵢ)²·∂Zᵢ/∂p for p in child i.
+//!
+//! Each operation works on whole rows (one value per frequency of a [`Grid`]), so an element's
+//! frequency-independent work (a phase, the logarithm of a parameter) is done once per call, not once
+//! per frequency, and ln ω and √ω are computed once per grid.
 //!
 //! ```
 //! use eis_core::{circuit::parse, eval::Plan};
@@ -20,6 +25,7 @@
 
 use crate::circuit::{Circuit, Node};
 use crate::element::ElementKind;
+pub use crate::element::Grid;
 use num_complex::Complex64;
 
 const ZERO: Complex64 = Complex64::new(0.0, 0.0);
@@ -37,13 +43,6 @@ enum Op {
     Parallel { count: usize },
 }
 
-#[derive(Debug, Clone, Copy)]
-struct Frame {
-    z: Complex64,
-    lo: usize,
-    hi: usize,
-}
-
 /// A circuit compiled for evaluation. Immutable and shareable between threads; each thread evaluates
 /// with its own [`Workspace`].
 #[derive(Debug, Clone)]
@@ -53,16 +52,29 @@ pub struct Plan {
     depth: usize,
 }
 
-/// Scratch memory for [`Plan::eval`], made once by [`Plan::workspace`] and reused for every call.
+/// Scratch memory for [`Plan::eval`], made once by [`Plan::workspace`] and reused for every call. It
+/// grows to the largest grid it has seen and then stops allocating.
 #[derive(Debug, Clone)]
 pub struct Workspace {
-    stack: Vec<Frame>,
+    /// Parameter ranges of the subtrees on the evaluation stack.
+    stack: Vec<(usize, usize)>,
+    /// One impedance row per stack slot, `depth × n_freq`.
+    slots: Vec<Complex64>,
+    /// One row of the grid's length for a parallel combination.
+    row: Vec<Complex64>,
+    /// Derivatives when the caller wants no Jacobian, `n_params × n_freq`.
     d: Vec<Complex64>,
 }
 
-/// 1/z without overflow or underflow for any finite non-zero z (Smith's algorithm).
+/// 1/z without overflow or underflow for any finite non-zero z: z̄/|z|² where |z|² is a normal number
+/// (every impedance from µΩ to far beyond TΩ), Smith's algorithm otherwise.
 #[inline]
 pub(crate) fn recip(z: Complex64) -> Complex64 {
+    let n2 = z.re * z.re + z.im * z.im;
+    if n2.is_normal() && n2 < 1e300 {
+        let s = 1.0 / n2;
+        return Complex64::new(z.re * s, -z.im * s);
+    }
     if z.re.abs() >= z.im.abs() {
         let r = z.im / z.re;
         let den = z.re + z.im * r;
@@ -95,100 +107,135 @@ impl Plan {
     pub fn workspace(&self) -> Workspace {
         Workspace {
             stack: Vec::with_capacity(self.depth),
-            d: vec![ZERO; self.n_params],
+            slots: Vec::new(),
+            row: Vec::new(),
+            d: Vec::new(),
         }
     }
 
-    /// Z at one angular frequency (allocates a workspace; use [`Plan::eval`] in loops).
+    /// Z at one angular frequency (allocates; use [`Plan::eval`] in loops).
     ///
     /// # Panics
     ///
     /// If `params.len() != self.n_params()`.
     pub fn impedance(&self, params: &[f64], omega: f64) -> Complex64 {
-        let mut ws = self.workspace();
-        let mut z = [ZERO];
-        self.eval(params, &[omega], &mut z, None, &mut ws);
-        z[0]
+        self.impedances(params, &[omega])[0]
     }
 
-    /// Z at every angular frequency (allocates the result).
+    /// Z at every angular frequency (allocates the grid, the workspace and the result).
     pub fn impedances(&self, params: &[f64], omegas: &[f64]) -> Vec<Complex64> {
         let mut ws = self.workspace();
         let mut z = vec![ZERO; omegas.len()];
-        self.eval(params, omegas, &mut z, None, &mut ws);
+        self.eval(params, &Grid::new(omegas), &mut z, None, &mut ws);
         z
     }
 
-    /// Evaluates Z(ωᵢ) into `z[i]` and, when `jac` is given, ∂Z(ωᵢ)/∂p_k into `jac[i * n_params + k]`.
+    /// Evaluates Z(ωᵢ) into `z[i]` and, when `jac` is given, ∂Z(ωᵢ)/∂p_k into `jac[k * grid.len() + i]`
+    /// (one row of the grid's length per parameter).
+    ///
+    /// Elements are evaluated over the whole grid at once, children combined row by row; after the
+    /// workspace has grown to the grid, nothing is allocated.
     ///
     /// # Panics
     ///
-    /// If `params.len() != self.n_params()`, `z.len() != omegas.len()` or `jac` has the wrong length.
+    /// If `params.len() != self.n_params()`, `z.len() != grid.len()` or `jac` has the wrong length.
     pub fn eval(
         &self,
         params: &[f64],
-        omegas: &[f64],
+        grid: &Grid,
         z: &mut [Complex64],
-        mut jac: Option<&mut [Complex64]>,
+        jac: Option<&mut [Complex64]>,
         ws: &mut Workspace,
     ) {
         let np = self.n_params;
+        let nf = grid.len();
         assert_eq!(params.len(), np, "parameter count");
-        assert_eq!(z.len(), omegas.len(), "output length");
-        if let Some(j) = &jac {
-            assert_eq!(j.len(), omegas.len() * np, "Jacobian length");
+        assert_eq!(z.len(), nf, "output length");
+        if nf == 0 {
+            return;
         }
-        for (i, &w) in omegas.iter().enumerate() {
-            z[i] = self.eval_one(params, w, ws);
-            if let Some(j) = jac.as_deref_mut() {
-                j[i * np..(i + 1) * np].copy_from_slice(&ws.d);
+        let Workspace {
+            stack,
+            slots,
+            row,
+            d,
+        } = ws;
+        let want_d = jac.is_some();
+        let d: &mut [Complex64] = match jac {
+            Some(j) => {
+                assert_eq!(j.len(), nf * np, "Jacobian length");
+                j
             }
-        }
-    }
-
-    fn eval_one(&self, params: &[f64], w: f64, ws: &mut Workspace) -> Complex64 {
-        let Workspace { stack, d } = ws;
+            None => {
+                d.resize(nf * np, ZERO);
+                d
+            }
+        };
+        slots.resize(self.depth * nf, ZERO);
+        row.resize(nf, ZERO);
         stack.clear();
         for op in &self.ops {
             match *op {
                 Op::Element { kind, first } => {
                     let hi = first + kind.params.len();
-                    let z = (kind.impedance)(&params[first..hi], w, &mut d[first..hi]);
-                    stack.push(Frame { z, lo: first, hi });
+                    let slot = stack.len();
+                    (kind.impedance)(
+                        &params[first..hi],
+                        grid,
+                        &mut slots[slot * nf..(slot + 1) * nf],
+                        &mut d[first * nf..hi * nf],
+                    );
+                    stack.push((first, hi));
                 }
                 Op::Series { count } => {
                     let base = stack.len() - count;
-                    let mut z = ZERO;
-                    for f in &stack[base..] {
-                        z += f.z;
+                    let (head, rest) = slots[base * nf..stack.len() * nf].split_at_mut(nf);
+                    for child in rest.chunks_exact(nf) {
+                        for (a, b) in head.iter_mut().zip(child) {
+                            *a += *b;
+                        }
                     }
-                    let lo = stack[base].lo;
-                    let hi = stack[stack.len() - 1].hi;
+                    let range = (stack[base].0, stack[stack.len() - 1].1);
                     stack.truncate(base);
-                    stack.push(Frame { z, lo, hi });
+                    stack.push(range);
                 }
                 Op::Parallel { count } => {
                     let base = stack.len() - count;
-                    let mut y = ZERO;
-                    for f in &stack[base..] {
-                        y += recip(f.z);
-                    }
-                    let z = recip(y);
-                    for f in &stack[base..] {
-                        let ratio = z * recip(f.z);
-                        let scale = ratio * ratio;
-                        for dp in &mut d[f.lo..f.hi] {
-                            *dp *= scale;
+                    let children = &mut slots[base * nf..stack.len() * nf];
+                    // Admittances of the children, and the combined impedance in `row`.
+                    row.fill(ZERO);
+                    for child in children.chunks_exact_mut(nf) {
+                        for (y, r) in child.iter_mut().zip(row.iter_mut()) {
+                            *y = recip(*y);
+                            *r += *y;
                         }
                     }
-                    let lo = stack[base].lo;
-                    let hi = stack[stack.len() - 1].hi;
+                    for r in row.iter_mut() {
+                        *r = recip(*r);
+                    }
+                    if want_d {
+                        // ∂Z/∂p = (Z·Yᵢ)²·∂Zᵢ/∂p for p in child i.
+                        for (child, &(lo, hi)) in children.chunks_exact_mut(nf).zip(&stack[base..])
+                        {
+                            for (y, r) in child.iter_mut().zip(row.iter()) {
+                                let ratio = *r * *y;
+                                *y = ratio * ratio;
+                            }
+                            for dp in d[lo * nf..hi * nf].chunks_exact_mut(nf) {
+                                for (a, s) in dp.iter_mut().zip(child.iter()) {
+                                    *a *= *s;
+                                }
+                            }
+                        }
+                    }
+                    children[..nf].copy_from_slice(row);
+                    let range = (stack[base].0, stack[stack.len() - 1].1);
                     stack.truncate(base);
-                    stack.push(Frame { z, lo, hi });
+                    stack.push(range);
                 }
             }
         }
-        stack[0].z
+        z.copy_from_slice(&slots[..nf]);
     }
 }
 

@@ -28,6 +28,7 @@
 
 pub mod campaign;
 pub mod circuit;
+mod dense;
 pub mod derive;
 pub mod drt;
 pub mod element;

@@ -2,7 +2,7 @@
 //! against central finite differences.
 
 use eis_core::circuit::parse;
-use eis_core::eval::{Plan, angular};
+use eis_core::eval::{Grid, Plan, angular};
 use num_complex::Complex64;
 use std::f64::consts::{FRAC_PI_4, PI, SQRT_2};
 
@@ -199,7 +199,7 @@ fn nested_jacobians_match_finite_differences() {
         let mut z = vec![Complex64::new(0.0, 0.0); ws.len()];
         let mut jac = vec![Complex64::new(0.0, 0.0); ws.len() * np];
         let mut work = plan.workspace();
-        plan.eval(p, &ws, &mut z, Some(&mut jac), &mut work);
+        plan.eval(p, &Grid::new(&ws), &mut z, Some(&mut jac), &mut work);
         for k in 0..np {
             let h = 1e-6 * p[k];
             let mut up = p.to_vec();
@@ -210,7 +210,7 @@ fn nested_jacobians_match_finite_differences() {
             let zd = plan.impedances(&dn, &ws);
             for i in 0..ws.len() {
                 let fd = (zu[i] - zd[i]) / (2.0 * h);
-                let an = jac[i * np + k];
+                let an = jac[k * ws.len() + i];
                 // Compare on the scale of |Z|/p so that derivatives that vanish at some frequency do not
                 // blow the relative error up.
                 let scale = an.norm().max(1e-4 * z[i].norm() / p[k]);

@@ -33,11 +33,12 @@
 //! ```
 
 mod problem;
+mod reduce;
 pub(crate) mod start;
 mod stats;
 
 use crate::circuit::Circuit;
-use crate::eval::Plan;
+use crate::eval::{Grid, Plan};
 use crate::spectrum::Spectrum;
 use levenberg_marquardt::{LevenbergMarquardt, TerminationReason};
 use num_complex::Complex64;
@@ -293,6 +294,7 @@ impl FitResult {
 /// Prepared data of one fit: angular frequencies, data and weights.
 struct Prepared {
     omegas: Vec<f64>,
+    grid: Grid,
     data: Vec<Complex64>,
     w_re: Vec<f64>,
     w_im: Vec<f64>,
@@ -340,8 +342,10 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
             s.iter().map(|&v| (1.0 / v, 1.0 / v)).unzip()
         }
     };
+    let omegas = spectrum.omegas();
     Ok(Prepared {
-        omegas: spectrum.omegas(),
+        grid: Grid::new(&omegas),
+        omegas,
         data: spectrum.z.clone(),
         w_re,
         w_im,
@@ -368,7 +372,7 @@ fn run_lm(
 ) -> Run {
     let problem = Problem::new(
         plan,
-        &prep.omegas,
+        &prep.grid,
         &prep.data,
         &prep.w_re,
         &prep.w_im,
@@ -500,6 +504,7 @@ fn fit_impl(
     let ctx = start::Context {
         circuit,
         omegas: &prep.omegas,
+        grid: &prep.grid,
         data: &prep.data,
         w_re: &prep.w_re,
         w_im: &prep.w_im,
@@ -688,7 +693,7 @@ fn finish(
 ) -> FitResult {
     let problem = Problem::new(
         plan,
-        &prep.omegas,
+        &prep.grid,
         &prep.data,
         &prep.w_re,
         &prep.w_im,

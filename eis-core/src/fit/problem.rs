@@ -1,10 +1,11 @@
 //! The weighted complex least-squares problem handed to Levenberg–Marquardt, in transformed parameters
 //! that keep every bound.
 
-use crate::eval::{Plan, Workspace};
+use crate::eval::{Grid, Plan, Workspace};
 use levenberg_marquardt::LeastSquaresProblem;
 use nalgebra::{DMatrix, DVector, Dyn, Owned};
 use num_complex::Complex64;
+use std::cell::RefCell;
 
 /// How a free parameter p is mapped to an unbounded internal coordinate x.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -108,9 +109,14 @@ impl Transform {
 
 /// Residuals r = w ∘ (Z_model − Z_data), real parts then imaginary parts, and their Jacobian with respect
 /// to the internal coordinates of the free parameters.
+///
+/// The solver sees the problem compressed to its square core ([`super::reduce`]): n + 1 residuals and
+/// an (n + 1) × n Jacobian for n free parameters, with the same steps, gradient and residual norm as the
+/// full 2·points × n problem; the factorisation is made only when the solver asks for a Jacobian. The
+/// full residuals stay available here for the statistics.
 pub(crate) struct Problem<'a> {
     pub plan: &'a Plan,
-    pub omegas: &'a [f64],
+    pub grid: &'a Grid,
     pub data: &'a [Complex64],
     /// Weight (square root of the statistical weight) of the real and imaginary residual at each point.
     pub w_re: &'a [f64],
@@ -121,9 +127,14 @@ pub(crate) struct Problem<'a> {
     pub transforms: &'a [Transform],
     x: DVector<f64>,
     z: Vec<Complex64>,
+    /// ∂Z(ωᵢ)/∂p_k at `k * points + i`, all parameters.
     jac: Vec<Complex64>,
     ws: Workspace,
-    residuals: DVector<f64>,
+    /// Full weighted residuals, 2·points.
+    residuals: Vec<f64>,
+    chi_square: f64,
+    /// Scratch for the compression: the weighted real Jacobian in x, column by column.
+    scratch_j: RefCell<Vec<f64>>,
     ok: bool,
     pub jacobian_calls: std::cell::Cell<usize>,
 }
@@ -132,10 +143,11 @@ pub(crate) struct Problem<'a> {
 const PENALTY: f64 = 1e10;
 
 impl<'a> Problem<'a> {
+    /// The problem at `params`.
     #[allow(clippy::too_many_arguments)]
     pub(crate) fn new(
         plan: &'a Plan,
-        omegas: &'a [f64],
+        grid: &'a Grid,
         data: &'a [Complex64],
         w_re: &'a [f64],
         w_im: &'a [f64],
@@ -143,16 +155,17 @@ impl<'a> Problem<'a> {
         free: &'a [usize],
         transforms: &'a [Transform],
     ) -> Problem<'a> {
-        let n = omegas.len();
+        let n = grid.len();
+        let nf = free.len();
         let x = DVector::from_iterator(
-            free.len(),
+            nf,
             free.iter()
                 .zip(transforms)
                 .map(|(&i, t)| t.to_internal(params[i])),
         );
         let mut p = Problem {
             plan,
-            omegas,
+            grid,
             data,
             w_re,
             w_im,
@@ -163,7 +176,10 @@ impl<'a> Problem<'a> {
             z: vec![Complex64::new(0.0, 0.0); n],
             jac: vec![Complex64::new(0.0, 0.0); n * plan.n_params()],
             ws: plan.workspace(),
-            residuals: DVector::zeros(2 * n),
+            residuals: vec![0.0; 2 * n],
+            chi_square: 0.0,
+            // Allocated on the first request for a Jacobian: only the solver asks for one.
+            scratch_j: RefCell::new(Vec::new()),
             ok: false,
             jacobian_calls: std::cell::Cell::new(0),
         };
@@ -178,7 +194,7 @@ impl<'a> Problem<'a> {
 
     /// Sum of squared residuals at the current point.
     pub(crate) fn chi_square(&self) -> f64 {
-        self.residuals.norm_squared()
+        self.chi_square
     }
 
     /// The model impedance at the current point.
@@ -191,17 +207,16 @@ impl<'a> Problem<'a> {
         self.ok
     }
 
-    /// Jacobian of the residuals with respect to the free parameters themselves (not x), for the
+    /// Jacobian of the full residuals with respect to the free parameters themselves (not x), for the
     /// covariance.
     pub(crate) fn jacobian_in_params(&self) -> DMatrix<f64> {
-        let n = self.omegas.len();
-        let np = self.plan.n_params();
+        let n = self.grid.len();
         let mut j = DMatrix::zeros(2 * n, self.free.len());
         for (c, &k) in self.free.iter().enumerate() {
+            let d = &self.jac[k * n..(k + 1) * n];
             for i in 0..n {
-                let d = self.jac[i * np + k];
-                j[(i, c)] = self.w_re[i] * d.re;
-                j[(n + i, c)] = self.w_im[i] * d.im;
+                j[(i, c)] = self.w_re[i] * d[i].re;
+                j[(n + i, c)] = self.w_im[i] * d[i].im;
             }
         }
         j
@@ -220,12 +235,12 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
         }
         self.plan.eval(
             &self.params,
-            self.omegas,
+            self.grid,
             &mut self.z,
             Some(&mut self.jac),
             &mut self.ws,
         );
-        let n = self.omegas.len();
+        let n = self.grid.len();
         let mut ok = true;
         for i in 0..n {
             let d = self.z[i] - self.data[i];
@@ -234,10 +249,13 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
             self.residuals[i] = a;
             self.residuals[n + i] = b;
         }
-        if !ok {
-            self.residuals.fill(PENALTY);
-        }
-        self.ok = ok;
+        self.chi_square = if ok {
+            self.residuals.iter().map(|r| r * r).sum()
+        } else {
+            f64::INFINITY
+        };
+        // Squares that overflow count as a failed evaluation too.
+        self.ok = self.chi_square.is_finite();
     }
 
     fn params(&self) -> DVector<f64> {
@@ -245,26 +263,43 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
     }
 
     fn residuals(&self) -> Option<DVector<f64>> {
-        Some(self.residuals.clone())
+        let nf = self.free.len();
+        let mut r = DVector::zeros(nf + 1);
+        // A huge but finite norm for a failed evaluation, so that the step that led here is rejected.
+        r[nf] = if self.ok {
+            self.chi_square.sqrt()
+        } else {
+            PENALTY * ((2 * self.grid.len()) as f64).sqrt()
+        };
+        Some(r)
     }
 
     fn jacobian(&self) -> Option<DMatrix<f64>> {
         self.jacobian_calls.set(self.jacobian_calls.get() + 1);
-        let n = self.omegas.len();
-        let np = self.plan.n_params();
-        let mut j = DMatrix::zeros(2 * n, self.free.len());
+        let n = self.grid.len();
+        let nf = self.free.len();
+        let mut out = DMatrix::zeros(nf + 1, nf);
         if !self.ok {
-            return Some(j);
+            return Some(out);
         }
+        let mut scratch = self.scratch_j.borrow_mut();
+        scratch.resize(2 * n * nf, 0.0);
+        let mut finite = true;
         for (c, (&k, t)) in self.free.iter().zip(self.transforms).enumerate() {
             let dp = t.derivative(self.x[c]);
+            let d = &self.jac[k * n..(k + 1) * n];
+            let (re, im) = scratch[2 * n * c..2 * n * (c + 1)].split_at_mut(n);
             for i in 0..n {
-                let d = self.jac[i * np + k] * dp;
-                j[(i, c)] = self.w_re[i] * d.re;
-                j[(n + i, c)] = self.w_im[i] * d.im;
+                re[i] = self.w_re[i] * d[i].re * dp;
+                im[i] = self.w_im[i] * d[i].im * dp;
+                finite &= re[i].is_finite() && im[i].is_finite();
             }
         }
-        Some(j)
+        if finite {
+            super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, &mut out);
+        }
+        // A non-finite derivative gives no slope: the solver stops rather than step on garbage.
+        Some(out)
     }
 }
 

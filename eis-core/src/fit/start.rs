@@ -128,6 +128,8 @@ fn is_cap(c: &Circuit, n: &Node) -> bool {
 pub(crate) struct Context<'a> {
     pub circuit: &'a Circuit,
     pub omegas: &'a [f64],
+    /// The same frequencies prepared for element evaluation.
+    pub grid: &'a crate::eval::Grid,
     pub data: &'a [Complex64],
     pub w_re: &'a [f64],
     pub w_im: &'a [f64],
@@ -200,17 +202,28 @@ enum Slot {
     Diffusion(&'static ElementKind),
 }
 
-/// One column of the surrogate as a function of ω (given the slot's τ).
-fn column(slot: Slot, tau: f64, w: f64) -> Complex64 {
+/// One column of the surrogate over the grid (given the slot's τ).
+fn column(slot: Slot, tau: f64, grid: &crate::eval::Grid) -> Vec<Complex64> {
     let one = Complex64::new(1.0, 0.0);
     match slot {
-        Slot::ArcC => one / Complex64::new(1.0, w * tau),
-        Slot::ArcQ(n) => {
-            one / (one + Complex64::from_polar((w * tau).powf(n), n * std::f64::consts::FRAC_PI_2))
-        }
+        Slot::ArcC => grid
+            .omega()
+            .iter()
+            .map(|&w| one / Complex64::new(1.0, w * tau))
+            .collect(),
+        Slot::ArcQ(n) => grid
+            .omega()
+            .iter()
+            .map(|&w| {
+                one / (one
+                    + Complex64::from_polar((w * tau).powf(n), n * std::f64::consts::FRAC_PI_2))
+            })
+            .collect(),
         Slot::Diffusion(kind) => {
-            let mut dz = [Complex64::new(0.0, 0.0); 2];
-            (kind.impedance)(&[1.0, tau], w, &mut dz)
+            let mut z = vec![Complex64::new(0.0, 0.0); grid.len()];
+            let mut dz = vec![Complex64::new(0.0, 0.0); 2 * grid.len()];
+            (kind.impedance)(&[1.0, tau], grid, &mut z, &mut dz);
+            z
         }
     }
 }
@@ -357,7 +370,7 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
     for (s, f) in slots.iter().zip(&fine) {
         slot_offset.push(cols.len());
         for &tau in f {
-            let c: Vec<Complex64> = ctx.omegas.iter().map(|&w| column(s.slot, tau, w)).collect();
+            let c = column(s.slot, tau, ctx.grid);
             cols.push(weigh(&c));
         }
     }

@@ -155,7 +155,7 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
     let p = s.problem;
     let np = c.params.len();
     let nf = s.free.len();
-    let n = p.omegas.len();
+    let n = p.grid.len();
     let m = 2 * n;
     let chi = p.chi_square();
     let dof = m - nf;

@@ -26,6 +26,7 @@
 //! with singular values below 10⁻¹³·σ_max dropped, as before. That happens only for dense τ grids,
 //! far into the over-fitting regime, or for a fixed M close to N.
 
+use crate::dense::dot;
 use nalgebra::{DMatrix, DVector};
 use num_complex::Complex64;
 
@@ -96,24 +97,6 @@ pub(super) fn mu(resistances: &[f64]) -> f64 {
     } else {
         1.0
     }
-}
-
-/// Dot product with four accumulators, so that the compiler can vectorise it.
-fn dot(a: &[f64], b: &[f64]) -> f64 {
-    let mut acc = [0.0f64; 4];
-    let (ca, cb) = (a.chunks_exact(4), b.chunks_exact(4));
-    let tail: f64 = ca
-        .remainder()
-        .iter()
-        .zip(cb.remainder())
-        .map(|(x, y)| x * y)
-        .sum();
-    for (x, y) in ca.zip(cb) {
-        for j in 0..4 {
-            acc[j] += x[j] * y[j];
-        }
-    }
-    (acc[0] + acc[1]) + (acc[2] + acc[3]) + tail
 }
 
 /// Buffers and the parts of the problem shared by every M: weights, right-hand side and the columns

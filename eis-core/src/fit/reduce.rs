@@ -1,0 +1,200 @@
+//! Compression of a tall least-squares problem to its square core, so that the Levenberg–Marquardt
+//! solver factors an (n + 1) × n matrix per iteration instead of the m × n Jacobian.
+//!
+//! At a point with residuals r (m of them) and Jacobian J (m × n), let u = r/‖r‖, g = Jᵀu and
+//! P = I − uuᵀ. The solver is handed
+//!
+//! ```text
+//! r̃ = [0, …, 0, ‖r‖]ᵀ   and   J̃ = [R; gᵀ],   R the triangular factor of P·J = J − u·gᵀ.
+//! ```
+//!
+//! Every quantity a trust-region Levenberg–Marquardt step uses is unchanged: J̃ᵀJ̃ = JᵀPJ + ggᵀ = JᵀJ
+//! (P is a projector and JᵀPJ = JᵀJ − ggᵀ), J̃ᵀr̃ = ‖r‖g = Jᵀr, ‖J̃p‖ = ‖Jp‖ for every step p, the column
+//! norms ‖J̃eₖ‖ = ‖Jeₖ‖ that scale the variables, and ‖r̃‖ = ‖r‖. So the iterates are those of the full
+//! problem up to rounding. Because a point's compressed residuals depend only on ‖r‖, a trial point
+//! costs one evaluation of the model; the factorisation is made only where the solver asks for a
+//! Jacobian (accepted points). The triangular factor comes from Householder QR, never from the normal
+//! equations, so the conditioning of J is not squared (Golub & Van Loan, *Matrix Computations*, 4th ed.
+//! 2013, §5.2–5.3).
+
+use crate::dense::dot;
+use nalgebra::DMatrix;
+
+/// ‖a‖: a plain sum of squares with four accumulators, redone scaled by the largest entry only when
+/// that sum left the range where it is exact to round-off (squares of huge entries overflowing, of tiny
+/// ones underflowing).
+#[inline]
+fn norm(a: &[f64]) -> f64 {
+    let plain = dot(a, a);
+    if plain.is_finite() && plain > 1e-280 {
+        return plain.sqrt();
+    }
+    let big = a.iter().fold(0.0_f64, |m, x| m.max(x.abs()));
+    if big == 0.0 || !big.is_finite() {
+        return big;
+    }
+    let s = 1.0 / big;
+    let scaled: f64 = a.iter().map(|x| (x * s) * (x * s)).sum();
+    big * scaled.sqrt()
+}
+
+/// Writes J̃ = [R; gᵀ] for the point with Jacobian `a` (m rows, n columns, column by column;
+/// overwritten) and residuals `r` (m) into `j_out` ((n + 1) × n). See the module documentation.
+///
+/// Householder QR without pivoting (Golub & Van Loan 2013, algorithm 5.2.1); a zero column leaves a
+/// zero on the diagonal of R, which the solver's own pivoted factorisation handles.
+///
+/// # Panics
+///
+/// If the lengths do not match m, n, or m ≤ n.
+pub(crate) fn compress(a: &mut [f64], m: usize, n: usize, r: &[f64], j_out: &mut DMatrix<f64>) {
+    assert!(m > n && a.len() == m * n && r.len() == m, "shapes");
+    assert!(j_out.shape() == (n + 1, n), "output shape");
+    j_out.fill(0.0);
+    // g = Jᵀu and P·J = J − u gᵀ, column by column.
+    let rn = norm(r);
+    if rn > 0.0 && rn.is_finite() {
+        let inv = 1.0 / rn;
+        for k in 0..n {
+            let col = &mut a[k * m..(k + 1) * m];
+            let g = dot(col, r) * inv;
+            j_out[(n, k)] = g;
+            let s = g * inv;
+            for (c, ri) in col.iter_mut().zip(r) {
+                *c -= s * ri;
+            }
+        }
+    }
+    for j in 0..n {
+        let (done, rest) = a.split_at_mut((j + 1) * m);
+        let v = &mut done[j * m + j..];
+        let nv = norm(v);
+        // A column this small (or nothing left of it) carries no information: leave it as it is.
+        if !(nv > 1e-300 && nv.is_finite()) {
+            for k in j + 1..n {
+                j_out[(j, k)] = rest[(k - j - 1) * m + j];
+            }
+            continue;
+        }
+        // H = I − τ v vᵀ with v = (x − β e₁)/(x₀ − β), so v₀ = 1, β = −sign(x₀)‖x‖ and τ = (β − x₀)/β ∈
+        // [1, 2]: no product of two small or two large numbers is formed (LAPACK's dlarfg).
+        let x0 = v[0];
+        let beta = if x0 > 0.0 { -nv } else { nv };
+        let scale = 1.0 / (x0 - beta);
+        for vi in v[1..].iter_mut() {
+            *vi *= scale;
+        }
+        v[0] = 1.0;
+        let tau = (beta - x0) / beta;
+        j_out[(j, j)] = beta;
+        for k in j + 1..n {
+            let col = &mut rest[(k - j - 1) * m + j..(k - j) * m];
+            let s = tau * dot(v, col);
+            for (c, vi) in col.iter_mut().zip(v.iter()) {
+                *c -= s * vi;
+            }
+            j_out[(j, k)] = col[0];
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A deterministic, badly scaled tall matrix and vector.
+    fn case(m: usize, n: usize) -> (Vec<f64>, Vec<f64>) {
+        let mut state = 0x2545_f491_4f6c_dd1d_u64;
+        let mut next = || {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            (state >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        let a: Vec<f64> = (0..m * n)
+            .map(|k| next() * 10f64.powi((k / m) as i32 - 3))
+            .collect();
+        let r: Vec<f64> = (0..m).map(|_| next()).collect();
+        (a, r)
+    }
+
+    /// The compressed problem keeps the normal equations, the gradient, the column norms and the
+    /// residual norm of the full one (the identities the module relies on; Golub & Van Loan 2013, §5.3).
+    #[test]
+    fn compression_keeps_normal_equations_gradient_and_norm() {
+        for (m, n) in [(142, 10), (9, 4), (5, 4), (60, 1)] {
+            let (a, r) = case(m, n);
+            let full_j = DMatrix::from_column_slice(m, n, &a);
+            let full_r = nalgebra::DVector::from_column_slice(&r);
+            let mut a2 = a.clone();
+            let mut j = DMatrix::zeros(n + 1, n);
+            compress(&mut a2, m, n, &r, &mut j);
+            let mut rr = nalgebra::DVector::zeros(n + 1);
+            rr[n] = full_r.norm();
+            let gram = full_j.transpose() * &full_j;
+            let diff = (j.transpose() * &j - &gram).norm();
+            assert!(diff <= 1e-13 * gram.norm(), "JᵀJ {m}×{n}: {diff}");
+            let g = full_j.transpose() * &full_r;
+            let gt = j.transpose() * &rr;
+            assert!((gt - &g).norm() <= 1e-13 * g.norm(), "Jᵀr {m}×{n}");
+            for k in 0..n {
+                let (a, b) = (j.column(k).norm(), full_j.column(k).norm());
+                assert!((a - b).abs() <= 1e-13 * b, "column norm {k}");
+            }
+            // The first n rows are upper triangular.
+            for c in 0..n {
+                for row in c + 1..n {
+                    assert_eq!(j[(row, c)], 0.0);
+                }
+            }
+        }
+    }
+
+    /// Residuals exactly zero: nothing to project out, J̃ = [R; 0].
+    #[test]
+    fn zero_residuals_leave_the_gradient_row_zero() {
+        let (m, n) = (12, 3);
+        let (mut a, _) = case(m, n);
+        let full_j = DMatrix::from_column_slice(m, n, &a);
+        let mut j = DMatrix::zeros(n + 1, n);
+        compress(&mut a, m, n, &vec![0.0; m], &mut j);
+        assert!(j.row(n).iter().all(|g| *g == 0.0));
+        let gram = full_j.transpose() * &full_j;
+        assert!((j.transpose() * &j - &gram).norm() <= 1e-13 * gram.norm());
+    }
+
+    /// A zero column (a parameter with no effect) gives a zero diagonal entry and no NaN; so does a
+    /// column of 1e-170s, whose squares underflow.
+    #[test]
+    fn a_zero_or_vanishing_column_is_kept_finite() {
+        for tiny in [0.0, 1e-170] {
+            let (m, n) = (20, 3);
+            let (mut a, r) = case(m, n);
+            a[m..2 * m].fill(tiny);
+            let full_j = DMatrix::from_column_slice(m, n, &a);
+            let mut j = DMatrix::zeros(n + 1, n);
+            compress(&mut a, m, n, &r, &mut j);
+            assert!(j.iter().all(|x| x.is_finite()), "{tiny}: {j}");
+            assert!(j[(1, 1)].abs() <= 1e-169, "{tiny}");
+            let gram = full_j.transpose() * &full_j;
+            assert!((j.transpose() * &j - &gram).norm() <= 1e-13 * gram.norm());
+        }
+    }
+
+    #[test]
+    fn dot_and_norm_match_plain_sums() {
+        let (a, r) = case(23, 1);
+        let plain: f64 = a.iter().zip(&r).map(|(x, y)| x * y).sum();
+        assert!((dot(&a, &r) - plain).abs() <= 1e-15 * plain.abs().max(1.0));
+        let n2: f64 = r.iter().map(|x| x * x).sum::<f64>().sqrt();
+        assert!((norm(&r) - n2).abs() <= 1e-15 * n2);
+        // Squares of these would underflow to zero or overflow to infinity without the scaling.
+        let tiny = norm(&[1e-200, 1e-200]);
+        assert!(
+            (tiny / (1e-200 * 2f64.sqrt()) - 1.0).abs() < 1e-15,
+            "{tiny}"
+        );
+        let huge = norm(&[3e200, 4e200]);
+        assert!((huge / 5e200 - 1.0).abs() < 1e-15, "{huge}");
+    }
+}
