@@ -66,15 +66,9 @@ pub struct Workspace {
     d: Vec<Complex64>,
 }
 
-/// 1/z without overflow or underflow for any finite non-zero z: z̄/|z|² where |z|² is a normal number
-/// (every impedance from µΩ to far beyond TΩ), Smith's algorithm otherwise.
+/// 1/z without overflow or underflow for any finite non-zero z (Smith's algorithm).
 #[inline]
-pub(crate) fn recip(z: Complex64) -> Complex64 {
-    let n2 = z.re * z.re + z.im * z.im;
-    if n2.is_normal() && n2 < 1e300 {
-        let s = 1.0 / n2;
-        return Complex64::new(z.re * s, -z.im * s);
-    }
+fn recip_smith(z: Complex64) -> Complex64 {
     if z.re.abs() >= z.im.abs() {
         let r = z.im / z.re;
         let den = z.re + z.im * r;
@@ -83,6 +77,26 @@ pub(crate) fn recip(z: Complex64) -> Complex64 {
         let r = z.re / z.im;
         let den = z.re * r + z.im;
         Complex64::new(r / den, -1.0 / den)
+    }
+}
+
+/// Replaces every value of `row` by its reciprocal: z̄/|z|² when every |z|² is a normal number below
+/// 1e300 (impedances from far below µΩ to far beyond TΩ; a loop without branches the compiler can
+/// vectorise), Smith's algorithm for the whole row otherwise.
+fn invert(row: &mut [Complex64]) {
+    let safe = row.iter().fold(true, |ok, z| {
+        let n2 = z.re * z.re + z.im * z.im;
+        ok & (f64::MIN_POSITIVE..1e300).contains(&n2)
+    });
+    if safe {
+        for z in row.iter_mut() {
+            let s = 1.0 / (z.re * z.re + z.im * z.im);
+            *z = Complex64::new(z.re * s, -z.im * s);
+        }
+    } else {
+        for z in row.iter_mut() {
+            *z = recip_smith(*z);
+        }
     }
 }
 
@@ -205,14 +219,12 @@ impl Plan {
                     // Admittances of the children, and the combined impedance in `row`.
                     row.fill(ZERO);
                     for child in children.chunks_exact_mut(nf) {
-                        for (y, r) in child.iter_mut().zip(row.iter_mut()) {
-                            *y = recip(*y);
+                        invert(child);
+                        for (r, y) in row.iter_mut().zip(child.iter()) {
                             *r += *y;
                         }
                     }
-                    for r in row.iter_mut() {
-                        *r = recip(*r);
-                    }
+                    invert(row);
                     if want_d {
                         // ∂Z/∂p = (Z·Yᵢ)²·∂Zᵢ/∂p for p in child i.
                         for (child, &(lo, hi)) in children.chunks_exact_mut(nf).zip(&stack[base..])
@@ -294,4 +306,32 @@ pub fn log_frequencies(fmax: f64, fmin: f64, per_decade: usize) -> Vec<f64> {
 /// ω = 2πf.
 pub fn angular(f: f64) -> f64 {
     2.0 * std::f64::consts::PI * f
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Both ways of inverting agree where both are safe, and rows with values whose |z|² would
+    /// overflow or underflow are still inverted to full precision (1/z checked by z·(1/z) = 1).
+    #[test]
+    fn rows_invert_safely_at_any_magnitude() {
+        let typical: Vec<Complex64> = (0..9)
+            .map(|k| Complex64::new(1.5 * k as f64 - 4.0, 0.3 + k as f64))
+            .collect();
+        let mut fast = typical.clone();
+        invert(&mut fast);
+        for (z, y) in typical.iter().zip(&fast) {
+            assert!((y - recip_smith(*z)).norm() <= 1e-15 * y.norm());
+        }
+        for extreme in [1e170, 1e-170, 1e300, 1e-300] {
+            let row: Vec<Complex64> = typical.iter().map(|z| z * extreme).collect();
+            let mut inv = row.clone();
+            invert(&mut inv);
+            for (z, y) in row.iter().zip(&inv) {
+                let one = z * y;
+                assert!((one - 1.0).norm() < 1e-15, "{extreme}: {z} * {y} = {one}");
+            }
+        }
+    }
 }

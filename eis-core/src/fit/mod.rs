@@ -323,7 +323,10 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
         Weighting::Modulus => spectrum
             .z
             .iter()
-            .map(|z| (1.0 / z.norm(), 1.0 / z.norm()))
+            .map(|z| {
+                let w = 1.0 / z.norm();
+                (w, w)
+            })
             .unzip(),
         Weighting::Proportional => spectrum
             .z

@@ -284,21 +284,22 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
         }
         let mut scratch = self.scratch_j.borrow_mut();
         scratch.resize(2 * n * nf, 0.0);
-        let mut finite = true;
         for (c, (&k, t)) in self.free.iter().zip(self.transforms).enumerate() {
             let dp = t.derivative(self.x[c]);
             let d = &self.jac[k * n..(k + 1) * n];
             let (re, im) = scratch[2 * n * c..2 * n * (c + 1)].split_at_mut(n);
             for i in 0..n {
-                re[i] = self.w_re[i] * d[i].re * dp;
-                im[i] = self.w_im[i] * d[i].im * dp;
-                finite &= re[i].is_finite() && im[i].is_finite();
+                re[i] = self.w_re[i] * dp * d[i].re;
+                im[i] = self.w_im[i] * dp * d[i].im;
             }
         }
-        if finite {
-            super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, &mut out);
+        super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, &mut out);
+        // A non-finite derivative spreads through the factorisation (checking the small result is
+        // cheaper than checking the Jacobian); it gives no slope, so the solver stops rather than step
+        // on garbage.
+        if !out.iter().all(|v| v.is_finite()) {
+            out.fill(0.0);
         }
-        // A non-finite derivative gives no slope: the solver stops rather than step on garbage.
         Some(out)
     }
 }

@@ -107,7 +107,7 @@ pub fn covariance(j: &DMatrix<f64>, chi_square: f64, dof: usize) -> Covariance {
     for (k, sc) in scale.iter().enumerate() {
         a.column_mut(k).scale_mut(1.0 / sc);
     }
-    let ata = a.transpose() * &a;
+    let ata = a.tr_mul(&a);
     let eig = ata.symmetric_eigen();
     let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
     let mut undetermined = vec![false; nf];
