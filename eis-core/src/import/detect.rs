@@ -210,9 +210,25 @@ fn numeric_fields(fields: &[String], decimal_comma: bool) -> usize {
 pub(crate) fn detect(sample: &[String]) -> Option<Layout> {
     let mut best: Option<(usize, usize, usize, Delimiter, bool)> = None; // (score, numbers, pref, d, comma)
     let mut fields = Vec::new();
+    // A candidate whose separator appears in no line splits nothing and cannot win, and without a
+    // comma anywhere the decimal-comma reading scores like the point reading and loses the tie: both
+    // are skipped without changing the result.
+    let data = || sample.iter().filter(|l| !is_comment(l));
+    let has = |chars: &[char]| data().any(|l| l.contains(chars));
+    let (tab, semicolon, comma_seen, blank) =
+        (has(&['\t']), has(&[';']), has(&[',']), has(&[' ', '\t']));
     for (pref, d) in Delimiter::ALL.into_iter().enumerate() {
+        let present = match d {
+            Delimiter::Tab => tab,
+            Delimiter::Semicolon => semicolon,
+            Delimiter::Comma => comma_seen,
+            Delimiter::Whitespace => blank,
+        };
+        if !present {
+            continue;
+        }
         for comma in [false, true] {
-            if comma && d == Delimiter::Comma {
+            if comma && (d == Delimiter::Comma || !comma_seen) {
                 continue;
             }
             // Data lines: three or more numeric fields; score by the most common field count.
