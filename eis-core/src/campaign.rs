@@ -3,8 +3,8 @@
 //!
 //! # How a run goes
 //!
-//! 1. **Index.** Every input is read once with the streaming reader; only file, spectrum number, point
-//!    count and metadata are kept (memory does not grow with the spectra).
+//! 1. **Index.** Every input is read once with the streaming reader; only the file, the spectrum
+//!    number and the few fields that order the series (cell, SOC, cycle, time) are kept.
 //! 2. **Series.** Spectra are grouped by cell (the `cell` field, else the file stem) and SOC level (the
 //!    `soc` field, when present), and each group is ordered by cycle, then time, then file and spectrum
 //!    number. A group is cut into chunks of [`BatchSettings::chunk`] spectra.
@@ -20,6 +20,15 @@
 //! An interrupted run leaves its journal; a run with `resume` skips every spectrum found in the
 //! journal or in an existing `results.jsonl` and continues the warm-start chains from their results, so
 //! that the final files equal those of an uninterrupted run. Input files are only ever read.
+//!
+//! # Memory
+//!
+//! Memory does not grow with the size of the results. Finished results live only in the journal (or a
+//! previous `results.jsonl`); the run keeps, per spectrum, its key (file, spectrum number) and where its
+//! line lies in that file. The finish reads the lines back one at a time in sorted order and streams
+//! both output files. A worker holds the spectra of the chunk it is working on at most, each dropped
+//! once fitted. What remains proportional to the number of spectra is a few hundred bytes each: keys,
+//! line positions, series order and each input file's name.
 
 use crate::circuit::Circuit;
 use crate::derive::derive;
@@ -31,10 +40,11 @@ use crate::spectrum::{MetaValue, Spectrum};
 use crate::validate::{KkOptions, kramers_kronig};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
-use std::collections::{BTreeMap, HashMap, HashSet};
-use std::io::{BufRead, BufReader, Write};
+use std::collections::{BTreeMap, BTreeSet, HashMap, HashSet};
+use std::fs::File;
+use std::io::{self, BufRead, BufReader, BufWriter, Read, Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
-use std::sync::Mutex;
+use std::sync::{Arc, Mutex};
 
 /// Settings of a batch.
 #[derive(Debug, Clone)]
@@ -125,21 +135,6 @@ pub struct SpectrumResult {
     pub fit: Option<FitDocument>,
 }
 
-impl SpectrumResult {
-    fn key(&self) -> (String, usize) {
-        (self.file.clone(), self.spectrum)
-    }
-}
-
-/// One indexed spectrum.
-#[derive(Debug, Clone)]
-struct Entry {
-    file: PathBuf,
-    spectrum: usize,
-    metadata: BTreeMap<String, MetaValue>,
-    error: Option<String>,
-}
-
 /// What a run did.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Summary {
@@ -160,45 +155,121 @@ pub struct Summary {
 /// The journal of finished spectra inside the output folder.
 pub const JOURNAL: &str = ".results.journal.jsonl";
 
+/// Names stored once each (file names, cell names) and referred to by number.
+#[derive(Debug, Default)]
+struct Names {
+    list: Vec<Arc<str>>,
+    ids: HashMap<Arc<str>, u32>,
+}
+
+impl Names {
+    /// The number of `name`, adding it when new.
+    fn id(&mut self, name: &str) -> u32 {
+        if let Some(&i) = self.ids.get(name) {
+            return i;
+        }
+        let i = u32::try_from(self.list.len()).expect("fewer than 2^32 names");
+        let name: Arc<str> = Arc::from(name);
+        self.list.push(name.clone());
+        self.ids.insert(name, i);
+        i
+    }
+
+    fn get(&self, id: u32) -> &str {
+        &self.list[id as usize]
+    }
+}
+
+/// A spectrum's key: file (a number in [`Names`]) and spectrum number in the file.
+type Key = (u32, usize);
+
+/// Where a series entry sits: its group (cell, SOC level) and its place in the group.
+#[derive(Debug, Clone, Copy)]
+struct Series {
+    cell: u32,
+    soc: Option<i64>,
+    cycle: f64,
+    time: f64,
+}
+
+/// One indexed spectrum.
+#[derive(Debug, Clone)]
+struct Entry {
+    /// Index into the inputs.
+    input: usize,
+    /// The file's name (as written in the results), a number in [`Names`].
+    file: u32,
+    spectrum: usize,
+    /// Where it goes in the series; None for spectra that could not be read.
+    series: Option<Series>,
+    error: Option<String>,
+}
+
+impl Entry {
+    fn key(&self) -> Key {
+        (self.file, self.spectrum)
+    }
+}
+
+/// The value of metadata field `name`; the last one wins, as when the fields are collected into a map.
+fn meta_field<'a>(fields: &'a [(String, MetaValue)], name: &str) -> Option<&'a MetaValue> {
+    fields.iter().rev().find(|(n, _)| n == name).map(|(_, v)| v)
+}
+
 /// Builds the index of every spectrum in `inputs`. Unreadable files and bad spectra become entries
 /// with their error, so that they are reported and the rest carries on.
-fn index(inputs: &[PathBuf], reader: &ReaderOptions) -> Vec<Entry> {
+fn index(
+    inputs: &[PathBuf],
+    reader: &ReaderOptions,
+    files: &mut Names,
+    cells: &mut Names,
+) -> Vec<Entry> {
     let mut out = Vec::new();
-    for path in inputs {
+    for (input, path) in inputs.iter().enumerate() {
         let name = path.display().to_string();
+        let file = files.id(&name);
+        let failed = |spectrum: usize, error: String| Entry {
+            input,
+            file,
+            spectrum,
+            series: None,
+            error: Some(error),
+        };
         match SpectrumReader::open(path, reader.clone()) {
-            Err(e) => out.push(Entry {
-                file: path.clone(),
-                spectrum: 1,
-                metadata: BTreeMap::new(),
-                error: Some(e.to_string()),
-            }),
+            Err(e) => out.push(failed(1, e.to_string())),
             Ok(r) => {
                 let mut n = 0;
                 for item in r {
                     n += 1;
                     match item {
-                        Ok(imp) => out.push(Entry {
-                            file: path.clone(),
-                            spectrum: imp.spectrum.meta.spectrum,
-                            metadata: imp.spectrum.meta.fields.into_iter().collect(),
-                            error: None,
-                        }),
-                        Err(e) => out.push(Entry {
-                            file: path.clone(),
-                            spectrum: e.spectrum.unwrap_or(n),
-                            metadata: BTreeMap::new(),
-                            error: Some(e.to_string()),
-                        }),
+                        Ok(imp) => {
+                            let fields = &imp.spectrum.meta.fields;
+                            let num = |k: &str| meta_field(fields, k).and_then(MetaValue::as_f64);
+                            let cell = match meta_field(fields, "cell") {
+                                Some(v) => cells.id(&v.to_string()),
+                                None => cells.id(&path
+                                    .file_stem()
+                                    .map(|s| s.to_string_lossy())
+                                    .unwrap_or_default()),
+                            };
+                            out.push(Entry {
+                                input,
+                                file,
+                                spectrum: imp.spectrum.meta.spectrum,
+                                series: Some(Series {
+                                    cell,
+                                    soc: num("soc").map(|s| (s * 1e6).round() as i64),
+                                    cycle: num("cycle").unwrap_or(f64::NEG_INFINITY),
+                                    time: num("time").unwrap_or(f64::NEG_INFINITY),
+                                }),
+                                error: None,
+                            });
+                        }
+                        Err(e) => out.push(failed(e.spectrum.unwrap_or(n), e.to_string())),
                     }
                 }
                 if n == 0 {
-                    out.push(Entry {
-                        file: path.clone(),
-                        spectrum: 1,
-                        metadata: BTreeMap::new(),
-                        error: Some(format!("{name}: no spectrum found")),
-                    });
+                    out.push(failed(1, format!("{name}: no spectrum found")));
                 }
             }
         }
@@ -206,41 +277,27 @@ fn index(inputs: &[PathBuf], reader: &ReaderOptions) -> Vec<Entry> {
     out
 }
 
-fn field(m: &BTreeMap<String, MetaValue>, name: &str) -> Option<f64> {
-    m.get(name).and_then(MetaValue::as_f64)
-}
-
-/// The series key of an entry: cell, and SOC level when present.
-fn series_key(e: &Entry) -> (String, Option<i64>) {
-    let cell = match e.metadata.get("cell") {
-        Some(v) => v.to_string(),
-        None => e
-            .file
-            .file_stem()
-            .map(|s| s.to_string_lossy().into_owned())
-            .unwrap_or_default(),
-    };
-    let soc = field(&e.metadata, "soc").map(|s| (s * 1e6).round() as i64);
-    (cell, soc)
-}
-
 /// Groups and orders entries into warm-start chains (indices into `entries`), cut into chunks.
-fn chains(entries: &[Entry], chunk: usize) -> Vec<Vec<usize>> {
-    let mut groups: BTreeMap<(String, Option<i64>), Vec<usize>> = BTreeMap::new();
+fn chains(entries: &[Entry], inputs: &[PathBuf], cells: &Names, chunk: usize) -> Vec<Vec<usize>> {
+    let mut groups: BTreeMap<(&str, Option<i64>), Vec<usize>> = BTreeMap::new();
     for (i, e) in entries.iter().enumerate() {
-        if e.error.is_none() {
-            groups.entry(series_key(e)).or_default().push(i);
+        if let (None, Some(s)) = (&e.error, &e.series) {
+            groups
+                .entry((cells.get(s.cell), s.soc))
+                .or_default()
+                .push(i);
         }
     }
     let mut out = Vec::new();
     for (_, mut idx) in groups {
         idx.sort_by(|&a, &b| {
             let (ea, eb) = (&entries[a], &entries[b]);
-            let num = |e: &Entry, k: &str| field(&e.metadata, k).unwrap_or(f64::NEG_INFINITY);
-            num(ea, "cycle")
-                .total_cmp(&num(eb, "cycle"))
-                .then(num(ea, "time").total_cmp(&num(eb, "time")))
-                .then(ea.file.cmp(&eb.file))
+            let (sa, sb) = (ea.series.as_ref(), eb.series.as_ref());
+            let num = |s: Option<&Series>, f: fn(&Series) -> f64| s.map_or(f64::NEG_INFINITY, f);
+            num(sa, |s| s.cycle)
+                .total_cmp(&num(sb, |s| s.cycle))
+                .then(num(sa, |s| s.time).total_cmp(&num(sb, |s| s.time)))
+                .then(inputs[ea.input].cmp(&inputs[eb.input]))
                 .then(ea.spectrum.cmp(&eb.spectrum))
         });
         for c in idx.chunks(chunk.max(1)) {
@@ -250,43 +307,75 @@ fn chains(entries: &[Entry], chunk: usize) -> Vec<Vec<usize>> {
     out
 }
 
-/// Reads one spectrum again (the last file read is cached per worker).
-struct FileCache {
-    path: Option<PathBuf>,
-    spectra: HashMap<usize, Spectrum>,
+/// The spectra one chain still needs. Reading a file keeps only those of its spectra the chain has yet
+/// to fit, and each is dropped once handed out, so a worker never holds more than one chain's spectra
+/// and never reads a file twice for one chain.
+struct ChainCache {
+    /// (input, spectrum) → how many more times it is wanted.
+    needed: HashMap<(usize, usize), usize>,
+    spectra: HashMap<(usize, usize), Spectrum>,
 }
 
-impl FileCache {
-    fn get(&mut self, path: &Path, n: usize, reader: &ReaderOptions) -> Result<Spectrum, String> {
-        if self.path.as_deref() != Some(path) {
-            self.spectra.clear();
+impl ChainCache {
+    fn new(wanted: impl IntoIterator<Item = (usize, usize)>) -> ChainCache {
+        let mut needed = HashMap::new();
+        for k in wanted {
+            *needed.entry(k).or_insert(0) += 1;
+        }
+        ChainCache {
+            needed,
+            spectra: HashMap::new(),
+        }
+    }
+
+    /// Spectrum `n` of input `input` (at `path`), read again.
+    fn take(
+        &mut self,
+        path: &Path,
+        input: usize,
+        n: usize,
+        reader: &ReaderOptions,
+    ) -> Result<Spectrum, String> {
+        let key = (input, n);
+        if !self.spectra.contains_key(&key) {
             let r = SpectrumReader::open(path, reader.clone()).map_err(|e| e.to_string())?;
             for imp in r.flatten() {
-                self.spectra
-                    .insert(imp.spectrum.meta.spectrum, imp.spectrum);
+                let k = (input, imp.spectrum.meta.spectrum);
+                if k == key || self.needed.contains_key(&k) {
+                    self.spectra.insert(k, imp.spectrum);
+                }
             }
-            self.path = Some(path.to_path_buf());
         }
-        self.spectra
-            .get(&n)
-            .cloned()
-            .ok_or_else(|| format!("{}: spectrum {n} could not be read again", path.display()))
+        let left = match self.needed.get_mut(&key) {
+            Some(c) => {
+                *c = c.saturating_sub(1);
+                *c
+            }
+            None => 0,
+        };
+        let s = if left == 0 {
+            self.needed.remove(&key);
+            self.spectra.remove(&key)
+        } else {
+            self.spectra.get(&key).cloned()
+        };
+        s.ok_or_else(|| format!("{}: spectrum {n} could not be read again", path.display()))
     }
 }
 
 /// Checks and fits one spectrum.
 fn process(
     circuit: &Circuit,
-    entry: &Entry,
+    file: &str,
+    n: usize,
     spectrum: &Spectrum,
     settings: &BatchSettings,
     warm: Option<&(Vec<f64>, f64)>,
 ) -> SpectrumResult {
-    let file = entry.file.display().to_string();
     let mut result = SpectrumResult {
-        file: file.clone(),
-        spectrum: entry.spectrum,
-        metadata: entry.metadata.clone(),
+        file: file.to_owned(),
+        spectrum: n,
+        metadata: spectrum.meta.fields.iter().cloned().collect(),
         status: Status::Ok,
         message: String::new(),
         warm_started: false,
@@ -343,8 +432,8 @@ fn process(
             }
             let d = derive(circuit, &r);
             let mut doc = document(circuit, &r, &d, None);
-            doc.file = Some(file);
-            doc.spectrum = Some(entry.spectrum);
+            doc.file = Some(file.to_owned());
+            doc.spectrum = Some(n);
             result.fit = Some(doc);
         }
     }
@@ -355,53 +444,258 @@ fn process(
     result
 }
 
-fn failed_entry(e: &Entry) -> SpectrumResult {
+/// The result of a spectrum that could not be read.
+fn failed(file: &str, spectrum: usize, message: String) -> SpectrumResult {
     SpectrumResult {
-        file: e.file.display().to_string(),
-        spectrum: e.spectrum,
-        metadata: e.metadata.clone(),
+        file: file.to_owned(),
+        spectrum,
+        metadata: BTreeMap::new(),
         status: Status::Failed,
-        message: e.error.clone().unwrap_or_default(),
+        message,
         warm_started: false,
         kk: None,
         fit: None,
     }
 }
 
-/// Reads finished results from a JSON-lines file; a truncated last line (an interrupted write) is
-/// ignored.
-fn read_jsonl(path: &Path) -> Vec<SpectrumResult> {
-    let Ok(f) = std::fs::File::open(path) else {
-        return Vec::new();
+/// The two files finished results are read from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Source {
+    /// A previous `results.jsonl`.
+    Results = 0,
+    /// The journal.
+    Journal = 1,
+}
+
+/// Where one finished result's line lies, and the little the finish needs to know about it before
+/// reading it back.
+#[derive(Debug, Clone, Copy)]
+struct Loc {
+    source: Source,
+    offset: u64,
+    len: u64,
+    /// Its set of metadata field names, a number in [`MetaSets`].
+    meta: u32,
+    has_fit: bool,
+}
+
+/// The distinct sets of metadata field names among the results (usually one), each stored once.
+#[derive(Debug, Default)]
+struct MetaSets {
+    list: Vec<Vec<String>>,
+    ids: HashMap<Vec<String>, u32>,
+}
+
+impl MetaSets {
+    fn id(&mut self, metadata: &BTreeMap<String, MetaValue>) -> u32 {
+        let names: Vec<String> = metadata.keys().cloned().collect();
+        if let Some(&i) = self.ids.get(&names) {
+            return i;
+        }
+        let i = u32::try_from(self.list.len()).expect("fewer than 2^32 metadata sets");
+        self.list.push(names.clone());
+        self.ids.insert(names, i);
+        i
+    }
+}
+
+/// Calls `f(result, offset, length)` for every line of a JSON-lines file of results, the length
+/// without the line end. Lines that are not a result (a truncated last line from an interrupted write,
+/// say) are skipped; a missing file has no lines.
+fn scan_jsonl(path: &Path, mut f: impl FnMut(SpectrumResult, u64, u64)) {
+    let Ok(file) = File::open(path) else {
+        return;
     };
-    BufReader::new(f)
-        .lines()
-        .map_while(Result::ok)
-        .filter_map(|l| serde_json::from_str(&l).ok())
-        .collect()
+    let mut r = BufReader::with_capacity(1 << 16, file);
+    let mut line = Vec::new();
+    let mut offset = 0u64;
+    loop {
+        line.clear();
+        let n = match r.read_until(b'\n', &mut line) {
+            Ok(0) | Err(_) => break,
+            Ok(n) => n,
+        };
+        let start = offset;
+        offset += n as u64;
+        if line.last() == Some(&b'\n') {
+            line.pop();
+        }
+        if let Ok(result) = serde_json::from_slice(&line) {
+            f(result, start, line.len() as u64);
+        }
+    }
+}
+
+/// Reads finished results back from their lines, one at a time.
+struct Store {
+    paths: [PathBuf; 2],
+    files: [Option<File>; 2],
+    buf: Vec<u8>,
+}
+
+impl Store {
+    fn new(results: &Path, journal: &Path) -> Store {
+        Store {
+            paths: [results.to_path_buf(), journal.to_path_buf()],
+            files: [None, None],
+            buf: Vec::new(),
+        }
+    }
+
+    /// The result at `loc`; an [`io::ErrorKind::InvalidData`] error when the line is not a result.
+    fn load(&mut self, loc: &Loc) -> io::Result<SpectrumResult> {
+        let i = loc.source as usize;
+        let mut f = match self.files[i].take() {
+            Some(f) => f,
+            None => File::open(&self.paths[i])?,
+        };
+        let len = usize::try_from(loc.len).map_err(io::Error::other)?;
+        self.buf.resize(len, 0);
+        let read = f
+            .seek(SeekFrom::Start(loc.offset))
+            .and_then(|_| f.read_exact(&mut self.buf));
+        self.files[i] = Some(f);
+        read?;
+        serde_json::from_slice(&self.buf).map_err(|e| io::Error::new(io::ErrorKind::InvalidData, e))
+    }
+
+    /// The warm start (values, reduced χ²) a stored result offers its successor.
+    fn warm_start(&mut self, loc: &Loc, circuit: &Circuit) -> Option<(Vec<f64>, f64)> {
+        self.load(loc)
+            .ok()?
+            .fit
+            .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square))
+    }
+}
+
+/// The journal being written: the file, its length, and where each new result went.
+struct Journal {
+    file: File,
+    len: u64,
+    added: Vec<(Key, Loc)>,
+    meta_sets: MetaSets,
+    error: Option<io::Error>,
+}
+
+impl Journal {
+    /// Opens the journal for appending; a last line cut short by an interrupted write is closed with a
+    /// line end, so that it stays a line of its own (and is skipped) instead of spoiling the next one.
+    fn open(path: &Path, meta_sets: MetaSets) -> io::Result<Journal> {
+        let mut file = std::fs::OpenOptions::new()
+            .create(true)
+            .append(true)
+            .open(path)?;
+        let mut len = file.metadata()?.len();
+        if len > 0 {
+            let mut last = [0u8];
+            let mut r = File::open(path)?;
+            r.seek(SeekFrom::Start(len - 1))?;
+            r.read_exact(&mut last)?;
+            if last[0] != b'\n' {
+                file.write_all(b"\n")?;
+                len += 1;
+            }
+        }
+        Ok(Journal {
+            file,
+            len,
+            added: Vec::new(),
+            meta_sets,
+            error: None,
+        })
+    }
+
+    /// Appends one result.
+    fn record(&mut self, key: Key, r: &SpectrumResult) {
+        let Ok(mut line) = serde_json::to_string(r) else {
+            return;
+        };
+        line.push('\n');
+        let offset = self.len;
+        match self.file.write_all(line.as_bytes()) {
+            Ok(()) => {
+                self.len += line.len() as u64;
+                let loc = Loc {
+                    source: Source::Journal,
+                    offset,
+                    len: line.len() as u64 - 1,
+                    meta: self.meta_sets.id(&r.metadata),
+                    has_fit: r.fit.is_some(),
+                };
+                self.added.push((key, loc));
+            }
+            Err(e) => {
+                // Cut off whatever part was written, so later lines stay where they are counted.
+                let _ = self.file.set_len(offset);
+                self.error.get_or_insert(e);
+            }
+        }
+    }
+}
+
+/// A file written through a temporary file in the same folder and renamed over the target on
+/// [`AtomicFile::commit`]; dropped without a commit, it leaves the target alone.
+struct AtomicFile {
+    path: PathBuf,
+    tmp: PathBuf,
+    out: Option<BufWriter<File>>,
+}
+
+impl AtomicFile {
+    fn create(path: &Path) -> io::Result<AtomicFile> {
+        let dir = path
+            .parent()
+            .filter(|d| !d.as_os_str().is_empty())
+            .unwrap_or(Path::new("."));
+        let name = path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "out".into());
+        let tmp = dir.join(format!(".{name}.tmp{}", std::process::id()));
+        let file = File::create(&tmp)?;
+        Ok(AtomicFile {
+            path: path.to_path_buf(),
+            tmp,
+            out: Some(BufWriter::with_capacity(1 << 16, file)),
+        })
+    }
+
+    fn write(&mut self, bytes: &[u8]) -> io::Result<()> {
+        match &mut self.out {
+            Some(w) => w.write_all(bytes),
+            None => Err(io::Error::other("already committed")),
+        }
+    }
+
+    fn commit(mut self) -> io::Result<()> {
+        let Some(w) = self.out.take() else {
+            return Err(io::Error::other("already committed"));
+        };
+        let r = w
+            .into_inner()
+            .map_err(io::IntoInnerError::into_error)
+            .and_then(|f| f.sync_all())
+            .and_then(|()| std::fs::rename(&self.tmp, &self.path));
+        if r.is_err() {
+            let _ = std::fs::remove_file(&self.tmp);
+        }
+        r
+    }
+}
+
+impl Drop for AtomicFile {
+    fn drop(&mut self) {
+        if self.out.take().is_some() {
+            let _ = std::fs::remove_file(&self.tmp);
+        }
+    }
 }
 
 /// Writes `bytes` to `path` through a temporary file in the same folder and a rename.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
-    let dir = path
-        .parent()
-        .filter(|d| !d.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "out".into());
-    let tmp = dir.join(format!(".{name}.tmp{}", std::process::id()));
-    let r = (|| {
-        let mut f = std::fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    if r.is_err() {
-        let _ = std::fs::remove_file(&tmp);
-    }
-    r
+    let mut f = AtomicFile::create(path)?;
+    f.write(bytes)?;
+    f.commit()
 }
 
 /// Why a batch could not run at all.
@@ -426,8 +720,9 @@ pub enum BatchError {
 ///
 /// # Errors
 ///
-/// [`BatchError`] when the output folder cannot be used; problems with single spectra are results
-/// (status failed), not errors.
+/// [`BatchError`] when the output folder cannot be used (including a journal that cannot be
+/// written, in which case the journal is left for a later `resume`); problems with single spectra are
+/// results (status failed), not errors.
 pub fn run_batch(
     inputs: &[PathBuf],
     circuit: &Circuit,
@@ -454,40 +749,43 @@ pub fn run_batch(
         }
     }
     let journal_path = out.join(JOURNAL);
-    let entries = index(inputs, &settings.reader);
+    let mut files = Names::default();
+    let mut cells = Names::default();
+    let entries = index(inputs, &settings.reader, &mut files, &mut cells);
     let total = entries.len();
 
-    // What is already done.
-    let mut done: HashMap<(String, usize), SpectrumResult> = HashMap::new();
+    // What is already done: where each result's line is (a later line for the same key wins).
+    let mut done: HashMap<Key, Loc> = HashMap::new();
+    let mut meta_sets = MetaSets::default();
     if resume {
-        for r in read_jsonl(&results_jsonl)
-            .into_iter()
-            .chain(read_jsonl(&journal_path))
-        {
-            done.insert(r.key(), r);
+        for (path, source) in [
+            (&results_jsonl, Source::Results),
+            (&journal_path, Source::Journal),
+        ] {
+            scan_jsonl(path, |r, offset, len| {
+                let loc = Loc {
+                    source,
+                    offset,
+                    len,
+                    meta: meta_sets.id(&r.metadata),
+                    has_fit: r.fit.is_some(),
+                };
+                done.insert((files.id(&r.file), r.spectrum), loc);
+            });
         }
     } else {
         let _ = std::fs::remove_file(&journal_path);
     }
+    let files = files;
     let skipped = entries
         .iter()
-        .filter(|e| done.contains_key(&(e.file.display().to_string(), e.spectrum)))
+        .filter(|e| done.contains_key(&e.key()))
         .count();
 
-    let journal = Mutex::new(
-        std::fs::OpenOptions::new()
-            .create(true)
-            .append(true)
-            .open(&journal_path)
-            .map_err(io_err(&journal_path))?,
-    );
-    let record = |r: &SpectrumResult| {
-        if let Ok(mut line) = serde_json::to_string(r) {
-            line.push('\n');
-            let mut j = journal.lock().expect("journal lock");
-            let _ = j.write_all(line.as_bytes());
-            let _ = j.flush();
-        }
+    let journal =
+        Mutex::new(Journal::open(&journal_path, meta_sets).map_err(io_err(&journal_path))?);
+    let record = |key: Key, r: &SpectrumResult| {
+        journal.lock().expect("journal lock").record(key, r);
     };
     let counter = std::sync::atomic::AtomicUsize::new(skipped);
     let tick = || {
@@ -496,91 +794,93 @@ pub fn run_batch(
     };
 
     for e in entries.iter().filter(|e| e.error.is_some()) {
-        if !done.contains_key(&(e.file.display().to_string(), e.spectrum)) {
-            record(&failed_entry(e));
+        if !done.contains_key(&e.key()) {
+            let r = failed(
+                files.get(e.file),
+                e.spectrum,
+                e.error.clone().unwrap_or_default(),
+            );
+            record(e.key(), &r);
             tick();
         }
     }
-    let work = chains(&entries, settings.chunk);
+    let work = chains(&entries, inputs, &cells, settings.chunk);
+    drop(cells);
+    // Fits one spectrum of a chain (or records why it could not be read again).
+    let fit_one = |e: &Entry, cache: &mut ChainCache, warm: Option<&(Vec<f64>, f64)>| {
+        let file = files.get(e.file);
+        let result = match cache.take(&inputs[e.input], e.input, e.spectrum, &settings.reader) {
+            Err(msg) => failed(file, e.spectrum, msg),
+            Ok(s) => process(circuit, file, e.spectrum, &s, settings, warm),
+        };
+        record(e.key(), &result);
+        tick();
+        result
+    };
     // A template for the first spectrum of every chain: the first spectrum of the first chain, fitted
     // from automatic starts. Chains start warm from it (and fall back to automatic starts when that is
     // worse), so a campaign of many short series does not pay a cold fit per series.
-    let template: Option<(Vec<f64>, f64)> = match work.first().and_then(|c| c.first()) {
-        Some(&i) if settings.warm_start => {
-            let e = &entries[i];
-            let key = (e.file.display().to_string(), e.spectrum);
-            let result = match done.get(&key) {
-                Some(r) => Some(r.clone()),
-                None => {
-                    let mut cache = FileCache {
-                        path: None,
-                        spectra: HashMap::new(),
-                    };
-                    cache
-                        .get(&e.file, e.spectrum, &settings.reader)
-                        .ok()
-                        .map(|s| {
-                            let r = process(circuit, e, &s, settings, None);
-                            record(&r);
-                            tick();
-                            r
-                        })
-                }
-            };
-            result.and_then(|r| {
+    let first = work
+        .first()
+        .and_then(|c| c.first())
+        .copied()
+        .filter(|_| settings.warm_start);
+    let template_key = first.map(|i| entries[i].key());
+    let template: Option<(Vec<f64>, f64)> = first.and_then(|i| {
+        let e = &entries[i];
+        match done.get(&e.key()) {
+            Some(loc) => Store::new(&results_jsonl, &journal_path)
+                .load(loc)
+                .ok()
+                .filter(|r| r.status == Status::Ok)
+                .and_then(|r| r.fit)
+                .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square)),
+            None => {
+                let mut cache = ChainCache::new([(e.input, e.spectrum)]);
+                let r = fit_one(e, &mut cache, None);
                 r.fit
                     .filter(|_| r.status == Status::Ok)
                     .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square))
-            })
+            }
         }
-        _ => None,
-    };
-    let template_key = work
-        .first()
-        .and_then(|c| c.first())
-        .filter(|_| settings.warm_start)
-        .map(|&i| (entries[i].file.display().to_string(), entries[i].spectrum));
+    });
     work.par_iter().for_each(|chain| {
-        let mut cache = FileCache {
-            path: None,
-            spectra: HashMap::new(),
+        let mut store = Store::new(&results_jsonl, &journal_path);
+        let todo = |i: &&usize| {
+            let k = entries[**i].key();
+            !done.contains_key(&k) && Some(k) != template_key
         };
+        let mut cache = ChainCache::new(
+            chain
+                .iter()
+                .filter(todo)
+                .map(|&i| (entries[i].input, entries[i].spectrum)),
+        );
         let mut previous: Option<(Vec<f64>, f64)> = template.clone();
         // Reduced χ² of the chain so far: their median is the reference a warm start is judged by
         // (single values scatter by ±30 % with the noise, so the last one alone is a poor yardstick).
         let mut history: Vec<f64> = template.iter().map(|t| t.1).collect();
         for &i in chain {
             let e = &entries[i];
-            let key = (e.file.display().to_string(), e.spectrum);
-            if Some(&key) == template_key.as_ref() && !done.contains_key(&key) {
+            let key = e.key();
+            if Some(key) == template_key && !done.contains_key(&key) {
                 // Fitted above as the template.
                 previous = template.clone();
                 continue;
             }
-            if let Some(r) = done.get(&key) {
+            if let Some(loc) = done.get(&key) {
                 // Continue the chain from the stored result.
-                previous = r
-                    .fit
-                    .as_ref()
-                    .map(|d| (d.warm_start_for(circuit).0, d.statistics.reduced_chi_square));
+                previous = store.warm_start(loc, circuit);
                 if let Some(p) = &previous {
                     history.push(p.1);
                 }
                 continue;
             }
-            let result = match cache.get(&e.file, e.spectrum, &settings.reader) {
-                Err(msg) => SpectrumResult {
-                    message: msg,
-                    ..failed_entry(e)
-                },
-                Ok(s) => {
-                    let warm = previous
-                        .as_ref()
-                        .filter(|_| settings.warm_start)
-                        .map(|(v, chi)| (v.clone(), median(&history).unwrap_or(*chi)));
-                    process(circuit, e, &s, settings, warm.as_ref())
-                }
-            };
+            let warm = previous
+                .as_ref()
+                .filter(|_| settings.warm_start)
+                .map(|(v, chi)| (v.clone(), median(&history).unwrap_or(*chi)));
+            let result = fit_one(e, &mut cache, warm.as_ref());
             previous = match &result.fit {
                 Some(d) if result.status != Status::Failed => {
                     Some((d.warm_start_for(circuit).0, d.statistics.reduced_chi_square))
@@ -590,40 +890,78 @@ pub fn run_batch(
             if let Some(p) = &previous {
                 history.push(p.1);
             }
-            record(&result);
-            tick();
         }
     });
-    drop(journal);
-
-    // Finish: every result, sorted, written atomically.
-    let mut all: HashMap<(String, usize), SpectrumResult> = done;
-    for r in read_jsonl(&journal_path) {
-        all.insert(r.key(), r);
+    drop(entries);
+    let journal = journal.into_inner().expect("journal lock");
+    if let Some(e) = journal.error {
+        return Err(io_err(&journal_path)(e));
     }
-    let mut results: Vec<SpectrumResult> = all.into_values().collect();
-    results.sort_by(|a, b| a.file.cmp(&b.file).then(a.spectrum.cmp(&b.spectrum)));
-    let mut jsonl = String::new();
-    for r in &results {
-        if let Ok(l) = serde_json::to_string(r) {
-            jsonl.push_str(&l);
-            jsonl.push('\n');
+    drop(journal.file);
+
+    // Finish: every result, sorted, streamed into temporary files renamed over the targets.
+    let mut all = done;
+    all.extend(journal.added);
+    let mut order: Vec<(Key, Loc)> = all.into_iter().collect();
+    order.sort_unstable_by(|a, b| {
+        files
+            .get(a.0.0)
+            .cmp(files.get(b.0.0))
+            .then(a.0.1.cmp(&b.0.1))
+    });
+    let meta_sets = journal.meta_sets;
+    let used: BTreeSet<u32> = order.iter().map(|(_, l)| l.meta).collect();
+    let meta = used
+        .iter()
+        .flat_map(|&i| meta_sets.list[i as usize].iter().cloned());
+    // The result at `loc`, read back; a line that is not a result (it cannot happen for lines this
+    // code wrote) is left out, as when it was first read.
+    let mut store = Store::new(&results_jsonl, &journal_path);
+    let mut load = |loc: &Loc| match store.load(loc) {
+        Ok(r) => Ok(Some(r)),
+        Err(e) if e.kind() == io::ErrorKind::InvalidData => Ok(None),
+        Err(e) => Err(io_err(&store.paths[loc.source as usize])(e)),
+    };
+    let mut arcs = Vec::new();
+    for (_, loc) in order.iter().filter(|(_, l)| l.has_fit) {
+        if let Some(d) = load(loc)?.and_then(|r| r.fit) {
+            arcs = d.derived.arcs.into_iter().map(|a| a.resistor).collect();
+            break;
         }
     }
-    let (csv, columns) = results_table(circuit, &results);
-    write_atomic(&results_jsonl, jsonl.as_bytes()).map_err(io_err(&results_jsonl))?;
-    write_atomic(&results_csv, csv.as_bytes()).map_err(io_err(&results_csv))?;
-    let _ = std::fs::remove_file(&journal_path);
-
-    let count = |s: Status| results.iter().filter(|r| r.status == s).count();
-    Ok(Summary {
-        total: results.len(),
-        ok: count(Status::Ok),
-        suspect: count(Status::Suspect),
-        failed: count(Status::Failed),
+    let table = Table::new(circuit, meta, arcs);
+    let mut jsonl = AtomicFile::create(&results_jsonl).map_err(io_err(&results_jsonl))?;
+    let mut csv = AtomicFile::create(&results_csv).map_err(io_err(&results_csv))?;
+    csv.write(table.header().as_bytes())
+        .map_err(io_err(&results_csv))?;
+    let mut summary = Summary {
         skipped,
-        metadata_columns: columns,
-    })
+        ..Summary::default()
+    };
+    for (_, loc) in &order {
+        let Some(r) = load(loc)? else {
+            continue;
+        };
+        if let Ok(mut l) = serde_json::to_string(&r) {
+            l.push('\n');
+            jsonl.write(l.as_bytes()).map_err(io_err(&results_jsonl))?;
+        }
+        csv.write(table.row(&r).as_bytes())
+            .map_err(io_err(&results_csv))?;
+        summary.total += 1;
+        match r.status {
+            Status::Ok => summary.ok += 1,
+            Status::Suspect => summary.suspect += 1,
+            Status::Failed => summary.failed += 1,
+        }
+    }
+    // Close what was read before renaming over it (some systems refuse to replace an open file).
+    drop(store);
+    jsonl.commit().map_err(io_err(&results_jsonl))?;
+    csv.commit().map_err(io_err(&results_csv))?;
+    let _ = std::fs::remove_file(&journal_path);
+    summary.metadata_columns = table.meta;
+    Ok(summary)
 }
 
 /// Median of a list (None when empty).
@@ -657,57 +995,74 @@ pub const QUANTITY_COLUMNS: [&str; 4] = [
     "dc_resistance_ohm",
 ];
 
-/// `results.csv`: `file`, `spectrum`, the metadata columns, `status`, `message`, `kk_valid`, the
-/// battery quantities with their `_stderr`, each arc's resistance (`arc_<resistor>_resistance_ohm`)
-/// with its `_stderr`, every parameter with its `_stderr`, `reduced_chi_square`. Returns the text and
-/// the metadata columns.
-pub fn results_table(circuit: &Circuit, results: &[SpectrumResult]) -> (String, Vec<String>) {
-    let mut meta: Vec<String> = Vec::new();
-    for r in results {
-        for k in r.metadata.keys() {
-            if !meta.contains(k) {
-                meta.push(k.clone());
-            }
+/// The columns of `results.csv`, known before the first row is written.
+struct Table<'a> {
+    circuit: &'a Circuit,
+    /// Metadata columns, in order.
+    meta: Vec<String>,
+    /// The resistor of each arc.
+    arcs: Vec<String>,
+}
+
+impl<'a> Table<'a> {
+    /// The table for results with metadata fields `meta` (in any order, repeats allowed) and the arcs
+    /// of the first fitted result.
+    fn new(
+        circuit: &'a Circuit,
+        meta: impl IntoIterator<Item = String>,
+        arcs: Vec<String>,
+    ) -> Self {
+        let mut meta: Vec<String> = meta
+            .into_iter()
+            .collect::<BTreeSet<_>>()
+            .into_iter()
+            .collect();
+        // Conventional fields first, then the rest alphabetically.
+        let order = ["cell", "cycle", "soc", "temperature", "time"];
+        meta.sort_by_key(|k| {
+            (
+                order.iter().position(|o| o == k).unwrap_or(order.len()),
+                k.clone(),
+            )
+        });
+        Table {
+            circuit,
+            meta,
+            arcs,
         }
     }
-    // Conventional fields first, then the rest alphabetically.
-    let order = ["cell", "cycle", "soc", "temperature", "time"];
-    meta.sort_by_key(|k| {
-        (
-            order.iter().position(|o| o == k).unwrap_or(order.len()),
-            k.clone(),
-        )
-    });
-    let arcs: Vec<String> = results
-        .iter()
-        .find_map(|r| r.fit.as_ref())
-        .map(|d| d.derived.arcs.iter().map(|a| a.resistor.clone()).collect())
-        .unwrap_or_default();
-    let mut header: Vec<String> = vec!["file".into(), "spectrum".into()];
-    header.extend(meta.iter().cloned());
-    header.extend(["status", "message", "kk_valid"].map(String::from));
-    for q in QUANTITY_COLUMNS {
-        header.push(q.into());
-        header.push(format!("{q}_stderr"));
+
+    /// The header line, with its line end.
+    fn header(&self) -> String {
+        let mut header: Vec<String> = vec!["file".into(), "spectrum".into()];
+        header.extend(self.meta.iter().cloned());
+        header.extend(["status", "message", "kk_valid"].map(String::from));
+        for q in QUANTITY_COLUMNS {
+            header.push(q.into());
+            header.push(format!("{q}_stderr"));
+        }
+        for a in &self.arcs {
+            header.push(format!("arc_{a}_resistance_ohm"));
+            header.push(format!("arc_{a}_resistance_ohm_stderr"));
+        }
+        for p in &self.circuit.params {
+            header.push(p.name.clone());
+            header.push(format!("{}_stderr", p.name));
+        }
+        header.push("reduced_chi_square".into());
+        let mut out = header
+            .iter()
+            .map(|h| csv_field(h))
+            .collect::<Vec<_>>()
+            .join(",");
+        out.push('\n');
+        out
     }
-    for a in &arcs {
-        header.push(format!("arc_{a}_resistance_ohm"));
-        header.push(format!("arc_{a}_resistance_ohm_stderr"));
-    }
-    for p in &circuit.params {
-        header.push(p.name.clone());
-        header.push(format!("{}_stderr", p.name));
-    }
-    header.push("reduced_chi_square".into());
-    let mut out = header
-        .iter()
-        .map(|h| csv_field(h))
-        .collect::<Vec<_>>()
-        .join(",");
-    out.push('\n');
-    for r in results {
+
+    /// The row of one result, with its line end.
+    fn row(&self, r: &SpectrumResult) -> String {
         let mut row: Vec<String> = vec![csv_field(&r.file), r.spectrum.to_string()];
-        for k in &meta {
+        for k in &self.meta {
             row.push(csv_field(
                 &r.metadata.get(k).map(|v| v.to_string()).unwrap_or_default(),
             ));
@@ -741,12 +1096,12 @@ pub fn results_table(circuit: &Circuit, results: &[SpectrumResult]) -> (String, 
             row.push(num(v));
             row.push(num(s));
         }
-        for a in &arcs {
+        for a in &self.arcs {
             let arc = d.and_then(|d| d.arcs.iter().find(|x| &x.resistor == a));
             row.push(num(arc.map(|x| x.resistance_ohm)));
             row.push(num(arc.and_then(|x| x.resistance_ohm_stderr)));
         }
-        for p in &circuit.params {
+        for p in &self.circuit.params {
             let e = r
                 .fit
                 .as_ref()
@@ -755,18 +1110,265 @@ pub fn results_table(circuit: &Circuit, results: &[SpectrumResult]) -> (String, 
             row.push(num(e.and_then(|e| e.stderr)));
         }
         row.push(num(r.fit.as_ref().map(|f| f.statistics.reduced_chi_square)));
-        out.push_str(&row.join(","));
+        let mut out = row.join(",");
         out.push('\n');
+        out
     }
-    (out, meta)
+}
+
+/// `results.csv`: `file`, `spectrum`, the metadata columns, `status`, `message`, `kk_valid`, the
+/// battery quantities with their `_stderr`, each arc's resistance (`arc_<resistor>_resistance_ohm`)
+/// with its `_stderr`, every parameter with its `_stderr`, `reduced_chi_square`. Returns the text and
+/// the metadata columns.
+pub fn results_table(circuit: &Circuit, results: &[SpectrumResult]) -> (String, Vec<String>) {
+    let arcs: Vec<String> = results
+        .iter()
+        .find_map(|r| r.fit.as_ref())
+        .map(|d| d.derived.arcs.iter().map(|a| a.resistor.clone()).collect())
+        .unwrap_or_default();
+    let table = Table::new(
+        circuit,
+        results.iter().flat_map(|r| r.metadata.keys().cloned()),
+        arcs,
+    );
+    let mut out = table.header();
+    for r in results {
+        out.push_str(&table.row(r));
+    }
+    (out, table.meta)
 }
 
 /// Keys (file, spectrum) already present in a results folder, for callers that want to know what a
 /// resume would skip.
 pub fn finished(out: &Path) -> HashSet<(String, usize)> {
-    read_jsonl(&out.join("results.jsonl"))
-        .into_iter()
-        .chain(read_jsonl(&out.join(JOURNAL)))
-        .map(|r| r.key())
-        .collect()
+    let mut keys = HashSet::new();
+    for path in [out.join("results.jsonl"), out.join(JOURNAL)] {
+        scan_jsonl(&path, |r, _, _| {
+            keys.insert((r.file, r.spectrum));
+        });
+    }
+    keys
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::import::NamePattern;
+    use crate::scenario;
+    use std::sync::OnceLock;
+
+    /// An empty scratch folder for one test.
+    fn scratch(name: &str) -> PathBuf {
+        let d =
+            std::env::temp_dir().join(format!("eis-core-campaign-{name}-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&d);
+        std::fs::create_dir_all(&d).unwrap();
+        d
+    }
+
+    fn settings() -> BatchSettings {
+        BatchSettings {
+            reader: ReaderOptions {
+                name_pattern: Some(NamePattern::parse(scenario::NAME_PATTERN).unwrap()),
+                ..ReaderOptions::default()
+            },
+            ..BatchSettings::default()
+        }
+    }
+
+    fn circuit() -> Circuit {
+        crate::circuit::parse(scenario::MODEL_FILE).unwrap()
+    }
+
+    /// An uninterrupted run over part of the demo campaign: the 50 % SOC series of a healthy cell and
+    /// of the cell with the corrupt file (26 files, one spectrum each).
+    struct Reference {
+        inputs: Vec<PathBuf>,
+        jsonl: String,
+        csv: String,
+        summary: Summary,
+        journal_left: bool,
+    }
+
+    fn reference() -> &'static Reference {
+        static REFERENCE: OnceLock<Reference> = OnceLock::new();
+        REFERENCE.get_or_init(|| {
+            let dir = scratch("input");
+            let mut inputs = Vec::new();
+            for f in scenario::files() {
+                if (f.name.starts_with("Z1_") || f.name.starts_with("Z5_"))
+                    && f.name.contains("soc50")
+                {
+                    let p = dir.join(&f.name);
+                    std::fs::write(&p, &f.bytes).unwrap();
+                    inputs.push(p);
+                }
+            }
+            let out = scratch("reference");
+            let summary =
+                run_batch(&inputs, &circuit(), &settings(), &out, false, &|_, _| {}).unwrap();
+            Reference {
+                inputs,
+                jsonl: std::fs::read_to_string(out.join("results.jsonl")).unwrap(),
+                csv: std::fs::read_to_string(out.join("results.csv")).unwrap(),
+                summary,
+                journal_left: out.join(JOURNAL).exists(),
+            }
+        })
+    }
+
+    fn key_of(line: &str) -> (String, usize) {
+        let r: SpectrumResult = serde_json::from_str(line).unwrap();
+        (r.file, r.spectrum)
+    }
+
+    /// Resumes into `out` and checks the files equal the uninterrupted run's, byte for byte.
+    fn resume_matches_reference(out: &Path, expect_skipped: usize) {
+        let reference = reference();
+        let summary = run_batch(
+            &reference.inputs,
+            &circuit(),
+            &settings(),
+            out,
+            true,
+            &|_, _| {},
+        )
+        .unwrap();
+        assert_eq!(summary.skipped, expect_skipped);
+        assert_eq!(
+            Summary {
+                skipped: 0,
+                ..summary
+            },
+            reference.summary
+        );
+        let jsonl = std::fs::read_to_string(out.join("results.jsonl")).unwrap();
+        assert!(
+            jsonl == reference.jsonl,
+            "resumed results.jsonl differs from the uninterrupted run"
+        );
+        assert_eq!(
+            std::fs::read_to_string(out.join("results.csv")).unwrap(),
+            reference.csv
+        );
+        assert!(!out.join(JOURNAL).exists());
+    }
+
+    #[test]
+    fn campaign_results_are_sorted_by_file_and_spectrum() {
+        let reference = reference();
+        let keys: Vec<(String, usize)> = reference.jsonl.lines().map(key_of).collect();
+        assert_eq!(keys.len(), 26);
+        assert!(keys.windows(2).all(|w| w[0] < w[1]), "{keys:?}");
+        // The CSV has the same rows in the same order, after its header.
+        let rows: Vec<&str> = reference.csv.lines().collect();
+        assert_eq!(rows.len(), 27);
+        assert!(rows[0].starts_with("file,spectrum,cell,cycle,soc,status,"));
+        for (row, (file, n)) in rows[1..].iter().zip(&keys) {
+            assert!(row.starts_with(&format!("{file},{n},")), "{row}");
+        }
+        // The corrupt file is the one failure, reported with its place in the file.
+        assert_eq!(reference.summary.failed, 1);
+        assert_eq!(reference.summary.total, 26);
+        let failed: Vec<&str> = rows
+            .iter()
+            .filter(|r| r.contains(",failed,"))
+            .copied()
+            .collect();
+        assert_eq!(failed.len(), 1);
+        assert!(failed[0].contains("Z5_c175_soc50.csv"), "{}", failed[0]);
+        assert!(!reference.journal_left, "the journal is removed at the end");
+    }
+
+    /// A journal in any order (parallel chains finish in any order) with a last line cut short by a
+    /// kill: the resumed run skips the complete lines, ignores the cut one, and writes the same files.
+    #[test]
+    fn campaign_resume_after_shuffled_journal_with_cut_last_line() {
+        let reference = reference();
+        let lines: Vec<&str> = reference.jsonl.lines().collect();
+        // Every other finished spectrum, newest first; failures left out, so the first result the
+        // resumed run records (the corrupt file) comes straight after the cut line.
+        let mut kept: Vec<&str> = lines
+            .iter()
+            .step_by(2)
+            .filter(|l| !l.contains("\"status\":\"failed\""))
+            .copied()
+            .collect();
+        kept.reverse();
+        let cut = &lines[1][..lines[1].len() / 2];
+        let out = scratch("cut");
+        let mut journal = kept.join("\n");
+        journal.push('\n');
+        journal.push_str(cut);
+        std::fs::write(out.join(JOURNAL), journal).unwrap();
+        assert_eq!(finished(&out).len(), kept.len());
+        resume_matches_reference(&out, kept.len());
+    }
+
+    /// A previous `results.jsonl` holding part of the results (unsorted) and a journal holding others,
+    /// one of them twice: both are read back, and the output is the same.
+    #[test]
+    fn campaign_resume_from_results_file_and_journal() {
+        let reference = reference();
+        let lines: Vec<&str> = reference.jsonl.lines().collect();
+        let out = scratch("both");
+        let mut previous: Vec<&str> = lines[..9].to_vec();
+        previous.swap(0, 8);
+        let mut journal: Vec<&str> = lines[15..20].iter().rev().copied().collect();
+        journal.push(lines[3]);
+        std::fs::write(out.join("results.jsonl"), previous.join("\n") + "\n").unwrap();
+        std::fs::write(out.join(JOURNAL), journal.join("\n") + "\n").unwrap();
+        assert_eq!(finished(&out).len(), 9 + 5);
+        resume_matches_reference(&out, 9 + 5);
+    }
+
+    /// Results appended after a line cut short stay lines of their own, readable by a later resume.
+    #[test]
+    fn campaign_journal_appends_after_a_cut_line_stay_readable() {
+        let reference = reference();
+        let lines: Vec<&str> = reference.jsonl.lines().collect();
+        let dir = scratch("journal");
+        let path = dir.join(JOURNAL);
+        std::fs::write(&path, format!("{}\n{}", lines[0], &lines[1][..100])).unwrap();
+        let mut journal = Journal::open(&path, MetaSets::default()).unwrap();
+        let r: SpectrumResult = serde_json::from_str(lines[2]).unwrap();
+        journal.record((0, r.spectrum), &r);
+        assert!(journal.error.is_none());
+        drop(journal);
+        let mut found = Vec::new();
+        scan_jsonl(&path, |r, _, _| found.push(r));
+        assert_eq!(found.len(), 2);
+        assert_eq!(serde_json::to_string(&found[1]).unwrap(), lines[2]);
+    }
+
+    /// A chain keeps only the spectra it still needs from a file it has read, and drops each once
+    /// handed out.
+    #[test]
+    fn campaign_chain_cache_holds_only_what_is_still_needed() {
+        let dir = scratch("cache");
+        let path = dir.join("four.csv");
+        let mut text = String::new();
+        for k in 1..=4 {
+            text.push_str(&format!("f,re,im\n3,{k},-1\n2,{k},-2\n1,{k},-3\n"));
+        }
+        std::fs::write(&path, text).unwrap();
+        let reader = ReaderOptions {
+            split: crate::import::Split::None,
+            ..ReaderOptions::default()
+        };
+        let mut cache = ChainCache::new([(0, 1), (0, 3), (0, 4)]);
+        let s = cache.take(&path, 0, 1, &reader).unwrap();
+        assert_eq!((s.meta.spectrum, s.z[0].re), (1, 1.0));
+        let mut held: Vec<_> = cache.spectra.keys().copied().collect();
+        held.sort_unstable();
+        assert_eq!(held, [(0, 3), (0, 4)], "spectrum 2 is not needed");
+        // The rest come from memory: the file is not read again.
+        std::fs::remove_file(&path).unwrap();
+        assert_eq!(cache.take(&path, 0, 3, &reader).unwrap().z[0].re, 3.0);
+        assert_eq!(cache.take(&path, 0, 4, &reader).unwrap().z[0].re, 4.0);
+        assert!(cache.spectra.is_empty() && cache.needed.is_empty());
+        // A spectrum that cannot be read again is an error, not a panic.
+        let e = cache.take(&path, 0, 2, &reader).unwrap_err();
+        assert!(e.contains("four.csv"), "{e}");
+    }
 }
