@@ -224,55 +224,93 @@ fn index(
     files: &mut Names,
     cells: &mut Names,
 ) -> Vec<Entry> {
+    // Files are read in parallel; names are then numbered in input order, so ids do not depend on
+    // which thread finished first.
+    let scanned: Vec<Vec<Found>> = inputs.par_iter().map(|p| scan(p, reader)).collect();
     let mut out = Vec::new();
-    for (input, path) in inputs.iter().enumerate() {
-        let name = path.display().to_string();
-        let file = files.id(&name);
-        let failed = |spectrum: usize, error: String| Entry {
-            input,
-            file,
-            spectrum,
-            series: None,
-            error: Some(error),
-        };
-        match SpectrumReader::open(path, reader.clone()) {
-            Err(e) => out.push(failed(1, e.to_string())),
-            Ok(r) => {
-                let mut n = 0;
-                for item in r {
-                    n += 1;
-                    match item {
-                        Ok(imp) => {
-                            let fields = &imp.spectrum.meta.fields;
-                            let num = |k: &str| meta_field(fields, k).and_then(MetaValue::as_f64);
-                            let cell = match meta_field(fields, "cell") {
-                                Some(v) => cells.id(&v.to_string()),
-                                None => cells.id(&path
-                                    .file_stem()
-                                    .map(|s| s.to_string_lossy())
-                                    .unwrap_or_default()),
-                            };
-                            out.push(Entry {
-                                input,
-                                file,
-                                spectrum: imp.spectrum.meta.spectrum,
-                                series: Some(Series {
-                                    cell,
-                                    soc: num("soc").map(|s| (s * 1e6).round() as i64),
-                                    cycle: num("cycle").unwrap_or(f64::NEG_INFINITY),
-                                    time: num("time").unwrap_or(f64::NEG_INFINITY),
-                                }),
-                                error: None,
-                            });
-                        }
-                        Err(e) => out.push(failed(e.spectrum.unwrap_or(n), e.to_string())),
-                    }
-                }
-                if n == 0 {
-                    out.push(failed(1, format!("{name}: no spectrum found")));
-                }
-            }
+    for (input, (path, found)) in inputs.iter().zip(scanned).enumerate() {
+        let file = files.id(&path.display().to_string());
+        for f in found {
+            out.push(match f {
+                Found::Spectrum {
+                    spectrum,
+                    cell,
+                    soc,
+                    cycle,
+                    time,
+                } => Entry {
+                    input,
+                    file,
+                    spectrum,
+                    series: Some(Series {
+                        cell: cells.id(&cell),
+                        soc,
+                        cycle,
+                        time,
+                    }),
+                    error: None,
+                },
+                Found::Failed { spectrum, error } => Entry {
+                    input,
+                    file,
+                    spectrum,
+                    series: None,
+                    error: Some(error),
+                },
+            });
         }
+    }
+    out
+}
+
+/// What the index learns about one spectrum of a file, before names are numbered.
+enum Found {
+    Spectrum {
+        spectrum: usize,
+        cell: String,
+        soc: Option<i64>,
+        cycle: f64,
+        time: f64,
+    },
+    Failed {
+        spectrum: usize,
+        error: String,
+    },
+}
+
+/// Reads one file for the index: the series keys of each spectrum, or the error.
+fn scan(path: &Path, reader: &ReaderOptions) -> Vec<Found> {
+    let failed = |spectrum: usize, error: String| Found::Failed { spectrum, error };
+    let r = match SpectrumReader::open(path, reader.clone()) {
+        Err(e) => return vec![failed(1, e.to_string())],
+        Ok(r) => r,
+    };
+    let mut out = Vec::new();
+    for (k, item) in r.enumerate() {
+        match item {
+            Ok(imp) => {
+                let fields = &imp.spectrum.meta.fields;
+                let num = |k: &str| meta_field(fields, k).and_then(MetaValue::as_f64);
+                let cell = match meta_field(fields, "cell") {
+                    Some(v) => v.to_string(),
+                    None => path
+                        .file_stem()
+                        .map(|s| s.to_string_lossy().into_owned())
+                        .unwrap_or_default(),
+                };
+                out.push(Found::Spectrum {
+                    spectrum: imp.spectrum.meta.spectrum,
+                    cell,
+                    soc: num("soc").map(|s| (s * 1e6).round() as i64),
+                    cycle: num("cycle").unwrap_or(f64::NEG_INFINITY),
+                    time: num("time").unwrap_or(f64::NEG_INFINITY),
+                });
+            }
+            Err(e) => out.push(failed(e.spectrum.unwrap_or(k + 1), e.to_string())),
+        }
+    }
+    if out.is_empty() {
+        out.push(failed(1, format!("{}: no spectrum found", path.display())));
     }
     out
 }
