@@ -38,10 +38,13 @@
 //!    The first candidate is the winner; each candidate carries the reason for its place.
 //!
 //! ```
-//! use eis_core::{circuit::parse, eval::{log_frequencies, Plan}, simulate::simulate};
+//! use eis_core::{circuit::parse, eval::{log_frequencies, Plan}, simulate::{simulate, Noise}};
 //! use eis_core::select::{select, SelectOptions};
 //! let c = parse("R0 + R1|Q1").unwrap();
-//! let data = simulate(&Plan::compile(&c), &[1.0, 10.0, 1e-4, 0.9], &log_frequencies(1e5, 1e-2, 8), None);
+//! // Noisy data, as measured (without noise every richer member fits to round-off as well, and χ² at
+//! // round-off level cannot rank them).
+//! let noise = Some(Noise { relative: 0.005, seed: 3 });
+//! let data = simulate(&Plan::compile(&c), &[1.0, 10.0, 1e-4, 0.9], &log_frequencies(1e5, 1e-2, 8), noise);
 //! let s = select(&data, &SelectOptions::default()).unwrap();
 //! assert_eq!(s.winner().member.arcs, 1);
 //! assert_eq!(s.winner().member.diffusion, eis_core::select::Diffusion::None);

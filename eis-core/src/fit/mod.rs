@@ -355,6 +355,9 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
     })
 }
 
+/// Tolerance of the runs of the full search, which only rank basins before the winner is polished.
+const SCREEN_TOLERANCE: f64 = 1e-6;
+
 /// Relative χ² improvement over a warm-started run below which the second try is taken to confirm it.
 const CONFIRM: f64 = 1e-6;
 
@@ -534,6 +537,20 @@ fn fit_impl(
         )
     };
 
+    // The many runs of the full search only have to rank basins: they stop at a looser tolerance,
+    // and the winner is polished tightly below.
+    let screen = |s: &[f64]| {
+        run_lm(
+            &plan,
+            &prep,
+            &free,
+            &transforms,
+            s,
+            settings.tolerance.max(SCREEN_TOLERANCE),
+            settings.patience,
+        )
+    };
+
     let conclude = |run: &Run, evaluations: usize, tried: usize| {
         finish(
             circuit,
@@ -635,7 +652,7 @@ fn fit_impl(
         None => start::spread_starts(&ctx, 2 * settings.starts),
     };
     for s in &starts {
-        consider(lm(s), &mut best, &mut evaluations, &mut tried);
+        consider(screen(s), &mut best, &mut evaluations, &mut tried);
     }
     if settings.drt_starts {
         if let Some(t) = &terms {
@@ -655,7 +672,7 @@ fn fit_impl(
             let template = starts.first().cloned().unwrap_or_else(|| base.clone());
             if let Some(d) = seed {
                 for s in &start::drt_starts(&ctx, t, d, &template, DRT_STARTS) {
-                    consider(lm(s), &mut best, &mut evaluations, &mut tried);
+                    consider(screen(s), &mut best, &mut evaluations, &mut tried);
                 }
             }
         }
@@ -665,13 +682,13 @@ fn fit_impl(
             let before = b.chi_square;
             let moves = start::arc_moves(&ctx, t, &b.params);
             for s in &moves {
-                consider(lm(s), &mut best, &mut evaluations, &mut tried);
+                consider(screen(s), &mut best, &mut evaluations, &mut tried);
             }
             // A move may have reached a new basin whose arcs are misassigned: swap once more.
             if let Some(b) = best.as_ref().filter(|b| b.chi_square < before) {
                 let swaps = start::arc_swaps(&ctx, t, &b.params);
                 for s in &swaps {
-                    consider(lm(s), &mut best, &mut evaluations, &mut tried);
+                    consider(screen(s), &mut best, &mut evaluations, &mut tried);
                 }
             }
         }
