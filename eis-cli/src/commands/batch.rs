@@ -127,16 +127,14 @@ pub fn expand(inputs: &[String]) -> Result<Vec<PathBuf>, Failure> {
             out.push(path);
         }
     }
-    let out_dedup: Vec<PathBuf> = out
-        .iter()
-        .enumerate()
-        .filter(|(i, p)| !out[..*i].contains(p))
-        .map(|(_, p)| p.clone())
-        .collect();
-    if out_dedup.is_empty() {
+    // First occurrence wins, order kept (a set, not a scan of what came before: inputs run to tens
+    // of thousands of files).
+    let mut seen = std::collections::HashSet::with_capacity(out.len());
+    out.retain(|p| seen.insert(p.clone()));
+    if out.is_empty() {
         return Err(bad(anyhow!("no input files found")));
     }
-    Ok(out_dedup)
+    Ok(out)
 }
 
 /// Trend plots of a results table, one PNG per default quantity, at the SOC level nearest 50 %.
@@ -234,4 +232,34 @@ pub fn run(args: Args) -> Outcome {
     } else {
         ExitCode::SUCCESS
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::expand;
+
+    /// A file named twice, directly and through its folder or a glob, is fitted once, in the place it
+    /// was first named.
+    #[test]
+    fn inputs_named_twice_are_kept_once_in_first_order() {
+        let dir = std::env::temp_dir().join(format!("eis-expand-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        for name in ["a.csv", "b.csv", "c.csv"] {
+            std::fs::write(dir.join(name), "1,2,3\n").unwrap();
+        }
+        let d = dir.display().to_string();
+        let args = [
+            format!("{d}/b.csv"),
+            d.clone(),
+            format!("{d}/*.csv"),
+            format!("{d}/b.csv"),
+        ];
+        let got = expand(&args).unwrap();
+        let names: Vec<String> = got
+            .iter()
+            .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+            .collect();
+        assert_eq!(names, ["b.csv", "a.csv", "c.csv"]);
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
 }

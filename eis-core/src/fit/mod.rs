@@ -628,9 +628,9 @@ fn fit_impl(
             let confirmed = warm_ok && b.chi_square >= warm_chi * (1.0 - CONFIRM);
             if b.termination.was_successful() {
                 let result = conclude(&b, evaluations, tried);
-                let near = settings.warm_reference.is_none_or(|reference| {
-                    result.reduced_chi_square <= CONFIRM_RATIO * reference
-                });
+                let near = settings
+                    .warm_reference
+                    .is_none_or(|reference| result.reduced_chi_square <= CONFIRM_RATIO * reference);
                 if (confirmed && near) || acceptable(&result) {
                     return Ok(result);
                 }
