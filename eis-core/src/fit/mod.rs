@@ -394,12 +394,12 @@ fn run_lm(
         free,
         transforms,
     );
-    let (problem, report) = LevenbergMarquardt::new()
+    let solver = LevenbergMarquardt::new()
         .with_ftol(tolerance)
         .with_xtol(tolerance)
         .with_gtol(tolerance)
-        .with_patience(patience)
-        .minimize(problem);
+        .with_patience(patience);
+    let (problem, report) = solver.minimize(problem);
     let chi = if problem.is_finite() {
         problem.chi_square()
     } else {

@@ -223,14 +223,11 @@ impl<'a> Problem<'a> {
     }
 }
 
-impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
-    type ResidualStorage = Owned<f64, Dyn>;
-    type JacobianStorage = Owned<f64, Dyn, Dyn>;
-    type ParameterStorage = Owned<f64, Dyn>;
-
-    fn set_params(&mut self, x: &DVector<f64>) {
-        self.x.copy_from(x);
-        for ((&i, t), &xi) in self.free.iter().zip(self.transforms).zip(x.iter()) {
+impl Problem<'_> {
+    /// Moves to internal coordinates `x`: model, residuals and derivatives there.
+    fn move_to(&mut self, x: &[f64]) {
+        self.x.copy_from_slice(x);
+        for ((&i, t), &xi) in self.free.iter().zip(self.transforms).zip(x) {
             self.params[i] = t.to_param(xi);
         }
         self.plan.eval(
@@ -258,30 +255,27 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
         self.ok = self.chi_square.is_finite();
     }
 
-    fn params(&self) -> DVector<f64> {
-        self.x.clone()
-    }
-
-    fn residuals(&self) -> Option<DVector<f64>> {
-        let nf = self.free.len();
-        let mut r = DVector::zeros(nf + 1);
-        // A huge but finite norm for a failed evaluation, so that the step that led here is rejected.
-        r[nf] = if self.ok {
+    /// The last of the compressed residuals [0, …, 0, ‖r‖]: ‖r‖, or a huge but finite norm for a
+    /// failed evaluation, so that the step that led there is rejected.
+    fn residual_norm(&self) -> f64 {
+        if self.ok {
             self.chi_square.sqrt()
         } else {
             PENALTY * ((2 * self.grid.len()) as f64).sqrt()
-        };
-        Some(r)
+        }
     }
 
-    fn jacobian(&self) -> Option<DMatrix<f64>> {
+    /// Writes the compressed Jacobian [R; gᵀ] ((n + 1) × n, column by column) into `out`; zeros where
+    /// the point failed or a derivative is not finite (no slope: the solver stops rather than step on
+    /// garbage).
+    fn compressed_jacobian(&self, out: &mut [f64]) {
         self.jacobian_calls.set(self.jacobian_calls.get() + 1);
+        out.fill(0.0);
+        if !self.ok {
+            return;
+        }
         let n = self.grid.len();
         let nf = self.free.len();
-        let mut out = DMatrix::zeros(nf + 1, nf);
-        if !self.ok {
-            return Some(out);
-        }
         let mut scratch = self.scratch_j.borrow_mut();
         scratch.resize(2 * n * nf, 0.0);
         for (c, (&k, t)) in self.free.iter().zip(self.transforms).enumerate() {
@@ -293,13 +287,39 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
                 im[i] = self.w_im[i] * dp * d[i].im;
             }
         }
-        super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, &mut out);
-        // A non-finite derivative spreads through the factorisation (checking the small result is
-        // cheaper than checking the Jacobian); it gives no slope, so the solver stops rather than step
-        // on garbage.
+        super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, out);
+        // A non-finite derivative spreads through the factorisation; checking the small result is
+        // cheaper than checking the Jacobian.
         if !out.iter().all(|v| v.is_finite()) {
             out.fill(0.0);
         }
+    }
+}
+
+impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
+    type ResidualStorage = Owned<f64, Dyn>;
+    type JacobianStorage = Owned<f64, Dyn, Dyn>;
+    type ParameterStorage = Owned<f64, Dyn>;
+
+    fn set_params(&mut self, x: &DVector<f64>) {
+        self.move_to(x.as_slice());
+    }
+
+    fn params(&self) -> DVector<f64> {
+        self.x.clone()
+    }
+
+    fn residuals(&self) -> Option<DVector<f64>> {
+        let nf = self.free.len();
+        let mut r = DVector::zeros(nf + 1);
+        r[nf] = self.residual_norm();
+        Some(r)
+    }
+
+    fn jacobian(&self) -> Option<DMatrix<f64>> {
+        let nf = self.free.len();
+        let mut out = DMatrix::zeros(nf + 1, nf);
+        self.compressed_jacobian(out.as_mut_slice());
         Some(out)
     }
 }
