@@ -137,7 +137,13 @@ pub(crate) struct Problem<'a> {
     scratch_j: RefCell<Vec<f64>>,
     ok: bool,
     pub jacobian_calls: std::cell::Cell<usize>,
+    /// Jacobians still to factor by Householder directly, after the Gram route declined: successive
+    /// Jacobians of one run are alike, so the next few would most likely decline too.
+    skip_gram: std::cell::Cell<u8>,
 }
+
+/// How many Jacobians go straight to Householder after the Gram route declined.
+const GRAM_PAUSE: u8 = 3;
 
 /// Residual used in place of a non-finite one, so that a bad trial step is rejected, not fatal.
 const PENALTY: f64 = 1e10;
@@ -182,6 +188,7 @@ impl<'a> Problem<'a> {
             scratch_j: RefCell::new(Vec::new()),
             ok: false,
             jacobian_calls: std::cell::Cell::new(0),
+            skip_gram: std::cell::Cell::new(0),
         };
         p.set_params(&x);
         p
@@ -287,7 +294,14 @@ impl Problem<'_> {
                 im[i] = self.w_im[i] * dp * d[i].im;
             }
         }
-        super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, out);
+        let skip = self.skip_gram.get();
+        let gram =
+            super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, out, skip == 0);
+        self.skip_gram.set(match (gram, skip) {
+            (true, _) => 0,
+            (false, 0) => GRAM_PAUSE,
+            (false, s) => s - 1,
+        });
         // A non-finite derivative spreads through the factorisation; checking the small result is
         // cheaper than checking the Jacobian.
         if !out.iter().all(|v| v.is_finite()) {

@@ -46,13 +46,23 @@ fn norm(a: &[f64]) -> f64 {
 /// # Panics
 ///
 /// If the lengths do not match m, n, or m ≤ n.
-pub(crate) fn compress(a: &mut [f64], m: usize, n: usize, r: &[f64], out: &mut [f64]) {
+/// With `try_gram` false the Gram route is not attempted (a caller that just saw it decline on a
+/// similar Jacobian saves the wasted attempt). Returns whether the Gram route was taken.
+pub(crate) fn compress(
+    a: &mut [f64],
+    m: usize,
+    n: usize,
+    r: &[f64],
+    out: &mut [f64],
+    try_gram: bool,
+) -> bool {
     assert!(m > n && a.len() == m * n && r.len() == m, "shapes");
     assert!(out.len() == (n + 1) * n, "output shape");
-    if gram_cholesky(a, m, n, r, out) {
-        return;
+    if try_gram && gram_cholesky(a, m, n, r, out) {
+        return true;
     }
     householder(a, m, n, r, out);
+    false
 }
 
 /// Smallest pivot of the Gram route, relative to the squared column norm: below it a column lies
@@ -188,7 +198,7 @@ mod tests {
             let full_r = nalgebra::DVector::from_column_slice(&r);
             let mut a2 = a.clone();
             let mut j = DMatrix::zeros(n + 1, n);
-            compress(&mut a2, m, n, &r, j.as_mut_slice());
+            compress(&mut a2, m, n, &r, j.as_mut_slice(), true);
             let mut rr = nalgebra::DVector::zeros(n + 1);
             rr[n] = full_r.norm();
             let gram = full_j.transpose() * &full_j;
@@ -235,7 +245,7 @@ mod tests {
         let mut out = DMatrix::zeros(n + 1, n);
         assert!(!gram_cholesky(&near, m, n, &r, out.as_mut_slice()));
         let full = DMatrix::from_column_slice(m, n, &near);
-        compress(&mut near.clone(), m, n, &r, out.as_mut_slice());
+        compress(&mut near.clone(), m, n, &r, out.as_mut_slice(), true);
         let gram = full.transpose() * &full;
         assert!((out.transpose() * &out - &gram).norm() <= 1e-12 * gram.norm());
     }
@@ -247,7 +257,7 @@ mod tests {
         let (mut a, _) = case(m, n);
         let full_j = DMatrix::from_column_slice(m, n, &a);
         let mut j = DMatrix::zeros(n + 1, n);
-        compress(&mut a, m, n, &vec![0.0; m], j.as_mut_slice());
+        compress(&mut a, m, n, &vec![0.0; m], j.as_mut_slice(), true);
         assert!(j.row(n).iter().all(|g| *g == 0.0));
         let gram = full_j.transpose() * &full_j;
         assert!((j.transpose() * &j - &gram).norm() <= 1e-13 * gram.norm());
@@ -263,7 +273,7 @@ mod tests {
             a[m..2 * m].fill(tiny);
             let full_j = DMatrix::from_column_slice(m, n, &a);
             let mut j = DMatrix::zeros(n + 1, n);
-            compress(&mut a, m, n, &r, j.as_mut_slice());
+            compress(&mut a, m, n, &r, j.as_mut_slice(), true);
             assert!(j.iter().all(|x| x.is_finite()), "{tiny}: {j}");
             assert!(j[(1, 1)].abs() <= 1e-169, "{tiny}");
             let gram = full_j.transpose() * &full_j;
