@@ -355,6 +355,9 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
     })
 }
 
+/// Tolerance of the final polish of the winner, so that noise-free data are met to round-off.
+const POLISH_TOLERANCE: f64 = 1e-15;
+
 /// Tolerance of the runs of the full search, which only rank basins before the winner is polished.
 const SCREEN_TOLERANCE: f64 = 1e-6;
 
@@ -525,31 +528,21 @@ fn fit_impl(
         base: &base,
         fixed: &fixed,
     };
-    let lm = |s: &[f64]| {
+    let run = |s: &[f64], tolerance: f64| {
         run_lm(
             &plan,
             &prep,
             &free,
             &transforms,
             s,
-            settings.tolerance,
+            tolerance,
             settings.patience,
         )
     };
-
+    let lm = |s: &[f64]| run(s, settings.tolerance);
     // The many runs of the full search only have to rank basins: they stop at a looser tolerance,
     // and the winner is polished tightly below.
-    let screen = |s: &[f64]| {
-        run_lm(
-            &plan,
-            &prep,
-            &free,
-            &transforms,
-            s,
-            settings.tolerance.max(SCREEN_TOLERANCE),
-            settings.patience,
-        )
-    };
+    let screen = |s: &[f64]| run(s, settings.tolerance.max(SCREEN_TOLERANCE));
 
     let conclude = |run: &Run, evaluations: usize, tried: usize| {
         finish(
@@ -698,15 +691,7 @@ fn fit_impl(
         start::order_identical_arcs(&ctx, t, &mut b.params);
     }
     // Polish the winner with tight tolerances so that noise-free data are met to round-off.
-    let polish = run_lm(
-        &plan,
-        &prep,
-        &free,
-        &transforms,
-        &b.params,
-        1e-15,
-        settings.patience,
-    );
+    let polish = run(&b.params, POLISH_TOLERANCE);
     evaluations += polish.evaluations;
     if polish.chi_square <= b.chi_square {
         let iterations = b.iterations + polish.iterations;
