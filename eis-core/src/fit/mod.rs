@@ -5,8 +5,8 @@
 //! - Residuals: `w ∘ (Z_model − Z_data)`, real parts stacked over imaginary parts (2N residuals). The
 //!   weights are computed from the **data** (see [`Weighting`]); χ² is the sum of squared weighted
 //!   residuals.
-//! - Levenberg–Marquardt (the `levenberg-marquardt` crate, a port of MINPACK's `lmder`; Moré 1978,
-//!   Springer LNM 630, 105) on internal coordinates that keep every bound: log for positive
+//! - Levenberg–Marquardt (Moré's trust-region algorithm of MINPACK's `lmder`; Moré 1978, Springer LNM
+//!   630, 105), run on the square core of the problem (R with RᵀR = JᵀJ), on internal coordinates that keep every bound: log for positive
 //!   quantities, a logistic map for bounded ones. The Jacobian comes from the compiled plan through the
 //!   chain rule of the transforms. A trial step that evaluates to non-finite numbers is rejected (large
 //!   residuals), never fatal.
@@ -32,6 +32,7 @@
 //! }
 //! ```
 
+mod lm;
 mod problem;
 mod reduce;
 pub(crate) mod start;
@@ -40,7 +41,8 @@ mod stats;
 use crate::circuit::Circuit;
 use crate::eval::{Grid, Plan};
 use crate::spectrum::Spectrum;
-use levenberg_marquardt::{LevenbergMarquardt, TerminationReason};
+use lm::Solver;
+pub use lm::Termination;
 use num_complex::Complex64;
 use problem::{Problem, Transform};
 pub use stats::{Covariance, covariance, runs_test_z};
@@ -375,7 +377,9 @@ struct Run {
     chi_square: f64,
     iterations: usize,
     evaluations: usize,
-    termination: TerminationReason,
+    termination: Termination,
+    /// The problem's state at `params` when the run ended there (not after `params` were reordered).
+    point: Option<problem::Evaluated>,
 }
 
 fn run_lm(
@@ -387,7 +391,7 @@ fn run_lm(
     tolerance: f64,
     patience: usize,
 ) -> Run {
-    let problem = Problem::new(
+    let mut problem = Problem::new(
         plan,
         &prep.grid,
         &prep.data,
@@ -397,12 +401,12 @@ fn run_lm(
         free,
         transforms,
     );
-    let solver = LevenbergMarquardt::new()
+    let report = Solver::default()
         .with_ftol(tolerance)
         .with_xtol(tolerance)
         .with_gtol(tolerance)
-        .with_patience(patience);
-    let (problem, report) = solver.minimize(problem);
+        .with_patience(patience)
+        .minimize(&mut problem);
     let chi = if problem.is_finite() {
         problem.chi_square()
     } else {
@@ -411,9 +415,10 @@ fn run_lm(
     Run {
         chi_square: chi,
         iterations: problem.jacobian_calls.get().max(1),
-        evaluations: report.number_of_evaluations,
+        evaluations: report.evaluations,
         params: problem.params.clone(),
         termination: report.termination,
+        point: Some(problem.into_evaluated()),
     }
 }
 
@@ -715,16 +720,29 @@ fn finish(
     evaluations: usize,
     tried: usize,
 ) -> FitResult {
-    let problem = Problem::new(
-        plan,
-        &prep.grid,
-        &prep.data,
-        &prep.w_re,
-        &prep.w_im,
-        run.params.clone(),
-        free,
-        transforms,
-    );
+    // The run's last evaluation is reused when it is at the reported parameters.
+    let problem = match run.point.as_ref().filter(|e| e.params() == run.params) {
+        Some(e) => Problem::resume(
+            plan,
+            &prep.grid,
+            &prep.data,
+            &prep.w_re,
+            &prep.w_im,
+            free,
+            transforms,
+            e.clone(),
+        ),
+        None => Problem::new(
+            plan,
+            &prep.grid,
+            &prep.data,
+            &prep.w_re,
+            &prep.w_im,
+            run.params.clone(),
+            free,
+            transforms,
+        ),
+    };
     stats::summarise(stats::Summary {
         circuit,
         problem: &problem,

@@ -1,9 +1,10 @@
 //! The weighted complex least-squares problem handed to Levenberg–Marquardt, in transformed parameters
 //! that keep every bound.
 
+use super::lm::CoreProblem;
+use super::reduce::Core;
 use crate::eval::{Grid, Plan, Workspace};
-use levenberg_marquardt::LeastSquaresProblem;
-use nalgebra::{DMatrix, DVector, Dyn, Owned};
+use nalgebra::DMatrix;
 use num_complex::Complex64;
 use std::cell::RefCell;
 
@@ -15,7 +16,12 @@ pub(crate) enum Transform {
     /// p = lo + exp(x): above a positive lower bound.
     LogShift { lo: f64 },
     /// ln p = ln lo + (ln hi − ln lo)·σ(x): positive with both bounds, spread over decades.
-    LogLogistic { ln_lo: f64, ln_hi: f64 },
+    LogLogistic {
+        ln_lo: f64,
+        ln_hi: f64,
+        lo: f64,
+        hi: f64,
+    },
     /// p = lo + (hi − lo)·σ(x): bounded, may reach zero (CPE exponents).
     Logistic { lo: f64, hi: f64 },
     /// p = hi·σ(x): positive with only an upper bound.
@@ -43,6 +49,8 @@ impl Transform {
             (true, true) if positive => Transform::LogLogistic {
                 ln_lo: lo.ln(),
                 ln_hi: hi.ln(),
+                lo,
+                hi,
             },
             (_, true) if positive && lo == 0.0 => Transform::UpperLogistic { hi },
             (_, true) => Transform::Logistic { lo, hi },
@@ -57,9 +65,16 @@ impl Transform {
         match self {
             Transform::Log => x.exp(),
             Transform::LogShift { lo } => lo + x.exp(),
-            Transform::LogLogistic { ln_lo, ln_hi } => (ln_lo + (ln_hi - ln_lo) * sigmoid(x)).exp(),
-            Transform::Logistic { lo, hi } => lo + (hi - lo) * sigmoid(x),
-            Transform::UpperLogistic { hi } => hi * sigmoid(x),
+            // exp(ln hi) and lo + (hi − lo) may round past a bound by an ulp: clamp, so that the
+            // bounds hold exactly.
+            Transform::LogLogistic {
+                ln_lo,
+                ln_hi,
+                lo,
+                hi,
+            } => (ln_lo + (ln_hi - ln_lo) * sigmoid(x)).exp().clamp(lo, hi),
+            Transform::Logistic { lo, hi } => (lo + (hi - lo) * sigmoid(x)).clamp(lo, hi),
+            Transform::UpperLogistic { hi } => (hi * sigmoid(x)).min(hi),
         }
     }
 
@@ -71,7 +86,7 @@ impl Transform {
         match self {
             Transform::Log => x.exp(),
             Transform::LogShift { .. } => x.exp(),
-            Transform::LogLogistic { ln_lo, ln_hi } => {
+            Transform::LogLogistic { ln_lo, ln_hi, .. } => {
                 let s = sigmoid(x);
                 self.to_param(x) * (ln_hi - ln_lo) * s * (1.0 - s)
             }
@@ -91,7 +106,9 @@ impl Transform {
         match self {
             Transform::Log => p.max(f64::MIN_POSITIVE).ln(),
             Transform::LogShift { lo } => (p - lo).max(lo * 1e-12).ln(),
-            Transform::LogLogistic { ln_lo, ln_hi } => logit((p.ln() - ln_lo) / (ln_hi - ln_lo)),
+            Transform::LogLogistic { ln_lo, ln_hi, .. } => {
+                logit((p.ln() - ln_lo) / (ln_hi - ln_lo))
+            }
             Transform::Logistic { lo, hi } => logit((p - lo) / (hi - lo)),
             Transform::UpperLogistic { hi } => logit(p / hi),
         }
@@ -110,10 +127,10 @@ impl Transform {
 /// Residuals r = w ∘ (Z_model − Z_data), real parts then imaginary parts, and their Jacobian with respect
 /// to the internal coordinates of the free parameters.
 ///
-/// The solver sees the problem compressed to its square core ([`super::reduce`]): n + 1 residuals and
-/// an (n + 1) × n Jacobian for n free parameters, with the same steps, gradient and residual norm as the
-/// full 2·points × n problem; the factorisation is made only when the solver asks for a Jacobian. The
-/// full residuals stay available here for the statistics.
+/// The solver sees the problem through its square core ([`super::reduce`]): R (n × n), c and ‖r‖ for n
+/// free parameters, with the same steps, gradient and residual norm as the full 2·points × n problem;
+/// the factorisation is made only when the solver asks for it (accepted points). The full residuals
+/// stay available here for the statistics.
 pub(crate) struct Problem<'a> {
     pub plan: &'a Plan,
     pub grid: &'a Grid,
@@ -125,7 +142,7 @@ pub(crate) struct Problem<'a> {
     pub params: Vec<f64>,
     pub free: &'a [usize],
     pub transforms: &'a [Transform],
-    x: DVector<f64>,
+    x: Vec<f64>,
     z: Vec<Complex64>,
     /// ∂Z(ωᵢ)/∂p_k at `k * points + i`, all parameters.
     jac: Vec<Complex64>,
@@ -162,13 +179,11 @@ impl<'a> Problem<'a> {
         transforms: &'a [Transform],
     ) -> Problem<'a> {
         let n = grid.len();
-        let nf = free.len();
-        let x = DVector::from_iterator(
-            nf,
-            free.iter()
-                .zip(transforms)
-                .map(|(&i, t)| t.to_internal(params[i])),
-        );
+        let x: Vec<f64> = free
+            .iter()
+            .zip(transforms)
+            .map(|(&i, t)| t.to_internal(params[i]))
+            .collect();
         let mut p = Problem {
             plan,
             grid,
@@ -190,12 +205,12 @@ impl<'a> Problem<'a> {
             jacobian_calls: std::cell::Cell::new(0),
             skip_gram: std::cell::Cell::new(0),
         };
-        p.set_params(&x);
+        p.move_to(&x);
         p
     }
 
     /// Internal coordinates of the current point.
-    pub(crate) fn params_internal(&self) -> &DVector<f64> {
+    pub(crate) fn params_internal(&self) -> &[f64] {
         &self.x
     }
 
@@ -227,6 +242,76 @@ impl<'a> Problem<'a> {
             }
         }
         j
+    }
+}
+
+/// A problem's state at its current point (coordinates, model, derivatives, residuals), kept after a
+/// run so that the result can be summarised without evaluating the model again.
+#[derive(Debug, Clone)]
+pub(crate) struct Evaluated {
+    params: Vec<f64>,
+    x: Vec<f64>,
+    z: Vec<Complex64>,
+    jac: Vec<Complex64>,
+    residuals: Vec<f64>,
+    chi_square: f64,
+    ok: bool,
+}
+
+impl Evaluated {
+    /// The full parameter vector of the point.
+    pub(crate) fn params(&self) -> &[f64] {
+        &self.params
+    }
+}
+
+impl<'a> Problem<'a> {
+    /// The state at the current point, giving up the problem.
+    pub(crate) fn into_evaluated(self) -> Evaluated {
+        Evaluated {
+            params: self.params,
+            x: self.x,
+            z: self.z,
+            jac: self.jac,
+            residuals: self.residuals,
+            chi_square: self.chi_square,
+            ok: self.ok,
+        }
+    }
+
+    /// The problem at a point evaluated before on the same data, plan and free parameters: what
+    /// [`Problem::new`] at `e`'s parameters would give, without the evaluation.
+    #[allow(clippy::too_many_arguments)]
+    pub(crate) fn resume(
+        plan: &'a Plan,
+        grid: &'a Grid,
+        data: &'a [Complex64],
+        w_re: &'a [f64],
+        w_im: &'a [f64],
+        free: &'a [usize],
+        transforms: &'a [Transform],
+        e: Evaluated,
+    ) -> Problem<'a> {
+        Problem {
+            plan,
+            grid,
+            data,
+            w_re,
+            w_im,
+            params: e.params,
+            free,
+            transforms,
+            x: e.x,
+            z: e.z,
+            jac: e.jac,
+            ws: plan.workspace(),
+            residuals: e.residuals,
+            chi_square: e.chi_square,
+            scratch_j: RefCell::new(Vec::new()),
+            ok: e.ok,
+            jacobian_calls: std::cell::Cell::new(0),
+            skip_gram: std::cell::Cell::new(0),
+        }
     }
 }
 
@@ -262,8 +347,8 @@ impl Problem<'_> {
         self.ok = self.chi_square.is_finite();
     }
 
-    /// The last of the compressed residuals [0, …, 0, ‖r‖]: ‖r‖, or a huge but finite norm for a
-    /// failed evaluation, so that the step that led there is rejected.
+    /// ‖r‖, or a huge but finite norm for a failed evaluation, so that the step that led there is
+    /// rejected.
     fn residual_norm(&self) -> f64 {
         if self.ok {
             self.chi_square.sqrt()
@@ -272,13 +357,12 @@ impl Problem<'_> {
         }
     }
 
-    /// Writes the compressed Jacobian [R; gᵀ] ((n + 1) × n, column by column) into `out`; zeros where
-    /// the point failed or a derivative is not finite (no slope: the solver stops rather than step on
-    /// garbage).
-    fn compressed_jacobian(&self, out: &mut [f64]) {
+    /// Writes the square core of the current point into `core`; zeros where the point failed or a
+    /// derivative is not finite (no slope: the solver stops rather than step on garbage).
+    fn core(&self, core: &mut Core) {
         self.jacobian_calls.set(self.jacobian_calls.get() + 1);
-        out.fill(0.0);
         if !self.ok {
+            core.clear();
             return;
         }
         let n = self.grid.len();
@@ -289,14 +373,18 @@ impl Problem<'_> {
             let dp = t.derivative(self.x[c]);
             let d = &self.jac[k * n..(k + 1) * n];
             let (re, im) = scratch[2 * n * c..2 * n * (c + 1)].split_at_mut(n);
-            for i in 0..n {
-                re[i] = self.w_re[i] * dp * d[i].re;
-                im[i] = self.w_im[i] * dp * d[i].im;
+            for (((re, im), d), (wr, wi)) in re
+                .iter_mut()
+                .zip(im.iter_mut())
+                .zip(d)
+                .zip(self.w_re.iter().zip(self.w_im))
+            {
+                *re = wr * dp * d.re;
+                *im = wi * dp * d.im;
             }
         }
         let skip = self.skip_gram.get();
-        let gram =
-            super::reduce::compress(&mut scratch, 2 * n, nf, &self.residuals, out, skip == 0);
+        let gram = super::reduce::factor(&mut scratch, 2 * n, nf, &self.residuals, core, skip == 0);
         self.skip_gram.set(match (gram, skip) {
             (true, _) => 0,
             (false, 0) => GRAM_PAUSE,
@@ -304,37 +392,31 @@ impl Problem<'_> {
         });
         // A non-finite derivative spreads through the factorisation; checking the small result is
         // cheaper than checking the Jacobian.
-        if !out.iter().all(|v| v.is_finite()) {
-            out.fill(0.0);
+        if !core.is_finite() {
+            core.clear();
         }
     }
 }
 
-impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
-    type ResidualStorage = Owned<f64, Dyn>;
-    type JacobianStorage = Owned<f64, Dyn, Dyn>;
-    type ParameterStorage = Owned<f64, Dyn>;
-
-    fn set_params(&mut self, x: &DVector<f64>) {
-        self.move_to(x.as_slice());
+impl CoreProblem for Problem<'_> {
+    fn dim(&self) -> usize {
+        self.free.len()
     }
 
-    fn params(&self) -> DVector<f64> {
-        self.x.clone()
+    fn x(&self) -> &[f64] {
+        &self.x
     }
 
-    fn residuals(&self) -> Option<DVector<f64>> {
-        let nf = self.free.len();
-        let mut r = DVector::zeros(nf + 1);
-        r[nf] = self.residual_norm();
-        Some(r)
+    fn residual_norm(&self) -> f64 {
+        Problem::residual_norm(self)
     }
 
-    fn jacobian(&self) -> Option<DMatrix<f64>> {
-        let nf = self.free.len();
-        let mut out = DMatrix::zeros(nf + 1, nf);
-        self.compressed_jacobian(out.as_mut_slice());
-        Some(out)
+    fn set_x(&mut self, x: &[f64]) {
+        self.move_to(x);
+    }
+
+    fn factor(&mut self, core: &mut Core) {
+        self.core(core);
     }
 }
 
@@ -366,14 +448,26 @@ mod tests {
         let t = Transform::for_bounds(1e-3, 1e3, true);
         for x in [-1e308, -700.0, 0.0, 700.0, 1e308] {
             let p = t.to_param(x);
-            assert!(
-                (1e-3 * (1.0 - 1e-12)..=1e3 * (1.0 + 1e-12)).contains(&p),
-                "{x} -> {p}"
-            );
+            assert!((1e-3..=1e3).contains(&p), "{x} -> {p}");
         }
         let t = Transform::for_bounds(0.0, 1.0, false);
         for x in [-1e308, 0.0, 1e308] {
             assert!((0.0..=1.0).contains(&t.to_param(x)));
+        }
+        // Bounds met exactly, also where exp(ln hi) or lo + (hi − lo) rounds past them and σ(x)
+        // rounds to 0 or 1 (|x| above about 37).
+        for (lo, hi, positive) in [
+            (1.0, 30.0, true),
+            (0.7, 0.9, false),
+            (0.3, 0.7, true),
+            (1e-9, 3.3e-3, true),
+            (0.0, 0.3, true),
+        ] {
+            let t = Transform::for_bounds(lo, hi, positive);
+            for x in [-1e3, -40.0, -37.0, 37.0, 40.0, 1e3] {
+                let p = t.to_param(x);
+                assert!((lo..=hi).contains(&p), "{t:?}: {x} -> {p}");
+            }
         }
     }
 }

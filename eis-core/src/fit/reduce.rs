@@ -1,33 +1,72 @@
-//! Compression of a tall least-squares problem to its square core, so that the Levenberg–Marquardt
-//! solver factors an (n + 1) × n matrix per iteration instead of the m × n Jacobian.
+//! The square core of a tall least-squares problem: at a point with residuals r (m of them) and
+//! Jacobian J (m × n, m > n), the n × n upper-triangular R with RᵀR = JᵀJ and the n-vector c with
+//! Rᵀc = Jᵀr, so that ‖Jp − r‖² = ‖Rp − c‖² + (‖r‖² − ‖c‖²) for every step p.
 //!
-//! At a point with residuals r (m of them) and Jacobian J (m × n), let u = r/‖r‖, g = Jᵀu and
-//! P = I − uuᵀ. The solver is handed
-//!
-//! ```text
-//! r̃ = [0, …, 0, ‖r‖]ᵀ   and   J̃ = [R; gᵀ],   R the triangular factor of P·J = J − u·gᵀ.
-//! ```
-//!
-//! Every quantity a trust-region Levenberg–Marquardt step uses is unchanged: J̃ᵀJ̃ = JᵀPJ + ggᵀ = JᵀJ
-//! (P is a projector and JᵀPJ = JᵀJ − ggᵀ), J̃ᵀr̃ = ‖r‖g = Jᵀr, ‖J̃p‖ = ‖Jp‖ for every step p, the column
-//! norms ‖J̃eₖ‖ = ‖Jeₖ‖ that scale the variables, and ‖r̃‖ = ‖r‖. So the iterates are those of the full
-//! problem up to rounding. Because a point's compressed residuals depend only on ‖r‖, a trial point
-//! costs one evaluation of the model; the factorisation is made only where the solver asks for a
-//! Jacobian (accepted points). The triangular factor comes from the Gram matrix by Cholesky when every
-//! column is safely independent of the others, which is the cheaper route, and from Householder QR of
-//! P·J otherwise, so that a badly conditioned J is never squared (Golub & Van Loan, *Matrix
-//! Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
+//! Everything a trust-region Levenberg–Marquardt step uses lives in (R, c, ‖r‖): the damped steps
+//! (solved from [R; √λ·D] by Givens rotations, [`super::lm`]), the gradient Jᵀr = Rᵀc, the predicted
+//! reduction ‖Jp‖ = ‖Rp‖ and the column norms ‖Jeₖ‖ that scale the variables. So the solver never
+//! touches the m × n matrix again, and a trial point costs one evaluation of the model. R comes from the
+//! Gram matrix by Cholesky when every column is safely independent of the others, which is the cheaper
+//! route, and from Householder QR of J otherwise, so that a badly conditioned J is never squared
+//! (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
 
-use crate::dense::dot;
+use crate::dense::{dot, dot4};
+
+/// The square core of one point: see the module documentation.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct Core {
+    /// Number of parameters n.
+    pub n: usize,
+    /// R, n × n upper triangular, column by column: entry (i, k) at `k * n + i`.
+    pub r: Vec<f64>,
+    /// c with Rᵀc = Jᵀr (the first n entries of Qᵀr).
+    pub qtb: Vec<f64>,
+    /// ‖Jeₖ‖, the column norms of J.
+    pub col_norms: Vec<f64>,
+    /// Scratch: Qᵀr on the Householder route (m entries), one row of products on the Gram route.
+    work: Vec<f64>,
+}
+
+impl Core {
+    /// A core for `n` parameters, all zero (no slope: what a failed point reports).
+    pub(crate) fn new(n: usize) -> Core {
+        Core {
+            n,
+            r: vec![0.0; n * n],
+            qtb: vec![0.0; n],
+            col_norms: vec![0.0; n],
+            work: Vec::new(),
+        }
+    }
+
+    /// Sets everything to zero.
+    pub(crate) fn clear(&mut self) {
+        self.r.fill(0.0);
+        self.qtb.fill(0.0);
+        self.col_norms.fill(0.0);
+    }
+
+    /// Whether every entry is finite.
+    pub(crate) fn is_finite(&self) -> bool {
+        self.r
+            .iter()
+            .chain(&self.qtb)
+            .chain(&self.col_norms)
+            .all(|v| v.is_finite())
+    }
+}
 
 /// ‖a‖: a plain sum of squares ([`dot`]), redone scaled by the largest entry only when
 /// that sum left the range where it is exact to round-off (squares of huge entries overflowing, of tiny
 /// ones underflowing).
 #[inline]
-fn norm(a: &[f64]) -> f64 {
+pub(crate) fn norm(a: &[f64]) -> f64 {
     let plain = dot(a, a);
     if plain.is_finite() && plain > 1e-280 {
         return plain.sqrt();
+    }
+    if plain.is_nan() {
+        return plain;
     }
     let big = a.iter().fold(0.0_f64, |m, x| m.max(x.abs()));
     if big == 0.0 || !big.is_finite() {
@@ -38,30 +77,29 @@ fn norm(a: &[f64]) -> f64 {
     big * scaled.sqrt()
 }
 
-/// Writes J̃ = [R; gᵀ] for the point with Jacobian `a` (m rows, n columns, column by column; may be
-/// overwritten) and residuals `r` (m) into `out` ((n + 1) × n, column by column, so entry (i, k) at
-/// `k * (n + 1) + i`). See the module documentation: R comes from the Gram matrix when the columns are
-/// safely independent, from Householder QR otherwise.
+/// Writes the core of the point with Jacobian `a` (m rows, n columns, column by column; may be
+/// overwritten) and residuals `r` (m) into `core`. See the module documentation: R comes from the Gram
+/// matrix when the columns are safely independent, from Householder QR otherwise.
 ///
 /// # Panics
 ///
 /// If the lengths do not match m, n, or m ≤ n.
 /// With `try_gram` false the Gram route is not attempted (a caller that just saw it decline on a
 /// similar Jacobian saves the wasted attempt). Returns whether the Gram route was taken.
-pub(crate) fn compress(
+pub(crate) fn factor(
     a: &mut [f64],
     m: usize,
     n: usize,
     r: &[f64],
-    out: &mut [f64],
+    core: &mut Core,
     try_gram: bool,
 ) -> bool {
     assert!(m > n && a.len() == m * n && r.len() == m, "shapes");
-    assert!(out.len() == (n + 1) * n, "output shape");
-    if try_gram && gram_cholesky(a, m, n, r, out) {
+    assert!(core.n == n && core.r.len() == n * n, "core shape");
+    if try_gram && gram_cholesky(a, m, n, r, core) {
         return true;
     }
-    householder(a, m, n, r, out);
+    householder(a, m, n, r, core);
     false
 }
 
@@ -69,71 +107,78 @@ pub(crate) fn compress(
 /// within 1e-4 (relative) of the span of the others and the factorisation goes through Householder.
 const PIVOT: f64 = 1e-8;
 
-/// J̃ through the Gram matrix: RᵀR = JᵀJ − ggᵀ by Cholesky, the cheaper route (about half the
-/// arithmetic of Householder QR, in independent dot products). Squaring the conditioning is harmless
-/// here because a column that is nearly dependent on the others (pivot below [`PIVOT`] of its squared
-/// norm) sends the factorisation to Householder instead: what is taken has step errors of order
-/// n·ε/PIVOT ≈ 1e-7 relative, and the gradient row gᵀ is exact either way, so the solver's fixed point
-/// is unchanged. Returns false, with `out` to be overwritten, when it declines.
-fn gram_cholesky(a: &[f64], m: usize, n: usize, r: &[f64], out: &mut [f64]) -> bool {
-    let ld = n + 1;
-    let rn = norm(r);
-    let inv = if rn > 0.0 && rn.is_finite() {
-        1.0 / rn
-    } else {
-        0.0
-    };
+/// The core through the Gram matrix: RᵀR = JᵀJ by Cholesky and c = R⁻ᵀ(Jᵀr), the cheaper route (about
+/// half the arithmetic of Householder QR, in independent dot products). Squaring the conditioning is
+/// harmless here because a column that is nearly dependent on the others (pivot below [`PIVOT`] of its
+/// squared norm) sends the factorisation to Householder instead: what is taken has step errors of order
+/// n·ε/PIVOT ≈ 1e-7 relative, and the gradient Jᵀr = Rᵀc is formed from exact dot products either way,
+/// so the solver's fixed point is unchanged. Returns false, with `core` to be overwritten, when it
+/// declines.
+fn gram_cholesky(a: &[f64], m: usize, n: usize, r: &[f64], core: &mut Core) -> bool {
     let col = |k: usize| &a[k * m..(k + 1) * m];
-    for k in 0..n {
-        out[k * ld + n] = dot(col(k), r) * inv;
-    }
+    // Products of column j with columns j..n and with r, four at a time, in `prod`.
+    let prod = &mut core.work;
+    prod.clear();
+    prod.resize(n + 1, 0.0);
+    let out = &mut core.r;
+    // Row j of R is finished before row j + 1 starts (the "up-looking" order), so each entry needs only
+    // rows above it.
     for j in 0..n {
-        let gj = out[j * ld + n];
-        let gjj = dot(col(j), col(j));
-        let mut d = gjj - gj * gj;
+        let cj = col(j);
+        let others = |k: usize| if k < n { col(k) } else { r };
+        let mut k = j;
+        while k + 4 <= n + 1 {
+            let p = dot4(cj, [others(k), others(k + 1), others(k + 2), others(k + 3)]);
+            prod[k..k + 4].copy_from_slice(&p);
+            k += 4;
+        }
+        for (kk, p) in prod.iter_mut().enumerate().take(n + 1).skip(k) {
+            *p = dot(cj, others(kk));
+        }
+        let gjj = prod[j];
+        core.col_norms[j] = gjj.sqrt();
+        let mut d = gjj;
         for i in 0..j {
-            d -= out[j * ld + i] * out[j * ld + i];
+            d -= out[j * n + i] * out[j * n + i];
         }
         if !(d > PIVOT * gjj && d.is_finite()) {
             return false;
         }
         let rjj = d.sqrt();
-        out[j * ld + j] = rjj;
+        out[j * n + j] = rjj;
         for i in j + 1..n {
-            out[j * ld + i] = 0.0;
+            out[j * n + i] = 0.0;
         }
         for k in j + 1..n {
-            let mut v = dot(col(j), col(k)) - gj * out[k * ld + n];
+            let mut v = prod[k];
             for i in 0..j {
-                v -= out[j * ld + i] * out[k * ld + i];
+                v -= out[j * n + i] * out[k * n + i];
             }
-            out[k * ld + j] = v / rjj;
+            out[k * n + j] = v / rjj;
         }
+        // c_j from Rᵀc = Jᵀr, by forward substitution.
+        let mut v = prod[n];
+        for i in 0..j {
+            v -= out[j * n + i] * core.qtb[i];
+        }
+        core.qtb[j] = v / rjj;
     }
     true
 }
 
-/// J̃ through the projection P·J and Householder QR without pivoting (Golub & Van Loan 2013,
-/// algorithm 5.2.1); a zero column leaves a zero on the diagonal of R, which the solver's own pivoted
-/// factorisation handles.
-fn householder(a: &mut [f64], m: usize, n: usize, r: &[f64], out: &mut [f64]) {
-    out.fill(0.0);
-    let ld = n + 1;
-    let mut at = |i: usize, k: usize, v: f64| out[k * ld + i] = v;
-    // g = Jᵀu and P·J = J − u gᵀ, column by column.
-    let rn = norm(r);
-    if rn > 0.0 && rn.is_finite() {
-        let inv = 1.0 / rn;
-        for k in 0..n {
-            let col = &mut a[k * m..(k + 1) * m];
-            let g = dot(col, r) * inv;
-            at(n, k, g);
-            let s = g * inv;
-            for (c, ri) in col.iter_mut().zip(r) {
-                *c -= s * ri;
-            }
-        }
+/// The core through Householder QR of J without pivoting (Golub & Van Loan 2013, algorithm 5.2.1), the
+/// reflectors applied to r as they are made; a zero column leaves a zero on the diagonal of R, which
+/// the solver handles.
+fn householder(a: &mut [f64], m: usize, n: usize, r: &[f64], core: &mut Core) {
+    core.r.fill(0.0);
+    for k in 0..n {
+        core.col_norms[k] = norm(&a[k * m..(k + 1) * m]);
     }
+    // Qᵀr is built in a copy of r, kept with the core so that no call allocates once it is sized.
+    let w = &mut core.work;
+    w.clear();
+    w.extend_from_slice(r);
+    let out = &mut core.r;
     for j in 0..n {
         let (done, rest) = a.split_at_mut((j + 1) * m);
         let v = &mut done[j * m + j..];
@@ -141,7 +186,7 @@ fn householder(a: &mut [f64], m: usize, n: usize, r: &[f64], out: &mut [f64]) {
         // A column this small (or nothing left of it) carries no information: leave it as it is.
         if !(nv > 1e-300 && nv.is_finite()) {
             for k in j + 1..n {
-                at(j, k, rest[(k - j - 1) * m + j]);
+                out[k * n + j] = rest[(k - j - 1) * m + j];
             }
             continue;
         }
@@ -155,16 +200,22 @@ fn householder(a: &mut [f64], m: usize, n: usize, r: &[f64], out: &mut [f64]) {
         }
         v[0] = 1.0;
         let tau = (beta - x0) / beta;
-        at(j, j, beta);
+        out[j * n + j] = beta;
         for k in j + 1..n {
             let col = &mut rest[(k - j - 1) * m + j..(k - j) * m];
             let s = tau * dot(v, col);
             for (c, vi) in col.iter_mut().zip(v.iter()) {
                 *c -= s * vi;
             }
-            at(j, k, col[0]);
+            out[k * n + j] = col[0];
+        }
+        let tail = &mut w[j..];
+        let s = tau * dot(v, tail);
+        for (c, vi) in tail.iter_mut().zip(v.iter()) {
+            *c -= s * vi;
         }
     }
+    core.qtb.copy_from_slice(&w[..n]);
 }
 
 #[cfg(test)]
@@ -188,79 +239,99 @@ mod tests {
         (a, r)
     }
 
-    /// The compressed problem keeps the normal equations, the gradient, the column norms and the
-    /// residual norm of the full one (the identities the module relies on; Golub & Van Loan 2013, §5.3).
-    #[test]
-    fn compression_keeps_normal_equations_gradient_and_norm() {
-        for (m, n) in [(142, 10), (9, 4), (5, 4), (60, 1)] {
-            let (a, r) = case(m, n);
-            let full_j = DMatrix::from_column_slice(m, n, &a);
-            let full_r = nalgebra::DVector::from_column_slice(&r);
-            let mut a2 = a.clone();
-            let mut j = DMatrix::zeros(n + 1, n);
-            compress(&mut a2, m, n, &r, j.as_mut_slice(), true);
-            let mut rr = nalgebra::DVector::zeros(n + 1);
-            rr[n] = full_r.norm();
-            let gram = full_j.transpose() * &full_j;
-            let diff = (j.transpose() * &j - &gram).norm();
-            assert!(diff <= 1e-13 * gram.norm(), "JᵀJ {m}×{n}: {diff}");
-            let g = full_j.transpose() * &full_r;
-            let gt = j.transpose() * &rr;
-            assert!((gt - &g).norm() <= 1e-13 * g.norm(), "Jᵀr {m}×{n}");
-            for k in 0..n {
-                let (a, b) = (j.column(k).norm(), full_j.column(k).norm());
-                assert!((a - b).abs() <= 1e-13 * b, "column norm {k}");
-            }
-            // The first n rows are upper triangular.
-            for c in 0..n {
-                for row in c + 1..n {
-                    assert_eq!(j[(row, c)], 0.0);
-                }
+    /// R (n × n, column by column) of a core as a matrix, and c.
+    fn parts(core: &Core) -> (DMatrix<f64>, nalgebra::DVector<f64>) {
+        (
+            DMatrix::from_column_slice(core.n, core.n, &core.r),
+            nalgebra::DVector::from_column_slice(&core.qtb),
+        )
+    }
+
+    /// The identities the solver relies on: RᵀR = JᵀJ, Rᵀc = Jᵀr, the column norms of J, and R upper
+    /// triangular (Golub & Van Loan 2013, §5.3: the normal equations of a least-squares problem and
+    /// their QR form).
+    fn assert_core(core: &Core, a: &[f64], m: usize, n: usize, r: &[f64], what: &str) {
+        let full_j = DMatrix::from_column_slice(m, n, a);
+        let full_r = nalgebra::DVector::from_column_slice(r);
+        let (rm, c) = parts(core);
+        let gram = full_j.transpose() * &full_j;
+        let diff = (rm.transpose() * &rm - &gram).norm();
+        assert!(diff <= 1e-12 * gram.norm(), "{what}: RᵀR {diff}");
+        let g = full_j.transpose() * &full_r;
+        let gt = rm.transpose() * &c;
+        assert!(
+            (gt - &g).norm() <= 1e-12 * g.norm().max(1e-300),
+            "{what}: Rᵀc"
+        );
+        for k in 0..n {
+            let (got, want) = (core.col_norms[k], full_j.column(k).norm());
+            assert!(
+                (got - want).abs() <= 1e-13 * want,
+                "{what}: column norm {k}"
+            );
+        }
+        for col in 0..n {
+            for row in col + 1..n {
+                assert_eq!(rm[(row, col)], 0.0, "{what}: not triangular");
             }
         }
     }
 
-    /// Both routes give a factor of the same normal equations with the same gradient row; the Gram
+    #[test]
+    fn core_keeps_normal_equations_gradient_and_column_norms() {
+        for (m, n) in [(142, 10), (9, 4), (5, 4), (60, 1), (143, 7)] {
+            let (a, r) = case(m, n);
+            for try_gram in [true, false] {
+                let mut core = Core::new(n);
+                factor(&mut a.clone(), m, n, &r, &mut core, try_gram);
+                assert_core(&core, &a, m, n, &r, &format!("{m}×{n} gram {try_gram}"));
+            }
+        }
+    }
+
+    /// Both routes give the same core up to the signs of R's rows (R is unique up to them); the Gram
     /// route declines a column that is nearly a combination of the others (Golub & Van Loan 2013,
     /// §4.2: Cholesky of the normal equations squares the conditioning).
     #[test]
     fn both_routes_agree_and_the_gram_route_declines_near_dependence() {
         let (m, n) = (142, 10);
         let (a, r) = case(m, n);
-        let full = DMatrix::from_column_slice(m, n, &a);
-        let gram = full.transpose() * &full;
-        let mut via_gram = DMatrix::zeros(n + 1, n);
-        assert!(gram_cholesky(&a, m, n, &r, via_gram.as_mut_slice()));
-        let mut via_qr = DMatrix::zeros(n + 1, n);
-        householder(&mut a.clone(), m, n, &r, via_qr.as_mut_slice());
-        for j in [&via_gram, &via_qr] {
-            assert!((j.transpose() * j - &gram).norm() <= 1e-12 * gram.norm());
+        let mut via_gram = Core::new(n);
+        assert!(gram_cholesky(&a, m, n, &r, &mut via_gram));
+        let mut via_qr = Core::new(n);
+        householder(&mut a.clone(), m, n, &r, &mut via_qr);
+        for i in 0..n {
+            let sign = via_gram.r[i * n + i].signum() * via_qr.r[i * n + i].signum();
+            for k in i..n {
+                let (g, q) = (via_gram.r[k * n + i], sign * via_qr.r[k * n + i]);
+                assert!((g - q).abs() <= 1e-9 * via_gram.col_norms[k], "R {i},{k}");
+            }
+            let (g, q) = (via_gram.qtb[i], sign * via_qr.qtb[i]);
+            assert!((g - q).abs() <= 1e-9 * norm(&r), "c {i}");
         }
-        assert!((via_gram.row(n) - via_qr.row(n)).norm() <= 1e-14 * via_qr.row(n).norm());
         // Column 3 = column 2 + 1e-6 × noise: cond(J) ~ 1e6, too much for the Gram route.
         let mut near = a.clone();
         for i in 0..m {
             near[3 * m + i] = near[2 * m + i] * (1.0 + 1e-6 * a[5 * m + i]);
         }
-        let mut out = DMatrix::zeros(n + 1, n);
-        assert!(!gram_cholesky(&near, m, n, &r, out.as_mut_slice()));
-        let full = DMatrix::from_column_slice(m, n, &near);
-        compress(&mut near.clone(), m, n, &r, out.as_mut_slice(), true);
-        let gram = full.transpose() * &full;
-        assert!((out.transpose() * &out - &gram).norm() <= 1e-12 * gram.norm());
+        let mut core = Core::new(n);
+        assert!(!gram_cholesky(&near, m, n, &r, &mut core));
+        assert!(!factor(&mut near.clone(), m, n, &r, &mut core, true));
+        assert_core(&core, &near, m, n, &r, "nearly dependent");
     }
 
-    /// Residuals exactly zero: nothing to project out, J̃ = [R; 0].
+    /// Residuals exactly zero: c = 0.
     #[test]
-    fn zero_residuals_leave_the_gradient_row_zero() {
+    fn zero_residuals_give_zero_c() {
         let (m, n) = (12, 3);
-        let (mut a, _) = case(m, n);
-        let full_j = DMatrix::from_column_slice(m, n, &a);
-        let mut j = DMatrix::zeros(n + 1, n);
-        compress(&mut a, m, n, &vec![0.0; m], j.as_mut_slice(), true);
-        assert!(j.row(n).iter().all(|g| *g == 0.0));
-        let gram = full_j.transpose() * &full_j;
-        assert!((j.transpose() * &j - &gram).norm() <= 1e-13 * gram.norm());
+        let (a, _) = case(m, n);
+        let zero = vec![0.0; m];
+        for try_gram in [true, false] {
+            let mut core = Core::new(n);
+            factor(&mut a.clone(), m, n, &zero, &mut core, try_gram);
+            assert!(core.qtb.iter().all(|g| *g == 0.0));
+            assert_core(&core, &a, m, n, &zero, "zero residuals");
+        }
     }
 
     /// A zero column (a parameter with no effect) gives a zero diagonal entry and no NaN; so does a
@@ -271,13 +342,14 @@ mod tests {
             let (m, n) = (20, 3);
             let (mut a, r) = case(m, n);
             a[m..2 * m].fill(tiny);
+            let mut core = Core::new(n);
+            factor(&mut a.clone(), m, n, &r, &mut core, true);
+            assert!(core.is_finite(), "{tiny}: {core:?}");
+            assert!(core.r[n + 1].abs() <= 1e-169, "{tiny}");
             let full_j = DMatrix::from_column_slice(m, n, &a);
-            let mut j = DMatrix::zeros(n + 1, n);
-            compress(&mut a, m, n, &r, j.as_mut_slice(), true);
-            assert!(j.iter().all(|x| x.is_finite()), "{tiny}: {j}");
-            assert!(j[(1, 1)].abs() <= 1e-169, "{tiny}");
+            let (rm, _) = parts(&core);
             let gram = full_j.transpose() * &full_j;
-            assert!((j.transpose() * &j - &gram).norm() <= 1e-13 * gram.norm());
+            assert!((rm.transpose() * &rm - &gram).norm() <= 1e-13 * gram.norm());
         }
     }
 
