@@ -58,7 +58,8 @@ pub struct Plan {
 pub struct Workspace {
     /// Parameter ranges of the subtrees on the evaluation stack.
     stack: Vec<(usize, usize)>,
-    /// One impedance row per stack slot, `depth × n_freq`.
+    /// One impedance row per stack slot above the bottom one, `(depth − 1) × n_freq`; the bottom slot
+    /// is the caller's output row.
     slots: Vec<Complex64>,
     /// One row of the grid's length for a parallel combination.
     row: Vec<Complex64>,
@@ -80,22 +81,87 @@ fn recip_smith(z: Complex64) -> Complex64 {
     }
 }
 
-/// Replaces every value of `row` by its reciprocal: z̄/|z|² when every |z|² is a normal number below
-/// 1e300 (impedances from far below µΩ to far beyond TΩ; a loop without branches the compiler can
-/// vectorise), Smith's algorithm for the whole row otherwise.
-fn invert(row: &mut [Complex64]) {
-    let safe = row.iter().fold(true, |ok, z| {
-        let n2 = z.re * z.re + z.im * z.im;
-        ok & (f64::MIN_POSITIVE..1e300).contains(&n2)
-    });
-    if safe {
-        for z in row.iter_mut() {
-            let s = 1.0 / (z.re * z.re + z.im * z.im);
-            *z = Complex64::new(z.re * s, -z.im * s);
-        }
+/// 1/z: z̄/|z|² when |z|² is a normal number below 1e300 (impedances from far below µΩ to far beyond
+/// TΩ; one division), Smith's algorithm otherwise. The choice is made for each value on its own, so a
+/// value's reciprocal never depends on its neighbours in a row.
+#[inline]
+fn recip(z: Complex64) -> Complex64 {
+    let n2 = z.re * z.re + z.im * z.im;
+    if moderate(n2) {
+        let s = 1.0 / n2;
+        Complex64::new(z.re * s, -z.im * s)
     } else {
-        for z in row.iter_mut() {
-            *z = recip_smith(*z);
+        recip_smith(z)
+    }
+}
+
+/// Whether |z|² = `n2` is a normal number below 1e300, so that z̄/|z|² inverts z to full precision.
+#[inline]
+fn moderate(n2: f64) -> bool {
+    (f64::MIN_POSITIVE..1e300).contains(&n2)
+}
+
+/// Two impedances in parallel: Z = z₀z₁/(z₀ + z₁) and the factors ∂Z/∂z₀ = (z₁/(z₀ + z₁))² and
+/// ∂Z/∂z₁ = (z₀/(z₀ + z₁))², with a single division. Used when |z₀|², |z₁|² and |z₀ + z₁|² are all
+/// moderate: then every quotient z/(z₀ + z₁) lies between 1e-304 and 1e304, and Z only overflows where
+/// the exact value does. Otherwise the admittance form with Smith's reciprocals, Z = 1/(1/z₀ + 1/z₁)
+/// and (Z/zᵢ)².
+#[inline(always)]
+fn pair(z0: Complex64, z1: Complex64) -> (Complex64, Complex64, Complex64) {
+    let sum = z0 + z1;
+    let n = sum.re * sum.re + sum.im * sum.im;
+    let (n0, n1) = (z0.re * z0.re + z0.im * z0.im, z1.re * z1.re + z1.im * z1.im);
+    // One range check on the smallest and the largest of the three (a NaN may pass; it gives NaN
+    // either way).
+    let (lo, hi) = (min(min(n0, n1), n), max(max(n0, n1), n));
+    if lo >= f64::MIN_POSITIVE && hi < 1e300 {
+        let s = 1.0 / n;
+        let inv = Complex64::new(sum.re * s, -sum.im * s);
+        let (u0, u1) = (z1 * inv, z0 * inv);
+        (z0 * u0, u0 * u0, u1 * u1)
+    } else {
+        let (y0, y1) = (recip(z0), recip(z1));
+        let zp = recip(y0 + y1);
+        let (r0, r1) = (zp * y0, zp * y1);
+        (zp, r0 * r0, r1 * r1)
+    }
+}
+
+/// The smaller of two values, in one machine instruction (no NaN rule).
+#[inline(always)]
+fn min(a: f64, b: f64) -> f64 {
+    if a < b { a } else { b }
+}
+
+/// The larger of two values, in one machine instruction (no NaN rule).
+#[inline(always)]
+fn max(a: f64, b: f64) -> f64 {
+    if a > b { a } else { b }
+}
+
+/// The bottom row of a combination of `count` stack slots starting at `base`, and the rows of the
+/// other `count − 1` slots, contiguous. Slot 0 is the output row `z`; slot k ≥ 1 is row k − 1 of
+/// `slots`.
+fn frame<'a>(
+    z: &'a mut [Complex64],
+    slots: &'a mut [Complex64],
+    base: usize,
+    count: usize,
+    nf: usize,
+) -> (&'a mut [Complex64], &'a mut [Complex64]) {
+    if base == 0 {
+        (z, &mut slots[..(count - 1) * nf])
+    } else {
+        slots[(base - 1) * nf..(base - 1 + count) * nf].split_at_mut(nf)
+    }
+}
+
+/// Multiplies every row of `d` (rows of `scale`'s length) by `scale`, value by value.
+#[inline]
+fn scale_rows(d: &mut [Complex64], scale: &[Complex64]) {
+    for dp in d.chunks_exact_mut(scale.len()) {
+        for (a, s) in dp.iter_mut().zip(scale) {
+            *a *= *s;
         }
     }
 }
@@ -185,7 +251,7 @@ impl Plan {
                 d
             }
         };
-        slots.resize(self.depth * nf, ZERO);
+        slots.resize(self.depth.saturating_sub(1) * nf, ZERO);
         row.resize(nf, ZERO);
         stack.clear();
         for op in &self.ops {
@@ -193,20 +259,30 @@ impl Plan {
                 Op::Element { kind, first } => {
                     let hi = first + kind.params.len();
                     let slot = stack.len();
-                    (kind.impedance)(
-                        &params[first..hi],
-                        grid,
-                        &mut slots[slot * nf..(slot + 1) * nf],
-                        &mut d[first * nf..hi * nf],
-                    );
+                    let out = match slot {
+                        0 => &mut *z,
+                        _ => &mut slots[(slot - 1) * nf..slot * nf],
+                    };
+                    (kind.impedance)(&params[first..hi], grid, out, &mut d[first * nf..hi * nf]);
                     stack.push((first, hi));
                 }
                 Op::Series { count } => {
                     let base = stack.len() - count;
-                    let (head, rest) = slots[base * nf..stack.len() * nf].split_at_mut(nf);
-                    for child in rest.chunks_exact(nf) {
-                        for (a, b) in head.iter_mut().zip(child) {
-                            *a += *b;
+                    let (head, rest) = frame(z, slots, base, count, nf);
+                    // Two children per pass, added in the same order as one at a time.
+                    let mut children = rest.chunks_exact(nf);
+                    while let Some(a) = children.next() {
+                        match children.next() {
+                            Some(b) => {
+                                for ((h, x), y) in head.iter_mut().zip(a).zip(b) {
+                                    *h = *h + *x + *y;
+                                }
+                            }
+                            None => {
+                                for (h, x) in head.iter_mut().zip(a) {
+                                    *h += *x;
+                                }
+                            }
                         }
                     }
                     let range = (stack[base].0, stack[stack.len() - 1].1);
@@ -215,39 +291,62 @@ impl Plan {
                 }
                 Op::Parallel { count } => {
                     let base = stack.len() - count;
-                    let children = &mut slots[base * nf..stack.len() * nf];
-                    // Admittances of the children, and the combined impedance in `row`.
-                    row.fill(ZERO);
-                    for child in children.chunks_exact_mut(nf) {
-                        invert(child);
-                        for (r, y) in row.iter_mut().zip(child.iter()) {
-                            *r += *y;
-                        }
-                    }
-                    invert(row);
-                    if want_d {
-                        // ∂Z/∂p = (Z·Yᵢ)²·∂Zᵢ/∂p for p in child i.
-                        for (child, &(lo, hi)) in children.chunks_exact_mut(nf).zip(&stack[base..])
-                        {
-                            for (y, r) in child.iter_mut().zip(row.iter()) {
-                                let ratio = *r * *y;
-                                *y = ratio * ratio;
+                    let (head, rest) = frame(z, slots, base, count, nf);
+                    // One pass: the children's admittances Yᵢ, Z = 1/ΣYᵢ into the bottom row and,
+                    // for the derivatives, the factors (Z·Yᵢ)² — child 0's into `row`, the others'
+                    // over their own impedance rows.
+                    if count == 2 {
+                        let rest = &mut rest[..nf];
+                        if want_d {
+                            for ((a, b), s0) in head.iter_mut().zip(rest.iter_mut()).zip(&mut *row)
+                            {
+                                let (zp, f0, f1) = pair(*a, *b);
+                                *a = zp;
+                                *s0 = f0;
+                                *b = f1;
                             }
-                            for dp in d[lo * nf..hi * nf].chunks_exact_mut(nf) {
-                                for (a, s) in dp.iter_mut().zip(child.iter()) {
-                                    *a *= *s;
+                        } else {
+                            for (a, b) in head.iter_mut().zip(rest.iter()) {
+                                *a = pair(*a, *b).0;
+                            }
+                        }
+                    } else {
+                        for i in 0..nf {
+                            let mut sum = recip(head[i]);
+                            let y0 = sum;
+                            for k in 1..count {
+                                let y = recip(rest[(k - 1) * nf + i]);
+                                rest[(k - 1) * nf + i] = y;
+                                sum += y;
+                            }
+                            let zp = recip(sum);
+                            head[i] = zp;
+                            if want_d {
+                                let r0 = zp * y0;
+                                row[i] = r0 * r0;
+                                for k in 1..count {
+                                    let r = zp * rest[(k - 1) * nf + i];
+                                    rest[(k - 1) * nf + i] = r * r;
                                 }
                             }
                         }
                     }
-                    children[..nf].copy_from_slice(row);
+                    if want_d {
+                        // ∂Z/∂p = (Z·Yᵢ)²·∂Zᵢ/∂p for p in child i.
+                        for (k, &(lo, hi)) in stack[base..].iter().enumerate() {
+                            let scale = match k {
+                                0 => &row[..],
+                                _ => &rest[(k - 1) * nf..k * nf],
+                            };
+                            scale_rows(&mut d[lo * nf..hi * nf], scale);
+                        }
+                    }
                     let range = (stack[base].0, stack[stack.len() - 1].1);
                     stack.truncate(base);
                     stack.push(range);
                 }
             }
         }
-        z.copy_from_slice(&slots[..nf]);
     }
 }
 
@@ -312,25 +411,98 @@ pub fn angular(f: f64) -> f64 {
 mod tests {
     use super::*;
 
-    /// Both ways of inverting agree where both are safe, and rows with values whose |z|² would
-    /// overflow or underflow are still inverted to full precision (1/z checked by z·(1/z) = 1).
+    /// Both ways of inverting agree where both are safe, and values whose |z|² would overflow or
+    /// underflow are still inverted to full precision (1/z checked by z·(1/z) = 1).
     #[test]
-    fn rows_invert_safely_at_any_magnitude() {
+    fn values_invert_safely_at_any_magnitude() {
         let typical: Vec<Complex64> = (0..9)
             .map(|k| Complex64::new(1.5 * k as f64 - 4.0, 0.3 + k as f64))
             .collect();
-        let mut fast = typical.clone();
-        invert(&mut fast);
-        for (z, y) in typical.iter().zip(&fast) {
+        for z in &typical {
+            let y = recip(*z);
             assert!((y - recip_smith(*z)).norm() <= 1e-15 * y.norm());
         }
         for extreme in [1e170, 1e-170, 1e300, 1e-300] {
-            let row: Vec<Complex64> = typical.iter().map(|z| z * extreme).collect();
-            let mut inv = row.clone();
-            invert(&mut inv);
-            for (z, y) in row.iter().zip(&inv) {
+            for z in typical.iter().map(|z| z * extreme) {
+                let y = recip(z);
                 let one = z * y;
                 assert!((one - 1.0).norm() < 1e-15, "{extreme}: {z} * {y} = {one}");
+            }
+        }
+    }
+
+    /// The single-division form of two impedances in parallel agrees with the admittance form to
+    /// round-off where both apply, and at magnitudes where |z|² would overflow or underflow the
+    /// fallback still gives Z·(1/z₀ + 1/z₁) = 1 and finite factors.
+    #[test]
+    fn pairs_combine_safely_at_any_magnitude() {
+        let values: Vec<Complex64> = (0..9)
+            .map(|k| Complex64::new(0.5 + 1.5 * k as f64, 0.3 - 0.7 * k as f64))
+            .collect();
+        for z0 in &values {
+            for z1 in &values {
+                let (zp, f0, f1) = pair(*z0, *z1);
+                let y = recip_smith(*z0) + recip_smith(*z1);
+                let want = recip_smith(y);
+                assert!((zp - want).norm() <= 4e-16 * want.norm(), "{z0} | {z1}");
+                for (f, zi) in [(f0, z0), (f1, z1)] {
+                    let r = want * recip_smith(*zi);
+                    assert!((f - r * r).norm() <= 1e-15 * f.norm(), "{z0} | {z1}");
+                }
+            }
+        }
+        for (a, b) in [
+            (1e170, 1.0),
+            (1e-170, 1.0),
+            (1e300, 1e300),
+            (1e-300, 1e-300),
+        ] {
+            for z0 in values.iter().map(|z| z * a) {
+                for z1 in values.iter().map(|z| z * b) {
+                    let (zp, f0, f1) = pair(z0, z1);
+                    let one = zp * (recip_smith(z0) + recip_smith(z1));
+                    assert!((one - 1.0).norm() < 1e-15, "{z0} | {z1}: {zp}");
+                    assert!(f0.is_finite() && f1.is_finite(), "{z0} | {z1}");
+                }
+            }
+        }
+    }
+
+    /// Evaluating a circuit over a whole grid gives, bit for bit, what one-point grids give, Jacobian
+    /// included: no combination of rows may depend on neighbouring frequencies, even where some values
+    /// of a row take the overflow-safe route and others do not.
+    #[test]
+    fn grid_evaluation_is_pointwise() {
+        use crate::circuit::parse;
+        let cases: &[(&str, &[f64])] = &[
+            (
+                "L0 + R0 + Rf|Qf + Rct|Qdl",
+                &[1e-6, 0.05, 0.02, 1e-3, 0.85, 0.1, 0.05, 0.9],
+            ),
+            (
+                "R1|(R2 + C2|(R3 + G3))|Q4",
+                &[50.0, 5.0, 1e-6, 2.0, 8.0, 1e-3, 1e-5, 0.7],
+            ),
+            // |Z_C|² is moderate at low frequencies and underflows above 1e14 rad/s in the same row.
+            ("R1|C1 + L2", &[1e-140, 1e140, 1.0]),
+        ];
+        let omegas: Vec<f64> = (0..=60)
+            .map(|k| 10f64.powf(-10.0 + 0.5 * k as f64))
+            .collect();
+        for (model, p) in cases {
+            let plan = Plan::compile(&parse(model).unwrap());
+            let (nf, np) = (omegas.len(), p.len());
+            let mut z = vec![ZERO; nf];
+            let mut jac = vec![ZERO; nf * np];
+            let mut ws = plan.workspace();
+            plan.eval(p, &Grid::new(&omegas), &mut z, Some(&mut jac), &mut ws);
+            for (i, &w) in omegas.iter().enumerate() {
+                let (mut zi, mut ji) = ([ZERO], vec![ZERO; np]);
+                plan.eval(p, &Grid::new(&[w]), &mut zi, Some(&mut ji), &mut ws);
+                assert_eq!(z[i], zi[0], "{model} at {w}");
+                for k in 0..np {
+                    assert_eq!(jac[k * nf + i], ji[k], "{model} d{k} at {w}");
+                }
             }
         }
     }

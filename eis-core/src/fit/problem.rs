@@ -233,15 +233,15 @@ impl<'a> Problem<'a> {
     /// covariance.
     pub(crate) fn jacobian_in_params(&self) -> DMatrix<f64> {
         let n = self.grid.len();
-        let mut j = DMatrix::zeros(2 * n, self.free.len());
-        for (c, &k) in self.free.iter().enumerate() {
-            let d = &self.jac[k * n..(k + 1) * n];
-            for i in 0..n {
-                j[(i, c)] = self.w_re[i] * d[i].re;
-                j[(n + i, c)] = self.w_im[i] * d[i].im;
+        // Filled in place, column by column, without zeroing first.
+        DMatrix::from_fn(2 * n, self.free.len(), |i, c| {
+            let d = &self.jac[self.free[c] * n..];
+            if i < n {
+                self.w_re[i] * d[i].re
+            } else {
+                self.w_im[i - n] * d[i - n].im
             }
-        }
-        j
+        })
     }
 }
 
