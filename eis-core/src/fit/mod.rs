@@ -6,10 +6,10 @@
 //!   weights are computed from the **data** (see [`Weighting`]); χ² is the sum of squared weighted
 //!   residuals.
 //! - Levenberg–Marquardt (Moré's trust-region algorithm of MINPACK's `lmder`; Moré 1978, Springer LNM
-//!   630, 105), run on the square core of the problem (R with RᵀR = JᵀJ), on internal coordinates that keep every bound: log for positive
-//!   quantities, a logistic map for bounded ones. The Jacobian comes from the compiled plan through the
-//!   chain rule of the transforms. A trial step that evaluates to non-finite numbers is rejected (large
-//!   residuals), never fatal.
+//!   630, 105), run on the square core of the problem (R with RᵀR = JᵀJ), on internal coordinates
+//!   that keep every bound: log for positive quantities, a logistic map for bounded ones. The Jacobian
+//!   comes from the compiled plan through the chain rule of the transforms. A trial step that evaluates
+//!   to non-finite numbers is rejected (large residuals), never fatal.
 //! - Starting values: see [`start`](self) — a time-constant grid with resistances by non-negative least
 //!   squares for circuits of the usual battery blocks, the best distinct grid points as starts, then moves
 //!   that shift one arc elsewhere; a deterministic spread of starts otherwise. A warm start (a previous
@@ -41,10 +41,9 @@ mod stats;
 use crate::circuit::Circuit;
 use crate::eval::{Grid, Plan};
 use crate::spectrum::Spectrum;
-use lm::Solver;
-pub use lm::Termination;
+use lm::{Solver, Termination};
 use num_complex::Complex64;
-use problem::{Problem, Transform};
+use problem::{Point, Problem, Transform};
 pub use stats::{Covariance, covariance, runs_test_z};
 
 /// How residuals are weighted. Weights are computed from the data values.
@@ -397,7 +396,7 @@ fn run_lm(
         &prep.data,
         &prep.w_re,
         &prep.w_im,
-        start.to_vec(),
+        Point::Params(start.to_vec()),
         free,
         transforms,
     );
@@ -721,28 +720,13 @@ fn finish(
     tried: usize,
 ) -> FitResult {
     // The run's last evaluation is reused when it is at the reported parameters.
-    let problem = match run.point.as_ref().filter(|e| e.params() == run.params) {
-        Some(e) => Problem::resume(
-            plan,
-            &prep.grid,
-            &prep.data,
-            &prep.w_re,
-            &prep.w_im,
-            free,
-            transforms,
-            e.clone(),
-        ),
-        None => Problem::new(
-            plan,
-            &prep.grid,
-            &prep.data,
-            &prep.w_re,
-            &prep.w_im,
-            run.params.clone(),
-            free,
-            transforms,
-        ),
+    let at = match run.point.as_ref().filter(|e| e.params() == run.params) {
+        Some(e) => Point::Evaluated(e.clone()),
+        None => Point::Params(run.params.clone()),
     };
+    let problem = Problem::new(
+        plan, &prep.grid, &prep.data, &prep.w_re, &prep.w_im, at, free, transforms,
+    );
     stats::summarise(stats::Summary {
         circuit,
         problem: &problem,

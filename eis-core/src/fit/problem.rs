@@ -165,8 +165,16 @@ const GRAM_PAUSE: u8 = 3;
 /// Residual used in place of a non-finite one, so that a bad trial step is rejected, not fatal.
 const PENALTY: f64 = 1e10;
 
+/// Where a new [`Problem`] starts.
+pub(crate) enum Point {
+    /// At these full parameters, evaluated there.
+    Params(Vec<f64>),
+    /// At a point evaluated before on the same data, plan and free parameters, taken as it is.
+    Evaluated(Evaluated),
+}
+
 impl<'a> Problem<'a> {
-    /// The problem at `params`.
+    /// The problem at `at`.
     #[allow(clippy::too_many_arguments)]
     pub(crate) fn new(
         plan: &'a Plan,
@@ -174,38 +182,56 @@ impl<'a> Problem<'a> {
         data: &'a [Complex64],
         w_re: &'a [f64],
         w_im: &'a [f64],
-        params: Vec<f64>,
+        at: Point,
         free: &'a [usize],
         transforms: &'a [Transform],
     ) -> Problem<'a> {
         let n = grid.len();
-        let x: Vec<f64> = free
-            .iter()
-            .zip(transforms)
-            .map(|(&i, t)| t.to_internal(params[i]))
-            .collect();
+        let (e, evaluate) = match at {
+            Point::Evaluated(e) => (e, false),
+            Point::Params(params) => {
+                let x = free
+                    .iter()
+                    .zip(transforms)
+                    .map(|(&i, t)| t.to_internal(params[i]))
+                    .collect();
+                let e = Evaluated {
+                    params,
+                    x,
+                    z: vec![Complex64::new(0.0, 0.0); n],
+                    jac: vec![Complex64::new(0.0, 0.0); n * plan.n_params()],
+                    residuals: vec![0.0; 2 * n],
+                    chi_square: 0.0,
+                    ok: false,
+                };
+                (e, true)
+            }
+        };
         let mut p = Problem {
             plan,
             grid,
             data,
             w_re,
             w_im,
-            params,
+            params: e.params,
             free,
             transforms,
-            x: x.clone(),
-            z: vec![Complex64::new(0.0, 0.0); n],
-            jac: vec![Complex64::new(0.0, 0.0); n * plan.n_params()],
+            x: e.x,
+            z: e.z,
+            jac: e.jac,
             ws: plan.workspace(),
-            residuals: vec![0.0; 2 * n],
-            chi_square: 0.0,
+            residuals: e.residuals,
+            chi_square: e.chi_square,
             // Allocated on the first request for a Jacobian: only the solver asks for one.
             scratch_j: RefCell::new(Vec::new()),
-            ok: false,
+            ok: e.ok,
             jacobian_calls: std::cell::Cell::new(0),
             skip_gram: std::cell::Cell::new(0),
         };
-        p.move_to(&x);
+        if evaluate {
+            let x = p.x.clone();
+            p.move_to(&x);
+        }
         p
     }
 
@@ -276,41 +302,6 @@ impl<'a> Problem<'a> {
             residuals: self.residuals,
             chi_square: self.chi_square,
             ok: self.ok,
-        }
-    }
-
-    /// The problem at a point evaluated before on the same data, plan and free parameters: what
-    /// [`Problem::new`] at `e`'s parameters would give, without the evaluation.
-    #[allow(clippy::too_many_arguments)]
-    pub(crate) fn resume(
-        plan: &'a Plan,
-        grid: &'a Grid,
-        data: &'a [Complex64],
-        w_re: &'a [f64],
-        w_im: &'a [f64],
-        free: &'a [usize],
-        transforms: &'a [Transform],
-        e: Evaluated,
-    ) -> Problem<'a> {
-        Problem {
-            plan,
-            grid,
-            data,
-            w_re,
-            w_im,
-            params: e.params,
-            free,
-            transforms,
-            x: e.x,
-            z: e.z,
-            jac: e.jac,
-            ws: plan.workspace(),
-            residuals: e.residuals,
-            chi_square: e.chi_square,
-            scratch_j: RefCell::new(Vec::new()),
-            ok: e.ok,
-            jacobian_calls: std::cell::Cell::new(0),
-            skip_gram: std::cell::Cell::new(0),
         }
     }
 }
