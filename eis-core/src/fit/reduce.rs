@@ -10,7 +10,7 @@
 //! route, and from Householder QR of J otherwise, so that a badly conditioned J is never squared
 //! (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
 
-use crate::dense::dot;
+use crate::dense::{dot, dot4};
 
 /// The square core of one point: see the module documentation.
 #[derive(Debug, Clone, Default)]
@@ -103,9 +103,6 @@ pub(crate) fn factor(
     false
 }
 
-/// Number of parameters above which the Gram matrix comes from a general matrix product.
-const GEMM_FROM: usize = 5;
-
 /// Smallest pivot of the Gram route, relative to the squared column norm: below it a column lies
 /// within 1e-4 (relative) of the span of the others and the factorisation goes through Householder.
 const PIVOT: f64 = 1e-8;
@@ -118,37 +115,27 @@ const PIVOT: f64 = 1e-8;
 /// so the solver's fixed point is unchanged. Returns false, with `core` to be overwritten, when it
 /// declines.
 fn gram_cholesky(a: &[f64], m: usize, n: usize, r: &[f64], core: &mut Core) -> bool {
-    // JᵀJ (column k at `prod[k * ld..]`) and Jᵀr (in row n). From six parameters on, JᵀJ comes from
-    // nalgebra's general matrix product, which hands shapes of that size to matrixmultiply's blocked
-    // kernels, chosen for the processor at run time (AVX2/FMA where present): about a third of the
-    // instructions of the dot products below for 8 × 142 columns. Smaller shapes stay with the dot
-    // products, which is what nalgebra would do with them too.
-    let ld = n + 1;
+    let col = |k: usize| &a[k * m..(k + 1) * m];
+    // Products of column j with columns j..n and with r, four at a time, in `prod`.
     let prod = &mut core.work;
     prod.clear();
-    prod.resize(ld * n, 0.0);
-    let col = |k: usize| &a[k * m..(k + 1) * m];
-    if n > GEMM_FROM {
-        use nalgebra::{DMatrixView, DMatrixViewMut};
-        let j = DMatrixView::from_slice(a, m, n);
-        let jt = DMatrixView::from_slice_with_strides(a, n, m, m, 1);
-        let mut g = DMatrixViewMut::from_slice_with_strides_mut(prod, n, n, 1, ld);
-        g.gemm(1.0, &jt, &j, 0.0);
-    } else {
-        for k in 0..n {
-            for i in 0..=k {
-                prod[k * ld + i] = dot(col(i), col(k));
-            }
-        }
-    }
-    for k in 0..n {
-        prod[k * ld + n] = dot(col(k), r);
-    }
+    prod.resize(n + 1, 0.0);
     let out = &mut core.r;
     // Row j of R is finished before row j + 1 starts (the "up-looking" order), so each entry needs only
     // rows above it.
     for j in 0..n {
-        let gjj = prod[j * ld + j];
+        let cj = col(j);
+        let others = |k: usize| if k < n { col(k) } else { r };
+        let mut k = j;
+        while k + 4 <= n + 1 {
+            let p = dot4(cj, [others(k), others(k + 1), others(k + 2), others(k + 3)]);
+            prod[k..k + 4].copy_from_slice(&p);
+            k += 4;
+        }
+        for (kk, p) in prod.iter_mut().enumerate().take(n + 1).skip(k) {
+            *p = dot(cj, others(kk));
+        }
+        let gjj = prod[j];
         core.col_norms[j] = gjj.sqrt();
         let mut d = gjj;
         for i in 0..j {
@@ -163,14 +150,14 @@ fn gram_cholesky(a: &[f64], m: usize, n: usize, r: &[f64], core: &mut Core) -> b
             out[j * n + i] = 0.0;
         }
         for k in j + 1..n {
-            let mut v = prod[k * ld + j];
+            let mut v = prod[k];
             for i in 0..j {
                 v -= out[j * n + i] * out[k * n + i];
             }
             out[k * n + j] = v / rjj;
         }
         // c_j from Rᵀc = Jᵀr, by forward substitution.
-        let mut v = prod[j * ld + n];
+        let mut v = prod[n];
         for i in 0..j {
             v -= out[j * n + i] * core.qtb[i];
         }
