@@ -124,8 +124,8 @@ impl Transform {
     }
 }
 
-/// Residuals r = w ∘ (Z_model − Z_data), real parts then imaginary parts, and their Jacobian with respect
-/// to the internal coordinates of the free parameters.
+/// Residuals r = w ∘ (Z_model − Z_data), real and imaginary parts, and their Jacobian with respect to
+/// the internal coordinates of the free parameters.
 ///
 /// The solver sees the problem through its square core ([`super::reduce`]): R (n × n), c and ‖r‖ for n
 /// free parameters, with the same steps, gradient and residual norm as the full 2·points × n problem;
@@ -142,12 +142,15 @@ pub(crate) struct Problem<'a> {
     pub params: Vec<f64>,
     pub free: &'a [usize],
     pub transforms: &'a [Transform],
+    /// The weights in the order of the residuals: `w_re[i]`, `w_im[i]` side by side.
+    w_rows: Vec<f64>,
     x: Vec<f64>,
     z: Vec<Complex64>,
     /// ∂Z(ωᵢ)/∂p_k at `k * points + i`, all parameters.
     jac: Vec<Complex64>,
     ws: Workspace,
-    /// Full weighted residuals, 2·points.
+    /// Full weighted residuals, 2·points: real and imaginary part of each point side by side (the order
+    /// of the rows of the core's Jacobian; nothing outside the problem reads them).
     residuals: Vec<f64>,
     chi_square: f64,
     /// Scratch for the compression: the weighted real Jacobian in x, column by column.
@@ -213,6 +216,7 @@ impl<'a> Problem<'a> {
             data,
             w_re,
             w_im,
+            w_rows: w_re.iter().zip(w_im).flat_map(|(&a, &b)| [a, b]).collect(),
             params: e.params,
             free,
             transforms,
@@ -322,12 +326,12 @@ impl Problem<'_> {
         );
         let n = self.grid.len();
         let mut ok = true;
-        for i in 0..n {
+        for (i, r) in self.residuals.chunks_exact_mut(2).enumerate().take(n) {
             let d = self.z[i] - self.data[i];
             let (a, b) = (self.w_re[i] * d.re, self.w_im[i] * d.im);
             ok &= a.is_finite() && b.is_finite();
-            self.residuals[i] = a;
-            self.residuals[n + i] = b;
+            r[0] = a;
+            r[1] = b;
         }
         self.chi_square = if ok {
             self.residuals.iter().map(|r| r * r).sum()
@@ -363,16 +367,11 @@ impl Problem<'_> {
         for (c, (&k, t)) in self.free.iter().zip(self.transforms).enumerate() {
             let dp = t.derivative(self.x[c]);
             let d = &self.jac[k * n..(k + 1) * n];
-            let (re, im) = scratch[2 * n * c..2 * n * (c + 1)].split_at_mut(n);
-            for (((re, im), d), (wr, wi)) in re
-                .iter_mut()
-                .zip(im.iter_mut())
-                .zip(d)
-                .zip(self.w_re.iter().zip(self.w_im))
-            {
-                *re = wr * dp * d.re;
-                *im = wi * dp * d.im;
-            }
+            // Rows in the residuals' order: real and imaginary part of each point side by side, as
+            // the derivatives are stored.
+            let d: &[f64] = bytemuck::cast_slice(d);
+            let rows = &mut scratch[2 * n * c..2 * n * (c + 1)];
+            crate::dense::scaled_product(rows, &self.w_rows, d, dp);
         }
         let skip = self.skip_gram.get();
         let gram = super::reduce::factor(&mut scratch, 2 * n, nf, &self.residuals, core, skip == 0);

@@ -3,14 +3,14 @@
 //! Rᵀc = Jᵀr, so that ‖Jp − r‖² = ‖Rp − c‖² + (‖r‖² − ‖c‖²) for every step p.
 //!
 //! Everything a trust-region Levenberg–Marquardt step uses lives in (R, c, ‖r‖): the damped steps
-//! (solved from [R; √λ·D] by Givens rotations, [`super::lm`]), the gradient Jᵀr = Rᵀc, the predicted
+//! (the least-squares solutions of [R; √λ·D]p ≈ [c; 0], [`super::lm`]), the gradient Jᵀr = Rᵀc, the predicted
 //! reduction ‖Jp‖ = ‖Rp‖ and the column norms ‖Jeₖ‖ that scale the variables. So the solver never
 //! touches the m × n matrix again, and a trial point costs one evaluation of the model. R comes from the
 //! Gram matrix by Cholesky when every column is safely independent of the others, which is the cheaper
 //! route, and from Householder QR of J otherwise, so that a badly conditioned J is never squared
 //! (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
 
-use crate::dense::{dot, dot4};
+use crate::dense::{dot, dots4};
 
 /// The square core of one point: see the module documentation.
 #[derive(Debug, Clone, Default)]
@@ -115,55 +115,73 @@ const PIVOT: f64 = 1e-8;
 /// so the solver's fixed point is unchanged. Returns false, with `core` to be overwritten, when it
 /// declines.
 fn gram_cholesky(a: &[f64], m: usize, n: usize, r: &[f64], core: &mut Core) -> bool {
-    let col = |k: usize| &a[k * m..(k + 1) * m];
-    // Products of column j with columns j..n and with r, four at a time, in `prod`.
-    let prod = &mut core.work;
-    prod.clear();
-    prod.resize(n + 1, 0.0);
-    let out = &mut core.r;
-    // Row j of R is finished before row j + 1 starts (the "up-looking" order), so each entry needs only
-    // rows above it.
-    for j in 0..n {
-        let cj = col(j);
-        let others = |k: usize| if k < n { col(k) } else { r };
-        let mut k = j;
-        while k + 4 <= n + 1 {
-            let p = dot4(cj, [others(k), others(k + 1), others(k + 2), others(k + 3)]);
-            prod[k..k + 4].copy_from_slice(&p);
-            k += 4;
-        }
-        for (kk, p) in prod.iter_mut().enumerate().take(n + 1).skip(k) {
-            *p = dot(cj, others(kk));
-        }
-        let gjj = prod[j];
-        core.col_norms[j] = gjj.sqrt();
-        let mut d = gjj;
-        for i in 0..j {
-            d -= out[j * n + i] * out[j * n + i];
-        }
-        if !(d > PIVOT * gjj && d.is_finite()) {
-            return false;
-        }
-        let rjj = d.sqrt();
-        out[j * n + j] = rjj;
-        for i in j + 1..n {
-            out[j * n + i] = 0.0;
-        }
-        for k in j + 1..n {
-            let mut v = prod[k];
-            for i in 0..j {
-                v -= out[j * n + i] * out[k * n + i];
+    pulp::Arch::new().dispatch(GramCholesky { a, m, n, r, core })
+}
+
+/// [`gram_cholesky`]'s arguments, for [`pulp::Arch::dispatch`] to run it compiled for the widest
+/// vectors the processor has.
+struct GramCholesky<'a> {
+    a: &'a [f64],
+    m: usize,
+    n: usize,
+    r: &'a [f64],
+    core: &'a mut Core,
+}
+
+impl pulp::WithSimd for GramCholesky<'_> {
+    type Output = bool;
+
+    #[inline(always)]
+    fn with_simd<S: pulp::Simd>(self, simd: S) -> bool {
+        let GramCholesky { a, m, n, r, core } = self;
+        let col = |k: usize| if k < n { &a[k * m..(k + 1) * m] } else { r };
+        // Products of column j with columns j..n and with r, four at a time, in `prod`.
+        let prod = &mut core.work;
+        prod.clear();
+        prod.resize(n + 1, 0.0);
+        let out = &mut core.r;
+        // Row j of R is finished before row j + 1 starts (the "up-looking" order), so each entry
+        // needs only rows above it.
+        for j in 0..n {
+            let cj = col(j);
+            for k in (j..=n).step_by(4) {
+                let hi = (k + 4).min(n + 1);
+                let mut others: [&[f64]; 4] = [&[]; 4];
+                for (o, c) in others.iter_mut().zip(k..hi) {
+                    *o = col(c);
+                }
+                dots4(simd, cj, &others[..hi - k], &mut prod[k..hi]);
             }
-            out[k * n + j] = v / rjj;
+            let gjj = prod[j];
+            core.col_norms[j] = gjj.sqrt();
+            let mut d = gjj;
+            for i in 0..j {
+                d -= out[j * n + i] * out[j * n + i];
+            }
+            if !(d > PIVOT * gjj && d.is_finite()) {
+                return false;
+            }
+            let rjj = d.sqrt();
+            out[j * n + j] = rjj;
+            for i in j + 1..n {
+                out[j * n + i] = 0.0;
+            }
+            for k in j + 1..n {
+                let mut v = prod[k];
+                for i in 0..j {
+                    v -= out[j * n + i] * out[k * n + i];
+                }
+                out[k * n + j] = v / rjj;
+            }
+            // c_j from Rᵀc = Jᵀr, by forward substitution.
+            let mut v = prod[n];
+            for i in 0..j {
+                v -= out[j * n + i] * core.qtb[i];
+            }
+            core.qtb[j] = v / rjj;
         }
-        // c_j from Rᵀc = Jᵀr, by forward substitution.
-        let mut v = prod[n];
-        for i in 0..j {
-            v -= out[j * n + i] * core.qtb[i];
-        }
-        core.qtb[j] = v / rjj;
+        true
     }
-    true
 }
 
 /// The core through Householder QR of J without pivoting (Golub & Van Loan 2013, algorithm 5.2.1), the
