@@ -106,22 +106,10 @@ pub fn covariance(j: &DMatrix<f64>, chi_square: f64, dof: usize) -> Covariance {
         a.column_mut(k).scale_mut(1.0 / sc);
     }
     let ata = a.tr_mul(&a);
-    let eig = ata.symmetric_eigen();
-    let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
-    let mut undetermined = vec![false; nf];
-    let mut inv = DMatrix::<f64>::zeros(nf, nf);
-    for (e, &lambda) in eig.eigenvalues.iter().enumerate() {
-        let v = eig.eigenvectors.column(e);
-        if lambda <= SINGULAR * lmax || lambda <= 0.0 {
-            for k in 0..nf {
-                if v[k].abs() > 0.1 {
-                    undetermined[k] = true;
-                }
-            }
-            continue;
-        }
-        inv += (v * v.transpose()) / lambda;
-    }
+    let (inv, undetermined) = match certified_inverse(&ata) {
+        Some(inv) => (inv, vec![false; nf]),
+        None => eigen_inverse(ata),
+    };
     let mut cov = vec![0.0; nf * nf];
     for a_ in 0..nf {
         for b in 0..nf {
@@ -146,6 +134,43 @@ pub fn covariance(j: &DMatrix<f64>, chi_square: f64, dof: usize) -> Covariance {
         correlation: corr,
         undetermined,
     }
+}
+
+/// A⁻¹ by Cholesky when that is provably what [`eigen_inverse`] gives: every eigenvalue of the
+/// symmetric A then lies above [`SINGULAR`] times the largest, so none is dropped. The bounds are
+/// λ_max ≤ tr A and λ_min ≥ 1/tr A⁻¹ (the eigenvalues of A⁻¹ are positive and sum to its trace);
+/// a factor of ten is kept in hand for rounding. None when they do not certify it (or A is not
+/// positive definite).
+fn certified_inverse(ata: &DMatrix<f64>) -> Option<DMatrix<f64>> {
+    let inv = ata.clone().cholesky()?.inverse();
+    let trace_inv = inv.trace();
+    let certified =
+        trace_inv.is_finite() && trace_inv > 0.0 && 1.0 / trace_inv > 10.0 * SINGULAR * ata.trace();
+    certified.then_some(inv)
+}
+
+/// The pseudo-inverse of the symmetric A through its eigen-decomposition: directions with an
+/// eigenvalue at or below [`SINGULAR`] times the largest are dropped, and the parameters that take
+/// part in them (component above 0.1) are marked undetermined.
+fn eigen_inverse(ata: DMatrix<f64>) -> (DMatrix<f64>, Vec<bool>) {
+    let nf = ata.ncols();
+    let eig = ata.symmetric_eigen();
+    let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
+    let mut undetermined = vec![false; nf];
+    let mut inv = DMatrix::<f64>::zeros(nf, nf);
+    for (e, &lambda) in eig.eigenvalues.iter().enumerate() {
+        let v = eig.eigenvectors.column(e);
+        if lambda <= SINGULAR * lmax || lambda <= 0.0 {
+            for k in 0..nf {
+                if v[k].abs() > 0.1 {
+                    undetermined[k] = true;
+                }
+            }
+            continue;
+        }
+        inv += (v * v.transpose()) / lambda;
+    }
+    (inv, undetermined)
 }
 
 pub(super) fn summarise(s: Summary<'_>) -> FitResult {
@@ -307,7 +332,34 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
 
 #[cfg(test)]
 mod tests {
-    use super::runs_test_z;
+    use super::{SINGULAR, certified_inverse, eigen_inverse, runs_test_z};
+    use nalgebra::DMatrix;
+
+    /// Where the Cholesky route certifies itself it gives the eigen route's inverse; near singularity
+    /// it declines, and the eigen route drops the direction and marks its parameters.
+    #[test]
+    fn cholesky_covariance_agrees_with_the_eigen_route_or_declines() {
+        let j = DMatrix::from_fn(12, 3, |i, k| {
+            ((i * 7 + k * 5) % 11) as f64 - 4.0 + 0.3 * k as f64
+        });
+        let ata = j.tr_mul(&j);
+        let fast = certified_inverse(&ata).expect("well conditioned");
+        let (slow, undetermined) = eigen_inverse(ata.clone());
+        assert!(undetermined.iter().all(|u| !u));
+        assert!((&fast - &slow).norm() <= 1e-12 * slow.norm());
+
+        // Third column = first + second up to 1e-8: eigenvalue ratio about 1e-16 < SINGULAR.
+        let near = DMatrix::from_fn(12, 3, |i, k| match k {
+            2 => j[(i, 0)] + j[(i, 1)] + 1e-8 * (i % 3) as f64,
+            _ => j[(i, k)],
+        });
+        let ata = near.tr_mul(&near);
+        assert!(certified_inverse(&ata).is_none());
+        let (_, undetermined) = eigen_inverse(ata.clone());
+        assert!(undetermined.iter().all(|u| *u), "{undetermined:?}");
+        let e = ata.symmetric_eigen().eigenvalues;
+        assert!(e.min() <= SINGULAR * e.max());
+    }
 
     #[test]
     fn runs_test_separates_trends_from_noise() {
