@@ -39,6 +39,7 @@ pub(crate) mod start;
 mod stats;
 
 use crate::circuit::Circuit;
+use crate::dense::modulus;
 use crate::eval::{Grid, Plan};
 use crate::spectrum::Spectrum;
 use lm::{Solver, Termination};
@@ -313,7 +314,8 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
         });
     }
     for (i, (&f, z)) in spectrum.frequency_hz.iter().zip(&spectrum.z).enumerate() {
-        if !(f.is_finite() && f > 0.0 && z.re.is_finite() && z.im.is_finite()) || z.norm() == 0.0 {
+        if !(f.is_finite() && f > 0.0 && z.re.is_finite() && z.im.is_finite()) || modulus(*z) == 0.0
+        {
             return Err(FitError::BadPoint {
                 index: i,
                 frequency: f,
@@ -325,7 +327,7 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
             .z
             .iter()
             .map(|z| {
-                let w = 1.0 / z.norm();
+                let w = 1.0 / modulus(*z);
                 (w, w)
             })
             .unzip(),
@@ -333,7 +335,7 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
             .z
             .iter()
             .map(|z| {
-                let floor = 1e-3 * z.norm();
+                let floor = 1e-3 * modulus(*z);
                 (1.0 / z.re.abs().max(floor), 1.0 / z.im.abs().max(floor))
             })
             .unzip(),

@@ -10,7 +10,7 @@
 //! route, and from Householder QR of J otherwise, so that a badly conditioned J is never squared
 //! (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
 
-use crate::dense::{dot, dots4};
+use crate::dense::{axpy, dot, dots4};
 
 /// The square core of one point: see the module documentation.
 #[derive(Debug, Clone, Default)]
@@ -188,52 +188,87 @@ impl pulp::WithSimd for GramCholesky<'_> {
 /// reflectors applied to r as they are made; a zero column leaves a zero on the diagonal of R, which
 /// the solver handles.
 fn householder(a: &mut [f64], m: usize, n: usize, r: &[f64], core: &mut Core) {
-    core.r.fill(0.0);
-    for k in 0..n {
-        core.col_norms[k] = norm(&a[k * m..(k + 1) * m]);
-    }
-    // Qᵀr is built in a copy of r, kept with the core so that no call allocates once it is sized.
-    let w = &mut core.work;
-    w.clear();
-    w.extend_from_slice(r);
-    let out = &mut core.r;
-    for j in 0..n {
-        let (done, rest) = a.split_at_mut((j + 1) * m);
-        let v = &mut done[j * m + j..];
-        let nv = norm(v);
-        // A column this small (or nothing left of it) carries no information: leave it as it is.
-        if !(nv > 1e-300 && nv.is_finite()) {
-            for k in j + 1..n {
-                out[k * n + j] = rest[(k - j - 1) * m + j];
+    pulp::Arch::new().dispatch(Householder { a, m, n, r, core });
+}
+
+/// [`householder`]'s arguments, for [`pulp::Arch::dispatch`].
+struct Householder<'a> {
+    a: &'a mut [f64],
+    m: usize,
+    n: usize,
+    r: &'a [f64],
+    core: &'a mut Core,
+}
+
+impl pulp::WithSimd for Householder<'_> {
+    type Output = ();
+
+    #[inline(always)]
+    fn with_simd<S: pulp::Simd>(self, simd: S) {
+        let Householder { a, m, n, r, core } = self;
+        core.r.fill(0.0);
+        for k in 0..n {
+            core.col_norms[k] = norm(&a[k * m..(k + 1) * m]);
+        }
+        // Qᵀr is built in a copy of r, kept with the core so that no call allocates once it is sized.
+        let w = &mut core.work;
+        w.clear();
+        w.extend_from_slice(r);
+        let out = &mut core.r;
+        let mut s = [0.0; 4];
+        for j in 0..n {
+            let (done, rest) = a.split_at_mut((j + 1) * m);
+            let v = &mut done[j * m + j..];
+            let nv = norm(v);
+            // A column this small (or nothing left of it) carries no information: leave it as it is.
+            if !(nv > 1e-300 && nv.is_finite()) {
+                for k in j + 1..n {
+                    out[k * n + j] = rest[(k - j - 1) * m + j];
+                }
+                continue;
             }
-            continue;
-        }
-        // H = I − τ v vᵀ with v = (x − β e₁)/(x₀ − β), so v₀ = 1, β = −sign(x₀)‖x‖ and τ = (β − x₀)/β ∈
-        // [1, 2]: no product of two small or two large numbers is formed (LAPACK's dlarfg).
-        let x0 = v[0];
-        let beta = if x0 > 0.0 { -nv } else { nv };
-        let scale = 1.0 / (x0 - beta);
-        for vi in v[1..].iter_mut() {
-            *vi *= scale;
-        }
-        v[0] = 1.0;
-        let tau = (beta - x0) / beta;
-        out[j * n + j] = beta;
-        for k in j + 1..n {
-            let col = &mut rest[(k - j - 1) * m + j..(k - j) * m];
-            let s = tau * dot(v, col);
-            for (c, vi) in col.iter_mut().zip(v.iter()) {
-                *c -= s * vi;
+            // H = I − τ v vᵀ with v = (x − β e₁)/(x₀ − β), so v₀ = 1, β = −sign(x₀)‖x‖ and
+            // τ = (β − x₀)/β ∈ [1, 2]: no product of two small or two large numbers is formed
+            // (LAPACK's dlarfg).
+            let x0 = v[0];
+            let beta = if x0 > 0.0 { -nv } else { nv };
+            let scale = 1.0 / (x0 - beta);
+            for vi in v[1..].iter_mut() {
+                *vi *= scale;
             }
-            out[k * n + j] = col[0];
+            v[0] = 1.0;
+            let v = &*v;
+            let tau = (beta - x0) / beta;
+            out[j * n + j] = beta;
+            // The remaining columns and then r (as column n), four products vᵀcₖ per pass over v.
+            for k in (j + 1..=n).step_by(4) {
+                let hi = (k + 4).min(n + 1);
+                {
+                    let mut cols: [&[f64]; 4] = [&[]; 4];
+                    for (c, kk) in cols.iter_mut().zip(k..hi) {
+                        *c = if kk < n {
+                            &rest[(kk - j - 1) * m + j..(kk - j) * m]
+                        } else {
+                            &w[j..]
+                        };
+                    }
+                    dots4(simd, v, &cols[..hi - k], &mut s);
+                }
+                for (kk, &sk) in (k..hi).zip(&s) {
+                    let col = if kk < n {
+                        &mut rest[(kk - j - 1) * m + j..(kk - j) * m]
+                    } else {
+                        &mut w[j..]
+                    };
+                    axpy(simd, -tau * sk, v, col);
+                    if kk < n {
+                        out[kk * n + j] = col[0];
+                    }
+                }
+            }
         }
-        let tail = &mut w[j..];
-        let s = tau * dot(v, tail);
-        for (c, vi) in tail.iter_mut().zip(v.iter()) {
-            *c -= s * vi;
-        }
+        core.qtb.copy_from_slice(&w[..n]);
     }
-    core.qtb.copy_from_slice(&w[..n]);
 }
 
 #[cfg(test)]

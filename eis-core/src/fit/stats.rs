@@ -5,6 +5,7 @@ use super::lm::Termination;
 use super::problem::{Problem, Transform};
 use super::{FitResult, Weighting};
 use crate::circuit::Circuit;
+use crate::dense::modulus;
 use crate::number::format_si;
 use nalgebra::DMatrix;
 use num_complex::Complex64;
@@ -279,9 +280,9 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
     let relative: Vec<Complex64> = model
         .iter()
         .zip(s.prep_data)
-        .map(|(zm, zd)| (zm - zd) / zd.norm())
+        .map(|(zm, zd)| (zm - zd) / modulus(*zd))
         .collect();
-    let max_rel = relative.iter().map(|r| r.norm()).fold(0.0, f64::max);
+    let max_rel = relative.iter().map(|r| modulus(*r)).fold(0.0, f64::max);
     let mut systematic = false;
     if max_rel > 1e-9 {
         let re: Vec<f64> = relative.iter().map(|r| r.re).collect();
