@@ -44,6 +44,12 @@ pub(crate) fn scaled_product(out: &mut [f64], w: &[f64], a: &[f64], s: f64) {
     }
 }
 
+/// The instruction set [`pulp`] found on this processor, detected once.
+pub(crate) fn arch() -> pulp::Arch {
+    static ARCH: std::sync::OnceLock<pulp::Arch> = std::sync::OnceLock::new();
+    *ARCH.get_or_init(pulp::Arch::new)
+}
+
 /// a·bₖ for up to four vectors bₖ at once (each at least as long as a) into `out[..b.len()]`, in the
 /// widest vectors of `simd` (four lanes with fused multiply–add where the processor has them, found at
 /// run time by [`pulp::Arch`]): one pass over a shared by all the products. A Gram matrix is many
@@ -51,38 +57,53 @@ pub(crate) fn scaled_product(out: &mut [f64], w: &[f64], a: &[f64], s: f64) {
 /// grouped by lane, so the last bits differ from [`dot`]'s and from one instruction set to another.
 #[inline(always)]
 pub(crate) fn dots4<S: pulp::Simd>(simd: S, a: &[f64], b: &[&[f64]], out: &mut [f64]) {
-    let k = b.len();
-    assert!(k <= 4 && out.len() >= k, "at most four products");
+    match *b {
+        [] => {}
+        [b0] => out[..1].copy_from_slice(&dots(simd, a, [b0])),
+        [b0, b1] => out[..2].copy_from_slice(&dots(simd, a, [b0, b1])),
+        [b0, b1, b2] => out[..3].copy_from_slice(&dots(simd, a, [b0, b1, b2])),
+        [b0, b1, b2, b3] => out[..4].copy_from_slice(&dots(simd, a, [b0, b1, b2, b3])),
+        _ => panic!("at most four products"),
+    }
+}
+
+/// [`dots4`] for a fixed number of products: two accumulators per product, so that 2N independent
+/// chains of fused multiply–adds hide their latency.
+#[inline(always)]
+fn dots<S: pulp::Simd, const N: usize>(simd: S, a: &[f64], b: [&[f64]; N]) -> [f64; N] {
+    // No closures here (array::from_fn and the like): a closure is compiled for the baseline
+    // processor, and the vector instructions inside it would become calls.
     let (head, tail) = S::as_simd_f64s(a);
+    let mut heads: [&[S::f64s]; N] = [&[]; N];
+    for (h, bc) in heads.iter_mut().zip(&b) {
+        *h = &S::as_simd_f64s(&bc[..a.len()]).0[..head.len()];
+    }
     let zero = simd.splat_f64s(0.0);
-    let mut acc = [zero; 4];
-    let mut heads: [&[S::f64s]; 4] = [&[]; 4];
-    let mut tails: [&[f64]; 4] = [&[]; 4];
-    for (c, bc) in b.iter().enumerate() {
-        let (h, t) = S::as_simd_f64s(&bc[..a.len()]);
-        heads[c] = h;
-        tails[c] = t;
-    }
-    if k == 4 {
-        for (i, x) in head.iter().enumerate() {
-            for c in 0..4 {
-                acc[c] = simd.mul_add_e_f64s(*x, heads[c][i], acc[c]);
-            }
-        }
-    } else {
-        for (i, x) in head.iter().enumerate() {
-            for c in 0..k {
-                acc[c] = simd.mul_add_e_f64s(*x, heads[c][i], acc[c]);
-            }
+    let (mut even, mut odd) = ([zero; N], [zero; N]);
+    let pairs = head.len() / 2;
+    for i in 0..pairs {
+        let (x0, x1) = (head[2 * i], head[2 * i + 1]);
+        for c in 0..N {
+            even[c] = simd.mul_add_e_f64s(x0, heads[c][2 * i], even[c]);
+            odd[c] = simd.mul_add_e_f64s(x1, heads[c][2 * i + 1], odd[c]);
         }
     }
-    for c in 0..k {
-        let mut s = simd.reduce_sum_f64s(acc[c]);
-        for (x, y) in tail.iter().zip(tails[c]) {
+    if head.len() % 2 == 1 {
+        let i = head.len() - 1;
+        for c in 0..N {
+            even[c] = simd.mul_add_e_f64s(head[i], heads[c][i], even[c]);
+        }
+    }
+    let done = a.len() - tail.len();
+    let mut out = [0.0; N];
+    for c in 0..N {
+        let mut s = simd.reduce_sum_f64s(simd.add_f64s(even[c], odd[c]));
+        for (x, y) in tail.iter().zip(&b[c][done..]) {
             s += x * y;
         }
         out[c] = s;
     }
+    out
 }
 
 /// y ← y + α·x over y (x at least as long), in the vectors of `simd`.
@@ -131,7 +152,7 @@ mod tests {
                 }
             }
         }
-        pulp::Arch::new().dispatch(Check);
+        arch().dispatch(Check);
         Check.with_simd(pulp::Scalar);
     }
 
@@ -150,7 +171,7 @@ mod tests {
                 }
             }
         }
-        pulp::Arch::new().dispatch(Check);
+        arch().dispatch(Check);
         Check.with_simd(pulp::Scalar);
     }
 

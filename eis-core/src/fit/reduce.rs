@@ -10,7 +10,7 @@
 //! route, and from Householder QR of J otherwise, so that a badly conditioned J is never squared
 //! (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
 
-use crate::dense::{axpy, dot, dots4};
+use crate::dense::{arch, axpy, dot, dots4};
 
 /// The square core of one point: see the module documentation.
 #[derive(Debug, Clone, Default)]
@@ -115,7 +115,7 @@ const PIVOT: f64 = 1e-8;
 /// so the solver's fixed point is unchanged. Returns false, with `core` to be overwritten, when it
 /// declines.
 fn gram_cholesky(a: &[f64], m: usize, n: usize, r: &[f64], core: &mut Core) -> bool {
-    pulp::Arch::new().dispatch(GramCholesky { a, m, n, r, core })
+    arch().dispatch(GramCholesky { a, m, n, r, core })
 }
 
 /// [`gram_cholesky`]'s arguments, for [`pulp::Arch::dispatch`] to run it compiled for the widest
@@ -188,7 +188,7 @@ impl pulp::WithSimd for GramCholesky<'_> {
 /// reflectors applied to r as they are made; a zero column leaves a zero on the diagonal of R, which
 /// the solver handles.
 fn householder(a: &mut [f64], m: usize, n: usize, r: &[f64], core: &mut Core) {
-    pulp::Arch::new().dispatch(Householder { a, m, n, r, core });
+    arch().dispatch(Householder { a, m, n, r, core });
 }
 
 /// [`householder`]'s arguments, for [`pulp::Arch::dispatch`].
