@@ -12,12 +12,14 @@
 //! ```text
 //! {"tolerance": 1e-10,                       // optional, solver tolerance (default: FitSettings's)
 //!  "repeat": 3,                              // optional, runs per fit; the shortest time is reported
+//!  "auto": false,                            // optional, skip the fits from automatic starts
 //!  "cases": [{"model": "R0 + Rct|Qdl",        // circuit text; initial values in it are ignored
 //!             "frequency_hz": [...], "z_real_ohm": [...], "z_imag_ohm": [...],
 //!             "starts": {"name": [p0, p1, ...], ...}}]}   // optional named starts
 //! ```
 //!
-//! Output (JSON on stdout): for each case, `"auto"` — [`fit`] from automatic starting values — and one
+//! Output (JSON on stdout): for each case, `"auto"` — [`fit`] from automatic starting values, unless
+//! skipped — and one
 //! entry per named start — [`fit_from`], the single local fit from that start. Each entry holds
 //! `params`, `chi_square`, `converged`, `starts_tried`, `evaluations` and `seconds`, the wall time of
 //! that one call measured with `std::time::Instant` around it (parsing and output excluded; with
@@ -97,10 +99,13 @@ fn main() {
             .collect();
         let spectrum = Spectrum::new(floats(&case["frequency_hz"], "frequency_hz"), z);
         let mut res = Map::new();
-        let (r, seconds) = timed(repeat, || {
-            fit(&circuit, &spectrum, &settings, None).unwrap_or_else(|e| panic!("case {k}: {e}"))
-        });
-        res.insert("auto".into(), entry(&r, seconds));
+        if doc["auto"].as_bool().unwrap_or(true) {
+            let (r, seconds) = timed(repeat, || {
+                fit(&circuit, &spectrum, &settings, None)
+                    .unwrap_or_else(|e| panic!("case {k}: {e}"))
+            });
+            res.insert("auto".into(), entry(&r, seconds));
+        }
         if let Some(starts) = case["starts"].as_object() {
             for (name, s) in starts {
                 let s = floats(s, name);
