@@ -300,6 +300,8 @@ struct Prepared {
     data: Vec<Complex64>,
     w_re: Vec<f64>,
     w_im: Vec<f64>,
+    /// The same weights in the order of the solver's residuals: `w_re[i]`, `w_im[i]` side by side.
+    w_rows: Vec<f64>,
 }
 
 fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitError> {
@@ -353,6 +355,7 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
         grid: Grid::new(&omegas),
         omegas,
         data: spectrum.z.clone(),
+        w_rows: w_re.iter().zip(&w_im).flat_map(|(&a, &b)| [a, b]).collect(),
         w_re,
         w_im,
     })
@@ -396,8 +399,7 @@ fn run_lm(
         plan,
         &prep.grid,
         &prep.data,
-        &prep.w_re,
-        &prep.w_im,
+        &prep.w_rows,
         Point::Params(start.to_vec()),
         free,
         transforms,
@@ -727,7 +729,13 @@ fn finish(
         None => Point::Params(run.params.clone()),
     };
     let problem = Problem::new(
-        plan, &prep.grid, &prep.data, &prep.w_re, &prep.w_im, at, free, transforms,
+        plan,
+        &prep.grid,
+        &prep.data,
+        &prep.w_rows,
+        at,
+        free,
+        transforms,
     );
     stats::summarise(stats::Summary {
         circuit,

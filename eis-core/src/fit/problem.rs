@@ -135,15 +135,13 @@ pub(crate) struct Problem<'a> {
     pub plan: &'a Plan,
     pub grid: &'a Grid,
     pub data: &'a [Complex64],
-    /// Weight (square root of the statistical weight) of the real and imaginary residual at each point.
-    pub w_re: &'a [f64],
-    pub w_im: &'a [f64],
+    /// Weight (square root of the statistical weight) of each residual, in their order: real and
+    /// imaginary part of each point side by side.
+    pub w_rows: &'a [f64],
     /// Full parameter vector; the free entries are overwritten from x.
     pub params: Vec<f64>,
     pub free: &'a [usize],
     pub transforms: &'a [Transform],
-    /// The weights in the order of the residuals: `w_re[i]`, `w_im[i]` side by side.
-    w_rows: Vec<f64>,
     x: Vec<f64>,
     z: Vec<Complex64>,
     /// ∂Z(ωᵢ)/∂p_k at `k * points + i`, all parameters.
@@ -178,13 +176,11 @@ pub(crate) enum Point {
 
 impl<'a> Problem<'a> {
     /// The problem at `at`.
-    #[allow(clippy::too_many_arguments)]
     pub(crate) fn new(
         plan: &'a Plan,
         grid: &'a Grid,
         data: &'a [Complex64],
-        w_re: &'a [f64],
-        w_im: &'a [f64],
+        w_rows: &'a [f64],
         at: Point,
         free: &'a [usize],
         transforms: &'a [Transform],
@@ -214,9 +210,7 @@ impl<'a> Problem<'a> {
             plan,
             grid,
             data,
-            w_re,
-            w_im,
-            w_rows: w_re.iter().zip(w_im).flat_map(|(&a, &b)| [a, b]).collect(),
+            w_rows,
             params: e.params,
             free,
             transforms,
@@ -267,9 +261,9 @@ impl<'a> Problem<'a> {
         DMatrix::from_fn(2 * n, self.free.len(), |i, c| {
             let d = &self.jac[self.free[c] * n..];
             if i < n {
-                self.w_re[i] * d[i].re
+                self.w_rows[2 * i] * d[i].re
             } else {
-                self.w_im[i - n] * d[i - n].im
+                self.w_rows[2 * (i - n) + 1] * d[i - n].im
             }
         })
     }
@@ -326,9 +320,13 @@ impl Problem<'_> {
         );
         let n = self.grid.len();
         let mut ok = true;
-        for (i, r) in self.residuals.chunks_exact_mut(2).enumerate().take(n) {
+        let rows = self
+            .residuals
+            .chunks_exact_mut(2)
+            .zip(self.w_rows.chunks_exact(2));
+        for (i, (r, w)) in rows.enumerate().take(n) {
             let d = self.z[i] - self.data[i];
-            let (a, b) = (self.w_re[i] * d.re, self.w_im[i] * d.im);
+            let (a, b) = (w[0] * d.re, w[1] * d.im);
             ok &= a.is_finite() && b.is_finite();
             r[0] = a;
             r[1] = b;
@@ -371,7 +369,7 @@ impl Problem<'_> {
             // the derivatives are stored.
             let d: &[f64] = bytemuck::cast_slice(d);
             let rows = &mut scratch[2 * n * c..2 * n * (c + 1)];
-            crate::dense::scaled_product(rows, &self.w_rows, d, dp);
+            crate::dense::scaled_product(rows, self.w_rows, d, dp);
         }
         let skip = self.skip_gram.get();
         let gram = super::reduce::factor(&mut scratch, 2 * n, nf, &self.residuals, core, skip == 0);
