@@ -21,13 +21,20 @@ pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
     ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7])) + tail
 }
 
-/// |z|: the square root of re² + im² where that sum is a normal number below 1e300 (then it is within
-/// an ulp or two of the exact modulus), `hypot` otherwise (squares that would overflow or underflow).
-/// The library's hypot is several times dearer, and the fit takes a few hundred moduli per spectrum.
+/// Whether |z|² = `n2` is a normal number below 1e300: then z̄/|z|² inverts z and √(|z|²) is its
+/// modulus, both to full precision.
+#[inline]
+pub(crate) fn moderate(n2: f64) -> bool {
+    (f64::MIN_POSITIVE..1e300).contains(&n2)
+}
+
+/// |z|: the square root of re² + im² where that sum is [`moderate`] (then it is within an ulp or two
+/// of the exact modulus), `hypot` otherwise (squares that would overflow or underflow). The library's
+/// hypot is several times dearer, and the fit takes a few hundred moduli per spectrum.
 #[inline]
 pub(crate) fn modulus(z: num_complex::Complex64) -> f64 {
     let n2 = z.re * z.re + z.im * z.im;
-    if (f64::MIN_POSITIVE..1e300).contains(&n2) {
+    if moderate(n2) {
         n2.sqrt()
     } else {
         z.re.hypot(z.im)

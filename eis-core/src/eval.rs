@@ -24,6 +24,7 @@
 //! ```
 
 use crate::circuit::{Circuit, Node};
+use crate::dense::moderate;
 use crate::element::ElementKind;
 pub use crate::element::Grid;
 use num_complex::Complex64;
@@ -93,12 +94,6 @@ fn recip(z: Complex64) -> Complex64 {
     } else {
         recip_smith(z)
     }
-}
-
-/// Whether |z|² = `n2` is a normal number below 1e300, so that z̄/|z|² inverts z to full precision.
-#[inline]
-fn moderate(n2: f64) -> bool {
-    (f64::MIN_POSITIVE..1e300).contains(&n2)
 }
 
 /// Two impedances in parallel: Z = z₀z₁/(z₀ + z₁) and the factors ∂Z/∂z₀ = (z₁/(z₀ + z₁))² and

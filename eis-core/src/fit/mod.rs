@@ -2,9 +2,9 @@
 //!
 //! # Method
 //!
-//! - Residuals: `w ∘ (Z_model − Z_data)`, real parts stacked over imaginary parts (2N residuals). The
-//!   weights are computed from the **data** (see [`Weighting`]); χ² is the sum of squared weighted
-//!   residuals.
+//! - Residuals: `w ∘ (Z_model − Z_data)`, the real and the imaginary part of each point (2N
+//!   residuals). The weights are computed from the **data** (see [`Weighting`]); χ² is the sum of
+//!   squared weighted residuals.
 //! - Levenberg–Marquardt (Moré's trust-region algorithm of MINPACK's `lmder`; Moré 1978, Springer LNM
 //!   630, 105), run on the square core of the problem (R with RᵀR = JᵀJ), on internal coordinates
 //!   that keep every bound: log for positive quantities, a logistic map for bounded ones. The Jacobian

@@ -3,12 +3,12 @@
 //! Rᵀc = Jᵀr, so that ‖Jp − r‖² = ‖Rp − c‖² + (‖r‖² − ‖c‖²) for every step p.
 //!
 //! Everything a trust-region Levenberg–Marquardt step uses lives in (R, c, ‖r‖): the damped steps
-//! (the least-squares solutions of [R; √λ·D]p ≈ [c; 0], [`super::lm`]), the gradient Jᵀr = Rᵀc, the predicted
-//! reduction ‖Jp‖ = ‖Rp‖ and the column norms ‖Jeₖ‖ that scale the variables. So the solver never
-//! touches the m × n matrix again, and a trial point costs one evaluation of the model. R comes from the
-//! Gram matrix by Cholesky when every column is safely independent of the others, which is the cheaper
-//! route, and from Householder QR of J otherwise, so that a badly conditioned J is never squared
-//! (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
+//! (the least-squares solutions of [R; √λ·D]p ≈ [c; 0], [`super::lm`]), the gradient Jᵀr = Rᵀc,
+//! the predicted reduction ‖Jp‖ = ‖Rp‖ and the column norms ‖Jeₖ‖ that scale the variables. So the
+//! solver never touches the m × n matrix again, and a trial point costs one evaluation of the model.
+//! R comes from the Gram matrix by Cholesky when every column is safely independent of the others,
+//! which is the cheaper route, and from Householder QR of J otherwise, so that a badly conditioned J
+//! is never squared (Golub & Van Loan, *Matrix Computations*, 4th ed. 2013, §4.2 and §5.2–5.3).
 
 use crate::dense::{arch, axpy, dot, dots4};
 

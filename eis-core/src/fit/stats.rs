@@ -90,9 +90,10 @@ pub struct Covariance {
 
 /// Covariance `s²·(JᵀJ)⁻¹` of least-squares estimates from the (weighted) Jacobian `j` of the residuals
 /// at the optimum, with `s² = chi_square/dof` (Press et al., Numerical Recipes, 3rd ed. 2007, §15.5,
-/// from memory). JᵀJ is formed on column-scaled J and inverted through its eigen-decomposition;
+/// from memory). JᵀJ is formed on column-scaled J and inverted through its eigen-decomposition:
 /// directions with an eigenvalue below 1e-13 of the largest are dropped and the parameters that take
-/// part in them reported as undetermined.
+/// part in them reported as undetermined. Where trace bounds prove that no direction would be
+/// dropped, the same inverse is taken by Cholesky, which is cheaper.
 pub fn covariance(j: &DMatrix<f64>, chi_square: f64, dof: usize) -> Covariance {
     let nf = j.ncols();
     let reduced = chi_square / dof.max(1) as f64;
