@@ -1,5 +1,6 @@
 //! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
 
+mod bad_input;
 mod campaign;
 mod check;
 mod convert;
