@@ -246,6 +246,69 @@ pub static KINDS: &[ElementKind] = &[
         impedance: gerischer,
         capacitive: false,
     },
+    ElementKind {
+        symbol: "Pe",
+        name: "porous electrode, ionic rail (uniform transmission line)",
+        formula: "sqrt(Rion z) coth(sqrt(Rion/z)), z = Rct/(1 + Rct Q (jw)^n)",
+        params: &[
+            positive(
+                "Rion",
+                "Ohm",
+                1.0,
+                "ionic resistance of the pore electrolyte across the electrode",
+            ),
+            positive(
+                "Rct",
+                "Ohm",
+                10.0,
+                "charge-transfer resistance of the whole electrode surface",
+            ),
+            positive(
+                "Q",
+                "F s^(n-1)",
+                1e-3,
+                "double-layer CPE coefficient of the whole surface",
+            ),
+            EXPONENT,
+        ],
+        impedance: porous::one_rail,
+        capacitive: false,
+    },
+    ElementKind {
+        symbol: "Pm",
+        name: "porous electrode, ionic and electronic rails (uniform transmission line)",
+        formula: "P (1 + 2/(s sinh s)) + M coth(s)/s, P = Rion Rel/(Rion+Rel), \
+                  M = (Rion^2+Rel^2)/(Rion+Rel), s = sqrt((Rion+Rel)/z), z = Rct/(1 + Rct Q (jw)^n)",
+        params: &[
+            positive(
+                "Rion",
+                "Ohm",
+                1.0,
+                "ionic resistance of the pore electrolyte across the electrode",
+            ),
+            positive(
+                "Rel",
+                "Ohm",
+                0.1,
+                "electronic resistance of the solid across the electrode",
+            ),
+            positive(
+                "Rct",
+                "Ohm",
+                10.0,
+                "charge-transfer resistance of the whole electrode surface",
+            ),
+            positive(
+                "Q",
+                "F s^(n-1)",
+                1e-3,
+                "double-layer CPE coefficient of the whole surface",
+            ),
+            EXPONENT,
+        ],
+        impedance: porous::two_rails,
+        capacitive: false,
+    },
 ];
 
 /// Looks up a kind by its exact symbol.
@@ -260,6 +323,8 @@ pub fn kind_for_name(name: &str) -> Option<&'static ElementKind> {
         .filter(|k| name.starts_with(k.symbol))
         .max_by_key(|k| k.symbol.len())
 }
+
+mod porous;
 
 const J: Complex64 = Complex64::new(0.0, 1.0);
 const ZERO: Complex64 = Complex64::new(0.0, 0.0);
