@@ -300,12 +300,12 @@ mod tests {
     /// Rion·Rel/(Rion + Rel) in series.
     #[test]
     fn high_frequency_branch() {
-        let (ri, rct, q) = (3.0, 10.0, 1e-3);
-        let w = 1e7;
+        let (ri, rct, q): (f64, f64, f64) = (3.0, 10.0, 1e-3);
+        let w: f64 = 1e7;
         let z = at("Pe", &[ri, rct, q, 1.0], w);
         let phase = z.im.atan2(z.re).to_degrees();
         assert!((phase + 45.0).abs() < 0.01, "phase {phase}");
-        assert!((z.norm() - (ri / (q * w) as f64).sqrt()).abs() < 1e-3 * z.norm());
+        assert!((z.norm() - (ri / (q * w)).sqrt()).abs() < 1e-3 * z.norm());
         let re = 0.7;
         let z2 = at("Pm", &[ri, re, rct, q, 1.0], 1e12);
         let limit = ri * re / (ri + re);
