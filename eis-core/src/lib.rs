@@ -1,5 +1,5 @@
 //! Computation core of the EIS toolkit: a circuit language of our own, compiled impedance evaluation with
-//! analytic derivatives, simulation, and (in later modules) fitting, validation, DRT and campaign trends.
+//! analytic derivatives, simulation, fitting, validation, DRT and campaign trends.
 //!
 //! # Conventions
 //!

@@ -20,7 +20,8 @@ fn fitted(model: &str, truth: &[f64], noise: Option<Noise>) -> (eis_core::Circui
 }
 
 /// Brug et al. 1984 (J. Electroanal. Chem. 176, 275), faradaic case: Q = 1e-5 S·s^n, n = 0.8,
-/// R_s = 10 Ω, R_ct = 100 Ω gives C = 9.76454e-7 F (value derived in REFERENCES.md §3).
+/// R_s = 10 Ω, R_ct = 100 Ω gives C = 9.76454e-7 F (value derived from Brug's formula
+/// C = Q^(1/n)·(1/R_s + 1/R_ct)^((n−1)/n)).
 #[test]
 fn brug_effective_capacitance() {
     let (c, r) = fitted("R0 + Rct|Qdl", &[10.0, 100.0, 1e-5, 0.8], None);
@@ -28,7 +29,8 @@ fn brug_effective_capacitance() {
     assert_eq!(d.arcs.len(), 1);
     let cap = d.arcs[0].capacitance.value;
     assert!((cap - 9.76454e-7).abs() < 1e-5 * 9.76454e-7, "{cap}");
-    // Its time constant is (RQ)^(1/n) and the apex frequency 1/(2πτ) (REFERENCES.md §2).
+    // Its time constant is (RQ)^(1/n) and the apex frequency 1/(2πτ) (Cole & Cole 1941, J. Chem. Phys. 9, 341, from
+    // memory).
     let tau = (100.0f64 * 1e-5).powf(1.0 / 0.8);
     assert!((d.arcs[0].time_constant.value - tau).abs() < 1e-8 * tau);
     assert_eq!(d.arcs[0].role, Role::ChargeTransfer);

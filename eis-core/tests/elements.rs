@@ -25,7 +25,8 @@ fn omegas() -> impl Iterator<Item = f64> {
     (0..=70).map(|k| angular(10f64.powf(-3.0 + k as f64 * 0.1)))
 }
 
-/// Each element against its defining formula (REFERENCES.md §1; element table of the circuit language),
+/// Each element against its defining formula (Bard & Faulkner 2001, Electrochemical Methods, 2nd ed., §10.3–10.4,
+/// and Gerischer 1951, Z. Phys. Chem. 198, 286, both from memory; the element table of the circuit language),
 /// evaluated directly with num-complex, over 1 mHz–10 kHz where the direct formulas are safe.
 #[test]
 fn elements_match_their_closed_forms() {
@@ -60,7 +61,8 @@ fn elements_match_their_closed_forms() {
     }
 }
 
-/// Limits of the finite diffusion elements (REFERENCES.md §1, derived there):
+/// Limits of the finite diffusion elements (derived from the closed forms, tanh s/s → 1 and coth s/s →
+/// 1/s² + 1/3 as s → 0):
 /// transmissive → R as ω → 0; reflective → R/3 + 1/(jωC_L) with C_L = τ/R as ω → 0;
 /// both → R/√(jωτ) as ω → ∞.
 #[test]
@@ -83,7 +85,7 @@ fn finite_diffusion_limits() {
     }
 }
 
-/// Semi-infinite Warburg: σ(1−j)/√ω ≡ A_W/√(jω) with A_W = √2·σ (REFERENCES.md §1, derived), and the
+/// Semi-infinite Warburg: σ(1−j)/√ω ≡ A_W/√(jω) with A_W = √2·σ (derived: (1 − j)/√ω = √2/√(jω)), and the
 /// high-frequency limit of the transmissive element with σ = R/√(2τ).
 #[test]
 fn warburg_conventions() {
@@ -105,7 +107,7 @@ fn warburg_conventions() {
 }
 
 /// Gerischer element: the −Z″ peak lies at ωτ = √3, where Z = R(√6/4 − j/(2√2))
-/// (Boukamp & Bouwmeester 2003, Solid State Ionics 157, 29, from memory; value derived in REFERENCES.md).
+/// (Boukamp & Bouwmeester 2003, Solid State Ionics 157, 29, from memory; value derived from the closed form).
 #[test]
 fn gerischer_peak() {
     let (r, tau) = (8.0, 1e-3);
@@ -124,7 +126,7 @@ fn gerischer_peak() {
     }
 }
 
-/// CPE with n = 1 is a capacitor and with n = 0 a resistor of 1/Q (REFERENCES.md §1).
+/// CPE with n = 1 is a capacitor and with n = 0 a resistor of 1/Q (common practice).
 #[test]
 fn cpe_limits() {
     for w in omegas() {
@@ -134,7 +136,7 @@ fn cpe_limits() {
 }
 
 /// R|Q arc apex at ω = (RQ)^(−1/n), where Z = R/2 − j(R/2)·tan(nπ/4); check R = 100 Ω, Q = 1e-5,
-/// n = 0.8 gives ω = 5623.413 rad/s and −Z″ = 36.32713 Ω (REFERENCES.md §2, derived; Cole & Cole 1941,
+/// n = 0.8 gives ω = 5623.413 rad/s and −Z″ = 36.32713 Ω (derived from the closed form; Cole & Cole 1941,
 /// J. Chem. Phys. 9, 341, from memory, for the ZARC form).
 #[test]
 fn rq_apex() {
@@ -148,7 +150,7 @@ fn rq_apex() {
 }
 
 /// Randles circuit without diffusion, R_s = 10 Ω, R_ct = 100 Ω, C_dl = 20 µF: apex at ω = 1/(R_ct C_dl),
-/// f = 79.5775 Hz, with Z = 60 − 50j Ω (REFERENCES.md §2, derived; Bard & Faulkner 2001, Electrochemical
+/// f = 79.5775 Hz, with Z = 60 − 50j Ω (derived from the closed form; Bard & Faulkner 2001, Electrochemical
 /// Methods, §10.4, from memory).
 #[test]
 fn randles_apex() {
@@ -160,7 +162,7 @@ fn randles_apex() {
 
 /// Randles with a σ-Warburg: at low frequency the 45° line extrapolates to R_s + R_ct − 2σ²C_dl on the
 /// real axis (Sluyters 1960, via Bard & Faulkner 2001 §10.4, from memory); check σ = 50 Ω·s^−½ gives
-/// 109.9 Ω for R_s = 10, R_ct = 100, C_dl = 20 µF (REFERENCES.md §2, derived).
+/// 109.9 Ω for R_s = 10, R_ct = 100, C_dl = 20 µF (derived from the closed form).
 #[test]
 fn randles_warburg_intercept() {
     let (rs, rct, sigma, c) = (10.0, 100.0, 50.0, 20e-6);

@@ -2,7 +2,8 @@
 
 use eis_tests::{eis, scratch};
 
-/// An RC element's DRT is R·δ(ln τ − ln RC): one peak at τ = RC holding R (REFERENCES.md §5).
+/// An RC element's DRT is R·δ(ln τ − ln RC): one peak at τ = RC holding R (by the definition of the DRT,
+/// Z = R∞ + ∫ γ(ln τ)/(1 + jωτ) d ln τ; common practice).
 #[test]
 fn drt_of_an_rc_reports_one_peak_as_json_and_csv() {
     let dir = scratch("drt-rc");

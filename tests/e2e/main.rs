@@ -1,4 +1,5 @@
-//! End-to-end tests: the real `eis` binary on the files in `circuits/` and `test-spectra/`.
+//! End-to-end tests: the real `eis` binary on the circuit files in `circuits/`, spectra it simulates, and
+//! the bad-input corpus in `tests/bad-input/`.
 
 mod bad_input;
 mod campaign;
