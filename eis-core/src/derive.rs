@@ -126,22 +126,10 @@ fn limit(c: &Circuit, node: &Node, p: &[f64], high: bool) -> Lim {
         Node::Element(i) => {
             let e = &c.elements[*i];
             let q = &p[e.first_param..e.first_param + e.kind.params.len()];
-            match (e.kind.symbol, high) {
-                ("R", _) => fin(q[0]),
-                ("C", true) => fin(0.0),
-                ("C", false) => open(0.0),
-                ("L", true) => open(0.0),
-                ("L", false) => fin(0.0),
-                ("Q", _) if q[1] == 0.0 => fin(1.0 / q[0]),
-                ("Q", true) => fin(0.0),
-                ("Q", false) => open(f64::INFINITY),
-                ("W", true) => fin(0.0),
-                ("W", false) => open(f64::INFINITY),
-                ("Wt", true) | ("Wr", true) | ("G", true) => fin(0.0),
-                ("Wt", false) | ("G", false) => fin(q[0]),
-                ("Wr", false) => open(q[0] / 3.0),
-                // A kind added later without a limit here: be honest and call the limit unknown.
-                _ => open(f64::NAN),
+            let l = (e.kind.limit)(q, high);
+            Lim {
+                real: l.real,
+                open: l.open,
             }
         }
         Node::Series(ch) => {

@@ -99,6 +99,33 @@ impl Grid {
 /// table, `z` the length of the grid and `dz` their product.
 pub type ImpedanceFn = fn(&[f64], &Grid, &mut [Complex64], &mut [Complex64]);
 
+/// The impedance of an element in one frequency limit (ω → 0 or ω → ∞), as far as the real part
+/// goes: `real` is the limit of Z′, and `open` says that |Z| grows without bound there (a capacitor at
+/// direct current, an inductor at high frequency), so that the element blocks that limit.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Limit {
+    /// Limit of the real part, Ω (may be infinite, as for a CPE at direct current).
+    pub real: f64,
+    /// Whether |Z| diverges in this limit.
+    pub open: bool,
+}
+
+impl Limit {
+    /// A finite impedance with real part `real` and no diverging imaginary part.
+    pub const fn finite(real: f64) -> Limit {
+        Limit { real, open: false }
+    }
+
+    /// A diverging impedance whose real part tends to `real`.
+    pub const fn open(real: f64) -> Limit {
+        Limit { real, open: true }
+    }
+}
+
+/// Signature of an element's limit function: `(params, high)` gives the [`Limit`] of Z as ω → ∞
+/// (`high`) or ω → 0.
+pub type LimitFn = fn(&[f64], bool) -> Limit;
+
 /// One kind of circuit element.
 #[derive(Debug, Clone, Copy)]
 pub struct ElementKind {
@@ -112,6 +139,9 @@ pub struct ElementKind {
     pub params: &'static [ParamInfo],
     /// Impedance and analytic derivatives.
     pub impedance: ImpedanceFn,
+    /// Its limits at direct current and at infinite frequency (ohmic and DC resistances of a circuit
+    /// are computed from these).
+    pub limit: LimitFn,
     /// Whether the element behaves like a capacitor in parallel with a resistor to form an arc
     /// (used to recognise arcs for derived battery quantities).
     pub capacitive: bool,
@@ -176,6 +206,7 @@ pub static KINDS: &[ElementKind] = &[
         formula: "R",
         params: &[positive("R", "Ohm", 10.0, "resistance")],
         impedance: resistor,
+        limit: |p, _| Limit::finite(p[0]),
         capacitive: false,
     },
     ElementKind {
@@ -184,6 +215,13 @@ pub static KINDS: &[ElementKind] = &[
         formula: "1/(jwC)",
         params: &[positive("C", "F", 1e-5, "capacitance")],
         impedance: capacitor,
+        limit: |_, high| {
+            if high {
+                Limit::finite(0.0)
+            } else {
+                Limit::open(0.0)
+            }
+        },
         capacitive: true,
     },
     ElementKind {
@@ -192,6 +230,13 @@ pub static KINDS: &[ElementKind] = &[
         formula: "jwL",
         params: &[positive("L", "H", 1e-6, "inductance")],
         impedance: inductor,
+        limit: |_, high| {
+            if high {
+                Limit::open(0.0)
+            } else {
+                Limit::finite(0.0)
+            }
+        },
         capacitive: false,
     },
     ElementKind {
@@ -203,6 +248,7 @@ pub static KINDS: &[ElementKind] = &[
             EXPONENT,
         ],
         impedance: cpe,
+        limit: cpe_limit,
         capacitive: true,
     },
     ElementKind {
@@ -211,6 +257,13 @@ pub static KINDS: &[ElementKind] = &[
         formula: "sigma (1-j)/sqrt(w)",
         params: &[positive("sigma", "Ohm s^-1/2", 10.0, "Warburg coefficient")],
         impedance: warburg,
+        limit: |_, high| {
+            if high {
+                Limit::finite(0.0)
+            } else {
+                Limit::open(f64::INFINITY)
+            }
+        },
         capacitive: false,
     },
     ElementKind {
@@ -222,6 +275,7 @@ pub static KINDS: &[ElementKind] = &[
             positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
         ],
         impedance: diffusion_transmissive,
+        limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
         capacitive: false,
     },
     ElementKind {
@@ -233,6 +287,13 @@ pub static KINDS: &[ElementKind] = &[
             positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
         ],
         impedance: diffusion_reflective,
+        limit: |p, high| {
+            if high {
+                Limit::finite(0.0)
+            } else {
+                Limit::open(p[0] / 3.0)
+            }
+        },
         capacitive: false,
     },
     ElementKind {
@@ -244,6 +305,7 @@ pub static KINDS: &[ElementKind] = &[
             positive("tau", "s", 1e-3, "Gerischer time constant"),
         ],
         impedance: gerischer,
+        limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
         capacitive: false,
     },
     ElementKind {
@@ -272,6 +334,7 @@ pub static KINDS: &[ElementKind] = &[
             EXPONENT,
         ],
         impedance: porous::one_rail,
+        limit: porous::one_rail_limit,
         capacitive: false,
     },
     ElementKind {
@@ -307,6 +370,7 @@ pub static KINDS: &[ElementKind] = &[
             EXPONENT,
         ],
         impedance: porous::two_rails,
+        limit: porous::two_rails_limit,
         capacitive: false,
     },
 ];
@@ -365,6 +429,15 @@ fn cpe(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
         *zi = v;
         *dqi = v * minus_inv_q;
         *dni = v * Complex64::new(-ln_w, -FRAC_PI_2);
+    }
+}
+
+fn cpe_limit(p: &[f64], high: bool) -> Limit {
+    match (p[1] == 0.0, high) {
+        // n = 0: a resistor of 1/Q at every frequency.
+        (true, _) => Limit::finite(1.0 / p[0]),
+        (false, true) => Limit::finite(0.0),
+        (false, false) => Limit::open(f64::INFINITY),
     }
 }
 
@@ -611,6 +684,51 @@ mod tests {
                         kind.params[k].name,
                         dz[k],
                         fd
+                    );
+                }
+            }
+        }
+    }
+
+    /// Every kind's limit function agrees with its impedance evaluated far out, at ω = 1e-12 and
+    /// 1e16 rad/s (a consistency check of the table; the limits themselves are the closed forms'
+    /// ω → 0 and ω → ∞ limits, derived from the formulas in the table).
+    #[test]
+    fn every_kind_limit_matches_its_impedance() {
+        for kind in KINDS {
+            let p = typical(kind);
+            for (w, high) in [(1e-12, false), (1e16, true)] {
+                let (z, _) = eval(kind, &p, w);
+                let l = (kind.limit)(&p, high);
+                let scale = 1.0
+                    + if l.real.is_finite() {
+                        l.real.abs()
+                    } else {
+                        0.0
+                    };
+                if l.open {
+                    assert!(
+                        z.norm() > 1e3 * scale,
+                        "{} at w={w}: {z} should diverge",
+                        kind.symbol
+                    );
+                }
+                if l.real.is_finite() {
+                    assert!(
+                        (z.re - l.real).abs() < 1e-3 * scale,
+                        "{} at w={w}: Re Z = {} vs limit {}",
+                        kind.symbol,
+                        z.re,
+                        l.real
+                    );
+                    if !l.open {
+                        assert!(z.im.abs() < 1e-3 * scale, "{} at w={w}: {z}", kind.symbol);
+                    }
+                } else {
+                    assert!(
+                        z.re > 1e3,
+                        "{} at w={w}: {z} should have a diverging real part",
+                        kind.symbol
                     );
                 }
             }

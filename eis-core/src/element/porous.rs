@@ -10,7 +10,7 @@
 //! is the interface R_ct ∥ CPE itself. Z is symmetric in Rion and Rel, so a fit alone cannot tell the
 //! two rails apart: name them from what the cell is made of.
 
-use super::{COTH_OVER_S, Grid, series};
+use super::{COTH_OVER_S, Grid, Limit, series};
 use num_complex::Complex64;
 use std::f64::consts::FRAC_PI_2;
 
@@ -138,6 +138,39 @@ pub(super) fn one_rail(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Compl
 /// The two-rail line (`Pm`): parameters Rion, Rel, Rct, Q, n.
 pub(super) fn two_rails(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
     porous(true, p, g, z, dz);
+}
+
+/// The line's impedance for a frequency-independent interface impedance `zint` (its value at ω → 0 or
+/// ω → ∞), real for a real `zint`.
+fn line_at(ri: f64, re: f64, zint: f64) -> f64 {
+    let sum = ri + re;
+    if zint == 0.0 {
+        return ri * re / sum;
+    }
+    let u = Complex64::new(sum / zint, 0.0);
+    let (f, _, h, _) = line_shapes(u);
+    zint + ri * re / sum * (1.0 + 2.0 * h.re) + (ri * ri + re * re) / sum * f.re
+}
+
+/// Limits of a line: at direct current the interface is its resistance Rct (or Rct ∥ 1/Q for n = 0),
+/// at infinite frequency the double layer shorts it (unless n = 0).
+fn limit(ri: f64, re: f64, rct: f64, q: f64, n: f64, high: bool) -> Limit {
+    let zint = match (n == 0.0, high) {
+        (true, _) => rct / (1.0 + rct * q),
+        (false, true) => 0.0,
+        (false, false) => rct,
+    };
+    Limit::finite(line_at(ri, re, zint))
+}
+
+/// [`Limit`]s of the one-rail line.
+pub(super) fn one_rail_limit(p: &[f64], high: bool) -> Limit {
+    limit(p[0], 0.0, p[1], p[2], p[3], high)
+}
+
+/// [`Limit`]s of the two-rail line.
+pub(super) fn two_rails_limit(p: &[f64], high: bool) -> Limit {
+    limit(p[0], p[1], p[2], p[3], p[4], high)
 }
 
 #[cfg(test)]
