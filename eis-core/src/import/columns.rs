@@ -247,6 +247,11 @@ pub(crate) fn is_unit_word(w: &str) -> bool {
     parse_unit(w).is_some()
 }
 
+/// Whether a header cell names a column the reader knows (`Freq (kHz)`, `-Z''`, `cycle`).
+pub(crate) fn is_role_word(w: &str) -> bool {
+    analyse(w).recognised.is_some()
+}
+
 /// A header word recognised as a role.
 #[derive(Debug, Clone, Copy, PartialEq)]
 struct Recognised {
