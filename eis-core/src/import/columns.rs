@@ -435,7 +435,7 @@ pub(crate) fn map_columns(
     for (role, r) in &options.columns {
         let index = match r {
             ColumnRef::Number(n) => {
-                if *n > fields {
+                if *n == 0 || *n > fields {
                     return Err(DataError::new(
                         at(None),
                         DataErrorKind::ColumnOutOfRange { column: *n, fields },

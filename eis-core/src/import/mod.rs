@@ -19,13 +19,22 @@
 //! | finding | outcome |
 //! |---|---|
 //! | unreadable file, no table, no frequency/impedance column, unknown unit, bad override | error, file stops |
-//! | too few fields, non-numeric cell in a column in use, too few points | error for that spectrum; the next spectrum is read |
-//! | NaN or infinite cell, zero or negative frequency, zero impedance | warning, point dropped |
+//! | too few fields, non-numeric cell in a column in use, a value out of range once its unit is applied, too few points | error for that spectrum; the next spectrum is read |
+//! | NaN or infinite cell, zero or negative frequency, zero impedance | row dropped; the dropped rows of a spectrum make one warning ([`WarningKind::DroppedRows`], each a [`DroppedRow`]) |
 //! | unsorted or duplicate frequencies, negative real part | warning, points kept |
 //! | positive imaginary part at the high-frequency end (inductive) | warning, kept unless `drop_inductive` |
 //! | points outside `fmin..fmax` | warning, points removed |
 //!
-//! Every error and warning names the file, and the line and column where one applies.
+//! Every error and warning names the file, and the line and column where one applies; each point of
+//! a spectrum keeps its source line ([`Spectrum::source_lines`]).
+//!
+//! The header is the nearest line above the data whose cells are column names the reader knows,
+//! found past comments and bad rows; a line of units may follow it (an empty cell is a column without
+//! unit). Rows between the header and the first clean data row are data, so a bad one is reported,
+//! never skipped. A comment is a header only if all its words are column names. A row error belongs
+//! to the spectrum of that row: when its frequency is unreadable, the next row tells whether the
+//! sweep restarted there. What no header states (the sign of the imaginary column, the phase unit) is
+//! decided once per file, from the first data lines.
 //!
 //! ```
 //! use eis_core::import::{read_bytes, ReaderOptions};
@@ -758,9 +767,10 @@ impl<R: BufRead> SpectrumReader<R> {
         if let Some(&f0) = f.first() {
             if let Some(&second) = f.iter().find(|&&x| x != f0) {
                 let down = second < f0;
-                let out_of_order = f
-                    .windows(2)
-                    .position(|w| if down { w[1] > w[0] } else { w[1] < w[0] });
+                let out_of_order = f.windows(2).position(|w| match w {
+                    [a, b] => (down && b > a) || (!down && b < a),
+                    _ => false,
+                });
                 if let Some(i) = out_of_order {
                     warnings.push(DataWarning {
                         location: loc(spectrum.source_line(i + 1).unwrap_or(start), fcol),
@@ -772,8 +782,11 @@ impl<R: BufRead> SpectrumReader<R> {
         let mut order: Vec<usize> = (0..f.len()).collect();
         let at = |i: usize| f.get(i).copied().unwrap_or(f64::NAN);
         order.sort_by(|&i, &j| at(j).total_cmp(&at(i)).then(i.cmp(&j)));
-        if let Some(w) = order.windows(2).find(|w| at(w[0]) == at(w[1])) {
-            let later = w[0].max(w[1]);
+        let same = order.windows(2).find_map(|w| match *w {
+            [i, j] if at(i) == at(j) => Some(i.max(j)),
+            _ => None,
+        });
+        if let Some(later) = same {
             warnings.push(DataWarning {
                 location: loc(spectrum.source_line(later).unwrap_or(start), fcol),
                 kind: WarningKind::Duplicate(at(later)),
@@ -793,8 +806,9 @@ impl<R: BufRead> SpectrumReader<R> {
         }
         // Inductive points at the high-frequency end.
         let fs = &spectrum.frequency_hz;
+        let freq = |i: usize| fs.get(i).copied().unwrap_or(f64::NAN);
         let mut by_freq: Vec<usize> = (0..fs.len()).collect();
-        by_freq.sort_by(|&i, &j| fs[j].total_cmp(&fs[i]));
+        by_freq.sort_by(|&i, &j| freq(j).total_cmp(&freq(i)));
         let inductive: Vec<usize> = by_freq
             .iter()
             .copied()
@@ -806,15 +820,17 @@ impl<R: BufRead> SpectrumReader<R> {
                 location: loc(start, None),
                 kind: WarningKind::Inductive {
                     count: inductive.len(),
-                    low_hz: fs[lo],
-                    high_hz: fs[hi],
+                    low_hz: freq(lo),
+                    high_hz: freq(hi),
                     dropped: drop,
                 },
             });
             if drop {
                 let mut keep = vec![true; spectrum.len()];
                 for &i in &inductive {
-                    keep[i] = false;
+                    if let Some(k) = keep.get_mut(i) {
+                        *k = false;
+                    }
                 }
                 spectrum.retain(&keep);
             }

@@ -510,6 +510,16 @@ fn bad_files_give_pinned_messages() {
         let e = read_bytes("bad.csv", text.as_bytes(), &options).unwrap_err();
         assert_eq!(e.to_string(), want, "{columns}");
     }
+    // A column number 0 from a library caller (the override parser refuses it) is out of range.
+    let options = ReaderOptions {
+        columns: vec![(Role::Imaginary, ColumnRef::Number(0))],
+        ..ReaderOptions::default()
+    };
+    let e = read_bytes("bad.csv", text.as_bytes(), &options).unwrap_err();
+    assert!(
+        matches!(e.kind, DataErrorKind::ColumnOutOfRange { column: 0, .. }),
+        "{e}"
+    );
     let e = read_file(Path::new("/nonexistent/x.csv"), &ReaderOptions::default()).unwrap_err();
     assert!(
         e.to_string()
