@@ -612,6 +612,42 @@ mod properties {
             }
         }
 
+        /// Issue 13: under a header with metadata columns and a units line, random cells (numbers,
+        /// NaN, text, huge values, missing cells) never panic, and every spectrum read is finite
+        /// with one source line per point.
+        #[test]
+        fn random_cells_under_a_header_never_panic(
+            rows in proptest::collection::vec(
+                proptest::collection::vec(
+                    prop_oneof![
+                        4 => "[1-9][0-9]{0,2}(\\.[0-9])?",
+                        1 => Just("nan".to_string()),
+                        1 => Just("1e306".to_string()),
+                        1 => Just("".to_string()),
+                        1 => "[a-z.]{1,6}",
+                    ],
+                    2..6,
+                ),
+                0..30,
+            ),
+            units in any::<bool>(),
+        ) {
+            let mut text = String::from("time (s),Freq (kHz),Z' (kOhm),-Z'' (kOhm),cycle\n");
+            if units {
+                text.push_str("s,kHz,kOhm,kOhm,\n");
+            }
+            for r in &rows {
+                text.push_str(&r.join(","));
+                text.push('\n');
+            }
+            for r in SpectrumReader::new("random.csv", text.as_bytes(), ReaderOptions::default()).flatten() {
+                let s = &r.spectrum;
+                prop_assert!(s.frequency_hz.iter().all(|f| f.is_finite() && *f > 0.0));
+                prop_assert!(s.z.iter().all(|z| z.re.is_finite() && z.im.is_finite()));
+                prop_assert_eq!(s.source_lines.as_ref().map(Vec::len), Some(s.len()));
+            }
+        }
+
         #[test]
         fn random_csv_like_text_never_panics(
             rows in proptest::collection::vec(
