@@ -199,6 +199,9 @@ pub(crate) struct Layout {
     pub header: Option<Vec<String>>,
     /// The header line or lines as written, to recognise them when repeated between spectra.
     pub header_text: Vec<String>,
+    /// Indices into the sample of lines above a headerless table that look like damaged data rows
+    /// (the data's field count, two or more numbers): not read, but named in a warning.
+    pub skipped: Vec<usize>,
 }
 
 fn numeric_fields(fields: &[String], decimal_comma: bool) -> usize {
@@ -289,6 +292,7 @@ pub(crate) fn detect(sample: &[String]) -> Option<Layout> {
         header_index: found.header_index,
         header: found.header,
         header_text: found.header_text,
+        skipped: found.skipped,
     })
 }
 
@@ -352,12 +356,13 @@ struct Found {
     header_index: Option<usize>,
     header: Option<Vec<String>>,
     header_text: Vec<String>,
+    skipped: Vec<usize>,
 }
 
 /// Finds the header above the first clean data line `first_clean`, looking upwards past comments and
 /// bad data rows (rows with a number in them) for a line of column names, with or without a line of
 /// units under it. Without a header, rows directly above `first_clean` with the data's field count
-/// and two or more numbers are taken as data too (bad rows to report, not a preamble to skip).
+/// and two or more numbers may be damaged data rows or a preamble: they are not read but named.
 fn find_header(
     sample: &[String],
     first_clean: usize,
@@ -418,6 +423,7 @@ fn find_header(
             header_text: (names..=last)
                 .filter_map(|i| sample.get(i).map(|l| l.trim().to_owned()))
                 .collect(),
+            skipped: Vec::new(),
         }
     };
     let mut fields = Vec::new();
@@ -453,11 +459,15 @@ fn find_header(
             strict = false;
         }
     }
+    let skipped = (top..first_clean)
+        .filter(|&i| sample.get(i).is_some_and(|l| !is_comment(l)))
+        .collect();
     Found {
-        data_start: top,
+        data_start: first_clean,
         header_index: None,
         header: None,
         header_text: Vec::new(),
+        skipped,
     }
 }
 

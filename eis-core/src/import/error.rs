@@ -177,6 +177,10 @@ pub enum WarningKind {
     /// A line of text inside the data was skipped and taken as the end of a spectrum.
     #[error("skipped a line of text inside the data: `{0}`")]
     SkippedLine(String),
+    /// A line above a table without header looks like a damaged data row (the data's number of
+    /// fields, two or more numbers, but not all numbers) or a preamble line: it was not read.
+    #[error("skipped a line above the table that may be a damaged data row: `{0}`")]
+    SkippedAboveTable(String),
     /// No header said which sign the imaginary column has; most values were positive, so the column
     /// was taken as −Z″.
     #[error(

@@ -454,6 +454,12 @@ impl<R: BufRead> SpectrumReader<R> {
                 kind,
             });
         }
+        for (n, text) in layout.skipped.iter().filter_map(|&i| sample.get(i)) {
+            self.file_warnings.push(DataWarning {
+                location: Location::at(&self.file, *n, None),
+                kind: WarningKind::SkippedAboveTable(text.trim().chars().take(60).collect()),
+            });
+        }
         self.queue = sample.into_iter().skip(layout.data_start).collect();
         self.guess_once(&layout, &mut map);
         self.table = Some(Table { layout, map });

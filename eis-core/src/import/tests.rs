@@ -744,6 +744,25 @@ fn bad_cells_in_the_first_rows_keep_the_header_and_are_named() {
     );
 }
 
+/// Issue 13: above a table without header, a line that may be a damaged row or a preamble is named,
+/// not read (it must not fail the spectrum) and not skipped silently.
+#[test]
+fn a_damaged_row_above_a_headerless_table_is_named() {
+    let text = "zero.1 20 3
+# note
+3 1 -1
+2 1 -2
+1 1 -3
+";
+    let read = read_bytes("h.txt", text.as_bytes(), &ReaderOptions::default()).unwrap();
+    assert_eq!(read[0].spectrum.frequency_hz, [3.0, 2.0, 1.0]);
+    let msgs: Vec<String> = read[0].warnings.iter().map(|w| w.to_string()).collect();
+    assert!(
+        msgs.contains(&"h.txt, line 1: warning: skipped a line above the table that may be a damaged data row: `zero.1 20 3`".to_owned()),
+        "{msgs:?}"
+    );
+}
+
 /// Issue 13: a metadata column and a non-number in the first data row made the reader index out of
 /// bounds.
 #[test]
