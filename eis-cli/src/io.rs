@@ -165,16 +165,21 @@ pub fn read_one(path: &Path, options: &eis_core::import::ReaderOptions) -> FileS
     match eis_core::import::SpectrumReader::open(path, options.clone()) {
         Err(e) => out.errors.push(e),
         Ok(reader) => {
+            // Rows dropped anywhere in the file make one summary, after its other warnings.
+            let mut gathered = eis_core::import::FileWarnings::new(reader.file());
             for item in reader {
                 match item {
                     Ok(imported) => {
-                        for w in &imported.warnings {
+                        for w in gathered.pass(&imported.warnings) {
                             eprintln!("{w}");
                         }
                         out.spectra.push(imported.spectrum);
                     }
                     Err(e) => out.errors.push(e),
                 }
+            }
+            if let Some(w) = gathered.finish() {
+                eprintln!("{w}");
             }
         }
     }

@@ -17,6 +17,22 @@ const SPECTRA: usize = 1000;
 /// Spectra read and checked per iteration of the check benchmark.
 const CHECKED: usize = 50;
 
+/// Rows of the one-spectrum file of the dropping benchmark, and how many in a hundred have zero
+/// impedance (dropped).
+const ROWS: usize = 100_000;
+const ZERO_PER_HUNDRED: usize = 94;
+
+/// One long spectrum whose rows mostly hold zero impedance: the reader drops them in one pass.
+fn mostly_zero() -> Vec<u8> {
+    let mut text = String::from("f,re,im\n");
+    for i in 0..ROWS {
+        let f = 1e5 * (1.0 - i as f64 / ROWS as f64);
+        let z = if i % 100 < ZERO_PER_HUNDRED { 0.0 } else { 1.0 };
+        text.push_str(&format!("{f},{z},{}\n", -z));
+    }
+    text.into_bytes()
+}
+
 /// A semicolon export with decimal commas and a cycle column: `spectra` copies of one noisy spectrum
 /// (71 points, 100 kHz to 10 mHz).
 fn export(spectra: usize) -> Vec<u8> {
@@ -73,6 +89,20 @@ fn bench(c: &mut Criterion) {
             .filter(|v| *v)
             .count();
             assert_eq!(valid, CHECKED);
+        })
+    });
+    let zeros = mostly_zero();
+    g.throughput(Throughput::Elements(ROWS as u64));
+    g.bench_function("read_100k_rows_94k_dropped", |b| {
+        b.iter(|| {
+            let n = SpectrumReader::new(
+                "bench.csv",
+                black_box(zeros.as_slice()),
+                ReaderOptions::default(),
+            )
+            .map(|r| r.unwrap().spectrum.len())
+            .sum::<usize>();
+            assert_eq!(n, ROWS / 100 * (100 - ZERO_PER_HUNDRED));
         })
     });
     g.finish();

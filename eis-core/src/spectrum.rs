@@ -78,6 +78,9 @@ pub struct Spectrum {
     pub z: Vec<Complex64>,
     /// Standard deviation of the real and of the imaginary part at each point (Ω), when known.
     pub sigma: Option<Vec<f64>>,
+    /// The line of the source file each point was read from (from 1), when read from a file; lets
+    /// messages about a point name its line.
+    pub source_lines: Option<Vec<usize>>,
     /// Where it came from.
     pub meta: Metadata,
 }
@@ -92,6 +95,7 @@ impl Spectrum {
             frequency_hz,
             z,
             sigma: None,
+            source_lines: None,
             meta: Metadata::default(),
         }
     }
@@ -131,6 +135,11 @@ impl Spectrum {
         out
     }
 
+    /// The source line of point `i` (from 0), when the spectrum was read from a file.
+    pub fn source_line(&self, i: usize) -> Option<usize> {
+        self.source_lines.as_ref()?.get(i).copied()
+    }
+
     /// Keeps only the points with `fmin <= f <= fmax`.
     pub fn crop(&mut self, fmin: Option<f64>, fmax: Option<f64>) {
         let keep: Vec<bool> = self
@@ -138,14 +147,66 @@ impl Spectrum {
             .iter()
             .map(|&f| fmin.is_none_or(|lo| f >= lo) && fmax.is_none_or(|hi| f <= hi))
             .collect();
-        let mut k = keep.iter();
-        self.frequency_hz
-            .retain(|_| *k.next().expect("same length"));
-        let mut k = keep.iter();
-        self.z.retain(|_| *k.next().expect("same length"));
-        if let Some(s) = &mut self.sigma {
-            let mut k = keep.iter();
-            s.retain(|_| *k.next().expect("same length"));
+        self.retain(&keep);
+    }
+
+    /// Puts the points in the order `order` (indices of the current points; indices out of range are
+    /// skipped), keeping every per-point array in step.
+    pub fn reorder(&mut self, order: &[usize]) {
+        fn apply<T: Clone>(v: &mut Vec<T>, order: &[usize]) {
+            *v = order.iter().filter_map(|&i| v.get(i).cloned()).collect();
         }
+        apply(&mut self.frequency_hz, order);
+        apply(&mut self.z, order);
+        if let Some(s) = &mut self.sigma {
+            apply(s, order);
+        }
+        if let Some(l) = &mut self.source_lines {
+            apply(l, order);
+        }
+    }
+
+    /// Keeps the points `i` with `keep[i]` true (points beyond `keep` are kept), in one pass over
+    /// each per-point array, so that removing most points of a long spectrum stays linear.
+    pub fn retain(&mut self, keep: &[bool]) {
+        fn apply<T>(v: &mut Vec<T>, keep: &[bool]) {
+            let mut k = keep.iter();
+            v.retain(|_| k.next().copied().unwrap_or(true));
+        }
+        apply(&mut self.frequency_hz, keep);
+        apply(&mut self.z, keep);
+        if let Some(s) = &mut self.sigma {
+            apply(s, keep);
+        }
+        if let Some(l) = &mut self.source_lines {
+            apply(l, keep);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn retain_and_crop_keep_every_per_point_array_in_step() {
+        let mut s = Spectrum::new(
+            vec![100.0, 10.0, 1.0, 0.1],
+            (0..4).map(|k| Complex64::new(k as f64, -1.0)).collect(),
+        );
+        s.sigma = Some(vec![0.1, 0.2, 0.3, 0.4]);
+        s.source_lines = Some(vec![5, 6, 8, 9]);
+        s.crop(Some(0.5), Some(50.0));
+        assert_eq!(s.frequency_hz, [10.0, 1.0]);
+        assert_eq!(s.z, [Complex64::new(1.0, -1.0), Complex64::new(2.0, -1.0)]);
+        assert_eq!(s.sigma.as_deref(), Some(&[0.2, 0.3][..]));
+        assert_eq!(
+            (s.source_line(0), s.source_line(1), s.source_line(2)),
+            (Some(6), Some(8), None)
+        );
+        // A mask shorter than the spectrum keeps the points it does not cover.
+        s.retain(&[false]);
+        assert_eq!(s.frequency_hz, [1.0]);
+        assert_eq!(s.source_lines.as_deref(), Some(&[8][..]));
     }
 }

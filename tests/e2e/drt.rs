@@ -139,7 +139,7 @@ fn drt_bad_input_exits_with_2() {
     let run = eis(&dir, &["drt", "zero.csv"]).expect_code(2);
     assert!(
         run.stderr
-            .contains("zero.csv, line 4: warning: impedance is zero; point dropped"),
+            .contains("zero.csv: warning: dropped 1 row: line 4: impedance is zero"),
         "{}",
         run.stderr
     );

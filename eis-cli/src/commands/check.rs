@@ -3,7 +3,7 @@
 use crate::io::{Failure, Outcome};
 use crate::reader_args::ReaderArgs;
 use anyhow::anyhow;
-use eis_core::import::SpectrumReader;
+use eis_core::import::{FileWarnings, SpectrumReader};
 use eis_core::validate::{KkOptions, KkReport, Tail, kramers_kronig};
 use serde_json::{Value, json};
 use std::path::PathBuf;
@@ -228,6 +228,8 @@ pub fn run(args: Args) -> Outcome {
                 continue;
             }
         };
+        // Rows dropped anywhere in the file make one summary, after its other messages.
+        let mut gathered = FileWarnings::new(reader.file());
         for item in reader {
             let imported = match item {
                 Ok(i) => i,
@@ -237,7 +239,7 @@ pub fn run(args: Args) -> Outcome {
                     continue;
                 }
             };
-            for w in &imported.warnings {
+            for w in gathered.pass(&imported.warnings) {
                 eprintln!("{w}");
             }
             let s = imported.spectrum;
@@ -286,6 +288,9 @@ pub fn run(args: Args) -> Outcome {
                     }
                 }
             }
+        }
+        if let Some(w) = gathered.finish() {
+            eprintln!("{w}");
         }
     }
     if json {

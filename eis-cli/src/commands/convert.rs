@@ -3,7 +3,7 @@
 use crate::io::{Failure, Outcome, write_atomic};
 use crate::reader_args::ReaderArgs;
 use anyhow::anyhow;
-use eis_core::import::SpectrumReader;
+use eis_core::import::{FileWarnings, SpectrumReader};
 use eis_core::number::format_float;
 use eis_core::spectrum::MetaValue;
 use std::collections::HashSet;
@@ -79,6 +79,8 @@ pub fn run(args: Args) -> Outcome {
                 continue;
             }
         };
+        // Rows dropped anywhere in the file make one summary, after its other messages.
+        let mut gathered = FileWarnings::new(reader.file());
         for item in reader {
             let imported = match item {
                 Ok(i) => i,
@@ -89,7 +91,7 @@ pub fn run(args: Args) -> Outcome {
                     continue;
                 }
             };
-            for w in &imported.warnings {
+            for w in gathered.pass(&imported.warnings) {
                 eprintln!("{w}");
             }
             let s = imported.spectrum;
@@ -128,6 +130,9 @@ pub fn run(args: Args) -> Outcome {
                 meta: s.meta.fields,
                 error: None,
             });
+        }
+        if let Some(w) = gathered.finish() {
+            eprintln!("{w}");
         }
     }
     let index = index_csv(&rows).map_err(|e| Failure::Failed(anyhow!("index: {e}")))?;

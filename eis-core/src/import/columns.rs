@@ -247,6 +247,11 @@ pub(crate) fn is_unit_word(w: &str) -> bool {
     parse_unit(w).is_some()
 }
 
+/// Whether a header cell names a column the reader knows (`Freq (kHz)`, `-Z''`, `cycle`).
+pub(crate) fn is_role_word(w: &str) -> bool {
+    analyse(w).recognised.is_some()
+}
+
 /// A header word recognised as a role.
 #[derive(Debug, Clone, Copy, PartialEq)]
 struct Recognised {
@@ -430,7 +435,7 @@ pub(crate) fn map_columns(
     for (role, r) in &options.columns {
         let index = match r {
             ColumnRef::Number(n) => {
-                if *n > fields {
+                if *n == 0 || *n > fields {
                     return Err(DataError::new(
                         at(None),
                         DataErrorKind::ColumnOutOfRange { column: *n, fields },

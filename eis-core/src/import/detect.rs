@@ -189,13 +189,19 @@ pub(crate) struct Layout {
     pub decimal_comma: bool,
     /// Fields per data line (the most common count).
     pub fields: usize,
-    /// Index into the sample of the first data line.
+    /// Index into the sample of the first line read as data: the line after the header (and its
+    /// units line), so that bad rows above the first clean one are read, and reported, as data.
     pub data_start: usize,
+    /// Index into the sample of the header line (the names), if a header was found.
+    pub header_index: Option<usize>,
     /// Header words, one per field, if a header was found (a units line below the names is merged in
     /// as `name (unit)`).
     pub header: Option<Vec<String>>,
     /// The header line or lines as written, to recognise them when repeated between spectra.
     pub header_text: Vec<String>,
+    /// Indices into the sample of lines above a headerless table that look like damaged data rows
+    /// (the data's field count, two or more numbers): not read, but named in a warning.
+    pub skipped: Vec<usize>,
 }
 
 fn numeric_fields(fields: &[String], decimal_comma: bool) -> usize {
@@ -276,78 +282,193 @@ pub(crate) fn detect(sample: &[String]) -> Option<Layout> {
         }
     }
     let n_fields = tally.iter().max_by_key(|t| t.1)?.0;
-    let data_start = per_line.iter().position(|p| *p == Some(n_fields))?;
-    let (header, header_text) = find_header(sample, data_start, delimiter, n_fields, decimal_comma);
+    let first_clean = per_line.iter().position(|p| *p == Some(n_fields))?;
+    let found = find_header(sample, first_clean, delimiter, n_fields, decimal_comma);
     Some(Layout {
         delimiter,
         decimal_comma,
         fields: n_fields,
-        data_start,
-        header,
-        header_text,
+        data_start: found.data_start,
+        header_index: found.header_index,
+        header: found.header,
+        header_text: found.header_text,
+        skipped: found.skipped,
     })
 }
 
-/// Header words of a candidate line if it has `n` fields and at least one of them is not a number.
-fn header_fields(line: &str, d: Delimiter, n: usize, comma: bool) -> Option<Vec<String>> {
+/// The cells of a candidate header or units line: split like the data (a whitespace table's header
+/// on runs of two blanks when that gives the data's field count), comment marker removed, trailing
+/// empty cells dropped.
+fn header_cells(line: &str, d: Delimiter, n: usize) -> Vec<String> {
     let text = strip_comment(line);
     let mut f = Vec::new();
     split(text, d, &mut f);
     if f.len() != n && d == Delimiter::Whitespace {
         f = split_wide(text);
     }
-    if f.len() > n && f[n..].iter().all(|s| s.is_empty()) {
-        f.truncate(n);
+    while f.last().is_some_and(|s| s.is_empty()) {
+        f.pop();
     }
-    let words = f
-        .iter()
-        .filter(|s| parse_number(s, comma).is_none())
-        .count();
-    (f.len() == n && words > 0 && words * 2 >= n).then_some(f)
+    f
 }
 
+/// Whether cells name columns by their own words: no number among them, at most one per data field,
+/// and two or more words the reader knows as column names making at least half of the non-empty
+/// cells. A comment line must consist of such words only.
+fn is_named_header(cells: &[String], n: usize, comma: bool, comment: bool) -> bool {
+    if cells.len() < 2 || cells.len() > n || numeric_fields(cells, comma) > 0 {
+        return false;
+    }
+    let filled = cells.iter().filter(|c| !c.is_empty()).count();
+    let known = cells
+        .iter()
+        .filter(|c| super::columns::is_role_word(c))
+        .count();
+    known >= 2
+        && if comment {
+            known == filled
+        } else {
+            2 * known >= filled
+        }
+}
+
+/// Whether cells are a line of units: at least one, and every non-empty cell a unit the reader knows
+/// (empty cells are columns without a unit).
+fn is_units_line(cells: &[String]) -> bool {
+    cells.iter().any(|c| !c.is_empty())
+        && cells
+            .iter()
+            .all(|c| c.is_empty() || super::columns::is_unit_word(c))
+}
+
+/// A header of words the reader does not know (`A,B,C`): accepted only directly above the data, not
+/// in a comment, one non-empty, non-numeric cell per field.
+fn is_plain_header(line: &str, cells: &[String], n: usize, comma: bool) -> bool {
+    !is_comment(line)
+        && cells.len() == n
+        && cells
+            .iter()
+            .all(|c| !c.is_empty() && parse_number(c, comma).is_none())
+}
+
+struct Found {
+    data_start: usize,
+    header_index: Option<usize>,
+    header: Option<Vec<String>>,
+    header_text: Vec<String>,
+    skipped: Vec<usize>,
+}
+
+/// Finds the header above the first clean data line `first_clean`, looking upwards past comments and
+/// bad data rows (rows with a number in them) for a line of column names, with or without a line of
+/// units under it. Without a header, rows directly above `first_clean` with the data's field count
+/// and two or more numbers may be damaged data rows or a preamble: they are not read but named.
 fn find_header(
     sample: &[String],
-    data_start: usize,
+    first_clean: usize,
     d: Delimiter,
     n: usize,
     comma: bool,
-) -> (Option<Vec<String>>, Vec<String>) {
-    if data_start == 0 {
-        return (None, Vec::new());
-    }
-    let below = &sample[data_start - 1];
-    let Some(lower) = header_fields(below, d, n, comma) else {
-        return (None, Vec::new());
+) -> Found {
+    let cells_of = |i: usize| {
+        sample
+            .get(i)
+            .map(|l| header_cells(l, d, n))
+            .unwrap_or_default()
     };
-    // A units line under the names: every non-empty field is a unit.
-    let is_units = lower
-        .iter()
-        .all(|w| w.is_empty() || super::columns::is_unit_word(w));
-    if is_units && data_start >= 2 {
-        if let Some(upper) = header_fields(&sample[data_start - 2], d, n, comma) {
-            let merged = upper
-                .iter()
-                .zip(&lower)
-                .map(|(name, unit)| {
-                    let unit = unit
-                        .trim_start_matches(['(', '['])
-                        .trim_end_matches([')', ']']);
-                    if unit.is_empty() {
-                        name.clone()
-                    } else {
-                        format!("{name} ({unit})")
-                    }
-                })
-                .collect();
-            let texts = vec![
-                sample[data_start - 2].trim().to_owned(),
-                below.trim().to_owned(),
-            ];
-            return (Some(merged), texts);
+    let named = |i: usize| {
+        sample
+            .get(i)
+            .is_some_and(|l| is_named_header(&cells_of(i), n, comma, is_comment(l)))
+    };
+    let plain = |i: usize| {
+        sample
+            .get(i)
+            .is_some_and(|l| is_plain_header(l, &cells_of(i), n, comma))
+    };
+    let with_header = |names: usize, units: Option<usize>| {
+        let upper = cells_of(names);
+        let header = match units {
+            None => {
+                let mut h = upper;
+                h.resize(h.len().max(n), String::new());
+                h
+            }
+            Some(u) => {
+                let lower = cells_of(u);
+                (0..upper.len().max(n))
+                    .map(|k| {
+                        let name = upper.get(k).map(String::as_str).unwrap_or("");
+                        let unit = lower
+                            .get(k)
+                            .map(|u| {
+                                u.trim_start_matches(['(', '['])
+                                    .trim_end_matches([')', ']'])
+                            })
+                            .unwrap_or("");
+                        if unit.is_empty() {
+                            name.to_owned()
+                        } else {
+                            format!("{name} ({unit})")
+                        }
+                    })
+                    .collect()
+            }
+        };
+        let last = units.unwrap_or(names);
+        Found {
+            data_start: last + 1,
+            header_index: Some(names),
+            header: Some(header),
+            header_text: (names..=last)
+                .filter_map(|i| sample.get(i).map(|l| l.trim().to_owned()))
+                .collect(),
+            skipped: Vec::new(),
+        }
+    };
+    let mut fields = Vec::new();
+    // Top of the rows that are data by the strict rule for a headerless table.
+    let mut top = first_clean;
+    let mut strict = true;
+    let mut i = first_clean;
+    while i > 0 {
+        i -= 1;
+        let Some(line) = sample.get(i) else { break };
+        let cells = cells_of(i);
+        if i > 0 && is_units_line(&cells) && (named(i - 1) || plain(i - 1)) {
+            return with_header(i - 1, Some(i));
+        }
+        if named(i) {
+            return with_header(i, None);
+        }
+        if is_comment(line) {
+            continue;
+        }
+        split(line, d, &mut fields);
+        let numbers = numeric_fields(&fields, comma);
+        if numbers == 0 {
+            // Text: a header of unknown words directly above the data, or the end of the table.
+            if i + 1 == top && plain(i) {
+                return with_header(i, None);
+            }
+            break;
+        }
+        if strict && fields.len() == n && numbers >= 2 {
+            top = i;
+        } else {
+            strict = false;
         }
     }
-    (Some(lower), vec![below.trim().to_owned()])
+    let skipped = (top..first_clean)
+        .filter(|&i| sample.get(i).is_some_and(|l| !is_comment(l)))
+        .collect();
+    Found {
+        data_start: first_clean,
+        header_index: None,
+        header: None,
+        header_text: Vec::new(),
+        skipped,
+    }
 }
 
 #[cfg(test)]

@@ -95,6 +95,14 @@ pub enum DataErrorKind {
     /// A cell of a column in use does not read as a number: `1.2.3`, `abc`, `12 Ohm`.
     #[error("`{0}` is not a number")]
     NotANumber(String),
+    /// A finite cell becomes infinite once its unit is applied: `1e306` in a `Z' (kOhm)` column.
+    #[error("`{cell}` is out of range once scaled to SI units (×{scale})")]
+    OutOfRange {
+        /// The cell as written.
+        cell: String,
+        /// The factor of its unit to SI.
+        scale: f64,
+    },
     /// A spectrum has fewer usable points than the minimum, after dropping bad points and cropping.
     #[error("spectrum {spectrum} has {points} usable points, fewer than the minimum of {min}")]
     TooFewPoints {
@@ -141,15 +149,10 @@ pub enum WarningKind {
     /// The same frequency appears more than once in one spectrum (points kept).
     #[error("frequency {0} Hz appears more than once in the spectrum (points kept)")]
     Duplicate(f64),
-    /// A cell reads as NaN or infinity: the point is dropped.
-    #[error("`{0}` is not a finite number; point dropped")]
-    NonFinite(String),
-    /// A frequency is zero or negative: the point is dropped.
-    #[error("frequency {0} Hz is not positive; point dropped")]
-    NonPositiveFrequency(f64),
-    /// |Z| is zero: the point is dropped (relative residuals would be undefined).
-    #[error("impedance is zero; point dropped")]
-    ZeroImpedance,
+    /// Rows that hold no usable point were dropped; each is named with its line, column and reason
+    /// (all of them here, the first few when displayed).
+    #[error("{}", DroppedSummary(.0))]
+    DroppedRows(Vec<DroppedRow>),
     /// Points with a negative real part (kept).
     #[error("{0} points have a negative real part (kept)")]
     NegativeReal(usize),
@@ -174,6 +177,10 @@ pub enum WarningKind {
     /// A line of text inside the data was skipped and taken as the end of a spectrum.
     #[error("skipped a line of text inside the data: `{0}`")]
     SkippedLine(String),
+    /// A line above a table without header looks like a damaged data row (the data's number of
+    /// fields, two or more numbers, but not all numbers) or a preamble line: it was not read.
+    #[error("skipped a line above the table that may be a damaged data row: `{0}`")]
+    SkippedAboveTable(String),
     /// No header said which sign the imaginary column has; most values were positive, so the column
     /// was taken as −Z″.
     #[error(
@@ -199,4 +206,121 @@ pub struct DataWarning {
     pub location: Location,
     /// What.
     pub kind: WarningKind,
+}
+
+/// Why a data row gave no point.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[non_exhaustive]
+pub enum DropReason {
+    /// A cell reads as NaN or infinity: `nan`, `-inf`.
+    #[error("`{0}` is not a finite number")]
+    NonFinite(String),
+    /// The frequency is zero or negative.
+    #[error("frequency {0} Hz is not positive")]
+    NonPositiveFrequency(f64),
+    /// |Z| is zero (relative residuals would be undefined).
+    #[error("impedance is zero")]
+    ZeroImpedance,
+}
+
+/// A data row the reader dropped: where, and why.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DroppedRow {
+    /// Line number from 1.
+    pub line: usize,
+    /// Field number from 1 of the offending cell, when one cell is to blame.
+    pub column: Option<usize>,
+    /// Why.
+    pub reason: DropReason,
+}
+
+impl fmt::Display for DroppedRow {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "line {}", self.line)?;
+        if let Some(c) = self.column {
+            write!(f, ", column {c}")?;
+        }
+        write!(f, ": {}", self.reason)
+    }
+}
+
+/// Rows named in full in a summary of dropped rows; the rest are counted.
+pub const DROPPED_SHOWN: usize = 3;
+
+/// Displays dropped rows as one summary: the count, the first [`DROPPED_SHOWN`] rows and how many
+/// more, as in `dropped 37 rows: line 12, column 3: ...; line 13, ...; and 34 more`.
+#[derive(Debug, Clone, Copy)]
+pub struct DroppedSummary<'a>(pub &'a [DroppedRow]);
+
+impl fmt::Display for DroppedSummary<'_> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let rows = self.0;
+        let plural = if rows.len() == 1 { "" } else { "s" };
+        write!(f, "dropped {} row{plural}", rows.len())?;
+        for (k, r) in rows.iter().take(DROPPED_SHOWN).enumerate() {
+            write!(f, "{} {r}", if k == 0 { ":" } else { ";" })?;
+        }
+        if rows.len() > DROPPED_SHOWN {
+            write!(f, "; and {} more", rows.len() - DROPPED_SHOWN)?;
+        }
+        Ok(())
+    }
+}
+
+/// Gathers the warnings of the spectra of one file for display, so that the rows dropped anywhere in
+/// the file make one summary rather than one line per spectrum (or per row).
+///
+/// ```
+/// use eis_core::import::{read_bytes, FileWarnings, ReaderOptions};
+/// let text = "f,re,im,cycle\n3,1,-1,1\n2,nan,-2,1\n1,1,-3,1\n0.5,1,-3,1\n3,1,-1,2\n2,1,-2,2\n1,1,-3,2\n0,1,-3,2\n";
+/// let mut gathered = FileWarnings::new("m.csv");
+/// let mut shown = Vec::new();
+/// for r in read_bytes("m.csv", text.as_bytes(), &ReaderOptions::default()).unwrap() {
+///     shown.extend(gathered.pass(&r.warnings).map(|w| w.to_string()));
+/// }
+/// assert!(shown.is_empty());
+/// assert_eq!(
+///     gathered.finish().unwrap().to_string(),
+///     "m.csv: warning: dropped 2 rows: line 3, column 2: `nan` is not a finite number; \
+///      line 9, column 1: frequency 0 Hz is not positive"
+/// );
+/// ```
+#[derive(Debug, Clone)]
+pub struct FileWarnings {
+    file: String,
+    dropped: Vec<DroppedRow>,
+}
+
+impl FileWarnings {
+    /// Gathers for the file named `file` in messages.
+    pub fn new(file: impl Into<String>) -> FileWarnings {
+        FileWarnings {
+            file: file.into(),
+            dropped: Vec::new(),
+        }
+    }
+
+    /// Keeps the dropped rows of one spectrum's warnings and yields the other warnings, to be shown
+    /// now.
+    pub fn pass<'a>(
+        &mut self,
+        warnings: &'a [DataWarning],
+    ) -> impl Iterator<Item = &'a DataWarning> + use<'a> {
+        for w in warnings {
+            if let WarningKind::DroppedRows(rows) = &w.kind {
+                self.dropped.extend(rows.iter().cloned());
+            }
+        }
+        warnings
+            .iter()
+            .filter(|w| !matches!(w.kind, WarningKind::DroppedRows(_)))
+    }
+
+    /// One warning for every row dropped in the file, if any was.
+    pub fn finish(self) -> Option<DataWarning> {
+        (!self.dropped.is_empty()).then(|| DataWarning {
+            location: Location::file(&self.file),
+            kind: WarningKind::DroppedRows(self.dropped),
+        })
+    }
 }

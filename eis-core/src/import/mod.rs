@@ -19,13 +19,22 @@
 //! | finding | outcome |
 //! |---|---|
 //! | unreadable file, no table, no frequency/impedance column, unknown unit, bad override | error, file stops |
-//! | too few fields, non-numeric cell in a column in use, too few points | error for that spectrum; the next spectrum is read |
-//! | NaN or infinite cell, zero or negative frequency, zero impedance | warning, point dropped |
+//! | too few fields, non-numeric cell in a column in use, a value out of range once its unit is applied, too few points | error for that spectrum; the next spectrum is read |
+//! | NaN or infinite cell, zero or negative frequency, zero impedance | row dropped; the dropped rows of a spectrum make one warning ([`WarningKind::DroppedRows`], each a [`DroppedRow`]) |
 //! | unsorted or duplicate frequencies, negative real part | warning, points kept |
 //! | positive imaginary part at the high-frequency end (inductive) | warning, kept unless `drop_inductive` |
 //! | points outside `fmin..fmax` | warning, points removed |
 //!
-//! Every error and warning names the file, and the line and column where one applies.
+//! Every error and warning names the file, and the line and column where one applies; each point of
+//! a spectrum keeps its source line ([`Spectrum::source_lines`]).
+//!
+//! The header is the nearest line above the data whose cells are column names the reader knows,
+//! found past comments and bad rows; a line of units may follow it (an empty cell is a column without
+//! unit). Rows between the header and the first clean data row are data, so a bad one is reported,
+//! never skipped. A comment is a header only if all its words are column names. A row error belongs
+//! to the spectrum of that row: when its frequency is unreadable, the next row tells whether the
+//! sweep restarted there. What no header states (the sign of the imaginary column, the phase unit) is
+//! decided once per file, from the first data lines.
 //!
 //! ```
 //! use eis_core::import::{read_bytes, ReaderOptions};
@@ -42,7 +51,10 @@ mod error;
 mod pattern;
 
 pub use columns::{ColumnRef, Role, parse_column_overrides};
-pub use error::{DataError, DataErrorKind, DataWarning, Location, WarningKind};
+pub use error::{
+    DROPPED_SHOWN, DataError, DataErrorKind, DataWarning, DropReason, DroppedRow, DroppedSummary,
+    FileWarnings, Location, WarningKind,
+};
 pub use pattern::NamePattern;
 
 use crate::spectrum::{MetaValue, Spectrum};
@@ -200,6 +212,9 @@ pub struct SpectrumReader<R> {
     file_fields: Vec<(String, MetaValue)>,
     fields: Vec<String>,
     out: VecDeque<Result<Imported, DataError>>,
+    /// An error of a row whose spectrum is not known yet (its frequency is unreadable, so whether
+    /// the sweep restarted there is told by the next row).
+    pending: Option<DataError>,
     finished: bool,
 }
 
@@ -211,6 +226,8 @@ struct Table {
 #[derive(Default)]
 struct Builder {
     start_line: Option<usize>,
+    /// Whether the first readable row has set `index` and the metadata accumulators.
+    begun: bool,
     f: Vec<f64>,
     a: Vec<f64>,
     b: Vec<f64>,
@@ -222,6 +239,7 @@ struct Builder {
     meta_numeric: Vec<bool>,
     rows: usize,
     warnings: Vec<DataWarning>,
+    dropped: Vec<DroppedRow>,
     error: Option<DataError>,
 }
 
@@ -240,6 +258,75 @@ impl Builder {
             f < prev && f * f <= first * prev
         }
     }
+
+    /// Records an error of the spectrum being built (the first one wins).
+    fn error(&mut self, e: DataError) {
+        if let Some(line) = e.location.line {
+            self.start_line.get_or_insert(line);
+        }
+        if self.error.is_none() {
+            self.error = Some(e);
+        }
+    }
+}
+
+/// The column of the frequency, of the first and of the second impedance column.
+fn value_columns(map: &ColumnMap) -> [usize; 3] {
+    match map.z {
+        ZCols::Cartesian { re, im, .. } => [map.freq.index, re.index, im.index],
+        ZCols::Polar { modulus, phase, .. } => [map.freq.index, modulus.index, phase],
+    }
+}
+
+/// The unit factor of each value column (the phase keeps its unit until the spectrum is complete).
+fn value_scales(map: &ColumnMap) -> [f64; 3] {
+    match map.z {
+        ZCols::Cartesian { re, im, .. } => [map.freq.scale, re.scale, im.scale],
+        ZCols::Polar { modulus, .. } => [map.freq.scale, modulus.scale, 1.0],
+    }
+}
+
+/// Reads the three values of a row, or says which cell is bad and why. NaN and infinite cells read
+/// (they are dropped later, with a note); a finite cell that overflows once scaled is an error.
+fn read_values(
+    map: &ColumnMap,
+    fields: &[String],
+    comma: bool,
+) -> Result<[f64; 3], (usize, DataErrorKind)> {
+    if fields.len() < map.needed {
+        return Err((
+            fields.len(),
+            DataErrorKind::TooFewFields {
+                expected: map.needed,
+                found: fields.len(),
+            },
+        ));
+    }
+    let mut vals = [0.0; 3];
+    for ((v, i), scale) in vals
+        .iter_mut()
+        .zip(value_columns(map))
+        .zip(value_scales(map))
+    {
+        let cell = fields.get(i).map(String::as_str).unwrap_or("");
+        let Some(x) = parse_number(cell, comma) else {
+            return Err((
+                i,
+                DataErrorKind::NotANumber(cell.chars().take(40).collect()),
+            ));
+        };
+        if x.is_finite() && !scaled(x, scale).is_finite() {
+            return Err((
+                i,
+                DataErrorKind::OutOfRange {
+                    cell: cell.chars().take(40).collect(),
+                    scale,
+                },
+            ));
+        }
+        *v = x;
+    }
+    Ok(vals)
 }
 
 impl SpectrumReader<BufReader<std::fs::File>> {
@@ -289,6 +376,7 @@ impl<R: BufRead> SpectrumReader<R> {
             file_fields,
             fields: Vec::new(),
             out: VecDeque::new(),
+            pending: None,
             finished: false,
         }
     }
@@ -350,10 +438,10 @@ impl<R: BufRead> SpectrumReader<R> {
         let layout = detect::detect(&texts)
             .ok_or_else(|| DataError::new(Location::file(&self.file), DataErrorKind::NoData))?;
         let header_line = layout
-            .header
-            .as_ref()
-            .map(|_| sample[layout.data_start - 1].0);
-        let (map, warnings) = columns::map_columns(
+            .header_index
+            .and_then(|i| sample.get(i))
+            .map(|(n, _)| *n);
+        let (mut map, warnings) = columns::map_columns(
             layout.header.as_deref(),
             layout.fields,
             &self.options,
@@ -366,9 +454,79 @@ impl<R: BufRead> SpectrumReader<R> {
                 kind,
             });
         }
+        for (n, text) in layout.skipped.iter().filter_map(|&i| sample.get(i)) {
+            self.file_warnings.push(DataWarning {
+                location: Location::at(&self.file, *n, None),
+                kind: WarningKind::SkippedAboveTable(text.trim().chars().take(60).collect()),
+            });
+        }
         self.queue = sample.into_iter().skip(layout.data_start).collect();
+        self.guess_once(&layout, &mut map);
         self.table = Some(Table { layout, map });
         Ok(())
+    }
+
+    /// Decides, once for the whole file and from the data lines of the sample, what no header said:
+    /// the sign of the imaginary column and the unit of the phase, so that every spectrum of a file is
+    /// read the same way.
+    fn guess_once(&mut self, layout: &Layout, map: &mut ColumnMap) {
+        let column = match map.z {
+            ZCols::Cartesian {
+                im,
+                sign: Sign::Guess,
+                ..
+            } => im.index,
+            ZCols::Polar {
+                phase,
+                phase_scale: None,
+                ..
+            } => phase,
+            _ => return,
+        };
+        let mut fields = Vec::new();
+        let (mut positive, mut finite, mut big) = (0usize, 0usize, false);
+        for (_, text) in &self.queue {
+            if is_comment(text) {
+                continue;
+            }
+            split(text, layout.delimiter, &mut fields);
+            let value = fields
+                .get(column)
+                .and_then(|c| parse_number(c, layout.decimal_comma));
+            if let Some(x) = value.filter(|x| x.is_finite()) {
+                finite += 1;
+                positive += usize::from(x > 0.0);
+                big |= x.abs() > std::f64::consts::FRAC_PI_2;
+            }
+        }
+        let first_line = self.queue.front().map(|(n, _)| *n);
+        let location = match first_line {
+            Some(n) => Location::at(&self.file, n, Some(column + 1)),
+            None => Location::file(&self.file),
+        };
+        match &mut map.z {
+            ZCols::Cartesian { sign, .. } => {
+                let negated = 2 * positive > finite;
+                *sign = Sign::Known { negated };
+                if negated {
+                    self.file_warnings.push(DataWarning {
+                        location,
+                        kind: WarningKind::ImagSignGuessed,
+                    });
+                }
+            }
+            ZCols::Polar { phase_scale, .. } => {
+                *phase_scale = Some(if big {
+                    std::f64::consts::PI / 180.0
+                } else {
+                    1.0
+                });
+                self.file_warnings.push(DataWarning {
+                    location,
+                    kind: WarningKind::PhaseUnitGuessed(if big { "degrees" } else { "radians" }),
+                });
+            }
+        }
     }
 
     fn warn(&mut self, line: usize, column: Option<usize>, kind: WarningKind) {
@@ -378,29 +536,21 @@ impl<R: BufRead> SpectrumReader<R> {
         });
     }
 
-    fn row_error(&mut self, line: usize, column: Option<usize>, kind: DataErrorKind) {
-        self.builder.start_line.get_or_insert(line);
-        if self.builder.error.is_none() {
-            self.builder.error = Some(DataError::new(Location::at(&self.file, line, column), kind));
-        }
-    }
-
-    fn process(&mut self, line_no: usize, text: String) {
-        let Some(table) = &self.table else { return };
+    fn process(&mut self, t: &Table, line_no: usize, text: &str) {
         let trimmed = text.trim();
         if trimmed.is_empty() || is_comment(trimmed) {
             return;
         }
-        if table.layout.header_text.iter().any(|h| h == trimmed) {
-            self.finish_spectrum();
+        if t.layout.header_text.iter().any(|h| h == trimmed) {
+            self.close(t);
             return;
         }
         let mut fields = std::mem::take(&mut self.fields);
-        split(&text, table.layout.delimiter, &mut fields);
-        let comma = table.layout.decimal_comma;
+        split(text, t.layout.delimiter, &mut fields);
+        let comma = t.layout.decimal_comma;
         if fields.iter().all(|f| parse_number(f, comma).is_none()) {
             let shown: String = trimmed.chars().take(60).collect();
-            if self.builder.start_line.is_some() {
+            if self.builder.start_line.is_some() || self.pending.is_some() {
                 self.warn(line_no, None, WarningKind::SkippedLine(shown));
             } else {
                 self.file_warnings.push(DataWarning {
@@ -409,205 +559,208 @@ impl<R: BufRead> SpectrumReader<R> {
                 });
             }
             self.fields = fields;
-            self.finish_spectrum();
+            self.close(t);
             return;
         }
-        self.row(line_no, &fields);
+        self.row(t, line_no, &fields);
         self.fields = fields;
     }
 
-    fn row(&mut self, line_no: usize, fields: &[String]) {
-        let Some(table) = &self.table else { return };
-        let map = table.map.clone();
-        let comma = table.layout.decimal_comma;
-        if fields.len() < map.needed {
-            self.row_error(
-                line_no,
-                Some(fields.len() + 1),
-                DataErrorKind::TooFewFields {
-                    expected: map.needed,
-                    found: fields.len(),
-                },
-            );
-            return;
-        }
-        let (ai, bi) = match map.z {
-            ZCols::Cartesian { re, im, .. } => (re.index, im.index),
-            ZCols::Polar { modulus, phase, .. } => (modulus.index, phase),
-        };
-        let mut vals = [0.0; 3];
-        for (v, i) in vals.iter_mut().zip([map.freq.index, ai, bi]) {
-            match parse_number(&fields[i], comma) {
-                Some(x) => *v = x,
-                None => {
-                    self.row_error(
-                        line_no,
-                        Some(i + 1),
-                        DataErrorKind::NotANumber(fields[i].chars().take(40).collect()),
-                    );
-                    return;
-                }
-            }
-        }
-        let f = scaled(vals[0], map.freq.scale);
-        // Boundaries before this row.
+    /// One data row. A row that cannot be read is an error of its spectrum; when its frequency is
+    /// unreadable too, whether it starts a new spectrum is decided by the next row (see
+    /// [`Self::pending`]), so that a bad first row of one spectrum never fails the one before.
+    fn row(&mut self, t: &Table, line_no: usize, fields: &[String]) {
+        let map = &t.map;
+        let comma = t.layout.decimal_comma;
         let split = self.options.split;
         let by_column = matches!(split, Split::Auto | Split::Column);
         let by_restart = matches!(split, Split::Auto | Split::Restart);
-        let index: Vec<&str> = map
-            .meta
-            .iter()
-            .filter(|(r, _)| r.splits())
-            .map(|(_, i)| fields[*i].as_str())
-            .collect();
-        if self.builder.start_line.is_some() {
-            let changed = by_column
-                && self.builder.index.len() == index.len()
-                && self.builder.index.iter().zip(&index).any(|(a, b)| a != b);
-            let restart = by_restart && f.is_finite() && self.builder.is_restart(f);
-            if changed || restart {
-                self.finish_spectrum();
+        let splitting = || map.meta.iter().filter(|(r, _)| r.splits()).map(|(_, i)| *i);
+        // Boundary before this row: a splitting cell changed, or the sweep restarted.
+        let f = fields
+            .get(map.freq.index)
+            .and_then(|c| parse_number(c, comma))
+            .map(|x| scaled(x, map.freq.scale))
+            .filter(|x| x.is_finite());
+        let index_known = splitting().all(|i| i < fields.len());
+        let b = &self.builder;
+        let started = b.start_line.is_some();
+        let changed = by_column
+            && started
+            && b.begun
+            && splitting()
+                .zip(&b.index)
+                .any(|(i, old)| fields.get(i).is_some_and(|c| c != old));
+        let restart = by_restart && started && f.is_some_and(|f| b.is_restart(f));
+        let decided = changed
+            || restart
+            || ((!by_column || index_known || !b.begun) && (!by_restart || f.is_some()));
+        let values = read_values(map, fields, comma);
+        if let Err((i, kind)) = values {
+            let e = DataError::new(Location::at(&self.file, line_no, Some(i + 1)), kind);
+            if decided {
+                if changed || restart {
+                    self.finish_spectrum(t);
+                }
+                self.attach_pending();
+                self.builder.error(e);
+            } else if self.pending.is_none() {
+                self.pending = Some(e);
             }
+            return;
         }
+        let Ok(vals) = values else { return };
+        if changed || restart {
+            self.finish_spectrum(t);
+        }
+        self.attach_pending();
         let b = &mut self.builder;
-        if b.start_line.is_none() {
-            b.start_line = Some(line_no);
-            b.index = index.iter().map(|s| s.to_string()).collect();
-            b.meta_first = map.meta.iter().map(|(_, i)| fields[*i].clone()).collect();
+        b.start_line.get_or_insert(line_no);
+        if !b.begun {
+            b.begun = true;
+            b.index = splitting()
+                .map(|i| fields.get(i).cloned().unwrap_or_default())
+                .collect();
+            b.meta_first = map
+                .meta
+                .iter()
+                .map(|(_, i)| fields.get(*i).cloned().unwrap_or_default())
+                .collect();
             b.meta_sum = vec![0.0; map.meta.len()];
             b.meta_numeric = vec![true; map.meta.len()];
         }
         b.rows += 1;
         for (k, (_, i)) in map.meta.iter().enumerate() {
-            match parse_number(&fields[*i], comma) {
-                Some(x) if x.is_finite() => b.meta_sum[k] += x,
-                _ => b.meta_numeric[k] = false,
+            let x = fields.get(*i).and_then(|c| parse_number(c, comma));
+            match (x, b.meta_sum.get_mut(k)) {
+                (Some(x), Some(sum)) if x.is_finite() => *sum += x,
+                _ => {
+                    if let Some(n) = b.meta_numeric.get_mut(k) {
+                        *n = false;
+                    }
+                }
             }
         }
         // Point hygiene.
-        for (k, i) in [map.freq.index, ai, bi].into_iter().enumerate() {
-            if !vals[k].is_finite() {
-                let cell = fields[i].clone();
-                self.warn(line_no, Some(i + 1), WarningKind::NonFinite(cell));
+        for (v, i) in vals.iter().zip(value_columns(map)) {
+            if !v.is_finite() {
+                let cell = fields.get(i).cloned().unwrap_or_default();
+                b.dropped.push(DroppedRow {
+                    line: line_no,
+                    column: Some(i + 1),
+                    reason: DropReason::NonFinite(cell),
+                });
                 return;
             }
         }
+        let f = scaled(vals[0], map.freq.scale);
         if f <= 0.0 {
-            self.warn(
-                line_no,
-                Some(map.freq.index + 1),
-                WarningKind::NonPositiveFrequency(f),
-            );
+            b.dropped.push(DroppedRow {
+                line: line_no,
+                column: Some(map.freq.index + 1),
+                reason: DropReason::NonPositiveFrequency(f),
+            });
             return;
         }
-        let b = &mut self.builder;
         b.f.push(f);
         b.a.push(vals[1]);
         b.b.push(vals[2]);
         b.lines.push(line_no);
     }
 
+    /// Gives a pending row error to the spectrum being built.
+    fn attach_pending(&mut self) {
+        if let Some(e) = self.pending.take() {
+            self.builder.error(e);
+        }
+    }
+
+    /// Ends the spectrum at a text line, a repeated header or the end of the input: a pending row
+    /// error belongs to it.
+    fn close(&mut self, t: &Table) {
+        self.attach_pending();
+        self.finish_spectrum(t);
+    }
+
     /// Completes the spectrum in the builder, if any, and queues it.
-    fn finish_spectrum(&mut self) {
+    fn finish_spectrum(&mut self, t: &Table) {
         let b = std::mem::take(&mut self.builder);
         let Some(start) = b.start_line else { return };
         self.count += 1;
         let number = self.count;
-        let result = self.complete(b, number, start);
+        let result = self.complete(t, b, number, start);
         self.out.push_back(result);
     }
 
-    fn complete(&mut self, b: Builder, number: usize, start: usize) -> Result<Imported, DataError> {
+    fn complete(
+        &mut self,
+        t: &Table,
+        b: Builder,
+        number: usize,
+        start: usize,
+    ) -> Result<Imported, DataError> {
         if let Some(mut e) = b.error {
             e.spectrum = Some(number);
             return Err(e);
         }
-        let Some(table) = &self.table else {
-            unreachable!("rows arrive only after detection")
-        };
-        let map = &table.map;
+        let map = &t.map;
         let file = self.file.clone();
         let loc = |line: usize, column: Option<usize>| Location::at(&file, line, column);
         let mut warnings = std::mem::take(&mut self.file_warnings);
         warnings.extend(b.warnings);
-        let n = b.f.len();
-        // Impedances.
-        let mut z: Vec<Complex64> = Vec::with_capacity(n);
-        match map.z {
+        let mut dropped = b.dropped;
+        // Impedances (the file-wide guesses were made at detection).
+        let z: Vec<Complex64> = match map.z {
             ZCols::Cartesian { re, im, sign } => {
-                let negated = match sign {
-                    Sign::Known { negated } => negated,
-                    Sign::Guess => {
-                        let positive = b.b.iter().filter(|&&x| x > 0.0).count();
-                        let guess = 2 * positive > n;
-                        if guess {
-                            warnings.push(DataWarning {
-                                location: loc(start, Some(im.index + 1)),
-                                kind: WarningKind::ImagSignGuessed,
-                            });
-                        }
-                        guess
-                    }
-                };
+                let negated = sign == (Sign::Known { negated: true });
                 let s = if negated { -im.scale } else { im.scale };
-                z.extend(
-                    b.a.iter()
-                        .zip(&b.b)
-                        .map(|(&x, &y)| Complex64::new(scaled(x, re.scale), scaled(y, s))),
-                );
+                b.a.iter()
+                    .zip(&b.b)
+                    .map(|(&x, &y)| Complex64::new(scaled(x, re.scale), scaled(y, s)))
+                    .collect()
             }
             ZCols::Polar {
                 modulus,
-                phase,
                 phase_scale,
                 sign,
+                ..
             } => {
-                let scale = phase_scale.unwrap_or_else(|| {
-                    let big = b.b.iter().any(|x| x.abs() > std::f64::consts::FRAC_PI_2);
-                    warnings.push(DataWarning {
-                        location: loc(start, Some(phase + 1)),
-                        kind: WarningKind::PhaseUnitGuessed(if big {
-                            "degrees"
-                        } else {
-                            "radians"
-                        }),
-                    });
-                    if big {
-                        std::f64::consts::PI / 180.0
-                    } else {
-                        1.0
-                    }
-                });
+                let scale = phase_scale.unwrap_or(1.0);
                 let s = if sign == (Sign::Known { negated: true }) {
                     -scale
                 } else {
                     scale
                 };
-                z.extend(
-                    b.a.iter()
-                        .zip(&b.b)
-                        .map(|(&m, &p)| Complex64::from_polar(scaled(m, modulus.scale), p * s)),
-                );
+                b.a.iter()
+                    .zip(&b.b)
+                    .map(|(&m, &p)| Complex64::from_polar(scaled(m, modulus.scale), p * s))
+                    .collect()
             }
-        }
-        let mut f = b.f;
-        let mut lines = b.lines;
-        // Zero impedance: dropped.
-        let mut k = 0;
-        while k < z.len() {
-            if z[k].norm() == 0.0 {
-                warnings.push(DataWarning {
-                    location: loc(lines[k], None),
-                    kind: WarningKind::ZeroImpedance,
+        };
+        let mut spectrum = Spectrum::new(b.f, z);
+        spectrum.source_lines = Some(b.lines);
+        // Zero impedance: dropped, in one pass.
+        let zero: Vec<bool> = spectrum.z.iter().map(|v| v.norm() == 0.0).collect();
+        if zero.contains(&true) {
+            let lines = spectrum.source_lines.iter().flatten();
+            for (&line, _) in lines.zip(&zero).filter(|(_, z)| **z) {
+                dropped.push(DroppedRow {
+                    line,
+                    column: None,
+                    reason: DropReason::ZeroImpedance,
                 });
-                z.remove(k);
-                f.remove(k);
-                lines.remove(k);
-            } else {
-                k += 1;
             }
+            let keep: Vec<bool> = zero.iter().map(|z| !z).collect();
+            spectrum.retain(&keep);
         }
-        let negative = z.iter().filter(|v| v.re < 0.0).count();
+        if !dropped.is_empty() {
+            dropped.sort_by_key(|d| d.line);
+            warnings.push(DataWarning {
+                location: Location::file(&self.file),
+                kind: WarningKind::DroppedRows(dropped),
+            });
+        }
+        let negative = spectrum.z.iter().filter(|v| v.re < 0.0).count();
         if negative > 0 {
             warnings.push(DataWarning {
                 location: loc(start, None),
@@ -616,38 +769,38 @@ impl<R: BufRead> SpectrumReader<R> {
         }
         // Order: the first point against the direction of the first step.
         let fcol = Some(map.freq.index + 1);
-        if let Some(second) = f.iter().position(|&x| x != f[0]) {
-            let down = f[second] < f[0];
-            if let Some(i) = (1..f.len()).find(|&i| {
-                if down {
-                    f[i] > f[i - 1]
-                } else {
-                    f[i] < f[i - 1]
-                }
-            }) {
-                warnings.push(DataWarning {
-                    location: loc(lines[i], fcol),
-                    kind: WarningKind::Unsorted,
+        let f = &spectrum.frequency_hz;
+        if let Some(&f0) = f.first() {
+            if let Some(&second) = f.iter().find(|&&x| x != f0) {
+                let down = second < f0;
+                let out_of_order = f.windows(2).position(|w| match w {
+                    [a, b] => (down && b > a) || (!down && b < a),
+                    _ => false,
                 });
+                if let Some(i) = out_of_order {
+                    warnings.push(DataWarning {
+                        location: loc(spectrum.source_line(i + 1).unwrap_or(start), fcol),
+                        kind: WarningKind::Unsorted,
+                    });
+                }
             }
         }
         let mut order: Vec<usize> = (0..f.len()).collect();
-        order.sort_by(|&i, &j| f[j].total_cmp(&f[i]).then(i.cmp(&j)));
-        if let Some(w) = order.windows(2).find(|w| f[w[0]] == f[w[1]]) {
-            let later = w[0].max(w[1]);
+        let at = |i: usize| f.get(i).copied().unwrap_or(f64::NAN);
+        order.sort_by(|&i, &j| at(j).total_cmp(&at(i)).then(i.cmp(&j)));
+        let same = order.windows(2).find_map(|w| match *w {
+            [i, j] if at(i) == at(j) => Some(i.max(j)),
+            _ => None,
+        });
+        if let Some(later) = same {
             warnings.push(DataWarning {
-                location: loc(lines[later], fcol),
-                kind: WarningKind::Duplicate(f[later]),
+                location: loc(spectrum.source_line(later).unwrap_or(start), fcol),
+                kind: WarningKind::Duplicate(at(later)),
             });
         }
-        let mut spectrum = if self.options.sort {
-            Spectrum::new(
-                order.iter().map(|&i| f[i]).collect(),
-                order.iter().map(|&i| z[i]).collect(),
-            )
-        } else {
-            Spectrum::new(f, z)
-        };
+        if self.options.sort {
+            spectrum.reorder(&order);
+        }
         // Cropping.
         let before = spectrum.len();
         spectrum.crop(self.options.fmin, self.options.fmax);
@@ -658,12 +811,14 @@ impl<R: BufRead> SpectrumReader<R> {
             });
         }
         // Inductive points at the high-frequency end.
-        let mut by_freq: Vec<usize> = (0..spectrum.len()).collect();
-        by_freq.sort_by(|&i, &j| spectrum.frequency_hz[j].total_cmp(&spectrum.frequency_hz[i]));
+        let fs = &spectrum.frequency_hz;
+        let freq = |i: usize| fs.get(i).copied().unwrap_or(f64::NAN);
+        let mut by_freq: Vec<usize> = (0..fs.len()).collect();
+        by_freq.sort_by(|&i, &j| freq(j).total_cmp(&freq(i)));
         let inductive: Vec<usize> = by_freq
             .iter()
             .copied()
-            .take_while(|&i| spectrum.z[i].im > 0.0)
+            .take_while(|&i| spectrum.z.get(i).is_some_and(|z| z.im > 0.0))
             .collect();
         if let (Some(&hi), Some(&lo)) = (inductive.first(), inductive.last()) {
             let drop = self.options.drop_inductive;
@@ -671,22 +826,19 @@ impl<R: BufRead> SpectrumReader<R> {
                 location: loc(start, None),
                 kind: WarningKind::Inductive {
                     count: inductive.len(),
-                    low_hz: spectrum.frequency_hz[lo],
-                    high_hz: spectrum.frequency_hz[hi],
+                    low_hz: freq(lo),
+                    high_hz: freq(hi),
                     dropped: drop,
                 },
             });
             if drop {
                 let mut keep = vec![true; spectrum.len()];
                 for &i in &inductive {
-                    keep[i] = false;
+                    if let Some(k) = keep.get_mut(i) {
+                        *k = false;
+                    }
                 }
-                let mut it = keep.iter();
-                spectrum
-                    .frequency_hz
-                    .retain(|_| *it.next().unwrap_or(&true));
-                let mut it = keep.iter();
-                spectrum.z.retain(|_| *it.next().unwrap_or(&true));
+                spectrum.retain(&keep);
             }
         }
         if spectrum.len() < self.options.min_points {
@@ -707,16 +859,20 @@ impl<R: BufRead> SpectrumReader<R> {
             spectrum.meta.set(name, value.clone());
         }
         for (k, (role, _)) in map.meta.iter().enumerate() {
-            let first = match parse_number(&b.meta_first[k], table.layout.decimal_comma) {
+            let raw = b.meta_first.get(k).map(String::as_str).unwrap_or("");
+            let first = match parse_number(raw, t.layout.decimal_comma) {
                 Some(x) if x.is_finite() => MetaValue::Number(x),
-                _ => MetaValue::parse(&b.meta_first[k]),
+                _ => MetaValue::parse(raw),
             };
-            let value = match role {
-                columns::Role::Potential | columns::Role::Current | columns::Role::Temperature
-                    if b.meta_numeric[k] && b.rows > 0 =>
-                {
-                    MetaValue::Number(b.meta_sum[k] / b.rows as f64)
-                }
+            let mean = match (b.meta_numeric.get(k), b.meta_sum.get(k)) {
+                (Some(true), Some(sum)) if b.rows > 0 => Some(sum / b.rows as f64),
+                _ => None,
+            };
+            let value = match (role, mean) {
+                (
+                    columns::Role::Potential | columns::Role::Current | columns::Role::Temperature,
+                    Some(m),
+                ) => MetaValue::Number(m),
                 _ => first,
             };
             spectrum.meta.set(role.key(), value);
@@ -725,27 +881,28 @@ impl<R: BufRead> SpectrumReader<R> {
     }
 
     fn step(&mut self) {
-        if self.table.is_none() {
+        let Some(table) = self.table.take() else {
             if let Err(e) = self.detect() {
                 self.fail(e);
             }
             return;
-        }
+        };
         let next = match self.queue.pop_front() {
             Some(l) => Some(Ok(l)),
             None => self.read_line(),
         };
         match next {
-            Some(Ok((n, text))) => self.process(n, text),
+            Some(Ok((n, text))) => self.process(&table, n, &text),
             Some(Err(e)) => {
-                self.finish_spectrum();
+                self.close(&table);
                 self.fail(e);
             }
             None => {
-                self.finish_spectrum();
+                self.close(&table);
                 self.finished = true;
             }
         }
+        self.table = Some(table);
     }
 }
 
