@@ -887,7 +887,8 @@ fn a_comment_above_a_headerless_table_is_not_its_header() {
 }
 
 /// Issue 13: dropping 94k zero-impedance rows of 100k removed them one by one (quadratic, 10 s).
-/// Linear, it takes a fraction of a second in the dev profile; the bound is 50 times that.
+/// This test pins what is kept and said; the speed is measured by the benchmark
+/// `import/read_100k_rows_94k_dropped` (speed targets live in benchmarks, not timed tests).
 #[test]
 fn dropping_most_rows_of_a_large_file_is_linear() {
     let n = 100_000;
@@ -897,14 +898,11 @@ fn dropping_most_rows_of_a_large_file_is_linear() {
         let z = if i % 100 < 94 { 0.0 } else { 1.0 };
         text.push_str(&format!("{f},{z},{}\n", -z));
     }
-    let t = std::time::Instant::now();
     let read = read_bytes("big.csv", text.as_bytes(), &ReaderOptions::default()).unwrap();
-    let elapsed = t.elapsed();
     assert_eq!(read[0].spectrum.len(), 6_000);
     let msg = read[0].warnings[0].to_string();
     assert_eq!(
         msg,
         "big.csv: warning: dropped 94000 rows: line 2: impedance is zero; line 3: impedance is zero; line 4: impedance is zero; and 93997 more"
     );
-    assert!(elapsed.as_secs_f64() < 5.0, "{elapsed:?}");
 }
