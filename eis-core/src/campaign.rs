@@ -33,7 +33,7 @@
 use crate::circuit::Circuit;
 use crate::derive::derive;
 use crate::fit::{FitSettings, fit};
-use crate::import::{ReaderOptions, SpectrumReader};
+use crate::import::{ReaderOptions, SpectrumReader, WarningKind};
 use crate::number::format_float;
 use crate::output::{OutputError, OutputFile};
 use crate::report::{FitDocument, document};
@@ -155,6 +155,9 @@ pub struct Summary {
     pub skipped: usize,
     /// Metadata columns found, in results order.
     pub metadata_columns: Vec<String>,
+    /// Inputs whose names do not match the reader's name pattern (so no metadata came from their
+    /// names), in input order.
+    pub unmatched_names: Vec<String>,
 }
 
 /// The journal of finished spectra inside the output folder.
@@ -229,6 +232,7 @@ fn index(
     reader: &ReaderOptions,
     files: &mut Names,
     cells: &mut Names,
+    unmatched: &mut Vec<String>,
     progress: &(dyn Fn(Stage, usize, usize) + Sync),
 ) -> Vec<Entry> {
     // Files are read in parallel; names are then numbered in input order, so ids do not depend on
@@ -250,9 +254,14 @@ fn index(
         .collect();
     let mut out = Vec::new();
     for (input, (path, found)) in inputs.iter().zip(scanned).enumerate() {
-        let file = files.id(&path.display().to_string());
+        let name = path.display().to_string();
+        let file = files.id(&name);
+        if found.iter().any(|f| matches!(f, Found::UnmatchedName)) {
+            unmatched.push(name);
+        }
         for f in found {
             out.push(match f {
+                Found::UnmatchedName => continue,
                 Found::Spectrum {
                     spectrum,
                     cell,
@@ -297,6 +306,8 @@ enum Found {
         spectrum: usize,
         error: String,
     },
+    /// The file name does not match the name pattern.
+    UnmatchedName,
 }
 
 /// Reads one file for the index: the series keys of each spectrum, or the error.
@@ -310,6 +321,13 @@ fn scan(path: &Path, reader: &ReaderOptions) -> Vec<Found> {
     for (k, item) in r.enumerate() {
         match item {
             Ok(imp) => {
+                if imp
+                    .warnings
+                    .iter()
+                    .any(|w| matches!(w.kind, WarningKind::NameMismatch(_)))
+                {
+                    out.push(Found::UnmatchedName);
+                }
                 let fields = &imp.spectrum.meta.fields;
                 let num = |k: &str| meta_field(fields, k).and_then(MetaValue::as_f64);
                 let cell = match meta_field(fields, "cell") {
@@ -330,7 +348,7 @@ fn scan(path: &Path, reader: &ReaderOptions) -> Vec<Found> {
             Err(e) => out.push(failed(e.spectrum.unwrap_or(k + 1), e.to_string())),
         }
     }
-    if out.is_empty() {
+    if !out.iter().any(|f| !matches!(f, Found::UnmatchedName)) {
         out.push(failed(1, format!("{}: no spectrum found", path.display())));
     }
     out
@@ -829,7 +847,7 @@ pub enum BatchError {
     OutputFile(OutputError),
     /// A resumed run whose settings differ from those of the results already in the folder.
     #[error(
-        "cannot resume in {folder}: its results were made with another {setting} (was `{was}`, now `{now}`); run without resume to start afresh, or with force to discard them"
+        "cannot resume in {folder}: its results were made with another {setting} (was `{was}`, now `{now}`)"
     )]
     SettingsDiffer {
         /// The output folder.
@@ -949,7 +967,15 @@ pub fn run_batch(
     let resume = resume != Resume::No;
     let mut files = Names::default();
     let mut cells = Names::default();
-    let entries = index(inputs, &settings.reader, &mut files, &mut cells, progress);
+    let mut unmatched_names = Vec::new();
+    let entries = index(
+        inputs,
+        &settings.reader,
+        &mut files,
+        &mut cells,
+        &mut unmatched_names,
+        progress,
+    );
     let total = entries.len();
 
     // What is already done: where each result's line is (a later line for the same key wins).
@@ -1149,6 +1175,7 @@ pub fn run_batch(
         .map_err(io_err(&results_csv))?;
     let mut summary = Summary {
         skipped,
+        unmatched_names,
         ..Summary::default()
     };
     let rows = order.len();

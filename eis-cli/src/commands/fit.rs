@@ -32,7 +32,7 @@ pub struct Args {
     #[arg(long, short)]
     model: String,
     /// Which spectrum of the file, from 1.
-    #[arg(long, value_name = "N", default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..))]
+    #[arg(allow_negative_numbers = true, long, value_name = "N", default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..))]
     spectrum: u32,
     /// Residual weighting.
     #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
@@ -50,10 +50,10 @@ pub struct Args {
     #[arg(long, value_name = "RESULT.json")]
     start_from: Option<PathBuf>,
     /// Open-circuit voltage (V): adds estimated short-circuit current and matched-load power.
-    #[arg(long, value_parser = crate::args::number)]
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::number)]
     ocv: Option<f64>,
     /// Number of grid starting points.
-    #[arg(long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
     starts: u32,
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]

@@ -93,10 +93,10 @@ pub struct Args {
     #[arg(long)]
     title: Option<String>,
     /// Width in pixels.
-    #[arg(long, default_value_t = plot::DEFAULT_SIZE.0, value_parser = clap::value_parser!(u32).range(100..=10000))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = plot::DEFAULT_SIZE.0, value_parser = clap::value_parser!(u32).range(100..=10000))]
     width: u32,
     /// Height in pixels.
-    #[arg(long, default_value_t = plot::DEFAULT_SIZE.1, value_parser = clap::value_parser!(u32).range(100..=10000))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = plot::DEFAULT_SIZE.1, value_parser = clap::value_parser!(u32).range(100..=10000))]
     height: u32,
     /// Do not mark the characteristic frequencies of arcs (Nyquist) or peaks (DRT).
     #[arg(long)]

@@ -33,13 +33,13 @@ pub struct Args {
     #[arg(long, default_value = "cell")]
     by: String,
     /// Keep only spectra at this SOC.
-    #[arg(long, value_parser = crate::args::number)]
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::number)]
     at_soc: Option<f64>,
     /// Flag resistances whose trend grew by at least this many percent.
-    #[arg(long, default_value = "20", value_parser = crate::args::positive)]
+    #[arg(allow_negative_numbers = true, long, default_value = "20", value_parser = crate::args::positive)]
     growth_percent: f64,
     /// Flag a soft short when the polarisation resistance falls below this fraction of its level.
-    #[arg(long, default_value = "0.5", value_parser = crate::args::positive)]
+    #[arg(allow_negative_numbers = true, long, default_value = "0.5", value_parser = crate::args::positive)]
     short_fraction: f64,
     /// Print the analysis as JSON.
     #[arg(long)]
