@@ -378,7 +378,7 @@ mod tests {
         let dir = scratch("refuse");
         let p = dir.join("in.csv");
         std::fs::write(&p, "data").unwrap();
-        let e = write(&p, b"x", &[p.clone()]).unwrap_err();
+        let e = write(&p, b"x", std::slice::from_ref(&p)).unwrap_err();
         assert!(matches!(e, OutputError::OverwritesInput(_)), "{e}");
         let e = write(&dir, b"x", &[]).unwrap_err();
         assert!(e.to_string().contains("a folder"), "{e}");
@@ -419,7 +419,7 @@ mod tests {
             "made"
         );
         // Through a link, an input is still an input.
-        let e = write(&link, b"x", &[target.clone()]).unwrap_err();
+        let e = write(&link, b"x", std::slice::from_ref(&target)).unwrap_err();
         assert!(matches!(e, OutputError::OverwritesInput(_)), "{e}");
         // A loop is an error, not a hang.
         std::os::unix::fs::symlink("loop2", dir.join("loop1")).unwrap();

@@ -363,12 +363,13 @@ fn numbers(v: Vec<Option<f64>>) -> Vec<f64> {
 }
 
 fn same_len(what: &str, lens: &[(&str, usize)]) -> anyhow::Result<()> {
-    let first = lens[0].1;
+    let Some(&(first_name, first)) = lens.first() else {
+        return Ok(());
+    };
     for (name, n) in lens {
         if *n != first {
             return Err(anyhow!(
-                "{what}: `{name}` has {n} values but `{}` has {first}",
-                lens[0].0
+                "{what}: `{name}` has {n} values but `{first_name}` has {first}"
             ));
         }
     }
