@@ -239,6 +239,7 @@ pub fn run(args: Args) -> Outcome {
             if *now != Some(stage) {
                 *now = Some(stage);
                 bar.reset();
+                bar.set_length(total as u64);
                 bar.set_message(match stage {
                     Stage::Reading => "reading files",
                     Stage::Fitting => "checking and fitting spectra",
