@@ -842,6 +842,9 @@ pub enum BatchError {
     /// An output would overwrite an input.
     #[error("refusing to write into {0}: it is an input file")]
     OverwritesInput(String),
+    /// The output folder names something that is not a folder (a file, a device).
+    #[error("output folder {0} is not a folder")]
+    NotAFolder(String),
     /// An output file cannot be written (a folder in its place, a loop of links).
     #[error("{0}")]
     OutputFile(OutputError),
@@ -913,6 +916,9 @@ pub fn run_batch(
         let path = path.display().to_string();
         move |source| BatchError::Output { path, source }
     };
+    if out.exists() && !out.is_dir() {
+        return Err(BatchError::NotAFolder(out.display().to_string()));
+    }
     std::fs::create_dir_all(out).map_err(io_err(out))?;
     let results_jsonl = out.join("results.jsonl");
     let results_csv = out.join("results.csv");

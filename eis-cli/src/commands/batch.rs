@@ -260,7 +260,7 @@ pub fn run(args: Args) -> Outcome {
     let summary = run_batch(&inputs, &circuit, &settings, &args.out, resume, &progress);
     bar.finish_and_clear();
     let summary = summary.map_err(|e| match e {
-        BatchError::OverwritesInput(_) => bad(anyhow!("{e}")),
+        BatchError::OverwritesInput(_) | BatchError::NotAFolder(_) => bad(anyhow!("{e}")),
         BatchError::SettingsDiffer { .. } => bad(anyhow!(
             "{e}; use --force to discard them and start afresh, or another --out folder"
         )),
