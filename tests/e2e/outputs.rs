@@ -299,3 +299,26 @@ fn index_and_results_end_with_a_newline() {
         assert!(text.ends_with('\n'), "{f}: {text:?}");
     }
 }
+
+/// Messages on a full standard error are dropped: there is nowhere left to report, but no panic.
+#[cfg(target_os = "linux")]
+#[test]
+fn stderr_to_dev_full_does_not_panic() {
+    let dir = scratch("stderr_full");
+    for (args, code) in [
+        (&["simulate", "--model", "R0"][..], 0),
+        (&["fit", "missing.csv", "--model", "R0"][..], 2),
+    ] {
+        let full = std::fs::OpenOptions::new()
+            .write(true)
+            .open("/dev/full")
+            .unwrap();
+        let out = Command::new(eis_bin())
+            .args(args)
+            .current_dir(&dir)
+            .stderr(full)
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(code), "{args:?}");
+    }
+}
