@@ -19,7 +19,16 @@
 //!
 //! An interrupted run leaves its journal; a run with `resume` skips every spectrum found in the
 //! journal or in an existing `results.jsonl` and continues the warm-start chains from their results, so
-//! that the final files equal those of an uninterrupted run. Input files are only ever read.
+//! that the final files equal those of an uninterrupted run. The settings the results depend on
+//! ([`RunSettings`]: model, weighting, fit, reader and Kramers–Kronig settings) open the journal and are
+//! kept beside the results ([`SETTINGS`]); a resume with other settings is refused
+//! ([`BatchError::SettingsDiffer`]) unless told to start afresh ([`Resume::YesOrRestart`]). Input
+//! files are only ever read.
+//!
+//! Every spectrum found is a row of the results: one that cannot be read, checked or fitted, or whose
+//! processing panics, is a row with status failed and the reason. Numbers that are not finite (an
+//! infinite time constant) are `null` in `results.jsonl` (read back as NaN) and empty cells in
+//! `results.csv`. The output files go through [`crate::output`].
 //!
 //! # Memory
 //!
