@@ -1169,11 +1169,19 @@ pub fn run_batch(
     let mut store = Store::new(&results_jsonl, &journal_path);
     let mut load = |key: &Key, loc: &Loc| match store.load(loc) {
         Ok(r) => Ok(Some(r)),
-        Err(e) if e.kind() == io::ErrorKind::InvalidData => Ok(Some(failed(
-            files.get(key.0),
-            key.1,
-            format!("internal error: its result cannot be read back: {e}"),
-        ))),
+        // A line cut short since it was first read (the file changed under the run) likewise.
+        Err(e)
+            if matches!(
+                e.kind(),
+                io::ErrorKind::InvalidData | io::ErrorKind::UnexpectedEof
+            ) =>
+        {
+            Ok(Some(failed(
+                files.get(key.0),
+                key.1,
+                format!("internal error: its result cannot be read back: {e}"),
+            )))
+        }
         Err(e) => Err(io_err(&store.paths[loc.source as usize])(e)),
     };
     let mut arcs = Vec::new();
