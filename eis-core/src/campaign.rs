@@ -789,7 +789,8 @@ impl RunSettings {
             ("Kramers-Kronig settings", &self.kk, &now.kk),
         ];
         if let Some((name, a, b)) = pairs.into_iter().find(|(_, a, b)| a != b) {
-            return Some((name, a.clone(), b.clone()));
+            let (a, b) = first_difference(a, b);
+            return Some((name, a, b));
         }
         (self.warm_start != now.warm_start).then(|| {
             (
@@ -799,6 +800,26 @@ impl RunSettings {
             )
         })
     }
+}
+
+/// The first differing `field: value` item of two settings written as `Name { a: 1, b: 2 }`, so that
+/// a message names the setting that changed rather than repeating both in full; the whole texts when
+/// they do not split that way.
+fn first_difference(a: &str, b: &str) -> (String, String) {
+    let items = |s: &str| -> Vec<String> {
+        let inner = s
+            .split_once('{')
+            .and_then(|(_, rest)| rest.strip_suffix('}'))
+            .unwrap_or(s);
+        inner.split(", ").map(|t| t.trim().to_owned()).collect()
+    };
+    let (ia, ib) = (items(a), items(b));
+    if ia.len() == ib.len() {
+        if let Some((x, y)) = ia.into_iter().zip(ib).find(|(x, y)| x != y) {
+            return (x, y);
+        }
+    }
+    (a.to_owned(), b.to_owned())
 }
 
 /// A line of the journal (or the file [`SETTINGS`]) holding the run's settings.
@@ -1764,7 +1785,15 @@ mod tests {
             fit: FitSettings::default().with_weighting(crate::fit::Weighting::Unit),
             ..BatchSettings::default()
         };
-        let e = run_batch(&[p], &other, &s, &out, Resume::Yes, &|_, _, _| {}).unwrap_err();
+        let e = run_batch(
+            std::slice::from_ref(&p),
+            &other,
+            &s,
+            &out,
+            Resume::Yes,
+            &|_, _, _| {},
+        )
+        .unwrap_err();
         assert!(
             matches!(
                 e,
@@ -1775,5 +1804,16 @@ mod tests {
             ),
             "{e}"
         );
+        // A reader setting is named by its field.
+        let s = BatchSettings {
+            reader: ReaderOptions {
+                fmin: Some(2.0),
+                ..ReaderOptions::default()
+            },
+            ..BatchSettings::default()
+        };
+        let e = run_batch(&[p], &other, &s, &out, Resume::Yes, &|_, _, _| {}).unwrap_err();
+        let want = "another reader settings (was `fmin: None`, now `fmin: Some(2.0)`)";
+        assert!(e.to_string().contains(want), "{e}");
     }
 }
