@@ -99,6 +99,25 @@ fn resolve(path: &Path) -> Result<Target, OutputError> {
         path: shown(),
         source,
     };
+    // What the system sees first: it follows every kind of link, including those of /proc that
+    // name no path (`/dev/stdout` on a pipe), which the walk below could not follow.
+    if let Ok(meta) = std::fs::metadata(path) {
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::FileTypeExt;
+            let ft = meta.file_type();
+            if ft.is_fifo() || ft.is_char_device() || ft.is_block_device() {
+                return Ok(Target::Stream(path.to_path_buf()));
+            }
+        }
+        if meta.is_dir() {
+            return Err(OutputError::NotAFile {
+                path: shown(),
+                what: "a folder",
+            });
+        }
+    }
+    // A regular file, a new name or a dangling link: follow the links to the path to replace.
     let mut p = path.to_path_buf();
     for _ in 0..=MAX_LINKS {
         let meta = match std::fs::symlink_metadata(&p) {

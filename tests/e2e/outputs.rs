@@ -322,3 +322,12 @@ fn stderr_to_dev_full_does_not_panic() {
         assert_eq!(out.status.code(), Some(code), "{args:?}");
     }
 }
+
+/// `-o /dev/stdout` on a pipe: the link names no file, so it is written directly.
+#[cfg(target_os = "linux")]
+#[test]
+fn output_to_dev_stdout_on_a_pipe_writes_to_stdout() {
+    let dir = scratch("out_dev_stdout");
+    let run = eis(&dir, &["simulate", "--model", "R0", "-o", "/dev/stdout"]).expect_code(0);
+    assert!(run.stdout.starts_with("frequency_hz,"), "{}", run.stdout);
+}
