@@ -12,7 +12,7 @@ fn write_arc(path: &Path) {
     for k in 0..21 {
         let f = 10f64.powf(5.0 - 0.35 * f64::from(k));
         let w = 2.0 * std::f64::consts::PI * f;
-        // R0 + R|C with R0 = 10 Ω, R = 100 Ω, C = 10 µF: Z = R0 + R / (1 + jωRC).
+        // R0 + R|C with R0 = 10 Ω, R = 100 Ω, C = 10 µF: Z = R0 + R / (1 + jωRC) (common practice).
         let d = 1.0 + (w * 1e-3).powi(2);
         let (re, im) = (10.0 + 100.0 / d, -100.0 * w * 1e-3 / d);
         text.push_str(&format!("{f},{re},{im}\n"));
