@@ -3,6 +3,7 @@
 
 use anyhow::Context;
 use eis_core::Circuit;
+use eis_core::output::OutputError;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
@@ -14,6 +15,9 @@ pub enum Failure {
     BadInput(anyhow::Error),
     /// A computation failed or a result is not to be trusted: exit status 1.
     Failed(anyhow::Error),
+    /// Standard output was closed by its reader (`eis ... | head`): the command ends quietly with
+    /// exit status 0, as Unix filters do.
+    BrokenPipe,
 }
 
 impl Failure {
@@ -22,8 +26,10 @@ impl Failure {
         let (err, code) = match self {
             Failure::BadInput(e) => (e, 2),
             Failure::Failed(e) => (e, 1),
+            Failure::BrokenPipe => return ExitCode::SUCCESS,
         };
-        eprintln!("error: {err:#}");
+        // Standard error may be closed or full too; then there is nowhere left to say so.
+        let _ = writeln!(std::io::stderr(), "error: {err:#}");
         ExitCode::from(code)
     }
 }
@@ -68,59 +74,34 @@ pub fn apply_overrides<'a>(
     Ok(())
 }
 
-/// Writes `bytes` to `path` atomically: a temporary file in the same folder, flushed, then renamed over
-/// the target, so a reader sees the old or the new file, never half of one. Refuses to write over any
-/// of `inputs`.
+/// Writes `bytes` to `path` with the one output writer of the toolkit ([`eis_core::output`]): a
+/// regular file (or a new one) atomically, through a temporary file renamed over it; through symbolic
+/// links to their target; straight into a FIFO or device, which stay what they are. Refuses to write
+/// over any of `inputs`, also through a link.
 pub fn write_atomic(path: &Path, bytes: &[u8], inputs: &[PathBuf]) -> Result<(), Failure> {
-    for input in inputs {
-        if same_file(path, input) {
-            return Err(bad(anyhow::anyhow!(
-                "refusing to write {}: it is an input file",
-                path.display()
-            )));
-        }
-    }
-    let dir = path
-        .parent()
-        .filter(|d| !d.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
-    let name = path
-        .file_name()
-        .ok_or_else(|| bad(anyhow::anyhow!("{} is not a file path", path.display())))?;
-    let tmp = dir.join(format!(
-        ".{}.tmp{}",
-        name.to_string_lossy(),
-        std::process::id()
-    ));
-    let result = (|| -> std::io::Result<()> {
-        let mut f = std::fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    result.map_err(|e| {
-        let _ = std::fs::remove_file(&tmp);
-        Failure::Failed(anyhow::anyhow!("cannot write {}: {e}", path.display()))
+    eis_core::output::write(path, bytes, inputs).map_err(|e| match e {
+        OutputError::OverwritesInput(_) | OutputError::NotAFile { .. } => bad(e),
+        e => Failure::Failed(e.into()),
     })
 }
 
-fn same_file(a: &Path, b: &Path) -> bool {
-    match (a.canonicalize(), b.canonicalize()) {
-        (Ok(x), Ok(y)) => x == y,
-        _ => false,
-    }
+/// Writes `text` to standard output. A closed pipe ends the command quietly ([`Failure::BrokenPipe`]);
+/// any other failure (a full disk, `> /dev/full`) is an error with exit status 1.
+pub fn print(text: &str) -> Result<(), Failure> {
+    let mut out = std::io::stdout().lock();
+    out.write_all(text.as_bytes())
+        .and_then(|_| out.flush())
+        .map_err(|e| match e.kind() {
+            std::io::ErrorKind::BrokenPipe => Failure::BrokenPipe,
+            _ => Failure::Failed(anyhow::anyhow!("cannot write to standard output: {e}")),
+        })
 }
 
 /// Writes to `path`, or to stdout when `path` is `None` or `-`.
 pub fn write_output(path: Option<&Path>, text: &str, inputs: &[PathBuf]) -> Result<(), Failure> {
     match path {
         Some(p) if p != Path::new("-") => write_atomic(p, text.as_bytes(), inputs),
-        _ => {
-            let mut out = std::io::stdout().lock();
-            out.write_all(text.as_bytes())
-                .and_then(|_| out.flush())
-                .map_err(|e| Failure::Failed(anyhow::anyhow!("cannot write to stdout: {e}")))
-        }
+        _ => print(text),
     }
 }
 

@@ -2,6 +2,16 @@
 //! `eis-core`, writes files and maps outcomes to exit codes: 0 success, 1 a computation failed or a
 //! result is suspect, 2 bad input or usage.
 
+/// `eprintln!` that never panics: the standard one panics when standard error is closed or full
+/// (`2>/dev/full`), and then there is nowhere left to report anything, so the message is dropped.
+/// Defined before the modules so that it shadows the standard macro in all of them.
+macro_rules! eprintln {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr(), $($arg)*);
+    }};
+}
+
 mod args;
 mod commands;
 mod format;

@@ -13,8 +13,8 @@ pub struct ReaderArgs {
     /// Column roles, by number from 1 or by header word, e.g. freq=1,re=2,im=3 or
     /// freq=Frequency,mod=|Z|,phase=Phase. Keys: freq, re, im, mod, phase, time, cycle, step, sweep,
     /// potential, current, temperature.
-    #[arg(long, value_name = "KEY=COLUMN,...", value_parser = parse_column_overrides)]
-    columns: Option<Vec<(Role, ColumnRef)>>,
+    #[arg(long, value_name = "KEY=COLUMN,...", value_parser = parse_columns)]
+    columns: Option<Columns>,
     /// What the imaginary (or phase) column holds: auto (from the header), z (Z'' with its sign),
     /// minus-z (-Z'').
     #[arg(long, value_enum, default_value = "auto")]
@@ -27,10 +27,10 @@ pub struct ReaderArgs {
     #[arg(long, value_name = "PATTERN", value_parser = NamePattern::parse)]
     name_pattern: Option<NamePattern>,
     /// Drop points below this frequency (Hz).
-    #[arg(long, value_parser = parse_positive)]
+    #[arg(allow_negative_numbers = true, long, value_parser = parse_positive)]
     fmin: Option<f64>,
     /// Drop points above this frequency (Hz).
-    #[arg(long, value_parser = parse_positive)]
+    #[arg(allow_negative_numbers = true, long, value_parser = parse_positive)]
     fmax: Option<f64>,
     /// Drop the inductive points (positive imaginary part) at the high-frequency end.
     #[arg(long)]
@@ -40,7 +40,7 @@ pub struct ReaderArgs {
     #[arg(long, value_enum, default_value = "auto")]
     split: SplitArg,
     /// Fewest points a spectrum may have.
-    #[arg(long, default_value_t = 3, value_parser = clap::value_parser!(u32).range(1..))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 3, value_parser = clap::value_parser!(u32).range(1..))]
     min_points: u32,
 }
 
@@ -66,6 +66,16 @@ enum SplitArg {
     None,
 }
 
+/// The column roles of one `--columns` value. A type of its own: clap reads an `Option<Vec<_>>`
+/// field as a list of single values, which did not match what this parser returns (issue 13: every
+/// `--columns` panicked).
+#[derive(Debug, Clone)]
+struct Columns(Vec<(Role, ColumnRef)>);
+
+fn parse_columns(s: &str) -> Result<Columns, String> {
+    parse_column_overrides(s).map(Columns)
+}
+
 fn parse_positive(s: &str) -> Result<f64, String> {
     match eis_core::number::parse_si(s) {
         Some(v) if v > 0.0 => Ok(v),
@@ -86,7 +96,7 @@ impl ReaderArgs {
             }
         }
         Ok(ReaderOptions {
-            columns: self.columns.clone().unwrap_or_default(),
+            columns: self.columns.clone().map(|c| c.0).unwrap_or_default(),
             imag_sign: match self.imag_sign {
                 ImagSignArg::Auto => ImagSign::Auto,
                 ImagSignArg::Z => ImagSign::AsIs,

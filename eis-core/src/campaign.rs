@@ -19,7 +19,16 @@
 //!
 //! An interrupted run leaves its journal; a run with `resume` skips every spectrum found in the
 //! journal or in an existing `results.jsonl` and continues the warm-start chains from their results, so
-//! that the final files equal those of an uninterrupted run. Input files are only ever read.
+//! that the final files equal those of an uninterrupted run. The settings the results depend on
+//! ([`RunSettings`]: model, weighting, fit, reader and Kramers–Kronig settings) open the journal and are
+//! kept beside the results ([`SETTINGS`]); a resume with other settings is refused
+//! ([`BatchError::SettingsDiffer`]) unless told to start afresh ([`Resume::YesOrRestart`]). Input
+//! files are only ever read.
+//!
+//! Every spectrum found is a row of the results: one that cannot be read, checked or fitted, or whose
+//! processing panics, is a row with status failed and the reason. Numbers that are not finite (an
+//! infinite time constant) are `null` in `results.jsonl` (read back as NaN) and empty cells in
+//! `results.csv`. The output files go through [`crate::output`].
 //!
 //! # Memory
 //!
@@ -33,8 +42,9 @@
 use crate::circuit::Circuit;
 use crate::derive::derive;
 use crate::fit::{FitSettings, fit};
-use crate::import::{ReaderOptions, SpectrumReader};
+use crate::import::{ReaderOptions, SpectrumReader, WarningKind};
 use crate::number::format_float;
+use crate::output::{OutputError, OutputFile};
 use crate::report::{FitDocument, document};
 use crate::spectrum::{MetaValue, Spectrum};
 use crate::validate::{KkOptions, kramers_kronig};
@@ -42,7 +52,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::{BTreeMap, BTreeSet, HashMap, HashSet};
 use std::fs::File;
-use std::io::{self, BufRead, BufReader, BufWriter, Read, Seek, SeekFrom, Write};
+use std::io::{self, BufRead, BufReader, Read, Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
@@ -103,14 +113,18 @@ pub struct KkSummary {
     /// Verdict.
     pub valid: bool,
     /// μ of the chosen fit.
+    #[serde(with = "crate::report::nullable")]
     pub mu: f64,
     /// Voigt elements used.
     pub elements: usize,
     /// RMS residual, %.
+    #[serde(with = "crate::report::nullable")]
     pub residual_rms_percent: f64,
     /// Largest residual, %.
+    #[serde(with = "crate::report::nullable")]
     pub residual_max_percent: f64,
     /// Frequency range of residuals above the limit.
+    #[serde(with = "crate::report::nullable::pair")]
     pub suspect_frequency_range_hz: Option<(f64, f64)>,
 }
 
@@ -150,6 +164,9 @@ pub struct Summary {
     pub skipped: usize,
     /// Metadata columns found, in results order.
     pub metadata_columns: Vec<String>,
+    /// Inputs whose names do not match the reader's name pattern (so no metadata came from their
+    /// names), in input order.
+    pub unmatched_names: Vec<String>,
 }
 
 /// The journal of finished spectra inside the output folder.
@@ -168,7 +185,8 @@ impl Names {
         if let Some(&i) = self.ids.get(name) {
             return i;
         }
-        let i = u32::try_from(self.list.len()).expect("fewer than 2^32 names");
+        // More than 2^32 names would need more memory than any machine has for the names alone.
+        let i = u32::try_from(self.list.len()).unwrap_or(u32::MAX);
         let name: Arc<str> = Arc::from(name);
         self.list.push(name.clone());
         self.ids.insert(name, i);
@@ -176,7 +194,7 @@ impl Names {
     }
 
     fn get(&self, id: u32) -> &str {
-        &self.list[id as usize]
+        self.list.get(id as usize).map_or("", |n| n)
     }
 }
 
@@ -223,15 +241,36 @@ fn index(
     reader: &ReaderOptions,
     files: &mut Names,
     cells: &mut Names,
+    unmatched: &mut Vec<String>,
+    progress: &(dyn Fn(Stage, usize, usize) + Sync),
 ) -> Vec<Entry> {
     // Files are read in parallel; names are then numbered in input order, so ids do not depend on
     // which thread finished first.
-    let scanned: Vec<Vec<Found>> = inputs.par_iter().map(|p| scan(p, reader)).collect();
+    let read = std::sync::atomic::AtomicUsize::new(0);
+    let scanned: Vec<Vec<Found>> = inputs
+        .par_iter()
+        .map(|p| {
+            let found = guarded(|| scan(p, reader)).unwrap_or_else(|error| {
+                vec![Found::Failed {
+                    spectrum: 1,
+                    error: format!("{}: {error}", p.display()),
+                }]
+            });
+            let n = read.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
+            progress(Stage::Reading, n, inputs.len());
+            found
+        })
+        .collect();
     let mut out = Vec::new();
     for (input, (path, found)) in inputs.iter().zip(scanned).enumerate() {
-        let file = files.id(&path.display().to_string());
+        let name = path.display().to_string();
+        let file = files.id(&name);
+        if found.iter().any(|f| matches!(f, Found::UnmatchedName)) {
+            unmatched.push(name);
+        }
         for f in found {
             out.push(match f {
+                Found::UnmatchedName => continue,
                 Found::Spectrum {
                     spectrum,
                     cell,
@@ -276,6 +315,8 @@ enum Found {
         spectrum: usize,
         error: String,
     },
+    /// The file name does not match the name pattern.
+    UnmatchedName,
 }
 
 /// Reads one file for the index: the series keys of each spectrum, or the error.
@@ -289,6 +330,13 @@ fn scan(path: &Path, reader: &ReaderOptions) -> Vec<Found> {
     for (k, item) in r.enumerate() {
         match item {
             Ok(imp) => {
+                if imp
+                    .warnings
+                    .iter()
+                    .any(|w| matches!(w.kind, WarningKind::NameMismatch(_)))
+                {
+                    out.push(Found::UnmatchedName);
+                }
                 let fields = &imp.spectrum.meta.fields;
                 let num = |k: &str| meta_field(fields, k).and_then(MetaValue::as_f64);
                 let cell = match meta_field(fields, "cell") {
@@ -309,7 +357,7 @@ fn scan(path: &Path, reader: &ReaderOptions) -> Vec<Found> {
             Err(e) => out.push(failed(e.spectrum.unwrap_or(k + 1), e.to_string())),
         }
     }
-    if out.is_empty() {
+    if !out.iter().any(|f| !matches!(f, Found::UnmatchedName)) {
         out.push(failed(1, format!("{}: no spectrum found", path.display())));
     }
     out
@@ -410,6 +458,11 @@ fn process(
     settings: &BatchSettings,
     warm: Option<&(Vec<f64>, f64)>,
 ) -> SpectrumResult {
+    // The last line of defence is tested with a planted fault.
+    #[cfg(test)]
+    if file.ends_with("panics-in-test.csv") {
+        panic!("planted fault");
+    }
     let mut result = SpectrumResult {
         file: file.to_owned(),
         spectrum: n,
@@ -530,7 +583,7 @@ impl MetaSets {
         if let Some(&i) = self.ids.get(&names) {
             return i;
         }
-        let i = u32::try_from(self.list.len()).expect("fewer than 2^32 metadata sets");
+        let i = u32::try_from(self.list.len()).unwrap_or(u32::MAX);
         self.list.push(names.clone());
         self.ids.insert(names, i);
         i
@@ -538,11 +591,13 @@ impl MetaSets {
 }
 
 /// Calls `f(result, offset, length)` for every line of a JSON-lines file of results, the length
-/// without the line end. Lines that are not a result (a truncated last line from an interrupted write,
-/// say) are skipped; a missing file has no lines.
-fn scan_jsonl(path: &Path, mut f: impl FnMut(SpectrumResult, u64, u64)) {
+/// without the line end, and returns the run settings recorded in it. Lines that are neither a result
+/// nor settings (a truncated last line from an interrupted write, say) are skipped; a missing file has
+/// no lines.
+fn scan_jsonl(path: &Path, mut f: impl FnMut(SpectrumResult, u64, u64)) -> Vec<RunSettings> {
+    let mut recorded = Vec::new();
     let Ok(file) = File::open(path) else {
-        return;
+        return recorded;
     };
     let mut r = BufReader::with_capacity(1 << 16, file);
     let mut line = Vec::new();
@@ -560,8 +615,11 @@ fn scan_jsonl(path: &Path, mut f: impl FnMut(SpectrumResult, u64, u64)) {
         }
         if let Ok(result) = serde_json::from_slice(&line) {
             f(result, start, line.len() as u64);
+        } else if let Ok(s) = serde_json::from_slice::<SettingsLine>(&line) {
+            recorded.push(s.settings);
         }
     }
+    recorded
 }
 
 /// Reads finished results back from their lines, one at a time.
@@ -643,10 +701,27 @@ impl Journal {
         })
     }
 
-    /// Appends one result.
+    /// Appends the settings of the run, as a line of its own (not a result, so readers of results
+    /// pass over it).
+    fn note_settings(&mut self, settings: &RunSettings) -> io::Result<()> {
+        let line = serde_json::to_string(&SettingsLine {
+            settings: settings.clone(),
+        })
+        .map_err(io::Error::other)?;
+        self.file.write_all(format!("{line}\n").as_bytes())?;
+        self.len += line.len() as u64 + 1;
+        Ok(())
+    }
+
+    /// Appends one result. A result that cannot be written as JSON (it cannot happen: non-finite
+    /// numbers are written as null) is recorded as failed, so that its spectrum still has a row.
     fn record(&mut self, key: Key, r: &SpectrumResult) {
-        let Ok(mut line) = serde_json::to_string(r) else {
-            return;
+        let mut line = match serde_json::to_string(r) {
+            Ok(line) => line,
+            Err(e) => {
+                let f = failed(&r.file, r.spectrum, format!("internal error: {e}"));
+                serde_json::to_string(&f).unwrap_or_default()
+            }
         };
         line.push('\n');
         let offset = self.len;
@@ -671,69 +746,115 @@ impl Journal {
     }
 }
 
-/// A file written through a temporary file in the same folder and renamed over the target on
-/// [`AtomicFile::commit`]; dropped without a commit, it leaves the target alone.
-struct AtomicFile {
-    path: PathBuf,
-    tmp: PathBuf,
-    out: Option<BufWriter<File>>,
+/// The settings a run's results depend on, in words. They are recorded as the first line of the
+/// journal and in [`SETTINGS`] beside the results, so that a resumed run never mixes results made
+/// with other settings.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct RunSettings {
+    /// Canonical text of the model.
+    pub model: String,
+    /// Residual weighting.
+    pub weighting: String,
+    /// The other fit settings.
+    pub fit: String,
+    /// Whether fits are warm-started along each series.
+    pub warm_start: bool,
+    /// Reader settings.
+    pub reader: String,
+    /// Kramers–Kronig settings.
+    pub kk: String,
 }
 
-impl AtomicFile {
-    fn create(path: &Path) -> io::Result<AtomicFile> {
-        let dir = path
-            .parent()
-            .filter(|d| !d.as_os_str().is_empty())
-            .unwrap_or(Path::new("."));
-        let name = path
-            .file_name()
-            .map(|n| n.to_string_lossy().into_owned())
-            .unwrap_or_else(|| "out".into());
-        let tmp = dir.join(format!(".{name}.tmp{}", std::process::id()));
-        let file = File::create(&tmp)?;
-        Ok(AtomicFile {
-            path: path.to_path_buf(),
-            tmp,
-            out: Some(BufWriter::with_capacity(1 << 16, file)),
+impl RunSettings {
+    /// The record of a run of `circuit` with `settings`.
+    pub fn new(circuit: &Circuit, settings: &BatchSettings) -> RunSettings {
+        RunSettings {
+            model: crate::circuit::print(circuit),
+            weighting: settings.fit.weighting.as_str().to_owned(),
+            fit: format!("{:?}", settings.fit.with_warm_reference(None)),
+            warm_start: settings.warm_start,
+            reader: format!("{:?}", settings.reader),
+            kk: format!("{:?}", settings.kk),
+        }
+    }
+
+    /// The first setting in which `self` (an earlier run) differs from `now`: its name, the earlier
+    /// value and the value now.
+    pub fn difference(&self, now: &RunSettings) -> Option<(&'static str, String, String)> {
+        let pairs = [
+            ("model", &self.model, &now.model),
+            ("weighting", &self.weighting, &now.weighting),
+            ("fit settings", &self.fit, &now.fit),
+            ("reader settings", &self.reader, &now.reader),
+            ("Kramers-Kronig settings", &self.kk, &now.kk),
+        ];
+        if let Some((name, a, b)) = pairs.into_iter().find(|(_, a, b)| a != b) {
+            let (a, b) = first_difference(a, b);
+            return Some((name, a, b));
+        }
+        (self.warm_start != now.warm_start).then(|| {
+            (
+                "warm start",
+                self.warm_start.to_string(),
+                now.warm_start.to_string(),
+            )
         })
     }
-
-    fn write(&mut self, bytes: &[u8]) -> io::Result<()> {
-        match &mut self.out {
-            Some(w) => w.write_all(bytes),
-            None => Err(io::Error::other("already committed")),
-        }
-    }
-
-    fn commit(mut self) -> io::Result<()> {
-        let Some(w) = self.out.take() else {
-            return Err(io::Error::other("already committed"));
-        };
-        let r = w
-            .into_inner()
-            .map_err(io::IntoInnerError::into_error)
-            .and_then(|f| f.sync_all())
-            .and_then(|()| std::fs::rename(&self.tmp, &self.path));
-        if r.is_err() {
-            let _ = std::fs::remove_file(&self.tmp);
-        }
-        r
-    }
 }
 
-impl Drop for AtomicFile {
-    fn drop(&mut self) {
-        if self.out.take().is_some() {
-            let _ = std::fs::remove_file(&self.tmp);
+/// The first differing `field: value` item of two settings written as `Name { a: 1, b: 2 }`, so that
+/// a message names the setting that changed rather than repeating both in full; the whole texts when
+/// they do not split that way.
+fn first_difference(a: &str, b: &str) -> (String, String) {
+    let items = |s: &str| -> Vec<String> {
+        let inner = s
+            .split_once('{')
+            .and_then(|(_, rest)| rest.strip_suffix('}'))
+            .unwrap_or(s);
+        inner.split(", ").map(|t| t.trim().to_owned()).collect()
+    };
+    let (ia, ib) = (items(a), items(b));
+    if ia.len() == ib.len() {
+        if let Some((x, y)) = ia.into_iter().zip(ib).find(|(x, y)| x != y) {
+            return (x, y);
         }
     }
+    (a.to_owned(), b.to_owned())
 }
 
-/// Writes `bytes` to `path` through a temporary file in the same folder and a rename.
-pub fn write_atomic(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
-    let mut f = AtomicFile::create(path)?;
-    f.write(bytes)?;
-    f.commit()
+/// A line of the journal (or the file [`SETTINGS`]) holding the run's settings.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct SettingsLine {
+    settings: RunSettings,
+}
+
+/// The settings of the run that wrote the results, beside them in the output folder.
+pub const SETTINGS: &str = ".results.settings.json";
+
+/// What to do with results already in the output folder.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum Resume {
+    /// Start afresh; earlier results are replaced.
+    No,
+    /// Skip every spectrum already in the results; refuse ([`BatchError::SettingsDiffer`]) when they
+    /// were made with other settings.
+    Yes,
+    /// As [`Resume::Yes`], but results made with other settings are discarded (the run starts afresh).
+    YesOrRestart,
+}
+
+/// The steps of a run, as reported to the progress callback.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum Stage {
+    /// Reading every input to index its spectra (counts files).
+    Reading,
+    /// Checking and fitting (counts spectra).
+    Fitting,
+    /// Writing the results files (counts rows).
+    Writing,
 }
 
 /// Why a batch could not run at all.
@@ -751,45 +872,146 @@ pub enum BatchError {
     /// An output would overwrite an input.
     #[error("refusing to write into {0}: it is an input file")]
     OverwritesInput(String),
+    /// The output folder names something that is not a folder (a file, a device).
+    #[error("output folder {0} is not a folder")]
+    NotAFolder(String),
+    /// An output file cannot be written (a folder in its place, a loop of links).
+    #[error("{0}")]
+    OutputFile(OutputError),
+    /// A resumed run whose settings differ from those of the results already in the folder.
+    #[error(
+        "cannot resume in {folder}: its results were made with another {setting} (was `{was}`, now `{now}`)"
+    )]
+    SettingsDiffer {
+        /// The output folder.
+        folder: String,
+        /// Which setting differs.
+        setting: &'static str,
+        /// Its value in the earlier run.
+        was: String,
+        /// Its value now.
+        now: String,
+    },
+}
+
+impl From<OutputError> for BatchError {
+    fn from(e: OutputError) -> Self {
+        match e {
+            OutputError::OverwritesInput(p) => BatchError::OverwritesInput(p),
+            e => BatchError::OutputFile(e),
+        }
+    }
+}
+
+/// The message of a caught panic.
+fn panic_message(payload: &(dyn std::any::Any + Send)) -> String {
+    if let Some(s) = payload.downcast_ref::<&str>() {
+        (*s).to_owned()
+    } else if let Some(s) = payload.downcast_ref::<String>() {
+        s.clone()
+    } else {
+        "unknown panic".to_owned()
+    }
+}
+
+/// Runs `f`, turning a panic into an error message: one spectrum's fault must not stop a batch.
+fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, String> {
+    std::panic::catch_unwind(std::panic::AssertUnwindSafe(f))
+        .map_err(|p| format!("internal error: {}", panic_message(p.as_ref())))
 }
 
 /// Runs a campaign: reads `inputs`, checks and fits every spectrum, writes `out/results.csv` and
-/// `out/results.jsonl`. `progress(done, total)` is called after each spectrum (from worker threads).
+/// `out/results.jsonl`. `progress(stage, done, total)` is called as the work advances (from worker
+/// threads).
+///
+/// Every spectrum found, and every input that could not be read, is a row of the results: a spectrum
+/// that cannot be read, checked or fitted (or whose processing fails in an unforeseen way) is a row
+/// with status failed and the reason.
 ///
 /// # Errors
 ///
 /// [`BatchError`] when the output folder cannot be used (including a journal that cannot be
-/// written, in which case the journal is left for a later `resume`); problems with single spectra are
-/// results (status failed), not errors.
+/// written, in which case the journal is left for a later `resume`), or when a resumed run's settings
+/// differ from the earlier run's; problems with single spectra are results (status failed), not
+/// errors.
 pub fn run_batch(
     inputs: &[PathBuf],
     circuit: &Circuit,
     settings: &BatchSettings,
     out: &Path,
-    resume: bool,
-    progress: &(dyn Fn(usize, usize) + Sync),
+    resume: Resume,
+    progress: &(dyn Fn(Stage, usize, usize) + Sync),
 ) -> Result<Summary, BatchError> {
     let io_err = |path: &Path| {
         let path = path.display().to_string();
         move |source| BatchError::Output { path, source }
     };
+    if out.exists() && !out.is_dir() {
+        return Err(BatchError::NotAFolder(out.display().to_string()));
+    }
     std::fs::create_dir_all(out).map_err(io_err(out))?;
     let results_jsonl = out.join("results.jsonl");
     let results_csv = out.join("results.csv");
+    let settings_path = out.join(SETTINGS);
     for target in [&results_jsonl, &results_csv] {
-        if let Ok(t) = target.canonicalize() {
-            if inputs
-                .iter()
-                .any(|i| i.canonicalize().is_ok_and(|c| c == t))
-            {
-                return Err(BatchError::OverwritesInput(target.display().to_string()));
-            }
+        if inputs.iter().any(|i| crate::output::same_file(target, i)) {
+            return Err(BatchError::OverwritesInput(target.display().to_string()));
         }
     }
     let journal_path = out.join(JOURNAL);
+    let now = RunSettings::new(circuit, settings);
+
+    // Results already there, and whether they were made with these settings.
+    let mut resume = resume;
+    if resume != Resume::No {
+        let mut recorded: Vec<RunSettings> = std::fs::read(&settings_path)
+            .ok()
+            .and_then(|b| serde_json::from_slice::<SettingsLine>(&b).ok())
+            .map(|l| l.settings)
+            .into_iter()
+            .collect();
+        let mut models = BTreeSet::new();
+        for path in [&results_jsonl, &journal_path] {
+            recorded.extend(scan_jsonl(path, |r, _, _| {
+                if let Some(d) = r.fit {
+                    models.insert(d.model);
+                }
+            }));
+        }
+        // Results of a run that recorded no settings still name their model.
+        let model_differs = models
+            .into_iter()
+            .find(|m| *m != now.model)
+            .map(|m| ("model", m, now.model.clone()));
+        let differs = recorded
+            .iter()
+            .find_map(|r| r.difference(&now))
+            .or(model_differs);
+        match (differs, resume) {
+            (None, _) => {}
+            (Some(_), Resume::YesOrRestart) => resume = Resume::No,
+            (Some((setting, was, now)), _) => {
+                return Err(BatchError::SettingsDiffer {
+                    folder: out.display().to_string(),
+                    setting,
+                    was,
+                    now,
+                });
+            }
+        }
+    }
+    let resume = resume != Resume::No;
     let mut files = Names::default();
     let mut cells = Names::default();
-    let entries = index(inputs, &settings.reader, &mut files, &mut cells);
+    let mut unmatched_names = Vec::new();
+    let entries = index(
+        inputs,
+        &settings.reader,
+        &mut files,
+        &mut cells,
+        &mut unmatched_names,
+        progress,
+    );
     let total = entries.len();
 
     // What is already done: where each result's line is (a later line for the same key wins).
@@ -820,15 +1042,19 @@ pub fn run_batch(
         .filter(|e| done.contains_key(&e.key()))
         .count();
 
-    let journal =
-        Mutex::new(Journal::open(&journal_path, meta_sets).map_err(io_err(&journal_path))?);
+    let mut journal = Journal::open(&journal_path, meta_sets).map_err(io_err(&journal_path))?;
+    journal.note_settings(&now).map_err(io_err(&journal_path))?;
+    let journal = Mutex::new(journal);
     let record = |key: Key, r: &SpectrumResult| {
-        journal.lock().expect("journal lock").record(key, r);
+        journal
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+            .record(key, r);
     };
     let counter = std::sync::atomic::AtomicUsize::new(skipped);
     let tick = || {
         let n = counter.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
-        progress(n, total);
+        progress(Stage::Fitting, n, total);
     };
 
     for e in entries.iter().filter(|e| e.error.is_some()) {
@@ -844,13 +1070,17 @@ pub fn run_batch(
     }
     let work = chains(&entries, inputs, &cells, settings.chunk);
     drop(cells);
-    // Fits one spectrum of a chain (or records why it could not be read again).
+    // Fits one spectrum of a chain (or records why it could not be read again, or what went wrong).
     let fit_one = |e: &Entry, cache: &mut ChainCache, warm: Option<&(Vec<f64>, f64)>| {
         let file = files.get(e.file);
-        let result = match cache.take(&inputs[e.input], e.input, e.spectrum, &settings.reader) {
-            Err(msg) => failed(file, e.spectrum, msg),
-            Ok(s) => process(circuit, file, e.spectrum, &s, settings, warm),
-        };
+        let result =
+            guarded(
+                || match cache.take(&inputs[e.input], e.input, e.spectrum, &settings.reader) {
+                    Err(msg) => failed(file, e.spectrum, msg),
+                    Ok(s) => process(circuit, file, e.spectrum, &s, settings, warm),
+                },
+            )
+            .unwrap_or_else(|msg| failed(file, e.spectrum, msg));
         record(e.key(), &result);
         tick();
         result
@@ -931,7 +1161,9 @@ pub fn run_batch(
         }
     });
     drop(entries);
-    let journal = journal.into_inner().expect("journal lock");
+    let journal = journal
+        .into_inner()
+        .unwrap_or_else(std::sync::PoisonError::into_inner);
     if let Some(e) = journal.error {
         return Err(io_err(&journal_path)(e));
     }
@@ -951,41 +1183,60 @@ pub fn run_batch(
     let used: BTreeSet<u32> = order.iter().map(|(_, l)| l.meta).collect();
     let meta = used
         .iter()
-        .flat_map(|&i| meta_sets.list[i as usize].iter().cloned());
-    // The result at `loc`, read back; a line that is not a result (it cannot happen for lines this
-    // code wrote) is left out, as when it was first read.
+        .filter_map(|&i| meta_sets.list.get(i as usize))
+        .flat_map(|names| names.iter().cloned());
+    // The result at `loc`, read back; a line that is not a result (it cannot happen: every line was
+    // read or written as one) is a failed row, never a spectrum lost without a word.
     let mut store = Store::new(&results_jsonl, &journal_path);
-    let mut load = |loc: &Loc| match store.load(loc) {
+    let mut load = |key: &Key, loc: &Loc| match store.load(loc) {
         Ok(r) => Ok(Some(r)),
-        Err(e) if e.kind() == io::ErrorKind::InvalidData => Ok(None),
+        // A line cut short since it was first read (the file changed under the run) likewise.
+        Err(e)
+            if matches!(
+                e.kind(),
+                io::ErrorKind::InvalidData | io::ErrorKind::UnexpectedEof
+            ) =>
+        {
+            Ok(Some(failed(
+                files.get(key.0),
+                key.1,
+                format!("internal error: its result cannot be read back: {e}"),
+            )))
+        }
         Err(e) => Err(io_err(&store.paths[loc.source as usize])(e)),
     };
     let mut arcs = Vec::new();
-    for (_, loc) in order.iter().filter(|(_, l)| l.has_fit) {
-        if let Some(d) = load(loc)?.and_then(|r| r.fit) {
+    for (key, loc) in order.iter().filter(|(_, l)| l.has_fit) {
+        if let Some(d) = load(key, loc)?.and_then(|r| r.fit) {
             arcs = d.derived.arcs.into_iter().map(|a| a.resistor).collect();
             break;
         }
     }
     let table = Table::new(circuit, meta, arcs);
-    let mut jsonl = AtomicFile::create(&results_jsonl).map_err(io_err(&results_jsonl))?;
-    let mut csv = AtomicFile::create(&results_csv).map_err(io_err(&results_csv))?;
-    csv.write(table.header().as_bytes())
+    let mut jsonl = OutputFile::create(&results_jsonl, inputs)?;
+    let mut csv = OutputFile::create(&results_csv, inputs)?;
+    csv.write_all(table.header().as_bytes())
         .map_err(io_err(&results_csv))?;
     let mut summary = Summary {
         skipped,
+        unmatched_names,
         ..Summary::default()
     };
-    for (_, loc) in &order {
-        let Some(r) = load(loc)? else {
+    let rows = order.len();
+    for (k, (key, loc)) in order.iter().enumerate() {
+        let Some(r) = load(key, loc)? else {
             continue;
         };
-        if let Ok(mut l) = serde_json::to_string(&r) {
-            l.push('\n');
-            jsonl.write(l.as_bytes()).map_err(io_err(&results_jsonl))?;
-        }
-        csv.write(table.row(&r).as_bytes())
+        let mut l = serde_json::to_string(&r).map_err(|e| io_err(&results_jsonl)(e.into()))?;
+        l.push('\n');
+        jsonl
+            .write_all(l.as_bytes())
+            .map_err(io_err(&results_jsonl))?;
+        csv.write_all(table.row(&r).as_bytes())
             .map_err(io_err(&results_csv))?;
+        if k % 256 == 255 || k + 1 == rows {
+            progress(Stage::Writing, k + 1, rows);
+        }
         summary.total += 1;
         match r.status {
             Status::Ok => summary.ok += 1,
@@ -995,8 +1246,11 @@ pub fn run_batch(
     }
     // Close what was read before renaming over it (some systems refuse to replace an open file).
     drop(store);
-    jsonl.commit().map_err(io_err(&results_jsonl))?;
-    csv.commit().map_err(io_err(&results_csv))?;
+    jsonl.commit()?;
+    csv.commit()?;
+    let line = serde_json::to_string(&SettingsLine { settings: now })
+        .map_err(|e| io_err(&settings_path)(e.into()))?;
+    crate::output::write(&settings_path, format!("{line}\n").as_bytes(), inputs)?;
     let _ = std::fs::remove_file(&journal_path);
     summary.metadata_columns = table.meta;
     Ok(summary)
@@ -1021,8 +1275,12 @@ fn csv_field(s: &str) -> String {
     }
 }
 
+/// A number cell: empty when there is no value or it is not finite (an infinite time constant), so
+/// that every reader of the table sees a missing number, never a word it cannot parse.
 fn num(v: Option<f64>) -> String {
-    v.map(format_float).unwrap_or_default()
+    v.filter(|x| x.is_finite())
+        .map(format_float)
+        .unwrap_or_default()
 }
 
 /// The quantity columns of `results.csv`, in order, each followed by its `_stderr` column.
@@ -1243,8 +1501,15 @@ mod tests {
                 }
             }
             let out = scratch("reference");
-            let summary =
-                run_batch(&inputs, &circuit(), &settings(), &out, false, &|_, _| {}).unwrap();
+            let summary = run_batch(
+                &inputs,
+                &circuit(),
+                &settings(),
+                &out,
+                Resume::No,
+                &|_, _, _| {},
+            )
+            .unwrap();
             Reference {
                 inputs,
                 jsonl: std::fs::read_to_string(out.join("results.jsonl")).unwrap(),
@@ -1268,8 +1533,8 @@ mod tests {
             &circuit(),
             &settings(),
             out,
-            true,
-            &|_, _| {},
+            Resume::Yes,
+            &|_, _, _| {},
         )
         .unwrap();
         assert_eq!(summary.skipped, expect_skipped);
@@ -1408,5 +1673,147 @@ mod tests {
         // A spectrum that cannot be read again is an error, not a panic.
         let e = cache.take(&path, 0, 2, &reader).unwrap_err();
         assert!(e.contains("four.csv"), "{e}");
+    }
+
+    /// A spectrum in a folder of its own, batched alone with an arc model.
+    fn batch_alone(
+        name: &str,
+        file: &str,
+        text: &str,
+        resume: Resume,
+    ) -> (PathBuf, Result<Summary, BatchError>) {
+        let dir = scratch(name);
+        let p = dir.join(file);
+        std::fs::write(&p, text).unwrap();
+        let c = crate::circuit::parse("R0 + Rct|Qdl").unwrap();
+        let out = dir.join("out");
+        let r = run_batch(
+            &[p],
+            &c,
+            &BatchSettings::default(),
+            &out,
+            resume,
+            &|_, _, _| {},
+        );
+        (out, r)
+    }
+
+    /// Two points at each of two frequencies: the fit runs Rct off to about 1e260 Ω, the arc's time
+    /// constant is infinite. Issue 13: the spectrum vanished from both results files without a word.
+    const UNBOUNDED_ARC: &str = "f,re,im\n100,10,-1\n100,12,-5\n10,12,-5\n10,20,-2\n";
+
+    #[test]
+    fn campaign_keeps_a_fit_with_non_finite_derived_numbers() {
+        let (out, r) = batch_alone("nonfinite", "dup.csv", UNBOUNDED_ARC, Resume::No);
+        let summary = r.unwrap();
+        assert_eq!(summary.total, 1, "{summary:?}");
+        let csv = std::fs::read_to_string(out.join("results.csv")).unwrap();
+        let rows: Vec<&str> = csv.lines().collect();
+        assert_eq!(rows.len(), 2, "{csv}");
+        assert!(rows[1].starts_with(&format!(
+            "{},1,",
+            out.parent().unwrap().join("dup.csv").display()
+        )));
+        for word in ["NaN", "inf", "null"] {
+            assert!(!rows[1].contains(word), "{}", rows[1]);
+        }
+        let jsonl = std::fs::read_to_string(out.join("results.jsonl")).unwrap();
+        let back: SpectrumResult = serde_json::from_str(jsonl.trim_end()).unwrap();
+        let fit = back.fit.expect("the fit is kept");
+        assert!(
+            fit.derived.arcs[0].time_constant_s.is_nan(),
+            "written null, read back as NaN"
+        );
+    }
+
+    #[test]
+    fn campaign_turns_a_panic_into_a_failed_row() {
+        let (out, r) = batch_alone("panic", "panics-in-test.csv", UNBOUNDED_ARC, Resume::No);
+        let summary = r.unwrap();
+        assert_eq!((summary.total, summary.failed), (1, 1));
+        let csv = std::fs::read_to_string(out.join("results.csv")).unwrap();
+        assert!(
+            csv.contains(",failed,internal error: planted fault,"),
+            "{csv}"
+        );
+    }
+
+    #[test]
+    fn campaign_resume_refuses_results_of_another_model_unless_told() {
+        let text = "f,re,im\n1000,10.1,-1\n100,12,-5\n10,16,-4\n1,18,-1\n";
+        let (out, r) = batch_alone("settings", "a.csv", text, Resume::No);
+        assert_eq!(r.unwrap().total, 1);
+        let p = out.parent().unwrap().join("a.csv");
+        let other = crate::circuit::parse("R0 + Rct|Cdl").unwrap();
+        let run = |resume| {
+            run_batch(
+                std::slice::from_ref(&p),
+                &other,
+                &BatchSettings::default(),
+                &out,
+                resume,
+                &|_, _, _| {},
+            )
+        };
+        let e = run(Resume::Yes).unwrap_err();
+        assert!(
+            matches!(
+                e,
+                BatchError::SettingsDiffer {
+                    setting: "model",
+                    ..
+                }
+            ),
+            "{e}"
+        );
+        assert!(e.to_string().contains("was `R0 + Rct|Qdl`"), "{e}");
+        // Nothing was touched.
+        assert!(
+            std::fs::read_to_string(out.join("results.csv"))
+                .unwrap()
+                .contains("Qdl.n")
+        );
+        // Told to, the run discards the old results and fits again.
+        let s = run(Resume::YesOrRestart).unwrap();
+        assert_eq!((s.total, s.skipped), (1, 0));
+        let csv = std::fs::read_to_string(out.join("results.csv")).unwrap();
+        assert!(csv.contains(",Cdl,") && !csv.contains("Qdl"), "{csv}");
+        // Same settings: resumed, nothing to do.
+        assert_eq!(run(Resume::Yes).unwrap().skipped, 1);
+        // Another weighting is refused too, named.
+        let s = BatchSettings {
+            fit: FitSettings::default().with_weighting(crate::fit::Weighting::Unit),
+            ..BatchSettings::default()
+        };
+        let e = run_batch(
+            std::slice::from_ref(&p),
+            &other,
+            &s,
+            &out,
+            Resume::Yes,
+            &|_, _, _| {},
+        )
+        .unwrap_err();
+        assert!(
+            matches!(
+                e,
+                BatchError::SettingsDiffer {
+                    setting: "weighting",
+                    ..
+                }
+            ),
+            "{e}"
+        );
+        // A reader setting is named by its field.
+        let s = BatchSettings {
+            reader: ReaderOptions {
+                fmin: Some(2.0),
+                ..ReaderOptions::default()
+            },
+            ..BatchSettings::default()
+        };
+        let e = run_batch(&[p], &other, &s, &out, Resume::Yes, &|_, _, _| {}).unwrap_err();
+        let want = "another reader settings (was `fmin: None`, now `fmin: Some(2.0)`)";
+        assert!(e.to_string().contains(want), "{e}");
     }
 }

@@ -37,6 +37,7 @@ pub mod fit;
 pub mod import;
 pub mod nnls;
 pub mod number;
+pub mod output;
 pub mod report;
 pub mod scenario;
 pub mod select;

@@ -6,12 +6,74 @@ use crate::derive::{Derived, Quantity, SHORT_CIRCUIT_CAUTION, ShortCircuitEstima
 use crate::fit::FitResult;
 use serde::{Deserialize, Serialize};
 
+/// Serde helpers for numbers that may be non-finite (an infinite time constant, an undetermined
+/// correlation): written as `null`, read back as NaN. JSON has no NaN or infinity, and serde_json
+/// writes them as `null`, which a plain `f64` field refuses to read back.
+pub(crate) mod nullable {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {
+        if x.is_finite() {
+            s.serialize_f64(*x)
+        } else {
+            s.serialize_none()
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::NAN))
+    }
+
+    /// The same for a matrix.
+    pub mod matrix {
+        use serde::ser::SerializeSeq;
+        use serde::{Deserialize, Deserializer, Serializer};
+
+        pub fn serialize<S: Serializer>(m: &[Vec<f64>], s: S) -> Result<S::Ok, S::Error> {
+            let mut seq = s.serialize_seq(Some(m.len()))?;
+            for row in m {
+                let row: Vec<Option<f64>> = row
+                    .iter()
+                    .map(|x| Some(*x).filter(|x| x.is_finite()))
+                    .collect();
+                seq.serialize_element(&row)?;
+            }
+            seq.end()
+        }
+
+        pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<Vec<f64>>, D::Error> {
+            let m = Vec::<Vec<Option<f64>>>::deserialize(d)?;
+            Ok(m.into_iter()
+                .map(|row| row.into_iter().map(|x| x.unwrap_or(f64::NAN)).collect())
+                .collect())
+        }
+    }
+
+    /// The same for an optional pair (a frequency range).
+    pub mod pair {
+        use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+        pub fn serialize<S: Serializer>(p: &Option<(f64, f64)>, s: S) -> Result<S::Ok, S::Error> {
+            let finite = |x: f64| Some(x).filter(|x| x.is_finite());
+            p.map(|(a, b)| (finite(a), finite(b))).serialize(s)
+        }
+
+        pub fn deserialize<'de, D: Deserializer<'de>>(
+            d: D,
+        ) -> Result<Option<(f64, f64)>, D::Error> {
+            let p = Option::<(Option<f64>, Option<f64>)>::deserialize(d)?;
+            Ok(p.map(|(a, b)| (a.unwrap_or(f64::NAN), b.unwrap_or(f64::NAN))))
+        }
+    }
+}
+
 /// One parameter of a fit document.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ParameterEntry {
     /// Parameter name (`Rct`, `Qdl.n`).
     pub name: String,
     /// Fitted (or fixed) value.
+    #[serde(with = "nullable")]
     pub value: f64,
     /// Standard error; null when fixed or undetermined.
     pub stderr: Option<f64>,
@@ -33,18 +95,22 @@ pub struct ArcEntry {
     /// Capacitive element of the arc.
     pub capacitor: String,
     /// Resistance (Ω).
+    #[serde(with = "nullable")]
     pub resistance_ohm: f64,
     /// Its standard error.
     pub resistance_ohm_stderr: Option<f64>,
     /// Time constant (s).
+    #[serde(with = "nullable")]
     pub time_constant_s: f64,
     /// Its standard error.
     pub time_constant_s_stderr: Option<f64>,
     /// Characteristic frequency (Hz).
+    #[serde(with = "nullable")]
     pub peak_frequency_hz: f64,
     /// Its standard error.
     pub peak_frequency_hz_stderr: Option<f64>,
     /// Effective capacitance (F).
+    #[serde(with = "nullable")]
     pub capacitance_f: f64,
     /// Its standard error.
     pub capacitance_f_stderr: Option<f64>,
@@ -85,12 +151,16 @@ pub struct DerivedEntry {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct StatisticsEntry {
     /// Sum of squared weighted residuals.
+    #[serde(with = "nullable")]
     pub chi_square: f64,
     /// χ²/(2N − P).
+    #[serde(with = "nullable")]
     pub reduced_chi_square: f64,
     /// Akaike information criterion.
+    #[serde(with = "nullable")]
     pub aic: f64,
     /// Bayesian information criterion.
+    #[serde(with = "nullable")]
     pub bic: f64,
     /// Number of points.
     pub points: usize,
@@ -116,12 +186,15 @@ pub struct StatisticsEntry {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ShortCircuitEntry {
     /// Open-circuit voltage (V).
+    #[serde(with = "nullable")]
     pub ocv_v: f64,
     /// V/R_dc (A).
+    #[serde(with = "nullable")]
     pub short_circuit_current_a: f64,
     /// Its standard error.
     pub short_circuit_current_a_stderr: Option<f64>,
     /// V²/(4R_dc) (W).
+    #[serde(with = "nullable")]
     pub matched_load_power_w: f64,
     /// Its standard error.
     pub matched_load_power_w_stderr: Option<f64>,
@@ -135,6 +208,7 @@ pub struct CorrelationEntry {
     /// Names of the free parameters, in matrix order.
     pub parameters: Vec<String>,
     /// Correlation matrix rows.
+    #[serde(with = "nullable::matrix")]
     pub matrix: Vec<Vec<f64>>,
 }
 

@@ -8,6 +8,7 @@ mod convert;
 mod drt;
 mod fit;
 mod fit_auto;
+mod outputs;
 mod plot;
 mod reference_impedance;
 mod simulate;

@@ -3,9 +3,11 @@
 use crate::commands::fit::WeightArg;
 use crate::io::{Failure, Outcome, bad, load_model};
 use anyhow::anyhow;
-use eis_core::campaign::{BatchError, BatchSettings, run_batch};
+use eis_core::campaign::{BatchError, BatchSettings, Resume, Stage, run_batch};
 use eis_core::fit::{FitSettings, Weighting};
 use indicatif::{ProgressBar, ProgressStyle};
+use std::collections::HashSet;
+use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
@@ -28,11 +30,15 @@ pub struct Args {
     #[arg(long)]
     out: PathBuf,
     /// Worker threads (default: all cores).
-    #[arg(long, value_parser = clap::value_parser!(u32).range(1..=256))]
+    #[arg(allow_negative_numbers = true, long, value_parser = clap::value_parser!(u32).range(1..=256))]
     jobs: Option<u32>,
-    /// Skip spectra already in the results (after an interrupted run).
+    /// Skip spectra already in the results (after an interrupted run). Refused when those results
+    /// were made with another model, weighting, reader or check settings.
     #[arg(long)]
     resume: bool,
+    /// With --resume: discard earlier results made with other settings and start afresh.
+    #[arg(long, requires = "resume")]
+    force: bool,
     /// Fit every spectrum from automatic starting values (no warm start from its neighbour).
     #[arg(long)]
     no_warm_start: bool,
@@ -50,10 +56,40 @@ pub struct Args {
     reader: crate::reader_args::ReaderArgs,
 }
 
-/// Files under `dir` with a data extension, recursively, sorted; hidden entries are skipped.
-fn walk(dir: &Path, out: &mut Vec<PathBuf>) {
-    let Ok(rd) = std::fs::read_dir(dir) else {
-        return;
+/// What identifies a folder however it is reached (through links, `..`, another spelling).
+#[cfg(unix)]
+type DirId = (u64, u64);
+#[cfg(not(unix))]
+type DirId = PathBuf;
+
+/// The identity of folder `dir`: device and inode on Unix, the canonical path elsewhere.
+fn dir_id(dir: &Path) -> Option<DirId> {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::MetadataExt;
+        std::fs::metadata(dir).ok().map(|m| (m.dev(), m.ino()))
+    }
+    #[cfg(not(unix))]
+    {
+        dir.canonicalize().ok()
+    }
+}
+
+/// Files under `dir` with a data extension, recursively, sorted; hidden entries are skipped. Each real
+/// folder is walked once, so a link back to a parent (a loop) or two links to one folder do not
+/// repeat its files.
+fn walk(dir: &Path, out: &mut Vec<PathBuf>, seen: &mut HashSet<DirId>) {
+    if let Some(id) = dir_id(dir) {
+        if !seen.insert(id) {
+            return;
+        }
+    }
+    let rd = match std::fs::read_dir(dir) {
+        Ok(rd) => rd,
+        Err(e) => {
+            eprintln!("warning: cannot list {}: {e}", dir.display());
+            return;
+        }
     };
     let mut entries: Vec<PathBuf> = rd.flatten().map(|e| e.path()).collect();
     entries.sort();
@@ -65,7 +101,7 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) {
             continue;
         }
         if p.is_dir() {
-            walk(&p, out);
+            walk(&p, out, seen);
         } else if p.extension().is_some_and(|e| {
             matches!(
                 e.to_string_lossy().to_ascii_lowercase().as_str(),
@@ -93,6 +129,7 @@ fn glob_match(pattern: &[char], name: &[char]) -> bool {
 /// Expands inputs: globs, folders, files (missing files are kept so they are reported as failed).
 pub fn expand(inputs: &[String]) -> Result<Vec<PathBuf>, Failure> {
     let mut out = Vec::new();
+    let mut seen = HashSet::new();
     for arg in inputs {
         let path = PathBuf::from(arg);
         let name = path
@@ -122,7 +159,7 @@ pub fn expand(inputs: &[String]) -> Result<Vec<PathBuf>, Failure> {
             }
             out.extend(found);
         } else if path.is_dir() {
-            walk(&path, &mut out);
+            walk(&path, &mut out, &mut seen);
         } else {
             out.push(path);
         }
@@ -160,6 +197,16 @@ fn write_trend_plots(results: &Path, dir: &Path) -> Result<(), Failure> {
     Ok(())
 }
 
+/// A spinner for a step that can take more than a second, on a terminal only.
+fn step(what: &'static str) -> ProgressBar {
+    if !std::io::stderr().is_terminal() {
+        return ProgressBar::hidden();
+    }
+    let s = ProgressBar::new_spinner().with_message(what);
+    s.enable_steady_tick(std::time::Duration::from_millis(120));
+    s
+}
+
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
     let circuit = load_model(&args.model)?;
@@ -176,32 +223,62 @@ pub fn run(args: Args) -> Outcome {
             .num_threads(j as usize)
             .build_global();
     }
-    let bar = ProgressBar::new(0);
+    // A progress line on a terminal only: a log file or a pipe gets the summary alone.
+    let bar = if std::io::stderr().is_terminal() {
+        ProgressBar::new(0)
+    } else {
+        ProgressBar::hidden()
+    };
     bar.set_style(
-        ProgressStyle::with_template(
-            "{spinner} {pos}/{len} spectra [{elapsed_precise}] {per_sec} eta {eta}",
-        )
-        .unwrap_or_else(|_| ProgressStyle::default_bar()),
+        ProgressStyle::with_template("{msg} {pos}/{len} [{elapsed_precise}] eta {eta}")
+            .unwrap_or_else(|_| ProgressStyle::default_bar()),
     );
-    let progress = |done: usize, total: usize| {
+    let stage_now = std::sync::Mutex::new(None::<Stage>);
+    let progress = |stage: Stage, done: usize, total: usize| {
+        if let Ok(mut now) = stage_now.lock() {
+            if *now != Some(stage) {
+                *now = Some(stage);
+                bar.reset();
+                bar.set_length(total as u64);
+                bar.set_message(match stage {
+                    Stage::Reading => "reading files",
+                    Stage::Fitting => "checking and fitting spectra",
+                    _ => "writing results",
+                });
+            }
+        }
         if bar.length() != Some(total as u64) {
             bar.set_length(total as u64);
         }
         bar.set_position(done as u64);
     };
-    let summary = run_batch(
-        &inputs,
-        &circuit,
-        &settings,
-        &args.out,
-        args.resume,
-        &progress,
-    )
-    .map_err(|e| match e {
-        BatchError::OverwritesInput(_) => bad(anyhow!("{e}")),
+    let resume = match (args.resume, args.force) {
+        (false, _) => Resume::No,
+        (true, false) => Resume::Yes,
+        (true, true) => Resume::YesOrRestart,
+    };
+    let summary = run_batch(&inputs, &circuit, &settings, &args.out, resume, &progress);
+    bar.finish_and_clear();
+    let summary = summary.map_err(|e| match e {
+        BatchError::OverwritesInput(_) | BatchError::NotAFolder(_) => bad(anyhow!("{e}")),
+        BatchError::SettingsDiffer { .. } => bad(anyhow!(
+            "{e}; use --force to discard them and start afresh, or another --out folder"
+        )),
         e => Failure::Failed(anyhow!("{e}")),
     })?;
-    bar.finish_and_clear();
+    if let (Some(p), [first, rest @ ..]) =
+        (&settings.reader.name_pattern, &summary.unmatched_names[..])
+    {
+        let more = if rest.is_empty() {
+            String::new()
+        } else {
+            format!(" and {} more", rest.len())
+        };
+        eprintln!(
+            "warning: {first}{more}: the file name does not match the name pattern `{}` (no metadata from the name)",
+            p.as_str()
+        );
+    }
     eprintln!(
         "{} spectra: {} ok, {} suspect, {} failed{}",
         summary.total,
@@ -220,11 +297,18 @@ pub fn run(args: Args) -> Outcome {
         args.out.join("results.jsonl").display()
     );
     if let Some(dir) = &args.plot {
-        write_trend_plots(&args.out.join("results.csv"), dir)?;
+        let spinner = step("writing trend plots");
+        let written = write_trend_plots(&args.out.join("results.csv"), dir);
+        spinner.finish_and_clear();
+        written?;
         eprintln!("plots:   {}", dir.display());
     }
     if args.report {
-        crate::commands::report::write_report(&args.out, Some(&circuit), &settings.reader)?;
+        let spinner = step("writing the report");
+        let written =
+            crate::commands::report::write_report(&args.out, Some(&circuit), &settings.reader);
+        spinner.finish_and_clear();
+        written?;
         eprintln!("report:  {}", args.out.join("report.html").display());
     }
     Ok(if summary.failed > 0 {

@@ -29,27 +29,27 @@ pub struct Args {
     #[arg(long)]
     json: bool,
     /// μ threshold: fits with μ below it count as over-fitted.
-    #[arg(long, default_value_t = 0.85, value_parser = parse_fraction)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 0.85, value_parser = parse_fraction)]
     mu: f64,
     /// Per-point floor, % of |Z|: a point within it is never flagged.
-    #[arg(long, default_value_t = 1.0, value_parser = parse_percent)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 1.0, value_parser = parse_percent)]
     max_residual: f64,
     /// A point is flagged above this multiple of the residual scatter (and the floor); 0 for a
     /// fixed per-point limit.
-    #[arg(long, default_value_t = 5.0, value_parser = parse_non_negative)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 5.0, value_parser = parse_non_negative)]
     outlier_factor: f64,
     /// Largest rms residual, % of |Z|, for a valid spectrum.
-    #[arg(long, default_value_t = 2.0, value_parser = parse_percent)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 2.0, value_parser = parse_percent)]
     rms_residual: f64,
     /// Critical z of the runs test on residual signs (fewer runs than chance by this many standard
     /// deviations is a trend).
-    #[arg(long, default_value_t = 3.5, value_parser = parse_percent)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 3.5, value_parser = parse_percent)]
     runs_z: f64,
     /// Smallest systematic residual, % of |Z|, that counts as a trend.
-    #[arg(long, default_value_t = 0.3, value_parser = parse_percent)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 0.3, value_parser = parse_percent)]
     trend: f64,
     /// Fixed number of Voigt elements instead of the automatic choice.
-    #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
+    #[arg(allow_negative_numbers = true, long, value_parser = clap::value_parser!(u32).range(1..))]
     elements: Option<u32>,
     /// Series capacitance for a capacitive low-frequency tail: auto, on, off.
     #[arg(long, value_enum, default_value = "auto")]
@@ -152,11 +152,7 @@ fn pretty(v: &Value) -> Result<String, Failure> {
 }
 
 fn emit(text: &str) -> Result<(), Failure> {
-    use std::io::Write;
-    let mut out = std::io::stdout().lock();
-    out.write_all(text.as_bytes())
-        .and_then(|_| out.flush())
-        .map_err(|e| Failure::Failed(anyhow!("cannot write to stdout: {e}")))
+    crate::io::print(text)
 }
 
 fn document(file: &str, s: &eis_core::Spectrum, r: &KkReport) -> Value {

@@ -111,6 +111,7 @@ pub fn run(args: Args) -> Outcome {
             ) {
                 let msg = match f {
                     Failure::BadInput(e) | Failure::Failed(e) => format!("{e:#}"),
+                    Failure::BrokenPipe => "standard output closed".to_owned(),
                 };
                 eprintln!("error: {msg}");
                 rows.push(Row::failed(file.clone(), Some(n), msg));

@@ -7,6 +7,7 @@ use anyhow::anyhow;
 use eis_core::import::{NamePattern, ReaderOptions, SpectrumReader};
 use eis_core::scenario;
 use eis_core::trend::{FlagKind, TrendSettings};
+use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
@@ -228,28 +229,36 @@ pub fn run(args: Args) -> Outcome {
             v.join(", ")
         }
     };
-    println!("What the demo found");
-    println!(
+    // Written in one piece, so that a failed standard output is one error (not a panic).
+    let mut o = String::new();
+    let _ = writeln!(o, "What the demo found");
+    let _ = writeln!(
+        o,
         "  contact or electrolyte problem (ohmic resistance growing): {}",
         list(cells_with(FlagKind::OhmicGrowth))
     );
-    println!(
+    let _ = writeln!(
+        o,
         "  interface film or passivation (arc resistance growing):    {}",
         list(cells_with(FlagKind::InterfaceGrowth))
     );
-    println!(
+    let _ = writeln!(
+        o,
         "  transport limitation (diffusion resistance growing):       {}",
         list(cells_with(FlagKind::TransportGrowth))
     );
-    println!(
+    let _ = writeln!(
+        o,
         "  possible soft short (total resistance collapsing):         {}",
         list(cells_with(FlagKind::PossibleSoftShort))
     );
-    println!(
+    let _ = writeln!(
+        o,
         "  spectra failing the Kramers-Kronig check (drift):          {}",
         list(kk)
     );
-    println!(
+    let _ = writeln!(
+        o,
         "  files that could not be read:                              {}",
         list(failed)
     );
@@ -258,7 +267,8 @@ pub fn run(args: Args) -> Outcome {
         .iter()
         .filter(|f| f.kind != FlagKind::InvalidMeasurement)
     {
-        println!(
+        let _ = writeln!(
+            o,
             "    {} {}: {} from cycle {}",
             f.cell,
             f.kind.as_str(),
@@ -270,26 +280,31 @@ pub fn run(args: Args) -> Outcome {
                 .unwrap_or_else(|| "?".into())
         );
     }
-    println!("\nWhere everything is");
-    println!("  export files:        {}", raw.display());
-    println!("  canonical spectra:   {}", converted.display());
-    println!(
+    let _ = writeln!(o, "\nWhere everything is");
+    let _ = writeln!(o, "  export files:        {}", raw.display());
+    let _ = writeln!(o, "  canonical spectra:   {}", converted.display());
+    let _ = writeln!(
+        o,
         "  fit results:         {}",
         results.join("results.csv").display()
     );
-    println!(
+    let _ = writeln!(
+        o,
         "  trends:              {}",
         results.join("trends.csv").display()
     );
-    println!("  plots:               {}", plots.display());
-    println!(
+    let _ = writeln!(o, "  plots:               {}", plots.display());
+    let _ = writeln!(
+        o,
         "  report:              {}",
         results.join("report.html").display()
     );
-    println!(
+    let _ = writeln!(
+        o,
         "\nDone in {:.1} s. The data are invented; flags are engineering hints, not safety verdicts — handle real cells by your lab's rules.",
         started.elapsed().as_secs_f64()
     );
+    crate::io::print(&o)?;
     Ok(ExitCode::SUCCESS)
 }
 

@@ -20,16 +20,16 @@ pub struct Args {
     /// Spectrum file (canonical CSV as written by `eis simulate`).
     input: PathBuf,
     /// Which spectrum of the file, from 1 (needed when it holds several).
-    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(1..))]
+    #[arg(allow_negative_numbers = true, long, value_name = "N", value_parser = clap::value_parser!(u32).range(1..))]
     spectrum: Option<u32>,
     /// Fixed regularisation strength λ (skips the automatic choice).
-    #[arg(long, value_parser = crate::args::nonnegative, conflicts_with = "lambda_method")]
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::nonnegative, conflicts_with = "lambda_method")]
     lambda: Option<f64>,
     /// How λ is chosen automatically.
     #[arg(long, value_enum, default_value_t = Method::Gcv)]
     lambda_method: Method,
     /// Derivative of γ that the penalty measures: 1 (slope) or 2 (curvature).
-    #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u8).range(1..=2))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 2, value_parser = clap::value_parser!(u8).range(1..=2))]
     penalty: u8,
     /// Which part of Z to fit.
     #[arg(long, value_enum, default_value_t = Fitted::Both)]
@@ -38,7 +38,7 @@ pub struct Args {
     #[arg(long)]
     inductance: bool,
     /// Smallest peak reported, as a fraction of the largest γ.
-    #[arg(long, default_value = "0.05", value_parser = parse_fraction)]
+    #[arg(allow_negative_numbers = true, long, default_value = "0.05", value_parser = parse_fraction)]
     peak_threshold: f64,
     /// Print the result as JSON on stdout instead of a summary.
     #[arg(long)]

@@ -32,7 +32,7 @@ pub struct Args {
     #[arg(long, short)]
     model: String,
     /// Which spectrum of the file, from 1.
-    #[arg(long, value_name = "N", default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..))]
+    #[arg(allow_negative_numbers = true, long, value_name = "N", default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..))]
     spectrum: u32,
     /// Residual weighting.
     #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
@@ -50,10 +50,10 @@ pub struct Args {
     #[arg(long, value_name = "RESULT.json")]
     start_from: Option<PathBuf>,
     /// Open-circuit voltage (V): adds estimated short-circuit current and matched-load power.
-    #[arg(long, value_parser = crate::args::number)]
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::number)]
     ocv: Option<f64>,
     /// Number of grid starting points.
-    #[arg(long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
     starts: u32,
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]
@@ -174,7 +174,12 @@ fn run_auto(args: Args) -> Outcome {
         e => bad(anyhow!("cannot fit {}: {e}", args.input.display())),
     })?;
     let winner = selection.winner();
-    let result = winner.result.as_ref().expect("the winner is fitted");
+    let result = winner.result.as_ref().ok_or_else(|| {
+        Failure::Failed(anyhow!(
+            "cannot fit {}: no candidate circuit could be fitted",
+            args.input.display()
+        ))
+    })?;
     finish(&args, &winner.circuit, &spectrum, result, Some(&selection))
 }
 
@@ -287,17 +292,22 @@ fn fitted_csv(s: &Spectrum, r: &FitResult) -> String {
     let mut out = String::from(
         "frequency_hz,z_real_ohm,z_imag_ohm,model_real_ohm,model_imag_ohm,residual_real_rel,residual_imag_rel\n",
     );
-    for i in 0..s.len() {
+    let rows = s
+        .frequency_hz
+        .iter()
+        .zip(&s.z)
+        .zip(r.model.iter().zip(&r.relative_residuals));
+    for ((f, z), (m, e)) in rows {
         let _ = writeln!(
             out,
             "{},{},{},{},{},{},{}",
-            format_float(s.frequency_hz[i]),
-            format_float(s.z[i].re),
-            format_float(s.z[i].im),
-            format_float(r.model[i].re),
-            format_float(r.model[i].im),
-            format_float(r.relative_residuals[i].re),
-            format_float(r.relative_residuals[i].im)
+            format_float(*f),
+            format_float(z.re),
+            format_float(z.im),
+            format_float(m.re),
+            format_float(m.im),
+            format_float(e.re),
+            format_float(e.im)
         );
     }
     out

@@ -19,8 +19,7 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
     let c = load_model(&args.model)?;
-    println!("{}", eis_core::circuit::print(&c));
-    println!();
+    let mut out = format!("{}\n\n", eis_core::circuit::print(&c));
     let rows: Vec<[String; 6]> = (0..c.params.len())
         .map(|i| {
             let p = &c.params[i];
@@ -62,12 +61,15 @@ pub fn run(args: Args) -> Outcome {
         }
         s
     };
-    println!("{}", line(&header.map(String::from)));
+    out.push_str(&line(&header.map(String::from)));
+    out.push('\n');
     for r in &rows {
-        println!("{}", line(r));
+        out.push_str(&line(r));
+        out.push('\n');
     }
     for (name, role) in &c.roles {
-        println!("role of arc {name}: {}", role.as_str());
+        out.push_str(&format!("role of arc {name}: {}\n", role.as_str()));
     }
+    crate::io::print(&out)?;
     Ok(ExitCode::SUCCESS)
 }

@@ -93,10 +93,10 @@ pub struct Args {
     #[arg(long)]
     title: Option<String>,
     /// Width in pixels.
-    #[arg(long, default_value_t = plot::DEFAULT_SIZE.0, value_parser = clap::value_parser!(u32).range(100..=10000))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = plot::DEFAULT_SIZE.0, value_parser = clap::value_parser!(u32).range(100..=10000))]
     width: u32,
     /// Height in pixels.
-    #[arg(long, default_value_t = plot::DEFAULT_SIZE.1, value_parser = clap::value_parser!(u32).range(100..=10000))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = plot::DEFAULT_SIZE.1, value_parser = clap::value_parser!(u32).range(100..=10000))]
     height: u32,
     /// Do not mark the characteristic frequencies of arcs (Nyquist) or peaks (DRT).
     #[arg(long)]
@@ -363,12 +363,13 @@ fn numbers(v: Vec<Option<f64>>) -> Vec<f64> {
 }
 
 fn same_len(what: &str, lens: &[(&str, usize)]) -> anyhow::Result<()> {
-    let first = lens[0].1;
+    let Some(&(first_name, first)) = lens.first() else {
+        return Ok(());
+    };
     for (name, n) in lens {
         if *n != first {
             return Err(anyhow!(
-                "{what}: `{name}` has {n} values but `{}` has {first}",
-                lens[0].0
+                "{what}: `{name}` has {n} values but `{first_name}` has {first}"
             ));
         }
     }

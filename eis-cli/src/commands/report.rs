@@ -175,17 +175,16 @@ pub fn write_report(
     }
 
     // Problem spectra.
-    let kk_failed: Vec<&SpectrumResult> = results
+    let kk_failed: Vec<(&SpectrumResult, &eis_core::campaign::KkSummary)> = results
         .iter()
-        .filter(|r| r.kk.as_ref().is_some_and(|k| !k.valid))
+        .filter_map(|r| r.kk.as_ref().filter(|k| !k.valid).map(|k| (r, k)))
         .collect();
     h.push_str("<h2>Kramers-Kronig failures</h2>\n");
     if kk_failed.is_empty() {
         h.push_str("<p>Every spectrum passed the Kramers-Kronig check.</p>\n");
     } else {
         h.push_str("<p>These spectra are not consistent with a linear, stable system: the cell probably changed during the sweep or the measurement was disturbed. Their fitted values should not be trusted.</p>\n<table><tr><th>file</th><th>cell</th><th>max residual</th><th>suspect range</th></tr>\n");
-        for r in &kk_failed {
-            let k = r.kk.as_ref().expect("filtered");
+        for (r, k) in &kk_failed {
             let _ = writeln!(
                 h,
                 "<tr><td>{} #{}</td><td>{}</td><td>{:.2} %</td><td>{}</td></tr>",
@@ -221,16 +220,21 @@ pub fn write_report(
         h.push_str("</table>\n");
     }
     h.push_str("<h2>Fits with warnings</h2>\n");
-    let warned: Vec<&SpectrumResult> = results
+    let warned: Vec<(&SpectrumResult, &eis_core::report::FitDocument)> = results
         .iter()
-        .filter(|r| r.fit.as_ref().is_some_and(|f| !f.warnings.is_empty()))
+        .filter_map(|r| {
+            r.fit
+                .as_ref()
+                .filter(|f| !f.warnings.is_empty())
+                .map(|f| (r, f))
+        })
         .collect();
     if warned.is_empty() {
         h.push_str("<p>None.</p>\n");
     } else {
         h.push_str("<table><tr><th>file</th><th>warnings</th></tr>\n");
-        for r in &warned {
-            let w = r.fit.as_ref().expect("filtered").warnings.join("; ");
+        for (r, f) in &warned {
+            let w = f.warnings.join("; ");
             let _ = writeln!(
                 h,
                 "<tr><td>{} #{}</td><td>{}</td></tr>",

@@ -24,22 +24,27 @@ pub struct Args {
     #[arg(long = "set", value_name = "NAME=VALUE")]
     set: Vec<String>,
     /// Lowest frequency in Hz.
-    #[arg(long, default_value = "0.01", value_parser = crate::args::positive)]
+    #[arg(allow_negative_numbers = true, long, default_value = "0.01", value_parser = crate::args::positive)]
     fmin: f64,
     /// Highest frequency in Hz.
-    #[arg(long, default_value = "100000", value_parser = crate::args::positive)]
+    #[arg(allow_negative_numbers = true, long, default_value = "100000", value_parser = crate::args::positive)]
     fmax: f64,
     /// Points per decade.
-    #[arg(long, default_value_t = 10, value_parser = clap::value_parser!(u32).range(1..=1000))]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 10, value_parser = clap::value_parser!(u32).range(1..=1000))]
     ppd: u32,
     /// File of frequencies in Hz (one per line, or the first column of a CSV), instead of --fmin/--fmax/--ppd.
     #[arg(long, conflicts_with_all = ["fmin", "fmax", "ppd"])]
     freq_file: Option<PathBuf>,
     /// Gaussian noise relative to |Z| on real and imaginary parts independently (0.01 = 1 %).
-    #[arg(long, value_parser = crate::args::nonnegative)]
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::nonnegative)]
     noise: Option<f64>,
     /// Seed of the noise generator.
-    #[arg(long, default_value_t = 1, requires = "noise")]
+    #[arg(
+        allow_negative_numbers = true,
+        long,
+        default_value_t = 1,
+        requires = "noise"
+    )]
     seed: u64,
     /// Output file (default: stdout).
     #[arg(long, short)]

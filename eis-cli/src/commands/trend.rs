@@ -33,13 +33,13 @@ pub struct Args {
     #[arg(long, default_value = "cell")]
     by: String,
     /// Keep only spectra at this SOC.
-    #[arg(long, value_parser = crate::args::number)]
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::number)]
     at_soc: Option<f64>,
     /// Flag resistances whose trend grew by at least this many percent.
-    #[arg(long, default_value = "20", value_parser = crate::args::positive)]
+    #[arg(allow_negative_numbers = true, long, default_value = "20", value_parser = crate::args::positive)]
     growth_percent: f64,
     /// Flag a soft short when the polarisation resistance falls below this fraction of its level.
-    #[arg(long, default_value = "0.5", value_parser = crate::args::positive)]
+    #[arg(allow_negative_numbers = true, long, default_value = "0.5", value_parser = crate::args::positive)]
     short_fraction: f64,
     /// Print the analysis as JSON.
     #[arg(long)]
@@ -103,7 +103,7 @@ pub fn human(report: &TrendReport) -> String {
                 s.cell.clone(),
                 s.quantity.clone(),
                 s.x.len().to_string(),
-                quantity(s.y[0], 4, ""),
+                quantity(s.y.first().copied().unwrap_or(f64::NAN), 4, ""),
                 format!("{last:+.1} %"),
                 match (s.slope_percent_per_100, s.slope, s.slope_stderr) {
                     (Some(p), Some(b), Some(se)) if b != 0.0 => {
@@ -163,11 +163,16 @@ pub fn trend_plot(report: &TrendReport, q: &str) -> crate::plot::Plot {
         .filter(|s| s.quantity == q)
         .map(|s| TrendSeries {
             label: s.cell.clone(),
-            points: (0..s.x.len())
-                .map(|i| TrendPoint {
-                    x: s.x[i],
-                    y: s.y[i],
-                    y_err: s.y_stderr[i],
+            points: s
+                .x
+                .iter()
+                .zip(&s.y)
+                .zip(&s.y_stderr)
+                .enumerate()
+                .map(|(i, ((&x, &y), &y_err))| TrendPoint {
+                    x,
+                    y,
+                    y_err,
                     flagged: s.flagged.contains(&i),
                 })
                 .collect(),
