@@ -49,8 +49,8 @@ pub struct Args {
     /// Warm start from a previous result (the JSON of `eis fit --json`).
     #[arg(long, value_name = "RESULT.json")]
     start_from: Option<PathBuf>,
-    /// Open-circuit voltage (V): adds estimated short-circuit current and matched-load power.
-    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::number)]
+    /// Open-circuit voltage (V, positive): adds estimated short-circuit current and matched-load power.
+    #[arg(allow_negative_numbers = true, long, value_parser = crate::args::positive)]
     ocv: Option<f64>,
     /// Number of grid starting points.
     #[arg(allow_negative_numbers = true, long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
