@@ -80,22 +80,35 @@ fn fill_time_constants(t: &mut [f64], w_min: f64, w_max: f64) {
     }
 }
 
-/// μ = 1 − Σ_{Rₖ<0}|Rₖ| / Σ_{Rₖ≥0}|Rₖ| over the Voigt resistances only.
+/// Voigt resistances at or below this size, in units of the spectrum's typical |Z| (the problem is
+/// solved on data divided by it, see [`super::kramers_kronig`]), are round-off and count as zero in μ.
+pub(super) const NEGLIGIBLE_RESISTANCE: f64 = 1e-10;
+
+/// Lowest value μ takes: a fit whose Voigt resistances are all negative (and not negligible) gets this
+/// instead of −∞, so that μ stays a finite number in every report.
+pub const MU_FLOOR: f64 = -1e6;
+
+/// μ = 1 − Σ_{Rₖ<0}|Rₖ| / Σ_{Rₖ≥0}|Rₖ| over the Voigt resistances only, with resistances below
+/// [`NEGLIGIBLE_RESISTANCE`] left out (a flat, purely resistive spectrum has only round-off there
+/// and gets μ = 1) and the result floored at [`MU_FLOOR`].
 pub(super) fn mu(resistances: &[f64]) -> f64 {
     let (mut pos, mut neg) = (0.0, 0.0);
     for &r in resistances {
-        if r >= 0.0 {
+        if r.abs() <= NEGLIGIBLE_RESISTANCE {
+            continue;
+        }
+        if r > 0.0 {
             pos += r;
         } else {
             neg -= r;
         }
     }
-    if pos > 0.0 {
-        1.0 - neg / pos
-    } else if neg > 0.0 {
-        f64::NEG_INFINITY
-    } else {
+    if neg == 0.0 {
         1.0
+    } else if pos > 0.0 {
+        (1.0 - neg / pos).max(MU_FLOOR)
+    } else {
+        MU_FLOOR
     }
 }
 
@@ -174,6 +187,12 @@ impl Workspace {
         ws
     }
 
+    /// Length of the design matrix buffer (2N rows × all columns), read by the tests.
+    #[cfg(test)]
+    pub fn matrix_len(&self) -> usize {
+        self.cols.len()
+    }
+
     fn column_mut(&mut self, j: usize) -> &mut [f64] {
         let len = 2 * self.n;
         &mut self.cols[j * len..(j + 1) * len]
@@ -184,13 +203,22 @@ impl Workspace {
         &self.cols[j * len..(j + 1) * len]
     }
 
+    /// Scales column j to unit length. The norm is taken on the column divided by its largest
+    /// entry, so that squares neither overflow nor underflow; a column with a non-finite entry (ωL
+    /// or 1/(ωC) beyond the range of f64) is set to zero, which leaves that unknown at zero.
     fn scale_column(&mut self, j: usize) {
         let c = self.column_mut(j);
-        let norm = dot(c, c).sqrt();
-        let s = if norm > 0.0 { norm } else { 1.0 };
-        let inv = 1.0 / s;
+        let big = c.iter().fold(0.0f64, |a, v| a.max(v.abs()));
+        if !big.is_finite() || big == 0.0 {
+            c.iter_mut().for_each(|v| *v = 0.0);
+            self.norms[j] = 1.0;
+            return;
+        }
+        c.iter_mut().for_each(|v| *v /= big);
+        let unit = dot(c, c).sqrt();
+        let inv = 1.0 / unit;
         c.iter_mut().for_each(|v| *v *= inv);
-        self.norms[j] = s;
+        self.norms[j] = big * unit;
     }
 
     /// Solves the problem with M Voigt elements; afterwards `self.r` holds its residuals.
@@ -201,6 +229,7 @@ impl Workspace {
         self.taus.resize(m, 0.0);
         fill_time_constants(&mut self.taus, self.w_min, self.w_max);
         let len = 2 * n;
+        let mut all_scaled = true;
         for k in 0..m {
             let tau = self.taus[k];
             let j = fixed + k;
@@ -218,19 +247,26 @@ impl Workspace {
             {
                 let x = w * tau;
                 let u = weight / (1.0 + x * x);
-                let v = -x * u;
+                // −x·u written so that x → 0 and x → ∞ (ωτ beyond the range of f64) both give 0,
+                // not NaN.
+                let v = -weight / (x + 1.0 / x);
                 *re = u;
                 *im = v;
                 norm2 += weight * u;
                 q += br * u + bi * v;
             }
             let norm = norm2.sqrt();
-            let inv = 1.0 / norm;
+            // A column that vanishes at every point (a τ so far from 1/ω that ωτ under- or
+            // overflows) is left at zero; the closed-form Gram entries assume non-zero norms, so such
+            // a problem goes to SVD, which drops the column.
+            let ok = norm.is_finite() && norm > 0.0;
+            all_scaled &= ok;
+            let inv = if ok { 1.0 / norm } else { 0.0 };
             col.iter_mut().for_each(|v| *v *= inv);
-            self.norms[j] = norm;
+            self.norms[j] = if ok { norm } else { 1.0 };
             self.sol[j] = q * inv;
         }
-        let svd = !self.cholesky(p);
+        let svd = !(all_scaled && self.cholesky(p));
         if svd {
             self.solve_svd(p);
         } else {
@@ -334,6 +370,12 @@ impl Workspace {
         let len = 2 * self.n;
         let a = DMatrix::from_column_slice(len, p, &self.cols[..len * p]);
         let b = DVector::from_column_slice(&self.b);
+        // The SVD's iteration need not end on non-finite input; the columns are scaled and finite
+        // by construction, but a guard costs one pass.
+        if a.iter().chain(b.iter()).any(|v| !v.is_finite()) {
+            self.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+            return;
+        }
         let svd = a.svd(true, true);
         let smax = svd.singular_values.max();
         let x = svd
