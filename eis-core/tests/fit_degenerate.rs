@@ -122,3 +122,24 @@ fn degenerate_spectra_give_results_or_typed_errors() {
         FitError::Empty
     ));
 }
+
+/// Model selection (`--model auto`) fits a whole family on the same spectrum: degenerate spectra end
+/// in a selection or a typed error there too.
+#[test]
+fn model_selection_on_degenerate_spectra_does_not_panic() {
+    use eis_core::select::{SelectOptions, select};
+    let base = spectrum();
+    let o = SelectOptions::default();
+    for k in 1..6 {
+        let s = Spectrum::new(base.frequency_hz[..k].to_vec(), base.z[..k].to_vec());
+        let _ = select(&s, &o);
+    }
+    let flat = Spectrum::new(
+        base.frequency_hz.clone(),
+        vec![Complex64::new(42.0, 0.0); base.len()],
+    );
+    let _ = select(&flat, &o);
+    let mut huge = base.clone();
+    huge.z.iter_mut().for_each(|z| *z *= 1e250);
+    assert!(select(&huge, &o).is_err());
+}
