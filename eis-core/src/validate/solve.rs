@@ -24,7 +24,9 @@
 //! [`PIVOT_FLOOR`] (the scaled Gram matrix has a condition number of roughly 10¹⁰ or more, so the
 //! columns are nearly dependent and x is poorly determined) the same scaled problem is solved by SVD
 //! with singular values below 10⁻¹³·σ_max dropped, as before. That happens only for dense τ grids,
-//! far into the over-fitting regime, or for a fixed M close to N.
+//! far into the over-fitting regime, or for a fixed M close to N. Above [`SVD_MAX_ROWS`] rows the
+//! fallback is the eigen-decomposition of the same Gram matrix instead ([`GRAM_EIGEN_FLOOR`]), which
+//! keeps the whole test O(N·M) in memory and time.
 
 use crate::dense::dot;
 use nalgebra::{DMatrix, DVector};
@@ -32,6 +34,17 @@ use num_complex::Complex64;
 
 /// Smallest Cholesky pivot, relative to the unit diagonal, accepted before falling back to SVD.
 pub(super) const PIVOT_FLOOR: f64 = 1e-10;
+
+/// Rows (2N) above which the fallback for nearly dependent columns works on the p × p Gram matrix
+/// instead of an SVD of the 2N × p matrix: that SVD costs O(N·p²) time and a second 2N × p matrix
+/// for each M that needs it, which for 100,000 points made a failing spectrum (whose search runs to
+/// the cap, mostly in the fallback) take minutes. Spectra of up to 10,000 points keep the SVD.
+pub(super) const SVD_MAX_ROWS: usize = 20_000;
+
+/// Eigenvalues of the scaled Gram matrix at or below this fraction of the largest are dropped by
+/// the Gram fallback (singular values below about 10⁻⁶ of the largest: what the Gram matrix, whose
+/// entries carry rounding of 10⁻¹⁶, can still resolve).
+pub(super) const GRAM_EIGEN_FLOOR: f64 = 1e-12;
 
 /// Which series elements the model has besides R₀ and the Voigt elements.
 #[derive(Clone, Copy, Debug)]
@@ -135,6 +148,8 @@ pub(super) struct Workspace {
     /// Residual A x − b, 2N: the fit minus the data over |Z|.
     pub r: Vec<f64>,
     taus: Vec<f64>,
+    /// [`SVD_MAX_ROWS`]; the tests lower it to compare the two fallbacks.
+    pub svd_max_rows: usize,
 }
 
 impl Workspace {
@@ -165,6 +180,7 @@ impl Workspace {
             sol: vec![0.0; p_max],
             r: vec![0.0; 2 * n],
             taus: Vec::with_capacity(m_max),
+            svd_max_rows: SVD_MAX_ROWS,
         };
         // Fixed columns: R₀ (real rows), ωL and −1/(ωC) (imaginary rows).
         let weight = ws.weight.clone();
@@ -267,7 +283,9 @@ impl Workspace {
             self.sol[j] = q * inv;
         }
         let svd = !(all_scaled && self.cholesky(p));
-        if svd {
+        if svd && len > self.svd_max_rows {
+            self.solve_gram_eigen(p);
+        } else if svd {
             self.solve_svd(p);
         } else {
             for j in 0..fixed {
@@ -363,6 +381,59 @@ impl Workspace {
                 *r += xj * a;
             }
         }
+    }
+
+    /// The scaled problem through the eigen-decomposition of its Gram matrix, dropping eigenvalues
+    /// at or below [`GRAM_EIGEN_FLOOR`] of the largest: a pseudo-inverse in O(p³) with no 2N × p
+    /// copy, used above [`SVD_MAX_ROWS`] rows. Expects the Voigt entries of `sol` to hold Aᵀb.
+    fn solve_gram_eigen(&mut self, p: usize) {
+        let len = 2 * self.n;
+        let fixed = self.design.fixed();
+        for j in 0..fixed {
+            self.sol[j] = dot(self.column(j), &self.b);
+        }
+        let zero = |ws: &mut Self| ws.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+        // A column left at zero (its norm recorded as 1) has zero products.
+        let empty: Vec<bool> = (0..p)
+            .map(|j| self.column(j).iter().all(|v| *v == 0.0))
+            .collect();
+        let mut g = DMatrix::<f64>::zeros(p, p);
+        for i in 0..p {
+            for j in 0..=i {
+                let v = if j >= fixed {
+                    let (ti, tj) = (self.taus[i - fixed], self.taus[j - fixed]);
+                    let (ni, nj) = (self.norms[i], self.norms[j]);
+                    if empty[i] || empty[j] {
+                        0.0
+                    } else {
+                        (ti * ni * ni + tj * nj * nj) / ((ti + tj) * ni * nj)
+                    }
+                } else {
+                    dot(
+                        &self.cols[i * len..(i + 1) * len],
+                        &self.cols[j * len..(j + 1) * len],
+                    )
+                };
+                g[(i, j)] = v;
+                g[(j, i)] = v;
+            }
+        }
+        let c = DVector::from_column_slice(&self.sol[..p]);
+        // The eigen iteration need not end on non-finite input.
+        if g.iter().chain(c.iter()).any(|v| !v.is_finite()) {
+            zero(self);
+            return;
+        }
+        let eig = g.symmetric_eigen();
+        let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
+        let mut x = DVector::<f64>::zeros(p);
+        for (k, &lambda) in eig.eigenvalues.iter().enumerate() {
+            if lambda > GRAM_EIGEN_FLOOR * lmax && lambda > 0.0 {
+                let v = eig.eigenvectors.column(k);
+                x += v * (v.dot(&c) / lambda);
+            }
+        }
+        self.sol[..p].copy_from_slice(x.as_slice());
     }
 
     /// The scaled problem by SVD, dropping singular values below 10⁻¹³·σ_max.
