@@ -8,7 +8,8 @@
 //!
 //! γ is expanded in Gaussian radial basis functions φ_m(y) = exp(−(ε(y − y_m))²), y = ln τ, one centred
 //! at τ_m = 1/ω_m for each distinct measured frequency (Wan, Saccoccio, Chen & Ciucci 2015, Electrochim.
-//! Acta 184, 483). The shape factor ε follows from the full width at half maximum, FWHM = 2√(ln 2)/ε,
+//! Acta 184, 483), or, above [`MAX_BASIS`] distinct frequencies, that many evenly spaced in ln τ over
+//! the same range. The shape factor ε follows from the full width at half maximum, FWHM = 2√(ln 2)/ε,
 //! chosen as a multiple of the mean centre spacing ([`DrtOptions::with_rbf_width`]).
 //!
 //! # Problem solved
@@ -507,6 +508,14 @@ pub struct DrtResult {
 /// The fewest distinct frequencies a DRT accepts.
 pub const MIN_POINTS: usize = 5;
 
+/// Most basis functions. A spectrum with more distinct frequencies gets this many centres, evenly
+/// spaced in ln τ over the same range, instead of one per frequency: every point is still fitted,
+/// but the work is O(N·M) in memory and O(N·M² + M³) in time rather than O(N²) and O(N³) (2,000
+/// points took over a minute, 100,000 could not be held). A hundred centres over seven decades are
+/// fourteen per decade, finer than the resolution the regularisation leaves; spectra of up to a
+/// hundred distinct frequencies are treated exactly as before.
+pub const MAX_BASIS: usize = 100;
+
 /// Everything of a DRT that depends only on the frequencies and the options, computed once and reused
 /// for every spectrum measured at those frequencies (in the same order).
 #[derive(Debug, Clone)]
@@ -608,6 +617,13 @@ impl DrtSetup {
             }));
         }
         let omega: Vec<f64> = frequency_hz.iter().map(|&f| 2.0 * PI * f).collect();
+        // 2πf can overflow for f near f64::MAX.
+        if let Some(i) = omega.iter().position(|w| !w.is_finite()) {
+            return Err(DrtError::new(DrtErrorKind::BadFrequency {
+                point: i + 1,
+                value: frequency_hz[i],
+            }));
+        }
         let mut centres: Vec<f64> = omega.iter().map(|w| -w.ln()).collect();
         centres.sort_by(f64::total_cmp);
         centres.dedup_by(|a, b| (*a - *b).abs() <= 1e-9);
@@ -618,6 +634,14 @@ impl DrtSetup {
                 needed: MIN_POINTS,
             }));
         }
+        if m > MAX_BASIS {
+            // Evenly spaced in ln τ over the same range: the basis, not the data, is thinned.
+            let (lo, hi) = (centres[0], centres[m - 1]);
+            centres = (0..MAX_BASIS)
+                .map(|k| lo + (hi - lo) * k as f64 / (MAX_BASIS - 1) as f64)
+                .collect();
+        }
+        let m = centres.len();
         let spacing = (centres[m - 1] - centres[0]) / (m - 1) as f64;
         let fwhm = options.rbf_width * spacing;
         let epsilon = 2.0 * 2f64.ln().sqrt() / fwhm;
@@ -721,22 +745,33 @@ impl DrtSetup {
             }));
         }
         let r_ref = z.iter().fold(0.0f64, |a, v| a.max(v.norm()));
+        if let Some(i) = z.iter().position(|v| v.norm().is_infinite()) {
+            return Err(DrtError::new(DrtErrorKind::NonFiniteImpedance {
+                point: i + 1,
+            }));
+        }
+        if r_ref == 0.0 {
+            return Err(DrtError::new(DrtErrorKind::ZeroImpedance { point: 1 }));
+        }
+        // Everything is solved on Z/R_ref (|Z/R_ref| ≤ 1), so that impedances anywhere from 1e-300 to
+        // 1e300 Ω neither overflow nor underflow; the unknowns are in units of R_ref anyway.
+        let zs: Vec<Complex64> = z.iter().map(|v| v / r_ref).collect();
         let weights: Vec<f64> = match self.options.weighting {
             Weighting::Modulus => {
                 if let Some(i) = z.iter().position(|v| v.norm() == 0.0) {
                     return Err(DrtError::new(DrtErrorKind::ZeroImpedance { point: i + 1 }));
                 }
-                z.iter().map(|v| 1.0 / v.norm()).collect()
-            }
-            Weighting::Unit => {
-                if r_ref == 0.0 {
-                    return Err(DrtError::new(DrtErrorKind::ZeroImpedance { point: 1 }));
+                let w: Vec<f64> = zs.iter().map(|v| 1.0 / v.norm()).collect();
+                // |Zᵢ| more than ~1e308 times below max|Z| cannot be weighted by its modulus.
+                if let Some(i) = w.iter().position(|w| !w.is_finite()) {
+                    return Err(DrtError::new(DrtErrorKind::ZeroImpedance { point: i + 1 }));
                 }
-                vec![1.0 / r_ref; n]
+                w
             }
+            Weighting::Unit => vec![1.0; n],
         };
 
-        let (a, b) = self.design(z, &weights, r_ref);
+        let (a, b) = self.design(&zs, &weights, 1.0);
         let mut problem = Problem::new(&a, &b, &self.penalty);
         let mut warnings = Vec::new();
         let (lambda, scan) = match self.options.lambda {
@@ -945,10 +980,12 @@ impl DrtSetup {
         let model_im = &self.kernel_im * &coef_v;
         // Estimate what the fitted part cannot see, by weighted least squares on the other part.
         let modulus: Vec<f64> = z.iter().map(|v| v.norm().max(f64::MIN_POSITIVE)).collect();
+        // Weights 1/|Zᵢ|² divided by the largest of them, so that they stay in (0, 1] for any scale.
+        let m_min = modulus.iter().fold(f64::INFINITY, |a, &b| a.min(b));
         if !self.has_r_inf {
             let (mut num, mut den) = (0.0, 0.0);
             for i in 0..n {
-                let w2 = 1.0 / (modulus[i] * modulus[i]);
+                let w2 = (m_min / modulus[i]).powi(2);
                 num += w2 * (z[i].re - model_re[i]);
                 den += w2;
             }
@@ -957,7 +994,7 @@ impl DrtSetup {
         if self.options.inductance && !self.has_l {
             let (mut num, mut den) = (0.0, 0.0);
             for i in 0..n {
-                let w2 = 1.0 / (modulus[i] * modulus[i]);
+                let w2 = (m_min / modulus[i]).powi(2);
                 num += w2 * self.omega[i] * (z[i].im - model_im[i]);
                 den += w2 * self.omega[i] * self.omega[i];
             }
@@ -1656,5 +1693,128 @@ mod tests {
             drt(&s, DrtOptions::default()).unwrap_err().to_string(),
             "point 4: frequency -1 Hz is not a positive finite number"
         );
+    }
+
+    /// Issue 13: the basis had one function per distinct frequency, so memory grew as N² and time as
+    /// N³ (2,000 points took over a minute). It is bounded by MAX_BASIS whatever N; the times are in
+    /// `benches/drt.rs`.
+    #[test]
+    fn the_basis_is_bounded_whatever_the_number_of_points() {
+        let f: Vec<f64> = (0..1500)
+            .map(|i| 1e5 * 10f64.powf(-7.0 * i as f64 / 1499.0))
+            .collect();
+        let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
+        assert_eq!(setup.centres.len(), MAX_BASIS);
+        assert_eq!(setup.kernel_re.shape(), (1500, MAX_BASIS));
+        assert_eq!(setup.penalty.shape(), (MAX_BASIS + 1, MAX_BASIS + 1));
+        // The centres still span the measured range, evenly.
+        let (lo, hi) = (-(2.0 * PI * 1e5f64).ln(), -(2.0 * PI * 1e-2f64).ln());
+        assert!((setup.centres[0] - lo).abs() < 1e-9);
+        assert!((setup.centres[MAX_BASIS - 1] - hi).abs() < 1e-9);
+        // At and below the cap: one centre per distinct frequency, as before.
+        let setup = DrtSetup::new(&f[..MAX_BASIS], DrtOptions::default()).unwrap();
+        assert_eq!(setup.centres.len(), MAX_BASIS);
+        assert!((setup.centres[1] + (2.0 * PI * f[1]).ln()).abs() < 1e-12);
+        // A thinned basis still recovers a known arc: R0 + R1|C1 gives one peak at τ = R1·C1 holding
+        // R1 (common practice for an ideal RC element).
+        let plan = Plan::compile(&parse("R0 + R1|C1").unwrap());
+        let every_fourth: Vec<f64> = f.iter().step_by(4).copied().collect();
+        let s = simulate(&plan, &[5.0, 50.0, 20e-6], &every_fourth, None);
+        let r = drt(&s, DrtOptions::default()).unwrap();
+        assert_eq!(r.peaks.len(), 1, "{:?}", r.peaks);
+        assert_rel!(r.peaks[0].tau_s, 1e-3, 0.05, "τ of the peak");
+        assert_rel!(r.peaks[0].resistance_ohm, 50.0, 0.02, "R of the peak");
+    }
+
+    /// Issue 13: impedances from 1e-300 to 1e300 Ω give the same DRT up to the scale (γ, R∞ and the
+    /// peak resistances scale with Z, τ does not; the model is linear in them).
+    #[test]
+    fn the_drt_does_not_depend_on_the_scale_of_z() {
+        let base = spectrum(
+            "R0 + R1|Q1",
+            &[5.0, 50.0, 1e-4, 0.85],
+            Some(Noise {
+                relative: 0.002,
+                seed: 9,
+            }),
+        );
+        let reference = drt(&base, DrtOptions::default()).unwrap();
+        for scale in [1e-250, 1e-160, 1e200, 1e250] {
+            let mut s = base.clone();
+            s.z.iter_mut().for_each(|z| *z *= scale);
+            for weighting in [Weighting::Modulus, Weighting::Unit] {
+                let o = DrtOptions::default().with_weighting(weighting);
+                let r = drt(&s, o).unwrap();
+                let r0 = drt(&base, o).unwrap();
+                let what = format!("× {scale:e}, {weighting:?}");
+                assert_rel!(r.lambda, r0.lambda, 1e-9, format!("λ {what}"));
+                assert_rel!(
+                    r.r_inf_ohm / scale,
+                    r0.r_inf_ohm,
+                    1e-6,
+                    format!("R∞ {what}")
+                );
+                assert_rel!(
+                    r.r_pol_ohm / scale,
+                    r0.r_pol_ohm,
+                    1e-6,
+                    format!("Rpol {what}")
+                );
+                assert_eq!(r.peaks.len(), r0.peaks.len(), "{what}");
+                assert_rel!(r.residual_rms, r0.residual_rms, 1e-6, format!("rms {what}"));
+            }
+        }
+        assert!(reference.r_pol_ohm > 0.0);
+    }
+
+    /// Issue 13: degenerate spectra give a result or a typed error, never a panic.
+    #[test]
+    fn degenerate_spectra_give_results_or_typed_errors() {
+        let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+        // All impedances equal: a pure resistance, no polarisation.
+        let flat = Spectrum::new(
+            good.frequency_hz.clone(),
+            vec![Complex64::new(3.0, 0.0); good.len()],
+        );
+        let r = drt(&flat, DrtOptions::default()).unwrap();
+        assert_rel!(r.r_inf_ohm, 3.0, 1e-3, "R∞ of a resistor");
+        assert!(r.r_pol_ohm.abs() < 1e-3 * 3.0, "Rpol {}", r.r_pol_ohm);
+        // Every frequency twice.
+        let mut twice = good.clone();
+        twice.frequency_hz.extend(good.frequency_hz.clone());
+        twice.z.extend(good.z.clone());
+        assert!(drt(&twice, DrtOptions::default()).is_ok());
+        // 1 to 4 points: too few.
+        for k in 1..5 {
+            let s = Spectrum::new(good.frequency_hz[..k].to_vec(), good.z[..k].to_vec());
+            assert!(matches!(
+                drt(&s, DrtOptions::default()).unwrap_err().kind(),
+                DrtErrorKind::TooFewPoints { .. }
+            ));
+        }
+        // ω = 2πf overflows.
+        let mut s = good.clone();
+        s.frequency_hz[2] = f64::MAX;
+        assert!(matches!(
+            drt(&s, DrtOptions::default()).unwrap_err().kind(),
+            DrtErrorKind::BadFrequency { point: 3, .. }
+        ));
+        // An infinite impedance, and a modulus too small to weight next to the others.
+        let mut s = good.clone();
+        s.z[1] = Complex64::new(f64::INFINITY, 0.0);
+        assert!(drt(&s, DrtOptions::default()).is_err());
+        let mut s = good.clone();
+        s.z[0] = Complex64::new(1e300, 0.0);
+        s.z[1] = Complex64::new(1e-300, 0.0);
+        assert!(matches!(
+            drt(&s, DrtOptions::default()).unwrap_err().kind(),
+            DrtErrorKind::ZeroImpedance { point: 2 }
+        ));
+        // Frequencies over the whole range of f64.
+        let f: Vec<f64> = (0..12).map(|i| 10f64.powi(-300 + 50 * i)).collect();
+        let s = Spectrum::new(f, vec![Complex64::new(1.0, -0.1); 12]);
+        if let Ok(r) = drt(&s, DrtOptions::default()) {
+            assert!(r.r_inf_ohm.is_finite());
+        }
     }
 }

@@ -37,7 +37,13 @@
 //! - **Cap.** M ≤ N/2 by default ([`KkOptions::max_elements`]): the grid then has at most one time
 //!   constant per two points, well beyond where μ drops for the spectra tried (M ≈ 15–30 for 71 points
 //!   over 7 decades), and it bounds the work for spectra that fail, for which the search always runs
-//!   to the cap. Earlier the cap was N.
+//!   to the cap. Earlier the cap was N. Whatever the options, M ≤ [`MAX_ELEMENTS`]: the work is
+//!   O(N·M) in memory and O(N·M²) in time for the whole search, so a spectrum of 100,000 points
+//!   needs tens of megabytes, not the N² of a cap that grows with N.
+//! - **Scale.** The problem is solved on Z divided by the geometric mean of |Zᵢ|, so spectra from
+//!   10⁻³⁰⁰ to 10³⁰⁰ Ω give the same verdict and the same relative results.
+//! - **Too short.** Spectra of fewer than [`MIN_POINTS`] points are an error
+//!   ([`KkError::TooFewPoints`]), not a verdict.
 //!
 //! The patience rule is kept because it is what lets exact Voigt series and an ideal RC arc pass
 //! noise-free; its cost is now small (each M costs O(N·M), see `validate/solve.rs`).
@@ -92,6 +98,8 @@
 
 use crate::eval::angular;
 use crate::spectrum::Spectrum;
+use num_complex::Complex64;
+pub use solve::MU_FLOOR;
 use solve::{Design, Fit, Workspace};
 use verdict::judge;
 
@@ -116,9 +124,10 @@ pub enum Tail {
 pub struct KkOptions {
     /// μ threshold c: fits with μ below it count as over-fitted (default 0.85, from the paper).
     pub mu_threshold: f64,
-    /// A fixed number of elements instead of the μ search (default: none).
+    /// A fixed number of elements instead of the μ search (default: none; capped at [`MAX_ELEMENTS`]).
     pub elements: Option<usize>,
-    /// Most elements the μ search tries (default: half the number of points).
+    /// Most elements the μ search tries (default: half the number of points, at most
+    /// [`MAX_ELEMENTS`]; larger values are capped there too).
     pub max_elements: Option<usize>,
     /// Series capacitance (default [`Tail::Auto`]).
     pub capacitance: Tail,
@@ -155,13 +164,37 @@ impl Default for KkOptions {
     }
 }
 
+/// Fewest points the test accepts. With fewer, the cap of half the number of points leaves fewer
+/// Voigt elements than the μ search needs to see over-fitting (five successive M), and the scatter
+/// and runs test of the verdict have too few residuals to tell noise from a trend: such a spectrum
+/// is reported as too short to test, never as valid.
+pub const MIN_POINTS: usize = 10;
+
+/// Most Voigt elements the test ever uses, whatever the number of points or
+/// [`KkOptions::elements`]. Memory and time per M grow as N·M, so this bounds the test of a spectrum
+/// of N points to about 16·N·`MAX_ELEMENTS` bytes (160 MB for 100,000 points). A hundred elements
+/// over seven decades are fourteen per decade, far past the density where μ drops for measured
+/// spectra (M ≈ 15–30, module docs), and spectra of up to 200 points are tested as before the cap.
+/// A spectrum over a much wider range is better tested in parts (`--fmin`/`--fmax` in the CLI).
+pub const MAX_ELEMENTS: usize = 100;
+
 /// Why the test could not run.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 #[non_exhaustive]
 pub enum KkError {
-    /// Fewer than three points.
-    #[error("Kramers-Kronig test needs at least 3 points, the spectrum has {0}")]
+    /// Fewer than [`MIN_POINTS`] points: too few to test, which is not the same as valid.
+    #[error(
+        "too few points to test: the Kramers-Kronig check needs at least {MIN_POINTS} points, the spectrum has {0}"
+    )]
     TooFewPoints(usize),
+    /// Frequencies and impedances differ in number.
+    #[error("{frequencies} frequencies but {impedances} impedance values")]
+    LengthMismatch {
+        /// Number of frequencies.
+        frequencies: usize,
+        /// Number of impedances.
+        impedances: usize,
+    },
     /// A frequency that is not finite and positive, or an impedance that is not finite and non-zero.
     #[error("point {0} has a non-positive or non-finite frequency or impedance")]
     BadPoint(usize),
@@ -189,7 +222,7 @@ pub struct KkReport {
     pub valid: bool,
     /// Which tests failed.
     pub failed: KkFailures,
-    /// μ of the chosen fit.
+    /// μ of the chosen fit, finite: at least [`MU_FLOOR`].
     pub mu: f64,
     /// Whether the search ended in the over-fitting regime (μ below c for five successive M, with a
     /// fit within the limits found) rather than at the largest M allowed.
@@ -249,7 +282,9 @@ fn model(f: &Fit, w: f64, d: Design) -> num_complex::Complex64 {
     let m = f.taus.len();
     let mut z = num_complex::Complex64::new(f.x[0], 0.0);
     for (k, &tau) in f.taus.iter().enumerate() {
-        z += f.x[1 + k] / num_complex::Complex64::new(1.0, w * tau);
+        // R/(1 + jx) in parts, finite for x → 0 and x → ∞ (complex division would give NaN there).
+        let x = w * tau;
+        z += num_complex::Complex64::new(f.x[1 + k] / (1.0 + x * x), -f.x[1 + k] / (x + 1.0 / x));
     }
     let mut c = 1 + m;
     if d.inductance {
@@ -266,11 +301,17 @@ fn model(f: &Fit, w: f64, d: Design) -> num_complex::Complex64 {
 ///
 /// # Errors
 ///
-/// [`KkError`] for fewer than three points, a bad point or a single frequency; a spectrum that fails
+/// [`KkError`] for fewer than [`MIN_POINTS`] points, a bad point or a single frequency; a spectrum that fails
 /// the test is an `Ok` report with `valid == false`.
 pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkError> {
     let n = s.len();
-    if n < 3 {
+    if s.z.len() != n {
+        return Err(KkError::LengthMismatch {
+            frequencies: n,
+            impedances: s.z.len(),
+        });
+    }
+    if n < MIN_POINTS {
         return Err(KkError::TooFewPoints(n));
     }
     for (i, (f, z)) in s.frequency_hz.iter().zip(&s.z).enumerate() {
@@ -279,6 +320,14 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         }
     }
     let w: Vec<f64> = s.frequency_hz.iter().map(|&f| angular(f)).collect();
+    if let Some(i) = w.iter().position(|w| !(w.is_finite() && *w > 0.0)) {
+        return Err(KkError::BadPoint(i + 1));
+    }
+    // Solve on data divided by their typical modulus (geometric mean of |Zᵢ|), so that nothing
+    // underflows or overflows for impedances anywhere from 1e-300 to 1e300 Ω; the residuals are
+    // relative anyway, and the unknowns are scaled back at the end.
+    let scale = typical_modulus(&s.z);
+    let z: Vec<Complex64> = s.z.iter().map(|zi| zi / scale).collect();
     let (lo, hi) = extremes(&s.frequency_hz);
     if s.frequency_hz[lo] == s.frequency_hz[hi] {
         return Err(KkError::NoRange);
@@ -287,30 +336,32 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         inductance: match options.inductance {
             Tail::On => true,
             Tail::Off => false,
-            Tail::Auto => s.z[hi].im > 0.0,
+            Tail::Auto => z[hi].im > 0.0,
         },
         capacitance: match options.capacitance {
             Tail::On => true,
             Tail::Off => false,
-            Tail::Auto => capacitive_tail(s),
+            Tail::Auto => capacitive_tail(&s.frequency_hz, &z),
         },
     };
     let mut order: Vec<usize> = (0..n).collect();
     order.sort_by(|&i, &j| s.frequency_hz[i].total_cmp(&s.frequency_hz[j]));
-    // At most as many unknowns as equations.
-    let m_cap = (2 * n).saturating_sub(design.fixed()).max(1);
+    // At most as many unknowns as equations, and at most MAX_ELEMENTS (memory and time O(N·M)).
+    let m_cap = (2 * n)
+        .saturating_sub(design.fixed())
+        .clamp(1, MAX_ELEMENTS);
     let mut buf = Vec::with_capacity(2 * n);
     let (chosen, mu_reached) = match options.elements {
         Some(m) => {
             let m = m.clamp(1, m_cap);
-            (Workspace::new(&w, &s.z, design, m).fit(m), true)
+            (Workspace::new(&w, &z, design, m).fit(m), true)
         }
         None => {
             let m_max = options
                 .max_elements
                 .unwrap_or(default_max_elements(n))
                 .clamp(1, m_cap);
-            let mut ws = Workspace::new(&w, &s.z, design, m_max);
+            let mut ws = Workspace::new(&w, &z, design, m_max);
             // Raise M until μ has stayed below c for PATIENCE successive M and a fit with μ ≥ c passes
             // (or M is at its cap); keep the best fit among those with μ ≥ c.
             let mut best: Option<(Fit, bool)> = None;
@@ -340,14 +391,15 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
             match (best, first) {
                 (Some((b, _)), _) => (b, reached),
                 (None, Some(f)) => (f, reached),
-                (None, None) => unreachable!("m_max >= 1"),
+                // m_max ≥ 1, so the loop ran at least once; kept total all the same.
+                (None, None) => (ws.fit(1), reached),
             }
         }
     };
     let m = chosen.taus.len();
     let mut residual_re = Vec::with_capacity(n);
     let mut residual_im = Vec::with_capacity(n);
-    for (zi, &wi) in s.z.iter().zip(&w) {
+    for (zi, &wi) in z.iter().zip(&w) {
         let d = (zi - model(&chosen, wi, design)) / zi.norm();
         residual_re.push(d.re);
         residual_im.push(d.im);
@@ -380,9 +432,10 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
     let mut c = 1 + m;
     let inductance = design.inductance.then(|| {
         c += 1;
-        chosen.x[c - 1]
+        chosen.x[c - 1] * scale
     });
-    let capacitance = design.capacitance.then(|| 1.0 / chosen.x[c]);
+    // The scaled unknown is 1/(C·scale).
+    let capacitance = design.capacitance.then(|| 1.0 / (chosen.x[c] * scale));
     Ok(KkReport {
         valid: !failures.any(),
         failed: KkFailures {
@@ -393,8 +446,8 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         mu: chosen.mu,
         mu_reached,
         elements: m,
-        r0: chosen.x[0],
-        resistances: chosen.x[1..=m].to_vec(),
+        r0: chosen.x[0] * scale,
+        resistances: chosen.x[1..=m].iter().map(|r| r * scale).collect(),
         time_constants: chosen.taus.clone(),
         capacitance,
         inductance,
@@ -429,11 +482,21 @@ fn extremes(f: &[f64]) -> (usize, usize) {
 }
 
 /// −Z″ still rising towards the lowest frequency: compares the two lowest frequencies.
-fn capacitive_tail(s: &Spectrum) -> bool {
-    let mut idx: Vec<usize> = (0..s.len()).collect();
-    idx.sort_by(|&i, &j| s.frequency_hz[i].total_cmp(&s.frequency_hz[j]));
-    let (a, b) = (idx[0], idx[1]);
-    -s.z[a].im > 0.0 && -s.z[a].im > -s.z[b].im
+fn capacitive_tail(f: &[f64], z: &[Complex64]) -> bool {
+    let mut idx: Vec<usize> = (0..f.len()).collect();
+    idx.sort_by(|&i, &j| f[i].total_cmp(&f[j]));
+    match idx[..] {
+        [a, b, ..] => -z[a].im > 0.0 && -z[a].im > -z[b].im,
+        _ => false,
+    }
+}
+
+/// The geometric mean of |Zᵢ| (all finite and non-zero), computed in logarithms so that it neither
+/// overflows nor underflows; 1 if that fails.
+fn typical_modulus(z: &[Complex64]) -> f64 {
+    let mean_ln = z.iter().map(|zi| zi.norm().ln()).sum::<f64>() / z.len().max(1) as f64;
+    let t = mean_ln.exp();
+    if t.is_finite() && t > 0.0 { t } else { 1.0 }
 }
 
 #[cfg(test)]

@@ -138,6 +138,8 @@ const INVALID: &[&str] = &[
     "R0 + R1|C1\nrole R9 = film",
     "R0 +\n  (R1 + µ)",
     "R0 + Ω1",
+    // One level deeper than MAX_NESTING (issue 13).
+    "(((((((((((((((((((((((((((((((((((((((((((((((((((((((((((((((((R0)))))))))))))))))))))))))))))))))))))))))))))))))))))))))))))))))",
 ];
 
 fn render_snapshot() -> String {
@@ -248,4 +250,69 @@ proptest! {
             prop_assert!(e.to_string().contains('^'));
         }
     }
+}
+
+/// Runs `f` on a thread with a 2 MiB stack (the size of a spawned thread's default), so that a
+/// recursion that would overflow there fails this test on every machine.
+fn on_small_stack<T: Send + 'static>(f: impl FnOnce() -> T + Send + 'static) -> T {
+    std::thread::Builder::new()
+        .stack_size(2 << 20)
+        .spawn(f)
+        .unwrap()
+        .join()
+        .unwrap()
+}
+
+/// Issue 13: 20,000 nested parentheses overflowed the stack (the process aborted). Nesting beyond
+/// MAX_NESTING is a caret error at the first `(` too many.
+#[test]
+fn nesting_is_bounded_with_a_caret_error() {
+    use eis_core::circuit::{CircuitErrorKind, MAX_NESTING};
+    let text = format!("R9 + {}R0{}", "(".repeat(20_000), ")".repeat(20_000));
+    let err = on_small_stack(move || parse(&text).unwrap_err());
+    assert_eq!(err.kind(), &CircuitErrorKind::TooDeep(MAX_NESTING));
+    let shown = err.to_string();
+    assert!(shown.contains("nesting deeper than 64 levels"), "{shown}");
+    // The caret sits under the 65th `(`, column 5 + 65.
+    assert!(shown.contains(" --> line 1, column 70"), "{shown}");
+    // Unclosed ones as well, and inside annotations nothing counts.
+    let err = on_small_stack(|| parse(&"(".repeat(100_000)).unwrap_err());
+    assert_eq!(err.kind(), &CircuitErrorKind::TooDeep(MAX_NESTING));
+    let ok = format!("{}R0{}", "(".repeat(MAX_NESTING), ")".repeat(MAX_NESTING));
+    assert!(parse(&ok).is_ok());
+}
+
+/// A tree as deep as the limit allows (alternating parallel and series at every level, so that
+/// nothing flattens) parses, prints, round-trips, compiles and evaluates on a 2 MiB stack.
+#[test]
+fn the_deepest_allowed_tree_fits_a_small_stack() {
+    use eis_core::circuit::MAX_NESTING;
+    use eis_core::eval::Plan;
+    on_small_stack(|| {
+        let mut text = String::new();
+        for k in 0..MAX_NESTING {
+            text.push_str(&format!("R{k}|(C{k} + "));
+        }
+        text.push_str("Rend");
+        text.push_str(&")".repeat(MAX_NESTING));
+        let c = parse(&text).unwrap();
+        let depth = |n: &Node| -> usize {
+            // Iterative, so that the test itself does not recurse.
+            let mut stack = vec![(n, 1)];
+            let mut max = 0;
+            while let Some((n, d)) = stack.pop() {
+                max = max.max(d);
+                if let Node::Series(ch) | Node::Parallel(ch) = n {
+                    stack.extend(ch.iter().map(|c| (c, d + 1)));
+                }
+            }
+            max
+        };
+        assert!(depth(&c.root) > 2 * MAX_NESTING, "depth {}", depth(&c.root));
+        let printed = print(&c);
+        assert_eq!(parse(&printed).unwrap(), c);
+        let plan = Plan::compile(&c);
+        let z = plan.impedance(&c.default_values(), 1.0);
+        assert!(z.re.is_finite() && z.im.is_finite(), "{z}");
+    });
 }

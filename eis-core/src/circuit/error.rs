@@ -23,6 +23,9 @@ pub enum CircuitErrorKind {
     UnmatchedCloseParen,
     /// Parentheses with nothing inside: `R0 + ()`.
     EmptyGroup,
+    /// Parentheses nested deeper than the limit ([`crate::circuit::MAX_NESTING`], 64): 65 `(` in a
+    /// row before `R0`. Carries the limit.
+    TooDeep(usize),
     /// Two nodes side by side without an operator: `R0 R1`.
     MissingOperator,
     /// Two elements with one name: `R1 + R1`.
@@ -114,6 +117,10 @@ impl fmt::Display for CircuitErrorKind {
             UnclosedParen => write!(f, "this `(` is never closed; expected `)`"),
             UnmatchedCloseParen => write!(f, "this `)` has no matching `(`"),
             EmptyGroup => write!(f, "empty parentheses; expected a circuit inside"),
+            TooDeep(limit) => write!(
+                f,
+                "nesting deeper than {limit} levels; expected at most {limit} `(` open at once"
+            ),
             MissingOperator => {
                 write!(
                     f,

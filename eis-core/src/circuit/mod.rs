@@ -28,7 +28,7 @@ mod print;
 
 pub use ast::{Circuit, Element, Node, Param, Role, Span};
 pub use error::{CircuitError, CircuitErrorKind};
-pub use parse::parse;
+pub use parse::{MAX_NESTING, parse};
 pub use print::{print, print_expression};
 
 use crate::element::KINDS;

@@ -70,6 +70,7 @@ fn parse_masked(
         elements: Vec::new(),
         anns: Vec::new(),
         element_spans: Vec::new(),
+        depth: 0,
     };
     let root = p.parse_top()?;
     let Parser {
@@ -224,7 +225,15 @@ struct Parser<'a> {
     /// One entry per parameter, in the order parameters are created.
     anns: Vec<Ann>,
     element_spans: Vec<Span>,
+    /// Parentheses open at the current position (bounded by [`MAX_NESTING`]).
+    depth: usize,
 }
+
+/// Deepest nesting of parentheses the parser accepts. The parser, the printer and the evaluator's
+/// compile step recurse once per level, so a bound keeps a hostile or mistaken text (20,000 `(`)
+/// from overflowing the stack; no real circuit comes near it. A tree built from such a text is at
+/// most about twice as deep (an element under alternating series and parallel nodes).
+pub const MAX_NESTING: usize = 64;
 
 impl<'a> Parser<'a> {
     fn err(&self, kind: K, span: Span) -> CircuitError {
@@ -327,7 +336,13 @@ impl<'a> Parser<'a> {
                 if next == Tok::Close {
                     return Err(self.err(K::EmptyGroup, span.start..next_span.end));
                 }
-                let inner = self.parse_series(Some(&span))?;
+                if self.depth >= MAX_NESTING {
+                    return Err(self.err(K::TooDeep(MAX_NESTING), span));
+                }
+                self.depth += 1;
+                let inner = self.parse_series(Some(&span));
+                self.depth -= 1;
+                let inner = inner?;
                 let (close, close_span) = self.peek();
                 match close {
                     Tok::Close => {

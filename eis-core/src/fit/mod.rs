@@ -193,6 +193,19 @@ pub enum FitError {
     /// Every parameter is fixed.
     #[error("every parameter is fixed; nothing to fit")]
     NothingFree,
+    /// An impedance outside [`MODULUS_RANGE`]: the analytic derivatives of the elements (1/(ωC²) and
+    /// the like) would overflow or underflow, and the fit would stop short without saying so.
+    #[error(
+        "point {index} (frequency {frequency} Hz) has |Z| = {modulus:e} Ohm, outside the range the fit handles (1e-100 to 1e100 Ohm); express the data in other units"
+    )]
+    ModulusOutOfRange {
+        /// 0-based index of the point.
+        index: usize,
+        /// Its frequency.
+        frequency: f64,
+        /// |Z| of the point, Ω.
+        modulus: f64,
+    },
     /// A starting value lies outside its bounds.
     #[error("starting value {value} of `{name}` lies outside its bounds {lower}..{upper}")]
     StartOutsideBounds {
@@ -304,6 +317,12 @@ struct Prepared {
     w_rows: Vec<f64>,
 }
 
+/// Moduli of the impedances the fit accepts, Ω. Within it a spectrum scaled by any factor is fitted
+/// to the same relative parameters (tested from 1e-100 to 1e100); beyond it products such as ωC² in
+/// the elements' derivatives leave the range of f64 and the fit would stop short, so such data are
+/// an error ([`FitError::ModulusOutOfRange`]) rather than a quietly wrong result.
+pub const MODULUS_RANGE: std::ops::RangeInclusive<f64> = 1e-100..=1e100;
+
 fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitError> {
     let n = spectrum.frequency_hz.len();
     if n == 0 {
@@ -323,6 +342,17 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
                 frequency: f,
             });
         }
+    }
+    if let Some(i) = spectrum
+        .z
+        .iter()
+        .position(|z| !MODULUS_RANGE.contains(&modulus(*z)))
+    {
+        return Err(FitError::ModulusOutOfRange {
+            index: i,
+            frequency: spectrum.frequency_hz[i],
+            modulus: modulus(spectrum.z[i]),
+        });
     }
     let (w_re, w_im): (Vec<f64>, Vec<f64>) = match weighting {
         Weighting::Modulus => spectrum
@@ -351,6 +381,13 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
         }
     };
     let omegas = spectrum.omegas();
+    // 2πf overflows for f near f64::MAX.
+    if let Some(i) = omegas.iter().position(|w| !w.is_finite()) {
+        return Err(FitError::BadPoint {
+            index: i,
+            frequency: spectrum.frequency_hz[i],
+        });
+    }
     Ok(Prepared {
         grid: Grid::new(&omegas),
         omegas,

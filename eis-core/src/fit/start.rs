@@ -260,7 +260,13 @@ enum Target {
 
 /// Log-spaced values from lo to hi (inclusive) at `per_decade` points per decade.
 fn log_grid(lo: f64, hi: f64, per_decade: f64) -> Vec<f64> {
-    let n = ((hi / lo).log10() * per_decade).round().max(1.0) as usize;
+    if !(lo > 0.0 && hi >= lo && hi.is_finite()) {
+        return vec![lo];
+    }
+    // At most the range of f64 (about 630 decades) times the density: bounded.
+    let n = ((hi / lo).log10() * per_decade)
+        .round()
+        .clamp(1.0, 10_000.0) as usize;
     (0..=n)
         .map(|k| lo * (hi / lo).powf(k as f64 / n as f64))
         .collect()

@@ -24,7 +24,9 @@
 //! [`PIVOT_FLOOR`] (the scaled Gram matrix has a condition number of roughly 10¹⁰ or more, so the
 //! columns are nearly dependent and x is poorly determined) the same scaled problem is solved by SVD
 //! with singular values below 10⁻¹³·σ_max dropped, as before. That happens only for dense τ grids,
-//! far into the over-fitting regime, or for a fixed M close to N.
+//! far into the over-fitting regime, or for a fixed M close to N. Above [`SVD_MAX_ROWS`] rows the
+//! fallback is the eigen-decomposition of the same Gram matrix instead ([`GRAM_EIGEN_FLOOR`]), which
+//! keeps the whole test O(N·M) in memory and time.
 
 use crate::dense::dot;
 use nalgebra::{DMatrix, DVector};
@@ -32,6 +34,17 @@ use num_complex::Complex64;
 
 /// Smallest Cholesky pivot, relative to the unit diagonal, accepted before falling back to SVD.
 pub(super) const PIVOT_FLOOR: f64 = 1e-10;
+
+/// Rows (2N) above which the fallback for nearly dependent columns works on the p × p Gram matrix
+/// instead of an SVD of the 2N × p matrix: that SVD costs O(N·p²) time and a second 2N × p matrix
+/// for each M that needs it, which for 100,000 points made a failing spectrum (whose search runs to
+/// the cap, mostly in the fallback) take minutes. Spectra of up to 10,000 points keep the SVD.
+pub(super) const SVD_MAX_ROWS: usize = 20_000;
+
+/// Eigenvalues of the scaled Gram matrix at or below this fraction of the largest are dropped by
+/// the Gram fallback (singular values below about 10⁻⁶ of the largest: what the Gram matrix, whose
+/// entries carry rounding of 10⁻¹⁶, can still resolve).
+pub(super) const GRAM_EIGEN_FLOOR: f64 = 1e-12;
 
 /// Which series elements the model has besides R₀ and the Voigt elements.
 #[derive(Clone, Copy, Debug)]
@@ -80,22 +93,35 @@ fn fill_time_constants(t: &mut [f64], w_min: f64, w_max: f64) {
     }
 }
 
-/// μ = 1 − Σ_{Rₖ<0}|Rₖ| / Σ_{Rₖ≥0}|Rₖ| over the Voigt resistances only.
+/// Voigt resistances at or below this size, in units of the spectrum's typical |Z| (the problem is
+/// solved on data divided by it, see [`super::kramers_kronig`]), are round-off and count as zero in μ.
+pub(super) const NEGLIGIBLE_RESISTANCE: f64 = 1e-10;
+
+/// Lowest value μ takes: a fit whose Voigt resistances are all negative (and not negligible) gets this
+/// instead of −∞, so that μ stays a finite number in every report.
+pub const MU_FLOOR: f64 = -1e6;
+
+/// μ = 1 − Σ_{Rₖ<0}|Rₖ| / Σ_{Rₖ≥0}|Rₖ| over the Voigt resistances only, with resistances below
+/// [`NEGLIGIBLE_RESISTANCE`] left out (a flat, purely resistive spectrum has only round-off there
+/// and gets μ = 1) and the result floored at [`MU_FLOOR`].
 pub(super) fn mu(resistances: &[f64]) -> f64 {
     let (mut pos, mut neg) = (0.0, 0.0);
     for &r in resistances {
-        if r >= 0.0 {
+        if r.abs() <= NEGLIGIBLE_RESISTANCE {
+            continue;
+        }
+        if r > 0.0 {
             pos += r;
         } else {
             neg -= r;
         }
     }
-    if pos > 0.0 {
-        1.0 - neg / pos
-    } else if neg > 0.0 {
-        f64::NEG_INFINITY
-    } else {
+    if neg == 0.0 {
         1.0
+    } else if pos > 0.0 {
+        (1.0 - neg / pos).max(MU_FLOOR)
+    } else {
+        MU_FLOOR
     }
 }
 
@@ -122,6 +148,8 @@ pub(super) struct Workspace {
     /// Residual A x − b, 2N: the fit minus the data over |Z|.
     pub r: Vec<f64>,
     taus: Vec<f64>,
+    /// [`SVD_MAX_ROWS`]; the tests lower it to compare the two fallbacks.
+    pub svd_max_rows: usize,
 }
 
 impl Workspace {
@@ -152,6 +180,7 @@ impl Workspace {
             sol: vec![0.0; p_max],
             r: vec![0.0; 2 * n],
             taus: Vec::with_capacity(m_max),
+            svd_max_rows: SVD_MAX_ROWS,
         };
         // Fixed columns: R₀ (real rows), ωL and −1/(ωC) (imaginary rows).
         let weight = ws.weight.clone();
@@ -174,6 +203,12 @@ impl Workspace {
         ws
     }
 
+    /// Length of the design matrix buffer (2N rows × all columns), read by the tests.
+    #[cfg(test)]
+    pub fn matrix_len(&self) -> usize {
+        self.cols.len()
+    }
+
     fn column_mut(&mut self, j: usize) -> &mut [f64] {
         let len = 2 * self.n;
         &mut self.cols[j * len..(j + 1) * len]
@@ -184,13 +219,22 @@ impl Workspace {
         &self.cols[j * len..(j + 1) * len]
     }
 
+    /// Scales column j to unit length. The norm is taken on the column divided by its largest
+    /// entry, so that squares neither overflow nor underflow; a column with a non-finite entry (ωL
+    /// or 1/(ωC) beyond the range of f64) is set to zero, which leaves that unknown at zero.
     fn scale_column(&mut self, j: usize) {
         let c = self.column_mut(j);
-        let norm = dot(c, c).sqrt();
-        let s = if norm > 0.0 { norm } else { 1.0 };
-        let inv = 1.0 / s;
+        let big = c.iter().fold(0.0f64, |a, v| a.max(v.abs()));
+        if !big.is_finite() || big == 0.0 {
+            c.iter_mut().for_each(|v| *v = 0.0);
+            self.norms[j] = 1.0;
+            return;
+        }
+        c.iter_mut().for_each(|v| *v /= big);
+        let unit = dot(c, c).sqrt();
+        let inv = 1.0 / unit;
         c.iter_mut().for_each(|v| *v *= inv);
-        self.norms[j] = s;
+        self.norms[j] = big * unit;
     }
 
     /// Solves the problem with M Voigt elements; afterwards `self.r` holds its residuals.
@@ -201,6 +245,7 @@ impl Workspace {
         self.taus.resize(m, 0.0);
         fill_time_constants(&mut self.taus, self.w_min, self.w_max);
         let len = 2 * n;
+        let mut all_scaled = true;
         for k in 0..m {
             let tau = self.taus[k];
             let j = fixed + k;
@@ -218,20 +263,29 @@ impl Workspace {
             {
                 let x = w * tau;
                 let u = weight / (1.0 + x * x);
-                let v = -x * u;
+                // −x·u written so that x → 0 and x → ∞ (ωτ beyond the range of f64) both give 0,
+                // not NaN.
+                let v = -weight / (x + 1.0 / x);
                 *re = u;
                 *im = v;
                 norm2 += weight * u;
                 q += br * u + bi * v;
             }
             let norm = norm2.sqrt();
-            let inv = 1.0 / norm;
+            // A column that vanishes at every point (a τ so far from 1/ω that ωτ under- or
+            // overflows) is left at zero; the closed-form Gram entries assume non-zero norms, so such
+            // a problem goes to SVD, which drops the column.
+            let ok = norm.is_finite() && norm > 0.0;
+            all_scaled &= ok;
+            let inv = if ok { 1.0 / norm } else { 0.0 };
             col.iter_mut().for_each(|v| *v *= inv);
-            self.norms[j] = norm;
+            self.norms[j] = if ok { norm } else { 1.0 };
             self.sol[j] = q * inv;
         }
-        let svd = !self.cholesky(p);
-        if svd {
+        let svd = !(all_scaled && self.cholesky(p));
+        if svd && len > self.svd_max_rows {
+            self.solve_gram_eigen(p);
+        } else if svd {
             self.solve_svd(p);
         } else {
             for j in 0..fixed {
@@ -329,11 +383,70 @@ impl Workspace {
         }
     }
 
+    /// The scaled problem through the eigen-decomposition of its Gram matrix, dropping eigenvalues
+    /// at or below [`GRAM_EIGEN_FLOOR`] of the largest: a pseudo-inverse in O(p³) with no 2N × p
+    /// copy, used above [`SVD_MAX_ROWS`] rows. Expects the Voigt entries of `sol` to hold Aᵀb.
+    fn solve_gram_eigen(&mut self, p: usize) {
+        let len = 2 * self.n;
+        let fixed = self.design.fixed();
+        for j in 0..fixed {
+            self.sol[j] = dot(self.column(j), &self.b);
+        }
+        let zero = |ws: &mut Self| ws.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+        // A column left at zero (its norm recorded as 1) has zero products.
+        let empty: Vec<bool> = (0..p)
+            .map(|j| self.column(j).iter().all(|v| *v == 0.0))
+            .collect();
+        let mut g = DMatrix::<f64>::zeros(p, p);
+        for i in 0..p {
+            for j in 0..=i {
+                let v = if j >= fixed {
+                    let (ti, tj) = (self.taus[i - fixed], self.taus[j - fixed]);
+                    let (ni, nj) = (self.norms[i], self.norms[j]);
+                    if empty[i] || empty[j] {
+                        0.0
+                    } else {
+                        (ti * ni * ni + tj * nj * nj) / ((ti + tj) * ni * nj)
+                    }
+                } else {
+                    dot(
+                        &self.cols[i * len..(i + 1) * len],
+                        &self.cols[j * len..(j + 1) * len],
+                    )
+                };
+                g[(i, j)] = v;
+                g[(j, i)] = v;
+            }
+        }
+        let c = DVector::from_column_slice(&self.sol[..p]);
+        // The eigen iteration need not end on non-finite input.
+        if g.iter().chain(c.iter()).any(|v| !v.is_finite()) {
+            zero(self);
+            return;
+        }
+        let eig = g.symmetric_eigen();
+        let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
+        let mut x = DVector::<f64>::zeros(p);
+        for (k, &lambda) in eig.eigenvalues.iter().enumerate() {
+            if lambda > GRAM_EIGEN_FLOOR * lmax && lambda > 0.0 {
+                let v = eig.eigenvectors.column(k);
+                x += v * (v.dot(&c) / lambda);
+            }
+        }
+        self.sol[..p].copy_from_slice(x.as_slice());
+    }
+
     /// The scaled problem by SVD, dropping singular values below 10⁻¹³·σ_max.
     fn solve_svd(&mut self, p: usize) {
         let len = 2 * self.n;
         let a = DMatrix::from_column_slice(len, p, &self.cols[..len * p]);
         let b = DVector::from_column_slice(&self.b);
+        // The SVD's iteration need not end on non-finite input; the columns are scaled and finite
+        // by construction, but a guard costs one pass.
+        if a.iter().chain(b.iter()).any(|v| !v.is_finite()) {
+            self.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+            return;
+        }
         let svd = a.svd(true, true);
         let smax = svd.singular_values.max();
         let x = svd
