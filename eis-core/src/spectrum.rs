@@ -69,6 +69,24 @@ impl Metadata {
     }
 }
 
+/// A point of a spectrum as messages name it: "point 3 (line 14)".
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PointRef {
+    /// Position in the spectrum, counted from 1.
+    pub number: usize,
+    /// Line of the file it was read from, when known.
+    pub line: Option<usize>,
+}
+
+impl std::fmt::Display for PointRef {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self.line {
+            Some(line) => write!(f, "point {} (line {line})", self.number),
+            None => write!(f, "point {}", self.number),
+        }
+    }
+}
+
 /// An impedance spectrum: Z at each frequency, optionally with per-point standard deviations.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Spectrum {
@@ -138,6 +156,14 @@ impl Spectrum {
     /// The source line of point `i` (from 0), when the spectrum was read from a file.
     pub fn source_line(&self, i: usize) -> Option<usize> {
         self.source_lines.as_ref()?.get(i).copied()
+    }
+
+    /// How messages name point `i` (from 0): its number from 1 and, when known, its source line.
+    pub fn point_ref(&self, i: usize) -> PointRef {
+        PointRef {
+            number: i + 1,
+            line: self.source_line(i),
+        }
     }
 
     /// Keeps only the points with `fmin <= f <= fmax`.

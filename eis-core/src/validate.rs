@@ -97,7 +97,7 @@
 //! ```
 
 use crate::eval::angular;
-use crate::spectrum::Spectrum;
+use crate::spectrum::{PointRef, Spectrum};
 use num_complex::Complex64;
 pub use solve::MU_FLOOR;
 use solve::{Design, Fit, Workspace};
@@ -196,8 +196,8 @@ pub enum KkError {
         impedances: usize,
     },
     /// A frequency that is not finite and positive, or an impedance that is not finite and non-zero.
-    #[error("point {0} has a non-positive or non-finite frequency or impedance")]
-    BadPoint(usize),
+    #[error("{0} has a non-positive or non-finite frequency or impedance")]
+    BadPoint(PointRef),
     /// All frequencies are equal, so no range of time constants can be spread.
     #[error("all frequencies are equal")]
     NoRange,
@@ -316,12 +316,12 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
     }
     for (i, (f, z)) in s.frequency_hz.iter().zip(&s.z).enumerate() {
         if !(f.is_finite() && *f > 0.0 && z.re.is_finite() && z.im.is_finite() && z.norm() > 0.0) {
-            return Err(KkError::BadPoint(i + 1));
+            return Err(KkError::BadPoint(s.point_ref(i)));
         }
     }
     let w: Vec<f64> = s.frequency_hz.iter().map(|&f| angular(f)).collect();
     if let Some(i) = w.iter().position(|w| !(w.is_finite() && *w > 0.0)) {
-        return Err(KkError::BadPoint(i + 1));
+        return Err(KkError::BadPoint(s.point_ref(i)));
     }
     // Solve on data divided by their typical modulus (geometric mean of |Zᵢ|), so that nothing
     // underflows or overflows for impedances anywhere from 1e-300 to 1e300 Ω; the residuals are

@@ -8,6 +8,7 @@ use eis_core::circuit::parse;
 use eis_core::eval::{Plan, log_frequencies};
 use eis_core::fit::{FitError, FitSettings, fit};
 use eis_core::simulate::simulate;
+use eis_core::spectrum::PointRef;
 use num_complex::Complex64;
 
 const CIRCUIT: &str = "R0 + Rct|Cdl";
@@ -55,7 +56,13 @@ fn impedances_beyond_the_range_are_a_typed_error() {
         s.z.iter_mut().for_each(|z| *z *= k);
         let e = run(&s).unwrap_err();
         assert!(
-            matches!(e, FitError::ModulusOutOfRange { index: 0, .. }),
+            matches!(
+                e,
+                FitError::ModulusOutOfRange {
+                    point: PointRef { number: 1, .. },
+                    ..
+                }
+            ),
             "× {k:e}: {e}"
         );
         assert!(e.to_string().contains("outside the range the fit handles"));
@@ -99,7 +106,13 @@ fn degenerate_spectra_give_results_or_typed_errors() {
         let mut s = base.clone();
         s.frequency_hz[3] = bad;
         assert!(
-            matches!(run(&s).unwrap_err(), FitError::BadPoint { index: 3, .. }),
+            matches!(
+                run(&s).unwrap_err(),
+                FitError::BadPoint {
+                    point: PointRef { number: 4, .. },
+                    ..
+                }
+            ),
             "frequency {bad}"
         );
     }
@@ -107,7 +120,13 @@ fn degenerate_spectra_give_results_or_typed_errors() {
         let mut s = base.clone();
         s.z[5].re = bad;
         assert!(
-            matches!(run(&s).unwrap_err(), FitError::BadPoint { index: 5, .. }),
+            matches!(
+                run(&s).unwrap_err(),
+                FitError::BadPoint {
+                    point: PointRef { number: 6, .. },
+                    ..
+                }
+            ),
             "impedance {bad}"
         );
     }
@@ -142,4 +161,20 @@ fn model_selection_on_degenerate_spectra_does_not_panic() {
     let mut huge = base.clone();
     huge.z.iter_mut().for_each(|z| *z *= 1e250);
     assert!(select(&huge, &o).is_err());
+}
+
+/// Issue 13: the fit and the Kramers–Kronig check named the same bad point differently ("point 0" and
+/// "point 1") and neither named its line. Both now count from 1 and give the source line.
+#[test]
+fn fit_and_check_name_a_bad_point_alike_with_its_line() {
+    let mut s = spectrum();
+    s.source_lines = Some((0..s.len()).map(|i| i + 2).collect());
+    s.z[3] = Complex64::new(f64::NAN, 1.0);
+    let fit_msg = run(&s).unwrap_err().to_string();
+    let kk_msg = eis_core::validate::kramers_kronig(&s, &Default::default())
+        .unwrap_err()
+        .to_string();
+    for msg in [&fit_msg, &kk_msg] {
+        assert!(msg.starts_with("point 4 (line 5) "), "{msg}");
+    }
 }

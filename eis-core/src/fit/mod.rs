@@ -41,7 +41,7 @@ mod stats;
 use crate::circuit::Circuit;
 use crate::dense::modulus;
 use crate::eval::{Grid, Plan};
-use crate::spectrum::Spectrum;
+use crate::spectrum::{PointRef, Spectrum};
 use lm::{Solver, Termination};
 use num_complex::Complex64;
 use problem::{Point, Problem, Transform};
@@ -169,12 +169,10 @@ pub enum FitError {
         impedances: usize,
     },
     /// A frequency or impedance is NaN, infinite, or a frequency is not positive.
-    #[error(
-        "point {index} (frequency {frequency} Hz) is not a finite value with positive frequency"
-    )]
+    #[error("{point} (frequency {frequency} Hz) is not a finite value with positive frequency")]
     BadPoint {
-        /// 0-based index of the point.
-        index: usize,
+        /// The point, numbered from 1, with its source line when known.
+        point: PointRef,
         /// Its frequency.
         frequency: f64,
     },
@@ -196,11 +194,11 @@ pub enum FitError {
     /// An impedance outside [`MODULUS_RANGE`]: the analytic derivatives of the elements (1/(ωC²) and
     /// the like) would overflow or underflow, and the fit would stop short without saying so.
     #[error(
-        "point {index} (frequency {frequency} Hz) has |Z| = {modulus:e} Ohm, outside the range the fit handles (1e-100 to 1e100 Ohm); express the data in other units"
+        "{point} (frequency {frequency} Hz) has |Z| = {modulus:e} Ohm, outside the range the fit handles (1e-100 to 1e100 Ohm); express the data in other units"
     )]
     ModulusOutOfRange {
-        /// 0-based index of the point.
-        index: usize,
+        /// The point, numbered from 1, with its source line when known.
+        point: PointRef,
         /// Its frequency.
         frequency: f64,
         /// |Z| of the point, Ω.
@@ -338,7 +336,7 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
         if !(f.is_finite() && f > 0.0 && z.re.is_finite() && z.im.is_finite()) || modulus(*z) == 0.0
         {
             return Err(FitError::BadPoint {
-                index: i,
+                point: spectrum.point_ref(i),
                 frequency: f,
             });
         }
@@ -349,7 +347,7 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
         .position(|z| !MODULUS_RANGE.contains(&modulus(*z)))
     {
         return Err(FitError::ModulusOutOfRange {
-            index: i,
+            point: spectrum.point_ref(i),
             frequency: spectrum.frequency_hz[i],
             modulus: modulus(spectrum.z[i]),
         });
@@ -384,7 +382,7 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
     // 2πf overflows for f near f64::MAX.
     if let Some(i) = omegas.iter().position(|w| !w.is_finite()) {
         return Err(FitError::BadPoint {
-            index: i,
+            point: spectrum.point_ref(i),
             frequency: spectrum.frequency_hz[i],
         });
     }

@@ -314,7 +314,10 @@ fn bad_inputs_are_errors_not_panics() {
     bad.frequency_hz[1] = 0.0;
     assert_eq!(
         kramers_kronig(&bad, &KkOptions::default()).unwrap_err(),
-        KkError::BadPoint(2)
+        KkError::BadPoint(PointRef {
+            number: 2,
+            line: None
+        })
     );
     let same = Spectrum::new(vec![1.0; 12], vec![Complex64::new(1.0, 0.0); 12]);
     assert_eq!(
@@ -499,18 +502,42 @@ fn degenerate_spectra_give_reports_or_typed_errors() {
     for bad in [f64::NAN, f64::INFINITY] {
         let mut s = base.clone();
         s.z[4].im = bad;
-        assert_eq!(kramers_kronig(&s, &o).unwrap_err(), KkError::BadPoint(5));
+        assert_eq!(
+            kramers_kronig(&s, &o).unwrap_err(),
+            KkError::BadPoint(PointRef {
+                number: 5,
+                line: None
+            })
+        );
         let mut s = base.clone();
         s.frequency_hz[6] = bad;
-        assert_eq!(kramers_kronig(&s, &o).unwrap_err(), KkError::BadPoint(7));
+        assert_eq!(
+            kramers_kronig(&s, &o).unwrap_err(),
+            KkError::BadPoint(PointRef {
+                number: 7,
+                line: None
+            })
+        );
     }
     let mut s = base.clone();
     s.frequency_hz[0] = -1.0;
-    assert_eq!(kramers_kronig(&s, &o).unwrap_err(), KkError::BadPoint(1));
+    assert_eq!(
+        kramers_kronig(&s, &o).unwrap_err(),
+        KkError::BadPoint(PointRef {
+            number: 1,
+            line: None
+        })
+    );
     // A frequency so large that ω = 2πf overflows.
     let mut s = base.clone();
     s.frequency_hz[0] = f64::MAX;
-    assert_eq!(kramers_kronig(&s, &o).unwrap_err(), KkError::BadPoint(1));
+    assert_eq!(
+        kramers_kronig(&s, &o).unwrap_err(),
+        KkError::BadPoint(PointRef {
+            number: 1,
+            line: None
+        })
+    );
     let mut s = base.clone();
     s.z.pop();
     assert!(matches!(
