@@ -295,8 +295,55 @@ impl fmt::Display for CircuitError {
         let end = floor_char(text, span.end.clamp(start, line_end.max(start)));
         let pad = text[line_start..start].chars().count();
         let width = text[start..end].chars().count().max(1);
+        let (shown, pad, width) = window(shown, pad, width);
         writeln!(f, "  | {shown}")?;
         write!(f, "  | {}{}", " ".repeat(pad), "^".repeat(width))
+    }
+}
+
+/// Longest line shown under an error, in characters; a longer one is cut to a window around the
+/// fault, with `…` where text is left out (a generated circuit can be one line of many kilobytes).
+const SHOWN_LINE: usize = 200;
+
+/// The part of `line` to show, and the caret's offset and width in it (all in characters).
+fn window(line: &str, pad: usize, width: usize) -> (String, usize, usize) {
+    let len = line.chars().count();
+    if len <= SHOWN_LINE {
+        return (line.to_owned(), pad, width);
+    }
+    let first = pad.saturating_sub(SHOWN_LINE / 2).min(len - SHOWN_LINE);
+    let last = first + SHOWN_LINE;
+    let mut shown: String = line.chars().skip(first).take(SHOWN_LINE).collect();
+    let mut pad = pad - first;
+    if first > 0 {
+        shown.insert(0, '…');
+        pad += 1;
+    }
+    if last < len {
+        shown.push('…');
+    }
+    let width = width.min(shown.chars().count().saturating_sub(pad)).max(1);
+    (shown, pad, width)
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::circuit::parse;
+
+    /// Issue 13: a fault deep in a 40,000-character line printed the whole line; the display shows a
+    /// window of it with the caret still under the fault.
+    #[test]
+    fn a_long_line_is_shown_as_a_window_around_the_fault() {
+        let text = format!("{}R0 + + R1", "R9 + ".repeat(8000));
+        let shown = parse(&text).unwrap_err().to_string();
+        let lines: Vec<&str> = shown.lines().collect();
+        assert!(lines[2].chars().count() < 210, "{}", lines[2]);
+        assert!(lines[2].starts_with("  | …"), "{}", lines[2]);
+        // Columns in characters: the caret line is ASCII, the shown line starts with `…`.
+        let caret = lines[3].find('^').unwrap();
+        assert_eq!(lines[2].chars().nth(caret), Some('+'), "{shown}");
+        assert_eq!(lines[2].chars().nth(caret - 2), Some('+'), "{shown}");
+        assert!(lines[1].contains("column 40006"), "{}", lines[1]);
     }
 }
 
