@@ -1,14 +1,19 @@
 //! The fuzz harness inside `cargo test`: a short fixed-seed pass of each target, the replay of every
 //! regression input, and (ignored) the replay of the inputs still waiting for a fix.
 //!
+//! Saved inputs are replayed by the `eis-fuzz replay` binary in a child process each, so that an
+//! abort or a hang fails one input instead of the whole test run.
+//!
 //! A short pass fails on any failure that is not a known issue of its target (see
 //! `Target::known_issues` and `fuzz/regressions/<target>/pending/`); known ones are printed. The
 //! numerics pass skips the regions that hang today (see `NumericsTarget::avoid_hangs`).
 
 use eis_fuzz::engine::{Config, Outcome, Report, Target, fuzz, watch_for_hangs};
-use eis_fuzz::regress::{folder, replay};
+use eis_fuzz::regress::{folder, inputs};
 use eis_fuzz::targets::{CircuitTarget, NumericsTarget, ReaderTarget};
-use std::time::Duration;
+use std::path::Path;
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
 
 /// The seed of the short passes (any fixed value; changing it explores other inputs).
 const SEED: u64 = 0x00E1_5F0A;
@@ -58,53 +63,85 @@ fn numerics_short_pass() {
     short_pass(&NumericsTarget::default(), 800);
 }
 
-fn check_fixed<T>(target: &T)
-where
-    T: Target + Clone + Send + 'static,
-    T::Truth: Send + 'static,
-{
-    let (n, failing) = replay(target, false, Duration::from_secs(60));
-    println!("{}: {n} regression inputs replayed", target.name());
-    assert!(
-        failing.is_empty(),
-        "regression inputs of {} that fail again: {failing:#?}",
-        folder(target.name(), false).display()
-    );
+/// Replays one saved input in a child process (`eis-fuzz replay`), so that an abort (stack
+/// overflow) or a hang fails this input alone; a child still running after `limit` is killed.
+fn replay_in_child(target: &str, path: &Path, limit: Duration) -> Result<(), String> {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_eis-fuzz"))
+        .arg("replay")
+        .arg(target)
+        .arg(path)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .map_err(|e| format!("cannot start eis-fuzz: {e}"))?;
+    let start = Instant::now();
+    loop {
+        match child.try_wait() {
+            Ok(Some(_)) => break,
+            Ok(None) if start.elapsed() > limit => {
+                let _ = child.kill();
+                let _ = child.wait();
+                return Err(format!("still running after {} s", limit.as_secs()));
+            }
+            Ok(None) => std::thread::sleep(Duration::from_millis(20)),
+            Err(e) => return Err(e.to_string()),
+        }
+    }
+    let out = child
+        .wait_with_output()
+        .map_err(|e| format!("cannot read the output: {e}"))?;
+    if out.status.success() {
+        Ok(())
+    } else {
+        let text = String::from_utf8_lossy(&out.stdout).to_string()
+            + &String::from_utf8_lossy(&out.stderr);
+        let last: Vec<&str> = text.lines().rev().take(2).collect();
+        Err(format!("{}: {}", out.status, last.join(" / ")))
+    }
+}
+
+/// Replays a folder; returns how many inputs it holds and the failures.
+fn replay_folder(target: &str, pending: bool, limit: Duration) -> (usize, Vec<String>) {
+    let files = inputs(&folder(target, pending));
+    let failing = files
+        .iter()
+        .filter_map(|p| {
+            replay_in_child(target, p, limit)
+                .err()
+                .map(|e| format!("{}: {e}", p.display()))
+        })
+        .collect();
+    (files.len(), failing)
 }
 
 #[test]
 fn regressions_pass() {
-    check_fixed(&CircuitTarget);
-    check_fixed(&ReaderTarget);
-    check_fixed(&NumericsTarget { avoid_hangs: false });
+    for target in ["circuit", "reader", "numerics"] {
+        let (n, failing) = replay_folder(target, false, Duration::from_secs(120));
+        println!("{target}: {n} regression inputs replayed");
+        assert!(
+            failing.is_empty(),
+            "regression inputs that fail again: {failing:#?}"
+        );
+    }
 }
 
-fn check_pending<T>(target: &T) -> Vec<String>
-where
-    T: Target + Clone + Send + 'static,
-    T::Truth: Send + 'static,
-{
-    let (n, failing) = replay(target, true, Duration::from_secs(20));
-    println!(
-        "{}: {n} pending inputs, {} still failing",
-        target.name(),
-        failing.len()
-    );
-    failing
-        .into_iter()
-        .map(|(p, o)| format!("{}: {}", p.display(), o.summary()))
-        .collect()
-}
-
-/// The inputs of `pending/` folders, which fail on this branch: run with `--ignored` after a fix,
-/// and move each input that passes to its target's regression folder.
+/// The inputs of the `pending/` folders, which fail on this branch: run with `--ignored` after a
+/// fix, and move each input that passes (with its `.txt` and `.truth` files) up to its target's
+/// regression folder.
 #[test]
 #[ignore = "inputs waiting for fixes elsewhere; run with --ignored to see which still fail"]
 fn pending_inputs_pass() {
-    let mut failing = check_pending(&CircuitTarget);
-    failing.extend(check_pending(&ReaderTarget));
-    failing.extend(check_pending(&NumericsTarget { avoid_hangs: false }));
-    assert!(failing.is_empty(), "still failing: {failing:#?}");
+    let mut all = Vec::new();
+    for target in ["circuit", "reader", "numerics"] {
+        let (n, failing) = replay_folder(target, true, Duration::from_secs(20));
+        println!(
+            "{target}: {n} pending inputs, {} still failing",
+            failing.len()
+        );
+        all.extend(failing);
+    }
+    assert!(all.is_empty(), "still failing: {all:#?}");
 }
 
 /// The engine on a target made to fail: a panic and an oracle failure are caught, told apart,

@@ -76,6 +76,14 @@ const KNOWN: &[KnownIssue] = &[
         name: "kk-mu-not-finite",
         patterns: &["non-finite output: kk statistics", "statistics[0]"],
     },
+    KnownIssue {
+        name: "fit-chi-square-infinite",
+        patterns: &["non-finite output: fit chi-square"],
+    },
+    KnownIssue {
+        name: "drt-peak-not-finite",
+        patterns: &["non-finite output: drt peaks"],
+    },
 ];
 
 /// Most points read from one input.
