@@ -84,6 +84,14 @@ const KNOWN: &[KnownIssue] = &[
         name: "drt-peak-not-finite",
         patterns: &["non-finite output: drt peaks"],
     },
+    KnownIssue {
+        name: "drt-residual-not-finite",
+        patterns: &["non-finite output: drt residuals"],
+    },
+    KnownIssue {
+        name: "kk-residual-not-finite",
+        patterns: &["non-finite output: kk residuals"],
+    },
 ];
 
 /// Most points read from one input.
