@@ -1,0 +1,229 @@
+//! `eis-fuzz`: runs the fuzz targets from the command line.
+//!
+//! ```text
+//! eis-fuzz <circuit|reader|numerics|all> [--seconds S] [--iterations N] [--seed N] [--save DIR]
+//!          [--max-failures N] [--slow S] [--hang S] [--all-regions] [--quiet]
+//! eis-fuzz replay <circuit|reader|numerics> FILE...
+//! ```
+
+use eis_fuzz::engine::{Config, Report, Target, escape, fuzz};
+use eis_fuzz::regress::replay_file;
+use eis_fuzz::targets::{CircuitTarget, NumericsTarget, ReaderTarget};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+use std::time::Duration;
+
+const USAGE: &str = "usage: eis-fuzz <circuit|reader|numerics|all> [--seconds S] [--iterations N] \
+[--seed N] [--save DIR] [--max-failures N] [--slow S] [--hang S] [--all-regions] [--quiet]
+       eis-fuzz replay <circuit|reader|numerics> FILE...
+
+Runs each target on generated and mutated inputs (seeded, so a run can be repeated), prints
+executions, executions per second and each distinct failure with its minimised input, and saves
+the failing inputs under DIR/<target>/ (default target/eis-fuzz). An execution longer than --slow
+seconds (default 10) is a failure; one longer than --hang seconds (default 60) is written to
+DIR/<target>/hang and ends the run with status 3. Failures that match a known issue (waiting for a
+fix, see fuzz/regressions/<target>/pending/) are reported apart; exit status 1 if anything new
+failed. The numerics target skips Kramers-Kronig and DRT where 2*pi*f overflows (a known hang)
+unless --all-regions is given.
+Without --seconds or --iterations a target runs 1000 executions.";
+
+struct Args {
+    targets: Vec<String>,
+    hang: Duration,
+    all_regions: bool,
+    config: Config,
+    save: PathBuf,
+}
+
+fn parse_args(args: &[String]) -> Result<Args, String> {
+    let mut targets = Vec::new();
+    let mut config = Config::new().with_progress(Duration::from_secs(30));
+    let mut save = PathBuf::from("target/eis-fuzz");
+    let mut hang = Duration::from_secs(60);
+    let mut all_regions = false;
+    let mut it = args.iter();
+    while let Some(a) = it.next() {
+        let mut value = |name: &str| {
+            it.next()
+                .cloned()
+                .ok_or_else(|| format!("{name} needs a value"))
+        };
+        match a.as_str() {
+            "--seconds" => {
+                let v = value(a)?;
+                let s: f64 = v
+                    .parse()
+                    .ok()
+                    .filter(|s: &f64| s.is_finite() && *s > 0.0)
+                    .ok_or_else(|| format!("--seconds: `{v}` is not a positive number"))?;
+                config = config.with_duration(Duration::from_secs_f64(s));
+            }
+            "--iterations" => {
+                let v = value(a)?;
+                let n = v
+                    .parse()
+                    .map_err(|_| format!("--iterations: `{v}` is not a whole number"))?;
+                config = config.with_iterations(n);
+            }
+            "--seed" => {
+                let v = value(a)?;
+                let n = v
+                    .parse()
+                    .map_err(|_| format!("--seed: `{v}` is not a whole number"))?;
+                config = config.with_seed(n);
+            }
+            "--max-failures" => {
+                let v = value(a)?;
+                let n = v
+                    .parse()
+                    .map_err(|_| format!("--max-failures: `{v}` is not a whole number"))?;
+                config = config.with_max_failures(n);
+            }
+            "--slow" => {
+                let v = value(a)?;
+                let s: f64 = v
+                    .parse()
+                    .ok()
+                    .filter(|s: &f64| s.is_finite() && *s > 0.0)
+                    .ok_or_else(|| format!("--slow: `{v}` is not a positive number"))?;
+                config = config.with_slow(Duration::from_secs_f64(s));
+            }
+            "--hang" => {
+                let v = value(a)?;
+                let s: f64 = v
+                    .parse()
+                    .ok()
+                    .filter(|s: &f64| s.is_finite() && *s > 0.0)
+                    .ok_or_else(|| format!("--hang: `{v}` is not a positive number"))?;
+                hang = Duration::from_secs_f64(s);
+            }
+            "--save" => save = PathBuf::from(value(a)?),
+            "--quiet" => config.progress = None,
+            "--all-regions" => all_regions = true,
+            "-h" | "--help" => return Err(String::new()),
+            t if !t.starts_with('-') => targets.push(t.to_owned()),
+            other => return Err(format!("unknown option `{other}`")),
+        }
+    }
+    if targets.is_empty() {
+        return Err("no target given".to_owned());
+    }
+    Ok(Args {
+        targets,
+        hang,
+        all_regions,
+        config: config.with_verbose(true),
+        save,
+    })
+}
+
+fn save<T: Target>(target: &T, report: &Report, dir: &Path, seed: u64) {
+    let dir = dir.join(target.name());
+    if report.failures.is_empty() {
+        return;
+    }
+    if let Err(e) = std::fs::create_dir_all(&dir) {
+        eprintln!("cannot create {}: {e}", dir.display());
+        return;
+    }
+    for (k, f) in report.failures.iter().enumerate() {
+        let path = dir.join(format!("seed{seed}-{}", k + 1));
+        let mut note = f.outcome.summary();
+        note.push('\n');
+        let mut written = std::fs::write(&path, &f.input)
+            .and_then(|()| std::fs::write(path.with_extension("txt"), note));
+        if let Some(t) = &f.truth {
+            written = written.and_then(|()| std::fs::write(path.with_extension("truth"), t));
+        }
+        match written {
+            Ok(()) => eprintln!("  saved {}", path.display()),
+            Err(e) => eprintln!("cannot write {}: {e}", path.display()),
+        }
+    }
+}
+
+fn run<T: Target>(target: &T, args: &Args) -> bool {
+    eprintln!("fuzzing {} (seed {})", target.name(), args.config.seed);
+    let report = fuzz(target, &args.config);
+    println!("{}", report.summary());
+    for f in &report.failures {
+        match f.known {
+            Some(k) => println!("  known ({k}): {}", f.outcome.summary()),
+            None => println!("  NEW: {}", f.outcome.summary()),
+        }
+        println!(
+            "    minimised input ({} bytes, {} as found): {}",
+            f.input.len(),
+            f.original_len,
+            escape(&f.input)
+        );
+    }
+    save(target, &report, &args.save, args.config.seed);
+    report.new_failures().count() == 0
+}
+
+fn replay<T>(target: &T, files: &[String]) -> bool
+where
+    T: Target + Clone + Send + 'static,
+    T::Truth: Send + 'static,
+{
+    let mut ok = true;
+    for file in files {
+        let outcome = replay_file(target, Path::new(file), Duration::from_secs(60));
+        println!("{file}: {}", outcome.summary());
+        ok &= outcome.key().is_none();
+    }
+    ok
+}
+
+fn main() -> ExitCode {
+    let argv: Vec<String> = std::env::args().skip(1).collect();
+    if argv.first().map(String::as_str) == Some("replay") {
+        let ok = match argv.get(1).map(String::as_str) {
+            Some("circuit") => replay(&CircuitTarget, &argv[2..]),
+            Some("reader") => replay(&ReaderTarget, &argv[2..]),
+            Some("numerics") => replay(&NumericsTarget { avoid_hangs: false }, &argv[2..]),
+            _ => {
+                eprintln!("{USAGE}");
+                return ExitCode::from(2);
+            }
+        };
+        return if ok {
+            ExitCode::SUCCESS
+        } else {
+            ExitCode::FAILURE
+        };
+    }
+    let args = match parse_args(&argv) {
+        Ok(a) => a,
+        Err(e) => {
+            if !e.is_empty() {
+                eprintln!("eis-fuzz: {e}");
+            }
+            eprintln!("{USAGE}");
+            return ExitCode::from(2);
+        }
+    };
+    eis_fuzz::engine::watch_for_hangs(args.hang, args.save.clone());
+    let numerics = NumericsTarget {
+        avoid_hangs: !args.all_regions,
+    };
+    let mut ok = true;
+    for t in args.targets.clone() {
+        ok &= match t.as_str() {
+            "circuit" => run(&CircuitTarget, &args),
+            "reader" => run(&ReaderTarget, &args),
+            "numerics" => run(&numerics, &args),
+            "all" => run(&CircuitTarget, &args) & run(&ReaderTarget, &args) & run(&numerics, &args),
+            other => {
+                eprintln!("eis-fuzz: unknown target `{other}`\n{USAGE}");
+                return ExitCode::from(2);
+            }
+        };
+    }
+    if ok {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::FAILURE
+    }
+}
