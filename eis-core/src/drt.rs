@@ -328,7 +328,8 @@ pub enum DrtErrorKind {
         /// Number of impedances.
         impedances: usize,
     },
-    /// A frequency that is NaN, infinite, zero or negative.
+    /// A frequency that is NaN, infinite, zero or negative, or so large or small that 2πf or 1/(2πf)
+    /// is not finite.
     BadFrequency {
         /// Its point number, from 1.
         point: usize,
@@ -406,7 +407,8 @@ impl fmt::Display for DrtError {
             BadFrequency { point, value } => {
                 write!(
                     f,
-                    "point {point}: frequency {value} Hz is not a positive finite number"
+                    "point {point}: frequency {value} Hz is not usable (it must be positive, with 2πf \
+                     and 1/(2πf) finite)"
                 )
             }
             NonFiniteImpedance { point } => {
@@ -617,8 +619,11 @@ impl DrtSetup {
             }));
         }
         let omega: Vec<f64> = frequency_hz.iter().map(|&f| 2.0 * PI * f).collect();
-        // 2πf can overflow for f near f64::MAX.
-        if let Some(i) = omega.iter().position(|w| !w.is_finite()) {
+        // 2πf can overflow for f near f64::MAX, and the time constant 1/(2πf) for subnormal f.
+        if let Some(i) = omega
+            .iter()
+            .position(|w| !(w.is_finite() && w.recip().is_finite()))
+        {
             return Err(DrtError::new(DrtErrorKind::BadFrequency {
                 point: i + 1,
                 value: frequency_hz[i],
@@ -1012,6 +1017,12 @@ impl DrtSetup {
             residual_imag.push(ri);
         }
         let residual_rms = (sum_sq / (2 * n) as f64).sqrt();
+        // Impedances near the largest float overflow in the differences above.
+        if !residual_rms.is_finite() {
+            return Err(DrtError::new(DrtErrorKind::Numerical(
+                "the residuals overflow: the impedances are too large for the DRT",
+            )));
+        }
         if residual_rms > 0.05 {
             warnings.push(format!(
                 "the DRT model fits poorly (rms residual {:.1} % of |Z|); a capacitive or diffusion \
@@ -1691,7 +1702,7 @@ mod tests {
         s.frequency_hz[3] = -1.0;
         assert_eq!(
             drt(&s, DrtOptions::default()).unwrap_err().to_string(),
-            "point 4: frequency -1 Hz is not a positive finite number"
+            "point 4: frequency -1 Hz is not usable (it must be positive, with 2πf and 1/(2πf) finite)"
         );
     }
 

@@ -320,7 +320,11 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         }
     }
     let w: Vec<f64> = s.frequency_hz.iter().map(|&f| angular(f)).collect();
-    if let Some(i) = w.iter().position(|w| !(w.is_finite() && *w > 0.0)) {
+    // 2πf overflows for f near f64::MAX, and the time constants 1/(2πf) for subnormal f.
+    if let Some(i) = w
+        .iter()
+        .position(|w| !(w.is_finite() && *w > 0.0 && w.recip().is_finite()))
+    {
         return Err(KkError::BadPoint(s.point_ref(i)));
     }
     // Solve on data divided by their typical modulus (geometric mean of |Zᵢ|), so that nothing

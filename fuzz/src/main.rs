@@ -2,7 +2,7 @@
 //!
 //! ```text
 //! eis-fuzz <circuit|reader|numerics|all> [--seconds S] [--iterations N] [--seed N] [--save DIR]
-//!          [--max-failures N] [--slow S] [--hang S] [--all-regions] [--quiet]
+//!          [--max-failures N] [--slow S] [--hang S] [--quiet]
 //! eis-fuzz replay <circuit|reader|numerics> FILE...
 //! ```
 
@@ -14,7 +14,7 @@ use std::process::ExitCode;
 use std::time::Duration;
 
 const USAGE: &str = "usage: eis-fuzz <circuit|reader|numerics|all> [--seconds S] [--iterations N] \
-[--seed N] [--save DIR] [--max-failures N] [--slow S] [--hang S] [--all-regions] [--quiet]
+[--seed N] [--save DIR] [--max-failures N] [--slow S] [--hang S] [--quiet]
        eis-fuzz replay <circuit|reader|numerics> FILE...
 
 Runs each target on generated and mutated inputs (seeded, so a run can be repeated), prints
@@ -23,14 +23,12 @@ the failing inputs under DIR/<target>/ (default target/eis-fuzz). An execution l
 seconds (default 10) is a failure; one longer than --hang seconds (default 60) is written to
 DIR/<target>/hang and ends the run with status 3. Failures that match a known issue (waiting for a
 fix, see fuzz/regressions/<target>/pending/) are reported apart; exit status 1 if anything new
-failed. The numerics target skips Kramers-Kronig and DRT where 2*pi*f overflows (a known hang)
-unless --all-regions is given.
+failed.
 Without --seconds or --iterations a target runs 1000 executions.";
 
 struct Args {
     targets: Vec<String>,
     hang: Duration,
-    all_regions: bool,
     config: Config,
     save: PathBuf,
 }
@@ -40,7 +38,6 @@ fn parse_args(args: &[String]) -> Result<Args, String> {
     let mut config = Config::new().with_progress(Duration::from_secs(30));
     let mut save = PathBuf::from("target/eis-fuzz");
     let mut hang = Duration::from_secs(60);
-    let mut all_regions = false;
     let mut it = args.iter();
     while let Some(a) = it.next() {
         let mut value = |name: &str| {
@@ -99,7 +96,6 @@ fn parse_args(args: &[String]) -> Result<Args, String> {
             }
             "--save" => save = PathBuf::from(value(a)?),
             "--quiet" => config.progress = None,
-            "--all-regions" => all_regions = true,
             "-h" | "--help" => return Err(String::new()),
             t if !t.starts_with('-') => targets.push(t.to_owned()),
             other => return Err(format!("unknown option `{other}`")),
@@ -111,7 +107,6 @@ fn parse_args(args: &[String]) -> Result<Args, String> {
     Ok(Args {
         targets,
         hang,
-        all_regions,
         config: config.with_verbose(true),
         save,
     })
@@ -182,7 +177,7 @@ fn main() -> ExitCode {
         let ok = match argv.get(1).map(String::as_str) {
             Some("circuit") => replay(&CircuitTarget, &argv[2..]),
             Some("reader") => replay(&ReaderTarget, &argv[2..]),
-            Some("numerics") => replay(&NumericsTarget { avoid_hangs: false }, &argv[2..]),
+            Some("numerics") => replay(&NumericsTarget, &argv[2..]),
             _ => {
                 eprintln!("{USAGE}");
                 return ExitCode::from(2);
@@ -205,9 +200,7 @@ fn main() -> ExitCode {
         }
     };
     eis_fuzz::engine::watch_for_hangs(args.hang, args.save.clone());
-    let numerics = NumericsTarget {
-        avoid_hangs: !args.all_regions,
-    };
+    let numerics = NumericsTarget;
     let mut ok = true;
     for t in args.targets.clone() {
         ok &= match t.as_str() {

@@ -5,8 +5,7 @@
 //! abort or a hang fails one input instead of the whole test run.
 //!
 //! A short pass fails on any failure that is not a known issue of its target (see
-//! `Target::known_issues` and `fuzz/regressions/<target>/pending/`); known ones are printed. The
-//! numerics pass skips the regions that hang today (see `NumericsTarget::avoid_hangs`).
+//! `Target::known_issues` and `fuzz/regressions/<target>/pending/`); known ones are printed.
 
 use eis_fuzz::engine::{Config, Outcome, Report, Target, fuzz, watch_for_hangs};
 use eis_fuzz::regress::{folder, inputs};
@@ -60,7 +59,7 @@ fn reader_short_pass() {
 
 #[test]
 fn numerics_short_pass() {
-    short_pass(&NumericsTarget::default(), 800);
+    short_pass(&NumericsTarget, 800);
 }
 
 /// Replays one saved input in a child process (`eis-fuzz replay`), so that an abort (stack

@@ -219,6 +219,12 @@ pub enum FitError {
     /// σ weighting without usable σ values.
     #[error("sigma weighting needs a positive standard deviation at every point")]
     MissingSigma,
+    /// No start gave a finite χ²: the model cannot be evaluated on these data (impedances or
+    /// frequencies near the ends of the floating-point range, or points the weights cannot scale).
+    #[error(
+        "no start gives a finite chi-square on these data: check for extreme impedances or frequencies"
+    )]
+    NoFiniteStart,
     /// A warm start of the wrong length.
     #[error("the warm start has {got} values but the circuit has {want} parameters")]
     WarmStartLength {
@@ -502,7 +508,16 @@ pub fn fit_seeded(
     warm: Option<&[f64]>,
     seed: Option<&crate::drt::DrtResult>,
 ) -> Result<FitResult, FitError> {
-    fit_impl(circuit, spectrum, settings, warm, seed, false)
+    finite(fit_impl(circuit, spectrum, settings, warm, seed, false)?)
+}
+
+/// A fit whose χ² is not finite is no result: every number in it would be meaningless.
+fn finite(r: FitResult) -> Result<FitResult, FitError> {
+    if r.chi_square.is_finite() {
+        Ok(r)
+    } else {
+        Err(FitError::NoFiniteStart)
+    }
 }
 
 /// Fits `circuit` to `spectrum` by one Levenberg–Marquardt run from `start` (values of every parameter,
@@ -520,7 +535,14 @@ pub fn fit_from(
     settings: &FitSettings,
     start: &[f64],
 ) -> Result<FitResult, FitError> {
-    fit_impl(circuit, spectrum, settings, Some(start), None, true)
+    finite(fit_impl(
+        circuit,
+        spectrum,
+        settings,
+        Some(start),
+        None,
+        true,
+    )?)
 }
 
 /// [`fit`], or with `single` the warm-start run alone ([`fit_from`]).

@@ -355,21 +355,28 @@ fn analyse(raw: &str) -> Cell {
         }
     }
     // A unit after a slash or an underscore (`f/Hz`, `omega/rad/s`, `frequency_hz`): the first whose
-    // remainder is a unit.
+    // remainder is a unit. When the name before it is no role (`Frequency rad` of `Frequency rad/s`),
+    // a unit after the last blank is tried before settling for it.
+    let mut slashed = None;
     for (i, _) in raw.match_indices(['/', '_']) {
         let unit = parse_unit(&raw[i + 1..]);
         if unit.is_some() {
-            return whole(Some(raw[i + 1..].trim().to_owned()), &raw[..i], unit);
+            let cell = whole(Some(raw[i + 1..].trim().to_owned()), &raw[..i], unit);
+            if cell.recognised.is_some() {
+                return cell;
+            }
+            slashed = Some(cell);
+            break;
         }
     }
-    // A unit after the last blank (`Z' Ohm`).
+    // A unit after the last blank (`Z' Ohm`, `Frequency rad/s`).
     if let Some(i) = raw.rfind(' ') {
         let unit = parse_unit(&raw[i + 1..]);
         if unit.is_some() && recognise(&raw[..i], unit).is_some() {
             return whole(Some(raw[i + 1..].to_owned()), &raw[..i], unit);
         }
     }
-    whole(None, raw, None)
+    slashed.unwrap_or_else(|| whole(None, raw, None))
 }
 
 /// A column in use and the factor from its unit to SI.
