@@ -144,3 +144,32 @@ fn check_passes_ordinary_noise_with_the_default_limits() {
     )
     .expect_code(1);
 }
+
+/// Issue 13: a spectrum of tens of thousands of points got no word on its cost; now it gets a note
+/// with the advice to crop or average, and the check still runs (an RC arc, Z = R0 + R/(1 + jωRC):
+/// consistent by construction, common practice).
+#[test]
+fn a_very_long_spectrum_gets_a_note_on_its_cost() {
+    let dir = scratch("check-long");
+    let n = 25_000;
+    let mut text = String::from("frequency_hz,z_real_ohm,z_imag_ohm\n");
+    for i in 0..n {
+        let f = 1e5 * 10f64.powf(-7.0 * i as f64 / (n - 1) as f64);
+        let wt = 2.0 * std::f64::consts::PI * f * 1e-3;
+        let d = 1.0 + wt * wt;
+        text.push_str(&format!("{f},{},{}\n", 1.0 + 10.0 / d, -10.0 * wt / d));
+    }
+    std::fs::write(dir.join("long.csv"), text).unwrap();
+    let run = eis(&dir, &["check", "long.csv"]);
+    assert!(
+        run.stderr
+            .contains("long.csv, spectrum 1: note: 25000 points"),
+        "{}",
+        run.stderr
+    );
+    assert!(
+        run.stdout.starts_with("long.csv #1: valid"),
+        "{}",
+        run.stdout
+    );
+}

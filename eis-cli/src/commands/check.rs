@@ -239,6 +239,7 @@ pub fn run(args: Args) -> Outcome {
                 eprintln!("{w}");
             }
             let s = imported.spectrum;
+            crate::io::note_size(&file, s.meta.spectrum, s.len());
             match kramers_kronig(&s, &kk) {
                 Err(e) => {
                     all_valid = false;

@@ -169,7 +169,7 @@ pub enum FitError {
         impedances: usize,
     },
     /// A frequency or impedance is NaN, infinite, or a frequency is not positive.
-    #[error("{point} (frequency {frequency} Hz) is not a finite value with positive frequency")]
+    #[error("{point} at {frequency} Hz is not a finite value with positive frequency")]
     BadPoint {
         /// The point, numbered from 1, with its source line when known.
         point: PointRef,
@@ -194,7 +194,7 @@ pub enum FitError {
     /// An impedance outside [`MODULUS_RANGE`]: the analytic derivatives of the elements (1/(ωC²) and
     /// the like) would overflow or underflow, and the fit would stop short without saying so.
     #[error(
-        "{point} (frequency {frequency} Hz) has |Z| = {modulus:e} Ohm, outside the range the fit handles (1e-100 to 1e100 Ohm); express the data in other units"
+        "{point} at {frequency} Hz has |Z| = {modulus:e} Ohm, outside the range the fit handles (1e-100 to 1e100 Ohm); express the data in other units"
     )]
     ModulusOutOfRange {
         /// The point, numbered from 1, with its source line when known.
