@@ -780,7 +780,8 @@ pub(crate) fn apply_override(circuit: &mut Circuit, arg: &str) -> Result<(), Cir
         fixed: p.fixed,
         range_span: (p.lower.is_some() || p.upper.is_some()).then(|| whole.clone()),
     };
-    let rest = split + usize::from(split < arg.len());
+    // Past the separator, which may be a multi-byte blank (a no-break space).
+    let rest = split + arg[split..].chars().next().map_or(0, char::len_utf8);
     let items: Vec<_> = words(arg, rest..arg.len())
         .into_iter()
         .filter(|(w, _)| w != ",")
