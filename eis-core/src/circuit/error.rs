@@ -326,6 +326,8 @@ fn window(line: &str, pad: usize, width: usize) -> (String, usize, usize) {
     (shown, pad, width)
 }
 
+impl std::error::Error for CircuitError {}
+
 #[cfg(test)]
 mod tests {
     use crate::circuit::parse;
@@ -347,4 +349,3 @@ mod tests {
     }
 }
 
-impl std::error::Error for CircuitError {}
