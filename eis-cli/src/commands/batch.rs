@@ -1,7 +1,7 @@
 //! `eis batch`: check and fit every spectrum of a campaign.
 
 use crate::commands::fit::WeightArg;
-use crate::io::{Failure, Outcome, bad, load_model};
+use crate::io::{Failure, Outcome, bad, load_model, step};
 use anyhow::anyhow;
 use eis_core::campaign::{BatchError, BatchSettings, Resume, Stage, run_batch};
 use eis_core::fit::{FitSettings, Weighting};
@@ -195,16 +195,6 @@ fn write_trend_plots(results: &Path, dir: &Path) -> Result<(), Failure> {
         crate::commands::plot::write_plot(&trend_plot(&report, &q), &path, None, (1000, 620), &[])?;
     }
     Ok(())
-}
-
-/// A spinner for a step that can take more than a second, on a terminal only.
-fn step(what: &'static str) -> ProgressBar {
-    if !std::io::stderr().is_terminal() {
-        return ProgressBar::hidden();
-    }
-    let s = ProgressBar::new_spinner().with_message(what);
-    s.enable_steady_tick(std::time::Duration::from_millis(120));
-    s
 }
 
 /// Runs the command.

@@ -140,7 +140,10 @@ pub fn run(args: Args) -> Outcome {
         })
         .with_inductance(args.inductance)
         .with_peak_threshold(args.peak_threshold);
-    let result = drt(spectrum, options).map_err(|e| {
+    let spinner = crate::io::step_for(spectrum.len(), "computing the DRT");
+    let result = drt(spectrum, options);
+    spinner.finish_and_clear();
+    let result = result.map_err(|e| {
         let context = format!("DRT of {}", args.input.display());
         if e.is_input_error() {
             Failure::BadInput(anyhow!(e).context(context))

@@ -143,7 +143,10 @@ pub fn run(args: Args) -> Outcome {
     let settings = FitSettings::default()
         .with_weighting(args.weight.into())
         .with_starts(args.starts as usize);
-    let result = fit(&circuit, &spectrum, &settings, warm.as_deref()).map_err(|e| match e {
+    let spinner = crate::io::step_for(spectrum.len(), "fitting");
+    let result = fit(&circuit, &spectrum, &settings, warm.as_deref());
+    spinner.finish_and_clear();
+    let result = result.map_err(|e| match e {
         FitError::MissingSigma => bad(anyhow!("{}: {e}", args.input.display())),
         e => bad(anyhow!("cannot fit {}: {e}", args.input.display())),
     })?;
@@ -165,7 +168,11 @@ fn run_auto(args: Args) -> Outcome {
     let spectrum = pick_spectrum(&args)?;
     let options = SelectOptions::default();
     let options = options.with_fit(options.fit.with_weighting(args.weight.into()));
-    let selection = select(&spectrum, &options).map_err(|e| match e {
+    // Up to 18 candidate circuits are fitted: seconds on long spectra.
+    let spinner = crate::io::step("choosing a model");
+    let selection = select(&spectrum, &options);
+    spinner.finish_and_clear();
+    let selection = selection.map_err(|e| match e {
         SelectError::Fit(FitError::MissingSigma) => bad(anyhow!(
             "{}: {}",
             args.input.display(),

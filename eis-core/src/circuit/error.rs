@@ -348,4 +348,3 @@ mod tests {
         assert!(lines[1].contains("column 40006"), "{}", lines[1]);
     }
 }
-
