@@ -83,11 +83,16 @@ pub enum ImagSign {
     Negated,
 }
 
+/// Largest |phase| still read as radians when the unit must be guessed: π/2 with 1 % to spare for
+/// values rounded when printed (π/2 to four digits is 1.571).
+const RADIANS_AT_MOST: f64 = 1.01 * std::f64::consts::FRAC_PI_2;
+
 /// The unit of a phase column.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum PhaseUnit {
-    /// From the header unit; if none is given, degrees when any |value| exceeds π/2, radians otherwise
-    /// (with a warning).
+    /// From the header unit; if none is given, degrees when any |value| exceeds π/2 by more than 1 %
+    /// (so that a phase of π/2 printed as `1.571` still reads as radians), radians otherwise (with a
+    /// warning).
     #[default]
     Auto,
     /// Degrees.
@@ -496,7 +501,7 @@ impl<R: BufRead> SpectrumReader<R> {
             if let Some(x) = value.filter(|x| x.is_finite()) {
                 finite += 1;
                 positive += usize::from(x > 0.0);
-                big |= x.abs() > std::f64::consts::FRAC_PI_2;
+                big |= x.abs() > RADIANS_AT_MOST;
             }
         }
         let first_line = self.queue.front().map(|(n, _)| *n);

@@ -906,3 +906,16 @@ fn dropping_most_rows_of_a_large_file_is_linear() {
         "big.csv: warning: dropped 94000 rows: line 2: impedance is zero; line 3: impedance is zero; line 4: impedance is zero; and 93997 more"
     );
 }
+
+/// Issue 13 (found by the reader fuzz target): a phase in radians with no unit, reaching π/2 and
+/// printed to four digits (`1.571`, just above π/2 = 1.5708), was guessed to be in degrees. A pure
+/// capacitance has a phase of −π/2 and a pure inductance +π/2 (common practice).
+#[test]
+fn a_phase_of_pi_over_two_rounded_up_still_reads_as_radians() {
+    let text = "Freq,Mag,Theta\n1000,2,1.571\n100,2,0.5\n10,2,-0.3\n1,2,-1.571\n";
+    let read = read_bytes("phase.csv", text.as_bytes(), &ReaderOptions::default()).unwrap();
+    let s = &read[0].spectrum;
+    // |Z| = 2 at phase 1.571 rad: almost purely imaginary, not 2·cos(1.571°).
+    let top = s.z.iter().map(|z| z.im).fold(f64::MIN, f64::max);
+    assert!(top > 1.99, "{:?}", s.z);
+}
