@@ -178,3 +178,20 @@ fn fit_and_check_name_a_bad_point_alike_with_its_line() {
         assert!(msg.starts_with("point 4 (line 5) "), "{msg}");
     }
 }
+
+/// A parameter at its bound is named once with the bound and its unit, not the value beside a unit
+/// that reads like a second value ("Q1.n = 1 1 sits at its bound 1" before). Data: an ideal RC arc
+/// (exponent 1) fitted with a CPE whose exponent may not exceed 0.8.
+#[test]
+fn a_parameter_at_its_bound_is_named_once() {
+    let data = spectrum();
+    let c = parse("R0 + Rct|Qdl{n=0.7 0.5..0.8}").unwrap();
+    let r = fit(&c, &data, &FitSettings::default(), None).unwrap();
+    assert!(
+        r.warnings
+            .iter()
+            .any(|w| w == "Qdl.n sits at its upper bound 0.8: the optimum may lie beyond it"),
+        "{:?}",
+        r.warnings
+    );
+}

@@ -221,15 +221,19 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         let name = &c.params[i].name;
         if at_bound[i] {
             let (lo, hi) = c.bounds(i);
-            let bound = if (values[i] - lo).abs() <= (hi - values[i]).abs() {
-                lo
+            let (side, bound) = if (values[i] - lo).abs() <= (hi - values[i]).abs() {
+                ("lower", lo)
             } else {
-                hi
+                ("upper", hi)
+            };
+            // The value equals the bound to round-off: print the bound once, with its unit unless
+            // the parameter has none.
+            let unit = match c.unit(i) {
+                "1" | "" => String::new(),
+                u => format!(" {u}"),
             };
             warnings.push(format!(
-                "{name} = {} {} sits at its bound {}: the optimum may lie beyond it",
-                format_si(values[i]),
-                c.unit(i),
+                "{name} sits at its {side} bound {}{unit}: the optimum may lie beyond it",
                 format_si(bound)
             ));
         }
