@@ -198,6 +198,27 @@ const EXPONENT: ParamInfo = ParamInfo {
     description: "CPE exponent (1 = ideal capacitor, 0 = resistor)",
 };
 
+/// Parameters shared by the porous-electrode lines: the ionic rail and the interface, all totals for
+/// the whole electrode.
+const PORE_RAIL: ParamInfo = positive(
+    "Rion",
+    "Ohm",
+    1.0,
+    "ionic resistance of the pore electrolyte across the electrode",
+);
+const LINE_RCT: ParamInfo = positive(
+    "Rct",
+    "Ohm",
+    10.0,
+    "charge-transfer resistance of the whole electrode surface",
+);
+const LINE_Q: ParamInfo = positive(
+    "Q",
+    "F s^(n-1)",
+    1e-3,
+    "double-layer CPE coefficient of the whole surface",
+);
+
 /// Every element kind of the language. Symbols are matched longest first by the parser.
 pub static KINDS: &[ElementKind] = &[
     ElementKind {
@@ -312,27 +333,7 @@ pub static KINDS: &[ElementKind] = &[
         symbol: "Pe",
         name: "porous electrode, ionic rail (uniform transmission line)",
         formula: "sqrt(Rion z) coth(sqrt(Rion/z)), z = Rct/(1 + Rct Q (jw)^n)",
-        params: &[
-            positive(
-                "Rion",
-                "Ohm",
-                1.0,
-                "ionic resistance of the pore electrolyte across the electrode",
-            ),
-            positive(
-                "Rct",
-                "Ohm",
-                10.0,
-                "charge-transfer resistance of the whole electrode surface",
-            ),
-            positive(
-                "Q",
-                "F s^(n-1)",
-                1e-3,
-                "double-layer CPE coefficient of the whole surface",
-            ),
-            EXPONENT,
-        ],
+        params: &[PORE_RAIL, LINE_RCT, LINE_Q, EXPONENT],
         impedance: porous::one_rail,
         limit: porous::one_rail_limit,
         capacitive: false,
@@ -343,30 +344,15 @@ pub static KINDS: &[ElementKind] = &[
         formula: "P (1 + 2/(s sinh s)) + M coth(s)/s, P = Rion Rel/(Rion+Rel), \
                   M = (Rion^2+Rel^2)/(Rion+Rel), s = sqrt((Rion+Rel)/z), z = Rct/(1 + Rct Q (jw)^n)",
         params: &[
-            positive(
-                "Rion",
-                "Ohm",
-                1.0,
-                "ionic resistance of the pore electrolyte across the electrode",
-            ),
+            PORE_RAIL,
             positive(
                 "Rel",
                 "Ohm",
                 0.1,
                 "electronic resistance of the solid across the electrode",
             ),
-            positive(
-                "Rct",
-                "Ohm",
-                10.0,
-                "charge-transfer resistance of the whole electrode surface",
-            ),
-            positive(
-                "Q",
-                "F s^(n-1)",
-                1e-3,
-                "double-layer CPE coefficient of the whole surface",
-            ),
+            LINE_RCT,
+            LINE_Q,
             EXPONENT,
         ],
         impedance: porous::two_rails,
