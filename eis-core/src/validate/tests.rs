@@ -11,6 +11,11 @@ use crate::simulate::{Noise, simulate};
 use num_complex::Complex64;
 use std::f64::consts::PI;
 
+/// The error for point `number` (from 1) of a spectrum made here, with no source line.
+fn bad_point(number: usize) -> KkError {
+    KkError::BadPoint(PointRef { number, line: None })
+}
+
 /// Seed of every noisy test spectrum.
 const SEED: u64 = 20240514;
 
@@ -314,10 +319,7 @@ fn bad_inputs_are_errors_not_panics() {
     bad.frequency_hz[1] = 0.0;
     assert_eq!(
         kramers_kronig(&bad, &KkOptions::default()).unwrap_err(),
-        KkError::BadPoint(PointRef {
-            number: 2,
-            line: None
-        })
+        bad_point(2)
     );
     let same = Spectrum::new(vec![1.0; 12], vec![Complex64::new(1.0, 0.0); 12]);
     assert_eq!(
@@ -502,42 +504,18 @@ fn degenerate_spectra_give_reports_or_typed_errors() {
     for bad in [f64::NAN, f64::INFINITY] {
         let mut s = base.clone();
         s.z[4].im = bad;
-        assert_eq!(
-            kramers_kronig(&s, &o).unwrap_err(),
-            KkError::BadPoint(PointRef {
-                number: 5,
-                line: None
-            })
-        );
+        assert_eq!(kramers_kronig(&s, &o).unwrap_err(), bad_point(5));
         let mut s = base.clone();
         s.frequency_hz[6] = bad;
-        assert_eq!(
-            kramers_kronig(&s, &o).unwrap_err(),
-            KkError::BadPoint(PointRef {
-                number: 7,
-                line: None
-            })
-        );
+        assert_eq!(kramers_kronig(&s, &o).unwrap_err(), bad_point(7));
     }
     let mut s = base.clone();
     s.frequency_hz[0] = -1.0;
-    assert_eq!(
-        kramers_kronig(&s, &o).unwrap_err(),
-        KkError::BadPoint(PointRef {
-            number: 1,
-            line: None
-        })
-    );
+    assert_eq!(kramers_kronig(&s, &o).unwrap_err(), bad_point(1));
     // A frequency so large that ω = 2πf overflows.
     let mut s = base.clone();
     s.frequency_hz[0] = f64::MAX;
-    assert_eq!(
-        kramers_kronig(&s, &o).unwrap_err(),
-        KkError::BadPoint(PointRef {
-            number: 1,
-            line: None
-        })
-    );
+    assert_eq!(kramers_kronig(&s, &o).unwrap_err(), bad_point(1));
     let mut s = base.clone();
     s.z.pop();
     assert!(matches!(
