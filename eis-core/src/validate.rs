@@ -201,6 +201,12 @@ pub enum KkError {
     /// All frequencies are equal, so no range of time constants can be spread.
     #[error("all frequencies are equal")]
     NoRange,
+    /// The computation ran out of the range of floating-point numbers: frequencies or impedances that
+    /// span hundreds of decades within one spectrum.
+    #[error(
+        "the check cannot be computed on these data: the frequencies or impedances span too many decades"
+    )]
+    OutOfRange,
 }
 
 /// Which parts of the verdict failed (all false for a valid spectrum).
@@ -440,7 +446,7 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
     });
     // The scaled unknown is 1/(C·scale).
     let capacitance = design.capacitance.then(|| 1.0 / (chosen.x[c] * scale));
-    Ok(KkReport {
+    let report = KkReport {
         valid: !failures.any(),
         failed: KkFailures {
             points: failures.points,
@@ -467,7 +473,38 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         suspect_frequency_range_hz: suspect,
         max_residual_percent: options.max_residual_percent,
         rms_residual_percent: options.rms_residual_percent,
-    })
+    };
+    if report.is_finite() {
+        Ok(report)
+    } else {
+        Err(KkError::OutOfRange)
+    }
+}
+
+impl KkReport {
+    /// Whether every number of the report is finite (false only for data spanning hundreds of
+    /// decades, where the scaled solve leaves the range of f64).
+    fn is_finite(&self) -> bool {
+        let scalars = [
+            self.mu,
+            self.r0,
+            self.residual_rms_percent,
+            self.residual_max_percent,
+            self.residual_scatter_percent,
+            self.residual_systematic_percent,
+            self.runs_z,
+            self.point_limit_percent,
+        ];
+        scalars
+            .iter()
+            .chain(&self.resistances)
+            .chain(&self.time_constants)
+            .chain(&self.residual_re)
+            .chain(&self.residual_im)
+            .chain(self.capacitance.iter())
+            .chain(self.inductance.iter())
+            .all(|v| v.is_finite())
+    }
 }
 
 /// Indices of the lowest and highest frequency.

@@ -156,7 +156,11 @@ fn certified_inverse(ata: &DMatrix<f64>) -> Option<DMatrix<f64>> {
 /// part in them (component above 0.1) are marked undetermined.
 fn eigen_inverse(ata: DMatrix<f64>) -> (DMatrix<f64>, Vec<bool>) {
     let nf = ata.ncols();
-    let eig = ata.symmetric_eigen();
+    // Bounded: the iteration need not end on non-finite or wildly scaled entries; then nothing is
+    // determined.
+    let Some(eig) = ata.try_symmetric_eigen(f64::EPSILON, 10_000) else {
+        return (DMatrix::zeros(nf, nf), vec![true; nf]);
+    };
     let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
     let mut undetermined = vec![false; nf];
     let mut inv = DMatrix::<f64>::zeros(nf, nf);

@@ -41,6 +41,11 @@ pub(super) const PIVOT_FLOOR: f64 = 1e-10;
 /// the cap, mostly in the fallback) take minutes. Spectra of up to 10,000 points keep the SVD.
 pub(super) const SVD_MAX_ROWS: usize = 20_000;
 
+/// Most sweeps of the SVD and eigen iterations (they converge in tens on any sane matrix; unbounded,
+/// they ran for minutes on spectra spanning hundreds of decades). A solve that does not converge gives
+/// the zero solution, which the verdict then rejects.
+const MAX_ITERATIONS: usize = 10_000;
+
 /// Eigenvalues of the scaled Gram matrix at or below this fraction of the largest are dropped by
 /// the Gram fallback (singular values below about 10⁻⁶ of the largest: what the Gram matrix, whose
 /// entries carry rounding of 10⁻¹⁶, can still resolve).
@@ -424,7 +429,11 @@ impl Workspace {
             zero(self);
             return;
         }
-        let eig = g.symmetric_eigen();
+        // Bounded: on badly scaled (subnormal) entries the iteration can take very long.
+        let Some(eig) = g.try_symmetric_eigen(f64::EPSILON, MAX_ITERATIONS) else {
+            zero(self);
+            return;
+        };
         let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
         let mut x = DVector::<f64>::zeros(p);
         for (k, &lambda) in eig.eigenvalues.iter().enumerate() {
@@ -447,7 +456,10 @@ impl Workspace {
             self.sol[..p].iter_mut().for_each(|v| *v = 0.0);
             return;
         }
-        let svd = a.svd(true, true);
+        let Some(svd) = a.try_svd(true, true, f64::EPSILON, MAX_ITERATIONS) else {
+            self.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+            return;
+        };
         let smax = svd.singular_values.max();
         let x = svd
             .solve(&b, 1e-13 * smax)
