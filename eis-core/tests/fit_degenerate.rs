@@ -111,6 +111,9 @@ fn degenerate_spectra_give_results_or_typed_errors() {
                 FitError::BadPoint {
                     point: PointRef { number: 4, .. },
                     ..
+                } | FitError::FrequencyOutOfRange {
+                    point: PointRef { number: 4, .. },
+                    ..
                 }
             ),
             "frequency {bad}"
@@ -194,4 +197,29 @@ fn a_parameter_at_its_bound_is_named_once() {
         "{:?}",
         r.warnings
     );
+}
+
+/// Frequencies hundreds of decades apart (found by the numerics fuzz target: automatic starts took
+/// 10–30 s on them) are a typed error naming the point; ordinary ones are not.
+#[test]
+fn frequencies_beyond_the_range_are_a_typed_error() {
+    let mut s = spectrum();
+    s.frequency_hz[2] = 1e-287;
+    assert!(
+        matches!(
+            run(&s).unwrap_err(),
+            FitError::FrequencyOutOfRange {
+                point: PointRef { number: 3, .. },
+                ..
+            }
+        ),
+        "{:?}",
+        run(&s)
+    );
+    let mut s = spectrum();
+    s.frequency_hz[0] = 1e35;
+    assert!(matches!(
+        run(&s).unwrap_err(),
+        FitError::FrequencyOutOfRange { .. }
+    ));
 }

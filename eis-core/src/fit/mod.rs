@@ -204,6 +204,16 @@ pub enum FitError {
         /// |Z| of the point, Ω.
         modulus: f64,
     },
+    /// A frequency outside [`FREQUENCY_RANGE`].
+    #[error(
+        "{point} has the frequency {frequency:e} Hz, outside the range the fit handles (1e-30 to 1e30 Hz)"
+    )]
+    FrequencyOutOfRange {
+        /// The point, numbered from 1, with its source line when known.
+        point: PointRef,
+        /// Its frequency, Hz.
+        frequency: f64,
+    },
     /// A starting value lies outside its bounds.
     #[error("starting value {value} of `{name}` lies outside its bounds {lower}..{upper}")]
     StartOutsideBounds {
@@ -327,6 +337,12 @@ struct Prepared {
 /// an error ([`FitError::ModulusOutOfRange`]) rather than a quietly wrong result.
 pub const MODULUS_RANGE: std::ops::RangeInclusive<f64> = 1e-100..=1e100;
 
+/// Frequencies the fit accepts, Hz: far beyond any measurement (common practice puts impedance
+/// spectra between about 1 µHz and 10 GHz), and narrow enough that time constants and products such
+/// as ωτ stay well inside the range of f64. Spectra spanning hundreds of decades made the automatic
+/// starts take tens of seconds before they were refused ([`FitError::FrequencyOutOfRange`]).
+pub const FREQUENCY_RANGE: std::ops::RangeInclusive<f64> = 1e-30..=1e30;
+
 fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitError> {
     let n = spectrum.frequency_hz.len();
     if n == 0 {
@@ -346,6 +362,16 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
                 frequency: f,
             });
         }
+    }
+    if let Some(i) = spectrum
+        .frequency_hz
+        .iter()
+        .position(|f| !FREQUENCY_RANGE.contains(f))
+    {
+        return Err(FitError::FrequencyOutOfRange {
+            point: spectrum.point_ref(i),
+            frequency: spectrum.frequency_hz[i],
+        });
     }
     if let Some(i) = spectrum
         .z
