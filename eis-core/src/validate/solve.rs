@@ -460,6 +460,11 @@ impl Workspace {
             self.sol[..p].iter_mut().for_each(|v| *v = 0.0);
             return;
         };
+        // nalgebra's solve panics on a NaN singular value (entries near the ends of f64's range).
+        if svd.singular_values.iter().any(|v| !v.is_finite()) {
+            self.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+            return;
+        }
         let smax = svd.singular_values.max();
         let x = svd
             .solve(&b, 1e-13 * smax)
