@@ -1,38 +1,20 @@
-//! Shared helpers for the end-to-end tests: locating (and building once) the real `eis` binary, scratch
-//! directories, and a runner that shows stdout and stderr when an expectation fails.
+//! Shared helpers for the end-to-end tests: the real `eis` binary (built by cargo for this test target),
+//! scratch directories, and a runner that shows stdout and stderr when an expectation fails.
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
-use std::sync::OnceLock;
 
 /// The workspace root.
 pub fn root() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
         .parent()
-        .expect("tests/ sits in the workspace")
+        .expect("eis-cli/ sits in the workspace")
         .to_path_buf()
 }
 
-/// Path of the `eis` binary, built once per test process with the cargo that runs the tests.
+/// Path of the `eis` binary cargo built for this test target.
 pub fn eis_bin() -> &'static Path {
-    static BIN: OnceLock<PathBuf> = OnceLock::new();
-    BIN.get_or_init(|| {
-        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
-        let status = Command::new(cargo)
-            .args(["build", "--quiet", "-p", "eis-cli", "--bin", "eis"])
-            .current_dir(root())
-            .status()
-            .expect("run cargo build for the eis binary");
-        assert!(status.success(), "building the eis binary failed");
-        let target = std::env::var_os("CARGO_TARGET_DIR")
-            .map(PathBuf::from)
-            .unwrap_or_else(|| root().join("target"));
-        let bin = target
-            .join("debug")
-            .join(format!("eis{}", std::env::consts::EXE_SUFFIX));
-        assert!(bin.is_file(), "no binary at {}", bin.display());
-        bin
-    })
+    Path::new(env!("CARGO_BIN_EXE_eis"))
 }
 
 /// A fresh scratch directory for one test, removed and re-created.
