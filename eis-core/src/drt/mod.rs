@@ -241,12 +241,12 @@ pub struct LambdaPoint {
 pub struct DrtResult {
     /// The regularisation strength used (scale-free units).
     pub lambda: f64,
-    /// How it was chosen: `gcv`, `lcurve` or `fixed`.
-    pub lambda_method: &'static str,
+    /// How it was chosen (written `gcv`, `lcurve` or `fixed` in text and JSON).
+    pub lambda_method: LambdaMethod,
     /// The penalised derivative order, 1 or 2.
     pub penalty_order: u8,
-    /// The fitted part: `both`, `real` or `imag`.
-    pub part: &'static str,
+    /// The fitted part (written `both`, `real` or `imag` in text and JSON).
+    pub part: Part,
     /// High-frequency resistance R∞ (Ω).
     pub r_inf_ohm: f64,
     /// Series inductance (H), when modelled.
@@ -447,9 +447,9 @@ impl DrtSetup {
         }
         Ok(DrtResult {
             lambda,
-            lambda_method: self.options.lambda.name(),
+            lambda_method: self.options.lambda,
             penalty_order: self.options.penalty.order(),
-            part: self.options.part.name(),
+            part: self.options.part,
             r_inf_ohm: r_inf,
             inductance_h: inductance,
             r_pol_ohm: r_pol,

@@ -2,6 +2,7 @@
 //! points are weighted, and the [`DrtOptions`] value that carries them.
 
 use super::{DrtError, DrtErrorKind};
+use std::fmt;
 
 /// How λ is chosen.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -22,6 +23,20 @@ impl LambdaMethod {
             LambdaMethod::LCurve => "lcurve",
             LambdaMethod::Fixed(_) => "fixed",
         }
+    }
+}
+
+impl fmt::Display for LambdaMethod {
+    /// The short name, as [`LambdaMethod::name`] (the value of a fixed λ is reported beside it).
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+impl serde::Serialize for LambdaMethod {
+    /// The short name, as in the text output.
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        serializer.serialize_str(self.name())
     }
 }
 
@@ -63,6 +78,20 @@ impl Part {
             Part::Real => "real",
             Part::Imaginary => "imag",
         }
+    }
+}
+
+impl fmt::Display for Part {
+    /// The short name, as [`Part::name`].
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+impl serde::Serialize for Part {
+    /// The short name, as in the text output.
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        serializer.serialize_str(self.name())
     }
 }
 

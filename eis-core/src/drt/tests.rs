@@ -289,6 +289,13 @@ fn drt_options_all_run_and_agree_on_an_rc() {
             res.lambda_scan.is_empty(),
             matches!(o.lambda(), LambdaMethod::Fixed(_))
         );
+        // The choices are typed in the result and keep their words in text and JSON.
+        assert_eq!(res.lambda_method, o.lambda());
+        assert_eq!(res.part, o.part());
+        let json = serde_json::to_value(&res).unwrap();
+        assert_eq!(json["lambda_method"], o.lambda().name());
+        assert_eq!(json["part"], o.part().name());
+        assert_eq!(res.part.to_string(), o.part().name());
     }
 }
 
