@@ -1,0 +1,530 @@
+//! Tests of the DRT.
+
+use super::lambda::Problem;
+use super::*;
+use crate::circuit::parse;
+use crate::eval::{Plan, log_frequencies};
+use crate::simulate::{Noise, simulate};
+use nalgebra::DMatrix;
+use serde_json::Value;
+
+/// Relative closeness with a message naming the quantity.
+macro_rules! assert_rel {
+    ($got:expr, $want:expr, $tol:expr, $what:expr) => {{
+        let (g, w): (f64, f64) = ($got, $want);
+        assert!(
+            ((g - w) / w).abs() <= $tol,
+            "{}: got {g}, want {w} (relative tolerance {})",
+            $what,
+            $tol
+        );
+    }};
+}
+
+const FIXTURE: &str = include_str!("../../../tests/reference/drt_fixture.json");
+
+fn fixture() -> Value {
+    serde_json::from_str(FIXTURE).unwrap()
+}
+
+fn vector(v: &Value) -> Vec<f64> {
+    v.as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_f64().unwrap())
+        .collect()
+}
+
+fn matrix(v: &Value) -> DMatrix<f64> {
+    let rows: Vec<Vec<f64>> = v.as_array().unwrap().iter().map(vector).collect();
+    DMatrix::from_fn(rows.len(), rows[0].len(), |r, c| rows[r][c])
+}
+
+/// 1 kHz … 0.1 Hz would be too narrow for the circuits below: use 100 kHz … 0.1 Hz, 10 per decade
+/// (61 points), the range of the benchmark.
+fn spectrum(circuit: &str, params: &[f64], noise: Option<Noise>) -> Spectrum {
+    let plan = Plan::compile(&parse(circuit).unwrap());
+    simulate(&plan, params, &log_frequencies(1e5, 0.1, 10), noise)
+}
+
+/// Cole & Cole 1941 (J. Chem. Phys. 9, 341) distribution of a ZARC R/(1 + (jωτ₀)^φ), as written in
+/// REFERENCES.md §5.
+fn cole_cole(r: f64, tau0: f64, phi: f64, tau: f64) -> f64 {
+    let y = (tau / tau0).ln();
+    r / (2.0 * PI) * ((1.0 - phi) * PI).sin() / ((phi * y).cosh() - ((1.0 - phi) * PI).cos())
+}
+
+#[test]
+fn drt_kernel_matches_scipy_quadrature() {
+    // Reference: scipy.integrate.quad through tests/reference/drt_reference.py.
+    let fx = fixture();
+    let f = vector(&fx["frequency_hz"]);
+    let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
+    assert_rel!(
+        setup.epsilon(),
+        fx["epsilon"].as_f64().unwrap(),
+        1e-14,
+        "epsilon"
+    );
+    for (k, c) in vector(&fx["centres_ln_tau"]).iter().enumerate() {
+        assert!((setup.centres[k] - c).abs() < 1e-12, "centre {k}");
+    }
+    let (re, im) = (matrix(&fx["kernel_re"]), matrix(&fx["kernel_im"]));
+    let dev_re = (&setup.kernel_re - &re).amax();
+    let dev_im = (&setup.kernel_im - &im).amax();
+    eprintln!(
+        "kernel: max deviation from quadrature {dev_re:.1e} (real), {dev_im:.1e} (imaginary)"
+    );
+    assert!(
+        dev_re < 1e-12 && dev_im < 1e-12,
+        "kernel deviates by {dev_re:e} / {dev_im:e}"
+    );
+}
+
+#[test]
+fn drt_gram_matches_quadrature() {
+    // Reference: quadrature of products of derivatives (SciPy, drt_reference.py); order 1 is the
+    // closed form given for Gaussian RBFs (Wan, Saccoccio, Chen & Ciucci 2015, Electrochim. Acta
+    // 184, 483), order 2 the one derived in `gaussian_gram`.
+    let fx = fixture();
+    let eps = fx["epsilon"].as_f64().unwrap();
+    let y = vector(&fx["centres_ln_tau"]);
+    for (order, key) in [(1u8, "gram1_quad"), (2, "gram2_quad")] {
+        let q = matrix(&fx[key]);
+        let scale = q.amax();
+        for i in 0..y.len() {
+            for j in 0..y.len() {
+                let d = gaussian_gram(order, eps, y[i] - y[j]) - q[(i, j)];
+                assert!(
+                    d.abs() < 1e-12 * scale,
+                    "order {order} entry ({i},{j}) off by {d:e}"
+                );
+            }
+        }
+    }
+    // Hand check at d = 0: ∫φ′² = ε√(π/2), ∫φ″² = 3ε³√(π/2).
+    let c = (PI / 2.0).sqrt();
+    assert_rel!(
+        gaussian_gram(1, 2.0, 0.0),
+        2.0 * c,
+        1e-15,
+        "order 1 at d = 0"
+    );
+    assert_rel!(
+        gaussian_gram(2, 2.0, 0.0),
+        24.0 * c,
+        1e-15,
+        "order 2 at d = 0"
+    );
+}
+
+#[test]
+fn drt_design_matches_reference_recipe() {
+    let fx = fixture();
+    let f = vector(&fx["frequency_hz"]);
+    let z: Vec<Complex64> = vector(&fx["z_re"])
+        .into_iter()
+        .zip(vector(&fx["z_im"]))
+        .map(|(re, im)| Complex64::new(re, im))
+        .collect();
+    let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
+    let w: Vec<f64> = z.iter().map(|v| 1.0 / v.norm()).collect();
+    let r_ref = z.iter().fold(0.0f64, |a, v| a.max(v.norm()));
+    let (a, b) = setup.design(&z, &w, r_ref);
+    assert!((&a - matrix(&fx["design"])).amax() < 1e-11);
+    assert!((&b - DVector::from_vec(vector(&fx["data"]))).amax() < 1e-14);
+    assert!((&setup.penalty - matrix(&fx["penalty"])).amax() < 1e-9);
+}
+
+#[test]
+fn drt_regularised_nnls_matches_scipy() {
+    // Reference: scipy.optimize.nnls on the augmented system of the same problem (drt_reference.py).
+    let fx = fixture();
+    let c_mat = matrix(&fx["design"]);
+    let b = DVector::from_vec(vector(&fx["data"]));
+    let pen = matrix(&fx["penalty"]);
+    let mut problem = Problem::new(&c_mat, &b, &pen);
+    for case in fx["cases"].as_array().unwrap() {
+        let lambda = case["lambda"].as_f64().unwrap();
+        let want = DVector::from_vec(vector(&case["x"]));
+        problem.warm = false;
+        problem.eval(lambda).unwrap();
+        let dev = (&problem.x - &want).amax() / want.amax();
+        eprintln!("λ = {lambda}: max |x − x_scipy| / max x_scipy = {dev:.1e}");
+        assert!(
+            dev < 1e-9,
+            "λ = {lambda}: x deviates by {dev:e} relative to max x"
+        );
+        let r = &c_mat * &problem.x - &b;
+        let obj = r.norm_squared() + lambda * problem.x.dot(&(&pen * &problem.x));
+        let want_obj = case["objective"].as_f64().unwrap();
+        assert!(
+            obj <= want_obj * (1.0 + 1e-9),
+            "λ = {lambda}: objective {obj} vs SciPy {want_obj}"
+        );
+        eprintln!("λ = {lambda}: objective {obj:.12e}, SciPy {want_obj:.12e}");
+        assert_rel!(obj, want_obj, 1e-8, "objective");
+        let free = problem.x.iter().filter(|v| **v > 0.0).count() as u64;
+        assert_eq!(
+            free,
+            case["free"].as_u64().unwrap(),
+            "λ = {lambda}: free variables"
+        );
+    }
+}
+
+#[test]
+fn drt_zarc_matches_cole_cole_distribution() {
+    // ZARC R/(1 + (jωτ₀)^φ) written as R1|Q1 with Q = τ₀^φ/R, n = φ (REFERENCES.md §1); its DRT is
+    // the Cole–Cole distribution (Cole & Cole 1941), peaked at τ₀ with area R and height
+    // (R/2π)·tan(φπ/2).
+    let (r0, r, tau0, phi): (f64, f64, f64, f64) = (10.0, 100.0, 1e-3, 0.8);
+    let s = spectrum("R0 + R1|Q1", &[r0, r, tau0.powf(phi) / r, phi], None);
+    let res = drt(&s, DrtOptions::default()).unwrap();
+    assert_eq!(res.peaks.len(), 1, "{:?}", res.peaks);
+    let p = res.peaks[0];
+    // Stated tolerance: the peak within 2 % of τ₀ (0.009 decades), the area within 2 % of R.
+    assert_rel!(p.tau_s, tau0, 0.02, "peak τ");
+    assert_rel!(p.resistance_ohm, r, 0.02, "peak area");
+    assert_rel!(res.r_pol_ohm, r, 0.02, "polarisation resistance");
+    assert_rel!(
+        p.gamma_ohm,
+        r / (2.0 * PI) * (phi * PI / 2.0).tan(),
+        0.05,
+        "peak height"
+    );
+    assert_rel!(res.r_inf_ohm, r0, 0.01, "R∞");
+    // Shape: within the measured τ range, γ follows the analytic distribution to 3 % of its peak.
+    let peak = cole_cole(r, tau0, phi, tau0);
+    let (tmin, tmax) = (1.0 / (2.0 * PI * 1e5), 1.0 / (2.0 * PI * 0.1));
+    for (t, g) in res.tau_s.iter().zip(&res.gamma_ohm) {
+        if (tmin..=tmax).contains(t) {
+            let want = cole_cole(r, tau0, phi, *t);
+            assert!(
+                (g - want).abs() < 0.03 * peak,
+                "γ({t:e}) = {g}, Cole–Cole {want}"
+            );
+        }
+    }
+    assert!(res.residual_rms < 1e-3, "rms residual {}", res.residual_rms);
+}
+
+#[test]
+fn drt_single_rc_gives_one_peak_at_rc() {
+    // An RC element's DRT is R·δ(ln τ − ln RC) (REFERENCES.md §5): one peak at τ = RC with area R.
+    let (r, c) = (50.0, 20e-6);
+    for noise in [
+        None,
+        Some(Noise {
+            relative: 0.002,
+            seed: 11,
+        }),
+    ] {
+        let s = spectrum("R0 + R1|C1", &[5.0, r, c], noise);
+        let res = drt(&s, DrtOptions::default()).unwrap();
+        assert_eq!(res.peaks.len(), 1, "noise {noise:?}: {:?}", res.peaks);
+        assert_rel!(res.peaks[0].tau_s, r * c, 0.02, "τ");
+        assert_rel!(
+            res.peaks[0].frequency_hz,
+            1.0 / (2.0 * PI * r * c),
+            0.02,
+            "frequency"
+        );
+        assert_rel!(res.peaks[0].resistance_ohm, r, 0.02, "area");
+        assert_rel!(res.r_inf_ohm, 5.0, 0.02, "R∞");
+    }
+}
+
+#[test]
+fn drt_two_arcs_a_decade_apart_give_two_peaks() {
+    // Two RC arcs: two δ functions, at R1·C1 and R2·C2 (REFERENCES.md §5).
+    for (c2, noise) in [
+        (5e-6, None), // one decade apart
+        (
+            5e-5,
+            Some(Noise {
+                relative: 0.002,
+                seed: 5,
+            }),
+        ), // two decades, noisy
+    ] {
+        let (r1, c1, r2) = (40.0, 2.5e-7, 20.0);
+        let s = spectrum("R0 + R1|C1 + R2|C2", &[2.0, r1, c1, r2, c2], noise);
+        let res = drt(&s, DrtOptions::default()).unwrap();
+        assert_eq!(res.peaks.len(), 2, "C2 = {c2}: {:?}", res.peaks);
+        assert_rel!(res.peaks[0].tau_s, r1 * c1, 0.05, "τ1");
+        assert_rel!(res.peaks[1].tau_s, r2 * c2, 0.05, "τ2");
+        assert_rel!(res.peaks[0].resistance_ohm, r1, 0.03, "R1");
+        assert_rel!(res.peaks[1].resistance_ohm, r2, 0.03, "R2");
+        let sum: f64 = res.peaks.iter().map(|p| p.resistance_ohm).sum();
+        assert_rel!(sum, res.r_pol_ohm, 0.005, "peak areas add up to ∫γ");
+    }
+}
+
+#[test]
+fn drt_options_all_run_and_agree_on_an_rc() {
+    let s = spectrum(
+        "R0 + R1|C1",
+        &[5.0, 50.0, 20e-6],
+        Some(Noise {
+            relative: 0.002,
+            seed: 2,
+        }),
+    );
+    let variants = [
+        DrtOptions::default().with_lambda(LambdaMethod::LCurve),
+        DrtOptions::default().with_lambda(LambdaMethod::Fixed(1e-4)),
+        DrtOptions::default().with_penalty(Penalty::First),
+        DrtOptions::default().with_weighting(Weighting::Unit),
+        DrtOptions::default().with_part(Part::Real),
+        DrtOptions::default().with_part(Part::Imaginary),
+    ];
+    for o in variants {
+        let res = drt(&s, o).unwrap();
+        assert_eq!(res.peaks.len(), 1, "{o:?}: {:?}", res.peaks);
+        assert_rel!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
+        assert_rel!(res.peaks[0].resistance_ohm, 50.0, 0.03, "R");
+        assert_rel!(res.r_inf_ohm, 5.0, 0.05, "R∞");
+        assert_eq!(
+            res.lambda_scan.is_empty(),
+            matches!(o.lambda(), LambdaMethod::Fixed(_))
+        );
+        // The choices are typed in the result and keep their words in text and JSON.
+        assert_eq!(res.lambda_method, o.lambda());
+        assert_eq!(res.part, o.part());
+        let json = serde_json::to_value(&res).unwrap();
+        assert_eq!(json["lambda_method"], o.lambda().name());
+        assert_eq!(json["part"], o.part().name());
+        assert_eq!(res.part.to_string(), o.part().name());
+    }
+}
+
+#[test]
+fn drt_recovers_a_series_inductance() {
+    let s = spectrum("L0 + R0 + R1|C1", &[2e-6, 5.0, 50.0, 20e-6], None);
+    for part in [Part::Both, Part::Real] {
+        let res = drt(
+            &s,
+            DrtOptions::default().with_inductance(true).with_part(part),
+        )
+        .unwrap();
+        assert_rel!(res.inductance_h.unwrap(), 2e-6, 0.02, "L");
+        assert_eq!(res.peaks.len(), 1);
+        assert_rel!(res.peaks[0].resistance_ohm, 50.0, 0.02, "R");
+    }
+    let res = drt(&s, DrtOptions::default()).unwrap();
+    assert_eq!(res.inductance_h, None);
+}
+
+#[test]
+fn drt_setup_reuse_gives_the_same_result() {
+    let s = spectrum(
+        "R0 + R1|C1",
+        &[5.0, 50.0, 20e-6],
+        Some(Noise {
+            relative: 0.002,
+            seed: 9,
+        }),
+    );
+    let setup = DrtSetup::new(&s.frequency_hz, DrtOptions::default()).unwrap();
+    let a = setup.solve(&s.z).unwrap();
+    let b = setup.solve(&s.z).unwrap();
+    assert_eq!(a, b);
+    assert_eq!(a, drt(&s, DrtOptions::default()).unwrap());
+}
+
+#[test]
+fn drt_rejects_bad_input() {
+    let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let kind = |s: &Spectrum| drt(s, DrtOptions::default()).unwrap_err().kind().clone();
+    assert_eq!(kind(&Spectrum::default()), DrtErrorKind::Empty);
+    let mut few = good.clone();
+    few.frequency_hz.truncate(4);
+    few.z.truncate(4);
+    assert_eq!(
+        kind(&few),
+        DrtErrorKind::TooFewPoints {
+            found: 4,
+            needed: 5
+        }
+    );
+    let mut repeated = good.clone();
+    repeated.frequency_hz = vec![10.0; good.len()];
+    assert!(matches!(
+        kind(&repeated),
+        DrtErrorKind::TooFewPoints { found: 1, .. }
+    ));
+    for bad in [f64::NAN, -1.0, 0.0, f64::INFINITY] {
+        let mut s = good.clone();
+        s.frequency_hz[3] = bad;
+        assert!(
+            matches!(kind(&s), DrtErrorKind::BadFrequency { point: 4, .. }),
+            "{bad}"
+        );
+    }
+    let mut s = good.clone();
+    s.z[7].im = f64::NAN;
+    assert_eq!(kind(&s), DrtErrorKind::NonFiniteImpedance { point: 8 });
+    let mut s = good.clone();
+    s.z[0] = Complex64::new(0.0, 0.0);
+    assert_eq!(kind(&s), DrtErrorKind::ZeroImpedance { point: 1 });
+    let mut s = good.clone();
+    s.z.pop();
+    assert!(matches!(kind(&s), DrtErrorKind::LengthMismatch { .. }));
+    let setup = DrtSetup::new(&good.frequency_hz, DrtOptions::default()).unwrap();
+    assert!(matches!(
+        setup.solve(&good.z[1..]).unwrap_err().kind(),
+        DrtErrorKind::SetupMismatch { .. }
+    ));
+    let bad_options = [
+        DrtOptions::default().with_rbf_width(0.0),
+        DrtOptions::default().with_rbf_width(f64::NAN),
+        DrtOptions::default().with_lambda(LambdaMethod::Fixed(-1.0)),
+        DrtOptions::default().with_lambda(LambdaMethod::Fixed(f64::NAN)),
+        DrtOptions::default().with_lambda_range(1.0, 1e-3),
+        DrtOptions::default().with_lambda_range(0.0, 1.0),
+        DrtOptions::default().with_grid_per_decade(1),
+        DrtOptions::default().with_scan_per_decade(0),
+        DrtOptions::default().with_peak_threshold(1.0),
+    ];
+    for o in bad_options {
+        let e = drt(&good, o).unwrap_err();
+        assert!(matches!(e.kind(), DrtErrorKind::BadOption { .. }), "{o:?}");
+        assert!(e.is_input_error());
+        let text = e.to_string();
+        assert!(
+            text.contains("out of range") && !text.ends_with('.'),
+            "{text}"
+        );
+    }
+    // Messages name the offending point.
+    let mut s = good.clone();
+    s.frequency_hz[3] = -1.0;
+    assert_eq!(
+        drt(&s, DrtOptions::default()).unwrap_err().to_string(),
+        "point 4: frequency -1 Hz is not usable (it must be positive, with 2πf and 1/(2πf) finite)"
+    );
+}
+
+/// Issue 13: the basis had one function per distinct frequency, so memory grew as N² and time as
+/// N³ (2,000 points took over a minute). It is bounded by MAX_BASIS whatever N; the times are in
+/// `benches/drt.rs`.
+#[test]
+fn the_basis_is_bounded_whatever_the_number_of_points() {
+    let f: Vec<f64> = (0..1500)
+        .map(|i| 1e5 * 10f64.powf(-7.0 * i as f64 / 1499.0))
+        .collect();
+    let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
+    assert_eq!(setup.centres.len(), MAX_BASIS);
+    assert_eq!(setup.kernel_re.shape(), (1500, MAX_BASIS));
+    assert_eq!(setup.penalty.shape(), (MAX_BASIS + 1, MAX_BASIS + 1));
+    // The centres still span the measured range, evenly.
+    let (lo, hi) = (-(2.0 * PI * 1e5f64).ln(), -(2.0 * PI * 1e-2f64).ln());
+    assert!((setup.centres[0] - lo).abs() < 1e-9);
+    assert!((setup.centres[MAX_BASIS - 1] - hi).abs() < 1e-9);
+    // At and below the cap: one centre per distinct frequency, as before.
+    let setup = DrtSetup::new(&f[..MAX_BASIS], DrtOptions::default()).unwrap();
+    assert_eq!(setup.centres.len(), MAX_BASIS);
+    assert!((setup.centres[1] + (2.0 * PI * f[1]).ln()).abs() < 1e-12);
+    // A thinned basis still recovers a known arc: R0 + R1|C1 gives one peak at τ = R1·C1 holding
+    // R1 (common practice for an ideal RC element).
+    let plan = Plan::compile(&parse("R0 + R1|C1").unwrap());
+    let every_fourth: Vec<f64> = f.iter().step_by(4).copied().collect();
+    let s = simulate(&plan, &[5.0, 50.0, 20e-6], &every_fourth, None);
+    let r = drt(&s, DrtOptions::default()).unwrap();
+    assert_eq!(r.peaks.len(), 1, "{:?}", r.peaks);
+    assert_rel!(r.peaks[0].tau_s, 1e-3, 0.05, "τ of the peak");
+    assert_rel!(r.peaks[0].resistance_ohm, 50.0, 0.02, "R of the peak");
+}
+
+/// Issue 13: impedances from 1e-300 to 1e300 Ω give the same DRT up to the scale (γ, R∞ and the
+/// peak resistances scale with Z, τ does not; the model is linear in them).
+#[test]
+fn the_drt_does_not_depend_on_the_scale_of_z() {
+    let base = spectrum(
+        "R0 + R1|Q1",
+        &[5.0, 50.0, 1e-4, 0.85],
+        Some(Noise {
+            relative: 0.002,
+            seed: 9,
+        }),
+    );
+    let reference = drt(&base, DrtOptions::default()).unwrap();
+    for scale in [1e-250, 1e-160, 1e200, 1e250] {
+        let mut s = base.clone();
+        s.z.iter_mut().for_each(|z| *z *= scale);
+        for weighting in [Weighting::Modulus, Weighting::Unit] {
+            let o = DrtOptions::default().with_weighting(weighting);
+            let r = drt(&s, o).unwrap();
+            let r0 = drt(&base, o).unwrap();
+            let what = format!("× {scale:e}, {weighting:?}");
+            assert_rel!(r.lambda, r0.lambda, 1e-9, format!("λ {what}"));
+            assert_rel!(
+                r.r_inf_ohm / scale,
+                r0.r_inf_ohm,
+                1e-6,
+                format!("R∞ {what}")
+            );
+            assert_rel!(
+                r.r_pol_ohm / scale,
+                r0.r_pol_ohm,
+                1e-6,
+                format!("Rpol {what}")
+            );
+            assert_eq!(r.peaks.len(), r0.peaks.len(), "{what}");
+            assert_rel!(r.residual_rms, r0.residual_rms, 1e-6, format!("rms {what}"));
+        }
+    }
+    assert!(reference.r_pol_ohm > 0.0);
+}
+
+/// Issue 13: degenerate spectra give a result or a typed error, never a panic.
+#[test]
+fn degenerate_spectra_give_results_or_typed_errors() {
+    let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    // All impedances equal: a pure resistance, no polarisation.
+    let flat = Spectrum::new(
+        good.frequency_hz.clone(),
+        vec![Complex64::new(3.0, 0.0); good.len()],
+    );
+    let r = drt(&flat, DrtOptions::default()).unwrap();
+    assert_rel!(r.r_inf_ohm, 3.0, 1e-3, "R∞ of a resistor");
+    assert!(r.r_pol_ohm.abs() < 1e-3 * 3.0, "Rpol {}", r.r_pol_ohm);
+    // Every frequency twice.
+    let mut twice = good.clone();
+    twice.frequency_hz.extend(good.frequency_hz.clone());
+    twice.z.extend(good.z.clone());
+    assert!(drt(&twice, DrtOptions::default()).is_ok());
+    // 1 to 4 points: too few.
+    for k in 1..5 {
+        let s = Spectrum::new(good.frequency_hz[..k].to_vec(), good.z[..k].to_vec());
+        assert!(matches!(
+            drt(&s, DrtOptions::default()).unwrap_err().kind(),
+            DrtErrorKind::TooFewPoints { .. }
+        ));
+    }
+    // ω = 2πf overflows.
+    let mut s = good.clone();
+    s.frequency_hz[2] = f64::MAX;
+    assert!(matches!(
+        drt(&s, DrtOptions::default()).unwrap_err().kind(),
+        DrtErrorKind::BadFrequency { point: 3, .. }
+    ));
+    // An infinite impedance, and a modulus too small to weight next to the others.
+    let mut s = good.clone();
+    s.z[1] = Complex64::new(f64::INFINITY, 0.0);
+    assert!(drt(&s, DrtOptions::default()).is_err());
+    let mut s = good.clone();
+    s.z[0] = Complex64::new(1e300, 0.0);
+    s.z[1] = Complex64::new(1e-300, 0.0);
+    assert!(matches!(
+        drt(&s, DrtOptions::default()).unwrap_err().kind(),
+        DrtErrorKind::ZeroImpedance { point: 2 }
+    ));
+    // Frequencies over the whole range of f64.
+    let f: Vec<f64> = (0..12).map(|i| 10f64.powi(-300 + 50 * i)).collect();
+    let s = Spectrum::new(f, vec![Complex64::new(1.0, -0.1); 12]);
+    if let Ok(r) = drt(&s, DrtOptions::default()) {
+        assert!(r.r_inf_ohm.is_finite());
+    }
+}
