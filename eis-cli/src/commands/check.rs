@@ -29,7 +29,7 @@ pub struct Args {
     #[arg(long)]
     json: bool,
     /// μ threshold: fits with μ below it count as over-fitted.
-    #[arg(allow_negative_numbers = true, long, default_value_t = 0.85, value_parser = parse_fraction)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 0.5, value_parser = parse_fraction)]
     mu: f64,
     /// Per-point floor, % of |Z|: a point within it is never flagged.
     #[arg(allow_negative_numbers = true, long, default_value_t = 1.0, value_parser = parse_percent)]
