@@ -50,7 +50,7 @@ mod results;
 mod tests;
 
 pub use journal::{JOURNAL, RunSettings, SETTINGS};
-pub use results::{QUANTITY_COLUMNS, finished, results_table};
+pub use results::{finished, results_quantities, results_table};
 
 use crate::circuit::Circuit;
 use crate::derive::derive;
