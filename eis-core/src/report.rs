@@ -343,7 +343,7 @@ pub fn document(
             evaluations: r.evaluations,
             starts: r.starts_tried,
             converged: r.converged,
-            termination: r.termination.clone(),
+            termination: r.termination.to_string(),
             weighting: r.weighting.as_str().to_owned(),
             covariance: "s^2 (J^T J)^-1 with s^2 the reduced chi-square".to_owned(),
         },
@@ -353,7 +353,7 @@ pub fn document(
                 .map(|a| r.correlation[a * nf..(a + 1) * nf].to_vec())
                 .collect(),
         },
-        warnings: r.warnings.clone(),
+        warnings: r.warnings.iter().map(ToString::to_string).collect(),
         short_circuit: short.map(|s| ShortCircuitEntry {
             ocv_v: s.ocv,
             short_circuit_current_a: s.short_circuit_current.value,
