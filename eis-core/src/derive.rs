@@ -24,10 +24,11 @@
 
 use crate::circuit::{Circuit, Node, Role};
 use crate::fit::FitResult;
+use crate::trend::FlagKind;
 use std::f64::consts::PI;
 
 /// A derived value with its standard error (None where the fit cannot give one).
-#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Quantity {
     /// The value.
     pub value: f64,
@@ -73,6 +74,144 @@ pub struct Derived {
     pub dc_resistance: Option<Quantity>,
     /// The arcs, in circuit order.
     pub arcs: Vec<Arc>,
+}
+
+/// Which battery quantity: the key of a row of [`QUANTITIES`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+#[non_exhaustive]
+pub enum QuantityKey {
+    /// High-frequency real resistance.
+    Ohmic,
+    /// Sum of the arc resistances.
+    ChargeTransfer,
+    /// Sum of the finite diffusion resistances.
+    Diffusion,
+    /// Real resistance at zero frequency.
+    Dc,
+    /// Sum of the semi-infinite Warburg coefficients.
+    WarburgSigma,
+}
+
+impl QuantityKey {
+    /// Its row of [`QUANTITIES`].
+    pub fn row(self) -> &'static QuantityKind {
+        // Every key has a row (checked by a test); the first row is the fallback that keeps this total.
+        QUANTITIES
+            .iter()
+            .find(|q| q.key == self)
+            .unwrap_or(&QUANTITIES[0])
+    }
+
+    /// Its column in `results.csv` and field in the fit document.
+    pub fn column(self) -> &'static str {
+        self.row().column
+    }
+}
+
+/// A battery quantity: everything the fit document, `results.csv`, trends, flags, the fit table,
+/// the campaign report and plots need to know about it. One row of [`QUANTITIES`].
+#[derive(Debug, Clone, Copy)]
+pub struct QuantityKind {
+    /// The key.
+    pub key: QuantityKey,
+    /// Column in `results.csv` (followed by `<column>_stderr`) and field of the fit document.
+    pub column: &'static str,
+    /// Name in the fit table.
+    pub label: &'static str,
+    /// Short name, for table headers.
+    pub short: &'static str,
+    /// Axis label of plots.
+    pub axis: &'static str,
+    /// SI unit as printed in files and plots.
+    pub unit: &'static str,
+    /// The same unit in plain ASCII, for the terminal.
+    pub unit_ascii: &'static str,
+    /// A column of `results.csv` (and of the campaign report) and followed by default in trends.
+    pub in_results: bool,
+    /// What a significant growth of this quantity along a series is flagged as; None: never flagged.
+    pub flag: Option<FlagKind>,
+    /// How it is read from a fit's derived quantities; None where the model has no such quantity.
+    pub get: fn(&Derived) -> Option<Quantity>,
+}
+
+/// The battery quantities, in the order of the fit document and `results.csv`. Adding a quantity is
+/// one row here (and its computation in [`derive`]).
+pub const QUANTITIES: &[QuantityKind] = &[
+    QuantityKind {
+        key: QuantityKey::Ohmic,
+        column: "ohmic_resistance_ohm",
+        label: "ohmic resistance",
+        short: "ohmic",
+        axis: "ohmic resistance",
+        unit: "Ω",
+        unit_ascii: "Ohm",
+        in_results: true,
+        flag: Some(FlagKind::OhmicGrowth),
+        get: |d| d.ohmic_resistance,
+    },
+    QuantityKind {
+        key: QuantityKey::ChargeTransfer,
+        column: "charge_transfer_resistance_ohm",
+        label: "charge-transfer (interface) resistance",
+        short: "interface",
+        axis: "charge transfer resistance",
+        unit: "Ω",
+        unit_ascii: "Ohm",
+        in_results: true,
+        flag: Some(FlagKind::InterfaceGrowth),
+        get: |d| d.charge_transfer_resistance,
+    },
+    QuantityKind {
+        key: QuantityKey::Diffusion,
+        column: "diffusion_resistance_ohm",
+        label: "diffusion resistance",
+        short: "diffusion",
+        axis: "diffusion resistance",
+        unit: "Ω",
+        unit_ascii: "Ohm",
+        in_results: true,
+        flag: Some(FlagKind::TransportGrowth),
+        get: |d| d.diffusion_resistance,
+    },
+    QuantityKind {
+        key: QuantityKey::Dc,
+        column: "dc_resistance_ohm",
+        label: "DC resistance",
+        short: "DC",
+        axis: "dc resistance",
+        unit: "Ω",
+        unit_ascii: "Ohm",
+        in_results: true,
+        flag: None,
+        get: |d| d.dc_resistance,
+    },
+    QuantityKind {
+        key: QuantityKey::WarburgSigma,
+        column: "warburg_sigma_ohm_s_half",
+        label: "Warburg coefficient",
+        short: "Warburg σ",
+        axis: "Warburg coefficient",
+        unit: "Ω s^-1/2",
+        unit_ascii: "Ohm s^-1/2",
+        in_results: false,
+        flag: None,
+        get: |d| d.warburg_sigma,
+    },
+];
+
+/// The row of a `results.csv` column, if it is a battery quantity.
+pub fn quantity_of_column(column: &str) -> Option<&'static QuantityKind> {
+    QUANTITIES.iter().find(|q| q.column == column)
+}
+
+/// The `results.csv` column of the resistance of the arc whose resistor is `resistor`.
+pub fn arc_column(resistor: &str) -> String {
+    format!("arc_{resistor}_resistance_ohm")
+}
+
+/// Whether `column` is an arc's resistance column (see [`arc_column`]).
+pub fn is_arc_column(column: &str) -> bool {
+    column.starts_with("arc_") && column.ends_with("_resistance_ohm")
 }
 
 /// Estimates from the DC resistance and an open-circuit voltage.
@@ -446,5 +585,54 @@ pub fn short_circuit(ocv: f64, dc: Quantity) -> ShortCircuitEstimate {
             value: ocv * ocv / (4.0 * r),
             stderr: dc.stderr.map(|se| ocv * ocv * se / (4.0 * r * r)),
         },
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Every key has its own row, and no two rows share a column: the fit document and `results.csv`
+    /// are written from the table alone.
+    #[test]
+    fn quantity_table_has_one_row_per_key_and_distinct_columns() {
+        let keys = [
+            QuantityKey::Ohmic,
+            QuantityKey::ChargeTransfer,
+            QuantityKey::Diffusion,
+            QuantityKey::Dc,
+            QuantityKey::WarburgSigma,
+        ];
+        assert_eq!(keys.len(), QUANTITIES.len());
+        for k in keys {
+            assert_eq!(k.row().key, k);
+            assert_eq!(quantity_of_column(k.column()).map(|q| q.key), Some(k));
+        }
+        for (i, a) in QUANTITIES.iter().enumerate() {
+            for b in &QUANTITIES[i + 1..] {
+                assert_ne!(a.column, b.column);
+            }
+            assert!(!is_arc_column(a.column), "{} reads as an arc", a.column);
+        }
+        assert!(is_arc_column(&arc_column("Rf")));
+    }
+
+    /// Each row reads its own quantity from a fit: the ohmic resistance of R0 + Rct|Cdl is R0 and its
+    /// DC resistance R0 + Rct (Ohm's law for resistors in series, common practice).
+    #[test]
+    fn quantity_rows_read_their_own_value_from_a_fit() {
+        let c = crate::circuit::parse("R0 + Rct|Cdl").unwrap();
+        let f: Vec<f64> = (0..30).map(|k| 10f64.powf(5.0 - 0.25 * k as f64)).collect();
+        let truth = [0.02, 0.05, 1e-3];
+        let s = crate::simulate::simulate(&crate::eval::Plan::compile(&c), &truth, &f, None);
+        let r = crate::fit::fit(&c, &s, &crate::fit::FitSettings::default(), Some(&truth)).unwrap();
+        let d = derive(&c, &r);
+        let value = |k: QuantityKey| (k.row().get)(&d).map(|q| q.value);
+        let close = |v: Option<f64>, want: f64| v.is_some_and(|v| (v - want).abs() < 1e-7);
+        assert!(close(value(QuantityKey::Ohmic), 0.02));
+        assert!(close(value(QuantityKey::ChargeTransfer), 0.05));
+        assert!(close(value(QuantityKey::Dc), 0.07));
+        assert_eq!(value(QuantityKey::Diffusion), None);
+        assert_eq!(value(QuantityKey::WarburgSigma), None);
     }
 }

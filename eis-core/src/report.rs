@@ -2,9 +2,12 @@
 //! `results.jsonl`), and reading a previous one back as a warm start.
 
 use crate::circuit::{Circuit, print};
-use crate::derive::{Derived, Quantity, SHORT_CIRCUIT_CAUTION, ShortCircuitEstimate};
+use crate::derive::{
+    Derived, QUANTITIES, Quantity, QuantityKey, SHORT_CIRCUIT_CAUTION, ShortCircuitEstimate,
+};
 use crate::fit::FitResult;
 use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
 
 /// Serde helpers for numbers that may be non-finite (an infinite time constant, an undetermined
 /// correlation): written as `null`, read back as NaN. JSON has no NaN or infinity, and serde_json
@@ -120,31 +123,71 @@ pub struct ArcEntry {
     pub determined: bool,
 }
 
-/// Derived quantities of a fit document; null where the model has no such quantity.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Derived quantities of a fit document: the battery quantities of [`QUANTITIES`] and the arcs.
+///
+/// Written as one field per quantity (its column name, then `<column>_stderr`; null where the model
+/// has no such quantity), in table order, then `arcs`.
+#[derive(Debug, Clone, PartialEq)]
 pub struct DerivedEntry {
-    /// High-frequency real resistance.
-    pub ohmic_resistance_ohm: Option<f64>,
-    /// Its standard error.
-    pub ohmic_resistance_ohm_stderr: Option<f64>,
-    /// Sum of the arc resistances.
-    pub charge_transfer_resistance_ohm: Option<f64>,
-    /// Its standard error.
-    pub charge_transfer_resistance_ohm_stderr: Option<f64>,
-    /// Sum of finite diffusion resistances.
-    pub diffusion_resistance_ohm: Option<f64>,
-    /// Its standard error.
-    pub diffusion_resistance_ohm_stderr: Option<f64>,
-    /// Real resistance at zero frequency.
-    pub dc_resistance_ohm: Option<f64>,
-    /// Its standard error.
-    pub dc_resistance_ohm_stderr: Option<f64>,
-    /// Sum of semi-infinite Warburg coefficients.
-    pub warburg_sigma_ohm_s_half: Option<f64>,
-    /// Its standard error.
-    pub warburg_sigma_ohm_s_half_stderr: Option<f64>,
+    /// The quantities the model has.
+    pub quantities: BTreeMap<QuantityKey, Quantity>,
     /// The arcs.
     pub arcs: Vec<ArcEntry>,
+}
+
+impl DerivedEntry {
+    /// The value and standard error of a quantity, where the model has it.
+    pub fn get(&self, key: QuantityKey) -> Option<Quantity> {
+        self.quantities.get(&key).copied()
+    }
+
+    /// The value of a quantity, where the model has it.
+    pub fn value(&self, key: QuantityKey) -> Option<f64> {
+        self.get(key).map(|q| q.value)
+    }
+}
+
+impl Serialize for DerivedEntry {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeMap;
+        let mut m = s.serialize_map(Some(2 * QUANTITIES.len() + 1))?;
+        for q in QUANTITIES {
+            let v = self.get(q.key);
+            m.serialize_entry(q.column, &v.map(|v| v.value))?;
+            m.serialize_entry(&format!("{}_stderr", q.column), &v.and_then(|v| v.stderr))?;
+        }
+        m.serialize_entry("arcs", &self.arcs)?;
+        m.end()
+    }
+}
+
+impl<'de> Deserialize<'de> for DerivedEntry {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        #[derive(Deserialize)]
+        struct Fields {
+            arcs: Vec<ArcEntry>,
+            #[serde(flatten)]
+            numbers: BTreeMap<String, Option<f64>>,
+        }
+        let f = Fields::deserialize(d)?;
+        let number = |name: &str| f.numbers.get(name).copied().flatten();
+        let quantities = QUANTITIES
+            .iter()
+            .filter_map(|q| {
+                // A value written as null (not finite) beside a standard error stays a NaN value.
+                let value = number(q.column);
+                let stderr = number(&format!("{}_stderr", q.column));
+                (value.is_some() || stderr.is_some()).then(|| {
+                    let value = value.unwrap_or(f64::NAN);
+                    (q.key, Quantity { value, stderr })
+                })
+            })
+            .collect();
+        Ok(DerivedEntry {
+            quantities,
+            arcs: f.arcs,
+        })
+    }
 }
 
 /// Fit statistics of a fit document.
@@ -238,13 +281,6 @@ pub struct FitDocument {
     pub short_circuit: Option<ShortCircuitEntry>,
 }
 
-fn split(q: Option<Quantity>) -> (Option<f64>, Option<f64>) {
-    match q {
-        Some(q) => (Some(q.value), q.stderr),
-        None => (None, None),
-    }
-}
-
 /// Builds the document of a fit.
 pub fn document(
     c: &Circuit,
@@ -266,11 +302,6 @@ pub fn document(
             at_bound: r.at_bound[i],
         })
         .collect();
-    let (ohm, ohm_se) = split(d.ohmic_resistance);
-    let (ct, ct_se) = split(d.charge_transfer_resistance);
-    let (dif, dif_se) = split(d.diffusion_resistance);
-    let (dc, dc_se) = split(d.dc_resistance);
-    let (sig, sig_se) = split(d.warburg_sigma);
     let nf = r.free.len();
     FitDocument {
         file: None,
@@ -278,16 +309,10 @@ pub fn document(
         model: print(c),
         parameters,
         derived: DerivedEntry {
-            ohmic_resistance_ohm: ohm,
-            ohmic_resistance_ohm_stderr: ohm_se,
-            charge_transfer_resistance_ohm: ct,
-            charge_transfer_resistance_ohm_stderr: ct_se,
-            diffusion_resistance_ohm: dif,
-            diffusion_resistance_ohm_stderr: dif_se,
-            dc_resistance_ohm: dc,
-            dc_resistance_ohm_stderr: dc_se,
-            warburg_sigma_ohm_s_half: sig,
-            warburg_sigma_ohm_s_half_stderr: sig_se,
+            quantities: QUANTITIES
+                .iter()
+                .filter_map(|q| (q.get)(d).map(|v| (q.key, v)))
+                .collect(),
             arcs: d
                 .arcs
                 .iter()
@@ -318,7 +343,7 @@ pub fn document(
             evaluations: r.evaluations,
             starts: r.starts_tried,
             converged: r.converged,
-            termination: r.termination.clone(),
+            termination: r.termination.to_string(),
             weighting: r.weighting.as_str().to_owned(),
             covariance: "s^2 (J^T J)^-1 with s^2 the reduced chi-square".to_owned(),
         },
@@ -328,7 +353,7 @@ pub fn document(
                 .map(|a| r.correlation[a * nf..(a + 1) * nf].to_vec())
                 .collect(),
         },
-        warnings: r.warnings.clone(),
+        warnings: r.warnings.iter().map(ToString::to_string).collect(),
         short_circuit: short.map(|s| ShortCircuitEntry {
             ocv_v: s.ocv,
             short_circuit_current_a: s.short_circuit_current.value,

@@ -18,6 +18,7 @@
 //!
 //! Flags are engineering hints to guide the analyst, not safety verdicts; each carries that caution.
 
+use crate::derive::{QuantityKey, is_arc_column, quantity_of_column};
 use serde::Serialize;
 
 /// One record: a fitted spectrum of a cell.
@@ -169,16 +170,12 @@ pub struct TrendReport {
     pub flags: Vec<Flag>,
 }
 
-/// How a quantity column is read for flags.
+/// What a growing quantity column is flagged as: the battery quantity's flag from its table row, and
+/// interface growth for an arc's resistance.
 fn quantity_kind(name: &str) -> Option<FlagKind> {
-    if name.starts_with("ohmic_resistance") {
-        Some(FlagKind::OhmicGrowth)
-    } else if name.starts_with("charge_transfer_resistance") || name.starts_with("arc_") {
-        Some(FlagKind::InterfaceGrowth)
-    } else if name.starts_with("diffusion_resistance") {
-        Some(FlagKind::TransportGrowth)
-    } else {
-        None
+    match quantity_of_column(name) {
+        Some(q) => q.flag,
+        None => is_arc_column(name).then_some(FlagKind::InterfaceGrowth),
     }
 }
 
@@ -426,10 +423,10 @@ fn value(r: &Record, name: &str) -> Option<f64> {
 
 /// Polarisation resistance (total minus ohmic) of a record.
 fn polarisation(r: &Record) -> Option<f64> {
-    let ohmic = value(r, "ohmic_resistance_ohm")?;
-    let total = value(r, "dc_resistance_ohm").or_else(|| {
-        let ct = value(r, "charge_transfer_resistance_ohm").unwrap_or(0.0);
-        let d = value(r, "diffusion_resistance_ohm").unwrap_or(0.0);
+    let ohmic = value(r, QuantityKey::Ohmic.column())?;
+    let total = value(r, QuantityKey::Dc.column()).or_else(|| {
+        let ct = value(r, QuantityKey::ChargeTransfer.column()).unwrap_or(0.0);
+        let d = value(r, QuantityKey::Diffusion.column()).unwrap_or(0.0);
         Some(ohmic + ct + d)
     })?;
     Some(total - ohmic)

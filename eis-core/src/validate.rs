@@ -23,30 +23,39 @@
 //!
 //! # Choice of M: how it differs from the paper
 //!
-//! The paper keeps the first M with μ < c. Here:
+//! The paper keeps the first M with μ < c. On smooth consistent spectra that stops too early: with a
+//! coarse grid of τₖ, negative Rₖ also appear while the model still under-fits (a sharp time constant
+//! between two grid points is interpolated with both signs), so μ dips at 7–13 elements over six
+//! decades and leaves residuals of 0.4–3 % on physics-model spectra, ideal RC arcs and depressed arcs.
+//! The question of the linear test is whether *some* Kramers–Kronig-consistent model fits the data
+//! within their noise (Boukamp 1995, J. Electrochem. Soc. 142, 1885–1894); μ is kept as the guard
+//! against reaching the data only by over-fitting. Here:
 //!
-//! - **Patience.** With a coarse grid of τₖ, negative Rₖ also appear while the model still under-fits
-//!   (a sharp time constant between two grid points is interpolated with both signs), so an early dip
-//!   of μ is not a reliable sign of over-fitting; noise-free spectra of an ideal RC arc, depressed arcs
-//!   and diffusion stopped at residuals of 1–5 % with the paper's rule. M is raised until μ has stayed
-//!   below c for five successive M (the over-fitting regime) and some fit with μ ≥ c already passes
-//!   the verdict below, or until M reaches its cap.
-//! - **Kept fit.** The fit kept is the one with the smallest weighted residual among those with
-//!   μ ≥ c, i.e. the best fit that μ does not mark as over-fitted (the paper keeps the M just before
-//!   μ drops, which is usually the same or a neighbouring M).
-//! - **Cap.** M ≤ N/2 by default ([`KkOptions::max_elements`]): the grid then has at most one time
-//!   constant per two points, well beyond where μ drops for the spectra tried (M ≈ 15–30 for 71 points
-//!   over 7 decades), and it bounds the work for spectra that fail, for which the search always runs
-//!   to the cap. Earlier the cap was N. Whatever the options, M ≤ [`MAX_ELEMENTS`]: the work is
-//!   O(N·M) in memory and O(N·M²) in time for the whole search, so a spectrum of 100,000 points
-//!   needs tens of megabytes, not the N² of a cap that grows with N.
+//! - **Smallest passing M.** M is raised from 1; the first fit with μ ≥ c that passes the verdict
+//!   below is kept. A fit that needs alternating signs (μ < c) is never kept.
+//! - **Improvement beyond the noise.** Larger M then replace it only when they pass too and lower the
+//!   weighted sum of squares by more than fitting noise would, (q + 3√(2q))·σ̂² for q more elements
+//!   (σ̂ the scatter below); the search ends ten elements after the last such gain. Noisy
+//!   spectra stay near their first passing M; noise-free ones are fitted far below the limits.
+//! - **c = 0.5** by default (the paper's 0.85 is for its own stopping rule): consistent spectra pass
+//!   at μ between 0.5 and 1 (physics-model spectra, RC arcs at 6–7 points per decade), while the fits
+//!   that would absorb a drift or corrupted points have μ below 0.4 in the tests.
+//! - **Grid.** The τₖ are log-spaced from 1/ω_max lowered by half a decade (a process faster than the
+//!   highest frequency still shapes the highest points) to 1/ω_min, as in the paper at that end (an open
+//!   tail there is the series capacitance's job, and slower τₖ would let the fit follow a drift that
+//!   builds up at the end of a sweep from high to low frequency).
+//! - **Leverage.** A point's residual is judged standardised by its leverage h (e/√(1 − h), the hat
+//!   matrix of the linear fit), so that edge points, which the fit can follow more closely, are judged
+//!   like interior ones.
+//! - **Failing spectra.** When no M up to the cap passes, the report shows the best fit (smallest χ²)
+//!   with μ ≥ c, whose residuals locate the fault.
+//! - **Cap.** M ≤ N/2 by default ([`KkOptions::max_elements`]), and whatever the options,
+//!   M ≤ [`MAX_ELEMENTS`]: the work is O(N·M) in memory and O(N·M²) in time for the whole search, so a
+//!   spectrum of 100,000 points needs tens of megabytes.
 //! - **Scale.** The problem is solved on Z divided by the geometric mean of |Zᵢ|, so spectra from
 //!   10⁻³⁰⁰ to 10³⁰⁰ Ω give the same verdict and the same relative results.
 //! - **Too short.** Spectra of fewer than [`MIN_POINTS`] points are an error
 //!   ([`KkError::TooFewPoints`]), not a verdict.
-//!
-//! The patience rule is kept because it is what lets exact Voigt series and an ideal RC arc pass
-//! noise-free; its cost is now small (each M costs O(N·M), see `validate/solve.rs`).
 //!
 //! The residuals relative to |Z|, Δ′ᵢ = (Z′ᵢ − Ẑ′ᵢ)/|Zᵢ| and Δ″ᵢ = (Z″ᵢ − Ẑ″ᵢ)/|Zᵢ|, then
 //! decide the verdict.
@@ -59,9 +68,9 @@
 //! 3σ = 1.5 %. So the limits here are set against the residuals' own scatter, with fixed floors taken
 //! from the rule of thumb. Three tests, each of which makes a spectrum *suspect*:
 //!
-//! 1. **Points** (outliers, corrupted points): a point fails when its |Δ′| or |Δ″| exceeds both the
-//!    floor [`KkOptions::max_residual_percent`] (default 1 %) and [`KkOptions::outlier_factor`]
-//!    (default 5) times the scatter σ̂. σ̂ is estimated from differences of neighbouring residuals
+//! 1. **Points** (outliers, corrupted points): a point fails when its |Δ′| or |Δ″| exceeds the
+//!    floor [`KkOptions::max_residual_percent`] (default 1 %) and, divided by √(1 − h), also
+//!    [`KkOptions::outlier_factor`] (default 5) times the scatter σ̂. σ̂ is estimated from differences of neighbouring residuals
 //!    in frequency order, median |Δᵢ₊₁ − Δᵢ|/(0.6745·√2), so that neither a smooth misfit nor a few
 //!    bad points inflate it (the successive-difference estimate of von Neumann et al. 1941 in a
 //!    median form; common practice). For Gaussian noise the chance that any of 142 residuals exceeds
@@ -122,7 +131,8 @@ pub enum Tail {
 /// Settings of the test.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct KkOptions {
-    /// μ threshold c: fits with μ below it count as over-fitted (default 0.85, from the paper).
+    /// μ threshold c: fits with μ below it count as over-fitted and are never kept (default 0.5; the
+    /// paper's 0.85 belongs to its own stopping rule, see the module docs).
     pub mu_threshold: f64,
     /// A fixed number of elements instead of the μ search (default: none; capped at [`MAX_ELEMENTS`]).
     pub elements: Option<usize>,
@@ -150,7 +160,7 @@ pub struct KkOptions {
 impl Default for KkOptions {
     fn default() -> Self {
         KkOptions {
-            mu_threshold: 0.85,
+            mu_threshold: 0.5,
             elements: None,
             max_elements: None,
             capacitance: Tail::Auto,
@@ -230,8 +240,8 @@ pub struct KkReport {
     pub failed: KkFailures,
     /// μ of the chosen fit, finite: at least [`MU_FLOOR`].
     pub mu: f64,
-    /// Whether the search ended in the over-fitting regime (μ below c for five successive M, with a
-    /// fit within the limits found) rather than at the largest M allowed.
+    /// Whether the automatic search found a fit with μ ≥ c that passes (always true for a fixed M);
+    /// false for a suspect spectrum, whose report shows the best fit with μ ≥ c.
     pub mu_reached: bool,
     /// Number of Voigt elements M.
     pub elements: usize,
@@ -276,8 +286,69 @@ pub struct KkReport {
 /// make up the suspect range of a trend.
 const TREND_RANGE_FACTOR: f64 = 1.0;
 
-/// Successive M with μ below c that end the search.
-const PATIENCE: usize = 5;
+/// Elements tried beyond the kept fit without a significant improvement before the search ends.
+const PATIENCE: usize = 10;
+
+/// Rows (2N) above which the leverages are not computed (see [`kramers_kronig`]).
+const LEVERAGE_MAX_ROWS: usize = 20_000;
+
+/// The automatic choice of M (module docs): the smallest M whose fit has μ ≥ c and passes the
+/// verdict (judged first without leverages, which is cheap and never stricter, then with them),
+/// replaced by larger passing M that improve χ² beyond the noise. Returns that M and true; when no
+/// M up to `m_max` passes, the M of the best fit (smallest χ²) among those with μ ≥ c, or 1 if none
+/// has, and false.
+fn search(
+    ws: &mut Workspace,
+    h: &mut [f64],
+    n: usize,
+    m_max: usize,
+    order: &[usize],
+    options: &KkOptions,
+    buf: &mut Vec<f64>,
+) -> (usize, bool) {
+    // The passing fit kept so far (M, χ²), and the best fit with μ ≥ c for a failing spectrum.
+    let mut kept: Option<(usize, f64)> = None;
+    let mut best: Option<(usize, f64)> = None;
+    let fixed = ws.fixed();
+    for m in 1..=m_max {
+        if kept.is_some_and(|(k, _)| m > k + PATIENCE) {
+            break;
+        }
+        let f = ws.fit(m);
+        if f.mu < options.mu_threshold {
+            continue;
+        }
+        if best.is_none_or(|(_, chi2)| f.chi2 < chi2) {
+            best = Some((m, f.chi2));
+        }
+        let (re, im) = ws.r.split_at(n);
+        let (stats, failures) = judge(re, im, &[], order, options, buf);
+        if failures.any() {
+            continue;
+        }
+        // Beyond the first passing fit, a larger M must improve on the kept one by more than fitting
+        // noise would: q more unknowns lower χ² by about q·σ² on noise alone (χ² with q degrees of
+        // freedom, mean q, standard deviation √(2q)), so the gain must exceed (q + 3√(2q))·σ̂²
+        // (the χ² test of an added term in linear least squares; Bevington & Robinson 2003, "Data
+        // Reduction and Error Analysis for the Physical Sciences", ch. 11, from memory).
+        if let Some((k, chi2)) = kept {
+            let q = (m - k) as f64;
+            let noise = (q + 3.0 * (2.0 * q).sqrt()) * stats.scatter * stats.scatter;
+            if chi2 - f.chi2 <= noise {
+                continue;
+            }
+        }
+        ws.leverage(fixed + m, h);
+        let (re, im) = ws.r.split_at(n);
+        if !judge(re, im, h, order, options, buf).1.any() {
+            kept = Some((m, f.chi2));
+        }
+    }
+    match kept {
+        Some((m, _)) => (m, true),
+        None => (best.map_or(1, |(m, _)| m), false),
+    }
+}
 
 /// Default cap of the μ search: half the number of points (see the module docs).
 fn default_max_elements(n: usize) -> usize {
@@ -361,51 +432,23 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         .saturating_sub(design.fixed())
         .clamp(1, MAX_ELEMENTS);
     let mut buf = Vec::with_capacity(2 * n);
-    let (chosen, mu_reached) = match options.elements {
-        Some(m) => {
-            let m = m.clamp(1, m_cap);
-            (Workspace::new(&w, &z, design, m).fit(m), true)
-        }
-        None => {
-            let m_max = options
-                .max_elements
-                .unwrap_or(default_max_elements(n))
-                .clamp(1, m_cap);
-            let mut ws = Workspace::new(&w, &z, design, m_max);
-            // Raise M until μ has stayed below c for PATIENCE successive M and a fit with μ ≥ c passes
-            // (or M is at its cap); keep the best fit among those with μ ≥ c.
-            let mut best: Option<(Fit, bool)> = None;
-            let mut first: Option<Fit> = None;
-            let mut run = 0;
-            let mut reached = false;
-            for m in 1..=m_max {
-                let f = ws.fit(m);
-                if f.mu >= options.mu_threshold {
-                    run = 0;
-                    if best.as_ref().is_none_or(|(b, _)| f.chi2 < b.chi2) {
-                        let (re, im) = ws.r.split_at(n);
-                        let passes = !judge(re, im, &order, options, &mut buf).1.any();
-                        best = Some((f, passes));
-                    }
-                } else {
-                    run += 1;
-                    if first.is_none() {
-                        first = Some(f);
-                    }
-                    if run >= PATIENCE && best.as_ref().is_some_and(|b| b.1) {
-                        reached = true;
-                        break;
-                    }
-                }
-            }
-            match (best, first) {
-                (Some((b, _)), _) => (b, reached),
-                (None, Some(f)) => (f, reached),
-                // m_max ≥ 1, so the loop ran at least once; kept total all the same.
-                (None, None) => (ws.fit(1), reached),
-            }
-        }
+    let m_max = match options.elements {
+        Some(m) => m.clamp(1, m_cap),
+        None => options
+            .max_elements
+            .unwrap_or(default_max_elements(n))
+            .clamp(1, m_cap),
     };
+    let mut ws = Workspace::new(&w, &z, design, m_max);
+    // Leverages of the 2N rows; left at zero (no correction) for very long spectra, where they are
+    // all tiny (p/2N on average) and computing them for each candidate M would cost O(N·M²).
+    let mut h = vec![0.0; if 2 * n <= LEVERAGE_MAX_ROWS { 2 * n } else { 0 }];
+    let (m, mu_reached) = match options.elements {
+        Some(_) => (m_max, true),
+        None => search(&mut ws, &mut h, n, m_max, &order, options, &mut buf),
+    };
+    let chosen = ws.fit(m);
+    ws.leverage(design.fixed() + m, &mut h);
     let m = chosen.taus.len();
     let mut residual_re = Vec::with_capacity(n);
     let mut residual_im = Vec::with_capacity(n);
@@ -414,19 +457,20 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         residual_re.push(d.re);
         residual_im.push(d.im);
     }
-    let (stats, failures) = judge(&residual_re, &residual_im, &order, options, &mut buf);
+    let (stats, failures) = judge(&residual_re, &residual_im, &h, &order, options, &mut buf);
     let worst = |i: usize| residual_re[i].abs().max(residual_im[i].abs());
     let max = (0..n).map(worst).fold(0.0, f64::max);
-    let over = |limit: f64| -> Option<(f64, f64)> {
-        let mut range: Option<(f64, f64)> = None;
-        for i in (0..n).filter(|&i| worst(i) > limit) {
+    let range = |points: &mut dyn Iterator<Item = usize>| -> Option<(f64, f64)> {
+        points.fold(None, |range, i| {
             let f = s.frequency_hz[i];
-            range = Some(range.map_or((f, f), |(a, b)| (a.min(f), b.max(f))));
-        }
-        range
+            Some(range.map_or((f, f), |(a, b): (f64, f64)| (a.min(f), b.max(f))))
+        })
     };
+    let over = |limit: f64| range(&mut (0..n).filter(|&i| worst(i) > limit));
     let suspect = if failures.points {
-        over(stats.point_limit)
+        range(&mut (0..n).filter(|&i| {
+            verdict::outlier(&residual_re, &residual_im, &h, i, options, stats.scatter)
+        }))
     } else if failures.trend {
         over(TREND_RANGE_FACTOR * stats.systematic.max(stats.scatter))
     } else if failures.rms {

@@ -6,7 +6,7 @@
 use eis_core::Spectrum;
 use eis_core::circuit::parse;
 use eis_core::eval::{Plan, log_frequencies};
-use eis_core::fit::{FitError, FitSettings, fit};
+use eis_core::fit::{BoundSide, FitError, FitSettings, FitWarning, fit};
 use eis_core::simulate::simulate;
 use eis_core::spectrum::PointRef;
 use num_complex::Complex64;
@@ -190,12 +190,23 @@ fn a_parameter_at_its_bound_is_named_once() {
     let data = spectrum();
     let c = parse("R0 + Rct|Qdl{n=0.7 0.5..0.8}").unwrap();
     let r = fit(&c, &data, &FitSettings::default(), None).unwrap();
-    assert!(
-        r.warnings
-            .iter()
-            .any(|w| w == "Qdl.n sits at its upper bound 0.8: the optimum may lie beyond it"),
-        "{:?}",
-        r.warnings
+    let w = r
+        .warnings
+        .iter()
+        .find(|w| matches!(w, FitWarning::AtBound { .. }))
+        .expect("an at-bound warning");
+    assert_eq!(
+        w,
+        &FitWarning::AtBound {
+            parameter: "Qdl.n".into(),
+            side: BoundSide::Upper,
+            bound: 0.8,
+            unit: "1".into(),
+        }
+    );
+    assert_eq!(
+        w.to_string(),
+        "Qdl.n sits at its upper bound 0.8: the optimum may lie beyond it"
     );
 }
 

@@ -4,8 +4,9 @@ use crate::io::{Failure, Outcome};
 use crate::reader_args::ReaderArgs;
 use anyhow::anyhow;
 use eis_core::import::{FileWarnings, SpectrumReader};
-use eis_core::validate::{KkOptions, KkReport, Tail, kramers_kronig};
-use serde_json::{Value, json};
+use eis_core::spectrum::MetaValue;
+use eis_core::validate::{KkFailures, KkOptions, KkReport, Tail, kramers_kronig};
+use std::collections::BTreeMap;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
@@ -29,7 +30,7 @@ pub struct Args {
     #[arg(long)]
     json: bool,
     /// μ threshold: fits with μ below it count as over-fitted.
-    #[arg(allow_negative_numbers = true, long, default_value_t = 0.85, value_parser = parse_fraction)]
+    #[arg(allow_negative_numbers = true, long, default_value_t = 0.5, value_parser = parse_fraction)]
     mu: f64,
     /// Per-point floor, % of |Z|: a point within it is never flagged.
     #[arg(allow_negative_numbers = true, long, default_value_t = 1.0, value_parser = parse_percent)]
@@ -120,20 +121,21 @@ fn short(x: f64) -> String {
 /// JSON documents written as they come: one document alone, several as an array, so memory does not
 /// grow with the number of spectra.
 struct JsonOut {
-    first: Option<Value>,
+    first: Option<String>,
     count: usize,
 }
 
 impl JsonOut {
-    fn push(&mut self, v: Value) -> Result<(), Failure> {
+    fn push(&mut self, doc: &Document) -> Result<(), Failure> {
+        let v = pretty(doc)?;
         self.count += 1;
         match self.count {
             1 => self.first = Some(v),
             2 => {
-                let first = self.first.take().unwrap_or(Value::Null);
-                emit(&format!("[\n{},\n{}", pretty(&first)?, pretty(&v)?))?;
+                let first = self.first.take().unwrap_or_default();
+                emit(&format!("[\n{first},\n{v}"))?;
             }
-            _ => emit(&format!(",\n{}", pretty(&v)?))?,
+            _ => emit(&format!(",\n{v}"))?,
         }
         Ok(())
     }
@@ -141,13 +143,13 @@ impl JsonOut {
     fn finish(self) -> Result<(), Failure> {
         match (self.count, self.first) {
             (0, _) => emit("[]\n"),
-            (1, Some(v)) => emit(&format!("{}\n", pretty(&v)?)),
+            (1, Some(v)) => emit(&format!("{v}\n")),
             _ => emit("\n]\n"),
         }
     }
 }
 
-fn pretty(v: &Value) -> Result<String, Failure> {
+fn pretty(v: &Document) -> Result<String, Failure> {
     serde_json::to_string_pretty(v).map_err(|e| Failure::Failed(anyhow!("cannot write JSON: {e}")))
 }
 
@@ -155,33 +157,66 @@ fn emit(text: &str) -> Result<(), Failure> {
     crate::io::print(text)
 }
 
-fn document(file: &str, s: &eis_core::Spectrum, r: &KkReport) -> Value {
-    let meta: serde_json::Map<String, Value> = s
-        .meta
-        .fields
-        .iter()
-        .map(|(k, v)| (k.clone(), serde_json::to_value(v).unwrap_or(Value::Null)))
-        .collect();
-    json!({
-        "file": file,
-        "spectrum": s.meta.spectrum,
-        "valid": r.valid,
-        "mu": r.mu,
-        "elements": r.elements,
-        "residual_rms_percent": r.residual_rms_percent,
-        "residual_max_percent": r.residual_max_percent,
-        "suspect_frequency_range_hz": r.suspect_frequency_range_hz.map(|(a, b)| vec![a, b]),
-        "failed": r.failed,
-        "residual_scatter_percent": r.residual_scatter_percent,
-        "residual_systematic_percent": r.residual_systematic_percent,
-        "runs_z": r.runs_z,
-        "point_limit_percent": r.point_limit_percent,
-        "points": s.len(),
-        "series_capacitance_f": r.capacitance,
-        "series_inductance_h": r.inductance,
-        "max_residual_percent_limit": r.max_residual_percent,
-        "rms_residual_percent_limit": r.rms_residual_percent,
-        "metadata": meta,
+/// The JSON document of one spectrum: its report, or why it could not be checked. Keys in
+/// alphabetical order, as the documents have always been written.
+#[derive(serde::Serialize)]
+#[serde(untagged)]
+enum Document<'a> {
+    Report(ReportDocument<'a>),
+    Error {
+        error: String,
+        file: &'a str,
+        spectrum: Option<usize>,
+        valid: bool,
+    },
+}
+
+/// The checked spectrum: the [`KkReport`] fields a reader needs, named with their units.
+#[derive(serde::Serialize)]
+struct ReportDocument<'a> {
+    elements: usize,
+    failed: KkFailures,
+    file: &'a str,
+    max_residual_percent_limit: f64,
+    metadata: BTreeMap<&'a str, &'a MetaValue>,
+    mu: f64,
+    point_limit_percent: f64,
+    points: usize,
+    residual_max_percent: f64,
+    residual_rms_percent: f64,
+    residual_scatter_percent: f64,
+    residual_systematic_percent: f64,
+    rms_residual_percent_limit: f64,
+    runs_z: f64,
+    series_capacitance_f: Option<f64>,
+    series_inductance_h: Option<f64>,
+    spectrum: usize,
+    suspect_frequency_range_hz: Option<[f64; 2]>,
+    valid: bool,
+}
+
+fn document<'a>(file: &'a str, s: &'a eis_core::Spectrum, r: &KkReport) -> Document<'a> {
+    Document::Report(ReportDocument {
+        elements: r.elements,
+        failed: r.failed,
+        file,
+        max_residual_percent_limit: r.max_residual_percent,
+        // A repeated key keeps its last value, as the documents always did.
+        metadata: s.meta.fields.iter().map(|(k, v)| (k.as_str(), v)).collect(),
+        mu: r.mu,
+        point_limit_percent: r.point_limit_percent,
+        points: s.len(),
+        residual_max_percent: r.residual_max_percent,
+        residual_rms_percent: r.residual_rms_percent,
+        residual_scatter_percent: r.residual_scatter_percent,
+        residual_systematic_percent: r.residual_systematic_percent,
+        rms_residual_percent_limit: r.rms_residual_percent,
+        runs_z: r.runs_z,
+        series_capacitance_f: r.capacitance,
+        series_inductance_h: r.inductance,
+        spectrum: s.meta.spectrum,
+        suspect_frequency_range_hz: r.suspect_frequency_range_hz.map(|(a, b)| [a, b]),
+        valid: r.valid,
     })
 }
 
@@ -209,7 +244,12 @@ pub fn run(args: Args) -> Outcome {
     let report_error = |docs: &mut JsonOut, file: &str, spectrum: Option<usize>, msg: String| {
         eprintln!("error: {msg}");
         if json {
-            docs.push(json!({"file": file, "spectrum": spectrum, "valid": false, "error": msg}))
+            docs.push(&Document::Error {
+                error: msg,
+                file,
+                spectrum,
+                valid: false,
+            })
         } else {
             Ok(())
         }
@@ -281,7 +321,7 @@ pub fn run(args: Args) -> Outcome {
                         }
                         emit(&format!("{line}\n"))?;
                     } else {
-                        docs.push(document(&file, &s, &r))?;
+                        docs.push(&document(&file, &s, &r))?;
                     }
                 }
             }

@@ -3,7 +3,7 @@
 use crate::format::{quantity, short, table, with_error, with_error_plain};
 use crate::io::{Failure, Outcome, apply_overrides, bad, load_model, read_spectra, write_output};
 use anyhow::anyhow;
-use eis_core::derive::{SHORT_CIRCUIT_CAUTION, derive, short_circuit};
+use eis_core::derive::{QUANTITIES, QuantityKey, SHORT_CIRCUIT_CAUTION, derive, short_circuit};
 use eis_core::fit::{FitError, FitResult, FitSettings, Weighting, fit};
 use eis_core::number::format_float;
 use eis_core::report::{FitDocument, document};
@@ -419,36 +419,15 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
             q.push(vec![name.to_owned(), with_error(v, se), unit.to_owned()]);
         }
     };
-    push(
-        "ohmic resistance",
-        d.ohmic_resistance_ohm,
-        d.ohmic_resistance_ohm_stderr,
-        "Ohm",
-    );
-    push(
-        "charge-transfer (interface) resistance",
-        d.charge_transfer_resistance_ohm,
-        d.charge_transfer_resistance_ohm_stderr,
-        "Ohm",
-    );
-    push(
-        "diffusion resistance",
-        d.diffusion_resistance_ohm,
-        d.diffusion_resistance_ohm_stderr,
-        "Ohm",
-    );
-    push(
-        "Warburg coefficient",
-        d.warburg_sigma_ohm_s_half,
-        d.warburg_sigma_ohm_s_half_stderr,
-        "Ohm s^-1/2",
-    );
-    push(
-        "DC resistance",
-        d.dc_resistance_ohm,
-        d.dc_resistance_ohm_stderr,
-        "Ohm",
-    );
+    for row in QUANTITIES {
+        let v = d.get(row.key);
+        push(
+            row.label,
+            v.map(|v| v.value),
+            v.and_then(|v| v.stderr),
+            row.unit_ascii,
+        );
+    }
     if let Some(sc) = &doc.short_circuit {
         push(
             "short-circuit current (estimate)",
@@ -469,7 +448,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
     {
         let _ = writeln!(out, "  {line}");
     }
-    if doc.derived.dc_resistance_ohm.is_none() {
+    if doc.derived.value(QuantityKey::Dc).is_none() {
         out.push_str("  (no finite DC resistance: the model blocks direct current)\n");
     }
     if !d.arcs.is_empty() {

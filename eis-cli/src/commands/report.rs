@@ -8,7 +8,7 @@ use crate::io::{Failure, Outcome, bad, write_atomic};
 use crate::plot::{Format, OverlayPlot, OverlaySpectrum, Plot, render};
 use anyhow::anyhow;
 use eis_core::Circuit;
-use eis_core::campaign::{SpectrumResult, Status};
+use eis_core::campaign::{SpectrumResult, Status, results_quantities};
 use eis_core::import::{ReaderOptions, SpectrumReader};
 use eis_core::trend::{FLAG_CAUTION, TrendReport, TrendSettings};
 use std::collections::BTreeMap;
@@ -287,7 +287,11 @@ pub fn write_report(
     h.push_str("<h2>Cells</h2>\n");
     for (cell, rs) in &cells {
         let _ = writeln!(h, "<h3>Cell {}</h3>", esc(cell));
-        h.push_str("<table><tr><th>file</th><th>cycle</th><th>SOC</th><th>status</th><th>ohmic (Ω)</th><th>interface (Ω)</th><th>diffusion (Ω)</th><th>DC (Ω)</th><th>note</th></tr>\n");
+        h.push_str("<table><tr><th>file</th><th>cycle</th><th>SOC</th><th>status</th>");
+        for q in results_quantities() {
+            let _ = write!(h, "<th>{} ({})</th>", q.short, q.unit);
+        }
+        h.push_str("<th>note</th></tr>\n");
         let mut sorted = rs.clone();
         sorted.sort_by(|a, b| {
             meta_num(a, "cycle")
@@ -301,13 +305,13 @@ pub fn write_report(
         });
         for r in &sorted {
             let d = r.fit.as_ref().map(|f| &f.derived);
-            let cellv = |v: Option<f64>, se: Option<f64>| match v {
-                Some(v) => crate::format::with_error(v, se),
+            let cellv = |v: Option<eis_core::derive::Quantity>| match v {
+                Some(v) => crate::format::with_error(v.value, v.stderr),
                 None => "-".into(),
             };
-            let _ = writeln!(
+            let _ = write!(
                 h,
-                "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td>",
                 esc(Path::new(&r.file)
                     .file_name()
                     .map(|n| n.to_string_lossy().into_owned())
@@ -321,24 +325,12 @@ pub fn write_report(
                     .unwrap_or_default(),
                 r.status.as_str(),
                 r.status.as_str(),
-                cellv(
-                    d.and_then(|d| d.ohmic_resistance_ohm),
-                    d.and_then(|d| d.ohmic_resistance_ohm_stderr)
-                ),
-                cellv(
-                    d.and_then(|d| d.charge_transfer_resistance_ohm),
-                    d.and_then(|d| d.charge_transfer_resistance_ohm_stderr)
-                ),
-                cellv(
-                    d.and_then(|d| d.diffusion_resistance_ohm),
-                    d.and_then(|d| d.diffusion_resistance_ohm_stderr)
-                ),
-                cellv(
-                    d.and_then(|d| d.dc_resistance_ohm),
-                    d.and_then(|d| d.dc_resistance_ohm_stderr)
-                ),
-                esc(&r.message)
             );
+            for q in results_quantities() {
+                let v = d.and_then(|d| d.get(q.key));
+                let _ = write!(h, "<td>{}</td>", cellv(v));
+            }
+            let _ = writeln!(h, "<td>{}</td></tr>", esc(&r.message));
         }
         h.push_str("</table>\n");
         // Nyquist overlay of the cell's spectra at one SOC level (the one nearest 50 %), coloured by cycle.

@@ -3,6 +3,7 @@
 use crate::format::quantity;
 use crate::io::{Failure, Outcome, bad, write_atomic, write_output};
 use anyhow::anyhow;
+use eis_core::derive::{is_arc_column, quantity_of_column};
 use eis_core::trend::{
     FLAG_CAUTION, TrendReport, TrendSettings, analyse, read_results_csv, trends_csv,
 };
@@ -53,10 +54,7 @@ pub struct Args {
 pub fn default_quantities(available: &[String]) -> Vec<String> {
     available
         .iter()
-        .filter(|q| {
-            eis_core::campaign::QUANTITY_COLUMNS.contains(&q.as_str())
-                || (q.starts_with("arc_") && q.ends_with("_resistance_ohm"))
-        })
+        .filter(|q| quantity_of_column(q).is_some_and(|row| row.in_results) || is_arc_column(q))
         .cloned()
         .collect()
 }
@@ -195,6 +193,9 @@ pub fn trend_plot(report: &TrendReport, q: &str) -> crate::plot::Plot {
 
 /// Axis label and unit of a results column.
 pub fn quantity_label(q: &str) -> (String, String) {
+    if let Some(row) = quantity_of_column(q) {
+        return (row.axis.to_owned(), row.unit.to_owned());
+    }
     let (base, unit) = if let Some(b) = q.strip_suffix("_ohm") {
         (b, "Ω")
     } else {

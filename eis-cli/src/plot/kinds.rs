@@ -29,45 +29,9 @@ pub fn scene(plot: &Plot, width: f64, height: f64) -> Scene {
     sc
 }
 
-/// Indices of interior local maxima of `y` whose topographic prominence is at least
-/// `min_prominence`; non-finite values act as barriers.
-fn prominent_maxima(y: &[f64], min_prominence: f64) -> Vec<usize> {
-    let n = y.len();
-    let mut out = Vec::new();
-    for i in 1..n.saturating_sub(1) {
-        let (before, after) = (y[i - 1], y[i + 1]);
-        if !y[i].is_finite() || before.is_nan() || after.is_nan() || y[i] <= before || y[i] < after
-        {
-            continue;
-        }
-        // Lowest value between the peak and the nearest higher point on one side (an equal point
-        // counts as higher on the left, so a flat double top is one peak).
-        let side = |range: &mut dyn Iterator<Item = usize>, equal_is_higher: bool| -> Option<f64> {
-            let mut lowest = y[i];
-            for j in range {
-                if !y[j].is_finite() {
-                    break;
-                }
-                if y[j] > y[i] || (equal_is_higher && y[j] == y[i]) {
-                    return Some(lowest);
-                }
-                lowest = lowest.min(y[j]);
-            }
-            Some(lowest)
-        };
-        let left = side(&mut (0..i).rev(), true);
-        let right = side(&mut (i + 1..n), false);
-        if let (Some(l), Some(r)) = (left, right) {
-            if y[i] - l.max(r) >= min_prominence {
-                out.push(i);
-            }
-        }
-    }
-    out
-}
-
-/// Apexes of the arcs of a spectrum (prominent maxima of −Z″ along frequency), annotated with their
-/// characteristic frequency, e.g. `1.2 kHz`.
+/// Apexes of the arcs of a spectrum (peaks of −Z″ along frequency, by the library's one peak rule,
+/// [`eis_core::drt::peak_indices`], at 5 % of the largest −Z″), annotated with their characteristic
+/// frequency, e.g. `1.2 kHz`.
 pub fn arc_apexes(freq: &[f64], z: &[Complex64]) -> Vec<Annotation> {
     let mut pts: Vec<(f64, Complex64)> = freq
         .iter()
@@ -83,7 +47,7 @@ pub fn arc_apexes(freq: &[f64], z: &[Complex64]) -> Vec<Annotation> {
     if r.hi <= 0.0 {
         return Vec::new();
     }
-    prominent_maxima(&y, 0.05 * r.hi)
+    eis_core::drt::peak_indices(&y, 0.05)
         .into_iter()
         .filter(|&i| y[i] > 0.0)
         .map(|i| Annotation {
@@ -93,25 +57,15 @@ pub fn arc_apexes(freq: &[f64], z: &[Complex64]) -> Vec<Annotation> {
         .collect()
 }
 
-/// Prominent peaks of a DRT (at least 2 % of the largest γ above their surroundings).
+/// Peaks of a DRT read back without its peak table: the library's peak finder
+/// ([`eis_core::drt::find_peaks`]) at its default threshold, the rule `eis drt` reports by. The
+/// measured window is unknown here, so no peak is marked as being at its edge.
 pub fn drt_peaks(tau: &[f64], gamma: &[f64]) -> Vec<DrtPeak> {
-    let mut pts: Vec<(f64, f64)> = tau
-        .iter()
-        .zip(gamma)
-        .filter(|(t, g)| axis::usable_log(**t) && axis::usable(**g))
-        .map(|(t, g)| (*t, *g))
-        .collect();
-    pts.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let g: Vec<f64> = pts.iter().map(|p| p.1).collect();
-    let top = g.iter().copied().fold(0.0, f64::max);
-    if top <= 0.0 {
-        return Vec::new();
-    }
-    prominent_maxima(&g, 0.02 * top)
+    eis_core::drt::find_peaks(tau, gamma, eis_core::drt::DEFAULT_PEAK_THRESHOLD, None)
         .into_iter()
-        .map(|i| DrtPeak {
-            tau: pts[i].0,
-            gamma: pts[i].1,
+        .map(|p| DrtPeak {
+            tau: p.tau_s,
+            gamma: p.gamma_ohm,
             label: None,
         })
         .collect()
@@ -673,17 +627,6 @@ fn trend(sc: &mut Scene, plot: &TrendPlot, s: &Sizes) {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn prominence_ignores_noise_bumps_and_edges() {
-        let y = [0.0, 1.0, 5.0, 4.9, 5.0, 3.0, 1.0, 2.0, 8.0];
-        // 5.0 at index 2 is a peak (prominence 4 over the valley at 1.0); the bump at 4 only rises
-        // 0.1 over 4.9; the rise at the end is an edge, not a peak.
-        assert_eq!(prominent_maxima(&y, 0.5), vec![2]);
-        assert!(prominent_maxima(&[], 0.1).is_empty());
-        assert!(prominent_maxima(&[1.0], 0.1).is_empty());
-        assert!(prominent_maxima(&[f64::NAN, 1.0, f64::NAN], 0.1).is_empty());
-    }
 
     #[test]
     fn equalize_gives_same_ohm_per_pixel() {

@@ -50,7 +50,7 @@ mod results;
 mod tests;
 
 pub use journal::{JOURNAL, RunSettings, SETTINGS};
-pub use results::{QUANTITY_COLUMNS, finished, results_table};
+pub use results::{finished, results_quantities, results_table};
 
 use crate::circuit::Circuit;
 use crate::derive::derive;
@@ -334,10 +334,8 @@ fn process(
             if !r.converged {
                 problems.push(format!("fit did not converge ({})", r.termination));
             }
-            for w in &r.warnings {
-                if w.contains("bound") || w.contains("trend") {
-                    problems.push(w.clone());
-                }
+            for w in r.warnings.iter().filter(|w| w.marks_suspect()) {
+                problems.push(w.to_string());
             }
             let d = derive(circuit, &r);
             let mut doc = document(circuit, &r, &d, None);

@@ -7,6 +7,7 @@ use super::index::{Key, Names};
 use super::journal::{Loc, MetaSets, SettingsLine, Store, scan_jsonl};
 use super::{BatchError, Paths, SpectrumResult, Stage, Status, Summary, failed, io_err};
 use crate::circuit::Circuit;
+use crate::derive::{QUANTITIES, QuantityKind, arc_column};
 use crate::number::format_float;
 use crate::output::OutputFile;
 use std::collections::{BTreeSet, HashMap, HashSet};
@@ -132,13 +133,11 @@ fn num(v: Option<f64>) -> String {
         .unwrap_or_default()
 }
 
-/// The quantity columns of `results.csv`, in order, each followed by its `_stderr` column.
-pub const QUANTITY_COLUMNS: [&str; 4] = [
-    "ohmic_resistance_ohm",
-    "charge_transfer_resistance_ohm",
-    "diffusion_resistance_ohm",
-    "dc_resistance_ohm",
-];
+/// The battery quantities that are columns of `results.csv`, in order, each followed by its
+/// `_stderr` column.
+pub fn results_quantities() -> impl Iterator<Item = &'static QuantityKind> {
+    QUANTITIES.iter().filter(|q| q.in_results)
+}
 
 /// The columns of `results.csv`, known before the first row is written.
 pub(super) struct Table<'a> {
@@ -182,13 +181,14 @@ impl<'a> Table<'a> {
         let mut header: Vec<String> = vec!["file".into(), "spectrum".into()];
         header.extend(self.meta.iter().cloned());
         header.extend(["status", "message", "kk_valid"].map(String::from));
-        for q in QUANTITY_COLUMNS {
-            header.push(q.into());
-            header.push(format!("{q}_stderr"));
+        for q in results_quantities() {
+            header.push(q.column.into());
+            header.push(format!("{}_stderr", q.column));
         }
         for a in &self.arcs {
-            header.push(format!("arc_{a}_resistance_ohm"));
-            header.push(format!("arc_{a}_resistance_ohm_stderr"));
+            let column = arc_column(a);
+            let stderr = format!("{column}_stderr");
+            header.extend([column, stderr]);
         }
         for p in &self.circuit.params {
             header.push(p.name.clone());
@@ -220,26 +220,10 @@ impl<'a> Table<'a> {
                 .unwrap_or_default(),
         );
         let d = r.fit.as_ref().map(|f| &f.derived);
-        let pairs = [
-            d.map(|d| (d.ohmic_resistance_ohm, d.ohmic_resistance_ohm_stderr)),
-            d.map(|d| {
-                (
-                    d.charge_transfer_resistance_ohm,
-                    d.charge_transfer_resistance_ohm_stderr,
-                )
-            }),
-            d.map(|d| {
-                (
-                    d.diffusion_resistance_ohm,
-                    d.diffusion_resistance_ohm_stderr,
-                )
-            }),
-            d.map(|d| (d.dc_resistance_ohm, d.dc_resistance_ohm_stderr)),
-        ];
-        for p in pairs {
-            let (v, s) = p.unwrap_or((None, None));
-            row.push(num(v));
-            row.push(num(s));
+        for q in results_quantities() {
+            let v = d.and_then(|d| d.get(q.key));
+            row.push(num(v.map(|v| v.value)));
+            row.push(num(v.and_then(|v| v.stderr)));
         }
         for a in &self.arcs {
             let arc = d.and_then(|d| d.arcs.iter().find(|x| &x.resistor == a));

@@ -70,13 +70,14 @@ mod tests;
 
 pub use basis::{DrtSetup, gaussian_gram};
 pub use options::{DrtOptions, LambdaMethod, Part, Penalty, Weighting};
+pub use peaks::{DEFAULT_PEAK_THRESHOLD, EDGE_MARGIN_DECADES, find_peaks, peak_indices};
 
 use crate::nnls::Termination;
 use crate::spectrum::Spectrum;
 use lambda::Problem;
 use nalgebra::DVector;
 use num_complex::Complex64;
-use peaks::find_peaks;
+use peaks::peaks_on_grid;
 use std::f64::consts::PI;
 use std::fmt;
 
@@ -220,6 +221,10 @@ pub struct DrtPeak {
     /// Full width at half maximum in decades of τ; where γ does not fall to half before a valley, the
     /// valley bounds the width.
     pub width_decades: f64,
+    /// Whether the maximum lies at the edge of the measured window or beyond it (see
+    /// [`EDGE_MARGIN_DECADES`]): such a peak is produced by a process beyond the data, and its τ and
+    /// resistance are not those of a resolved process.
+    pub at_window_edge: bool,
 }
 
 /// One point of the λ scan.
@@ -438,7 +443,7 @@ impl DrtSetup {
 
         let gamma: Vec<f64> = (&self.grid_basis * &coef_v).iter().copied().collect();
         let r_pol = coef.iter().sum::<f64>() * PI.sqrt() / self.epsilon;
-        let peaks = find_peaks(&self.grid, &gamma, self.options.peak_threshold);
+        let peaks = peaks_on_grid(&self.grid, &gamma, self.options.peak_threshold, None);
         if ![r_inf, r_pol, l].iter().all(|v| v.is_finite()) || gamma.iter().any(|g| !g.is_finite())
         {
             return Err(DrtError::new(DrtErrorKind::Numerical(

@@ -132,7 +132,7 @@ impl Default for DrtOptions {
             grid_per_decade: 40,
             lambda_range: (1e-9, 1e1),
             scan_per_decade: 3,
-            peak_threshold: 0.05,
+            peak_threshold: super::DEFAULT_PEAK_THRESHOLD,
         }
     }
 }
@@ -195,9 +195,9 @@ impl DrtOptions {
     }
 
     /// A local maximum of γ counts as a peak when its height, and its rise above the higher of the
-    /// valleys that separate it from its neighbours, are both at least this fraction of the largest γ.
-    /// Default: 0.05 (small bumps that noise or the truncation of γ's tails at the ends of the measured
-    /// range produce stay below it). In [0, 1).
+    /// valleys that separate it from its neighbours, are both at least this fraction of the largest γ
+    /// (the rule is in the [peaks module](super::find_peaks)). Default:
+    /// [`DEFAULT_PEAK_THRESHOLD`](super::DEFAULT_PEAK_THRESHOLD). In [0, 1).
     pub fn with_peak_threshold(mut self, fraction: f64) -> Self {
         self.peak_threshold = fraction;
         self

@@ -528,3 +528,47 @@ fn degenerate_spectra_give_results_or_typed_errors() {
         assert!(r.r_inf_ohm.is_finite());
     }
 }
+
+#[test]
+fn peak_rule_ignores_noise_bumps_and_edges() {
+    // A double top merges into one peak (neither top rises 0.5 above the 4.9 between them); the rise
+    // at the end of the curve is an edge, not a peak.
+    let y = [0.0, 1.0, 5.0, 4.9, 5.0, 3.0, 1.0, 2.0, 8.0];
+    assert_eq!(peak_indices(&y, 0.5 / 8.0), vec![4]);
+    assert!(peak_indices(&[], 0.1).is_empty());
+    assert!(peak_indices(&[1.0], 0.1).is_empty());
+    assert!(peak_indices(&[f64::NAN, 1.0, f64::NAN], 0.1).is_empty());
+    assert!(peak_indices(&[f64::NAN, f64::NAN, f64::NAN], 0.1).is_empty());
+}
+
+#[test]
+fn find_peaks_on_a_curve_read_back_matches_the_drt() {
+    // The public finder on the result's own (τ, γ) gives the peaks the DRT reported, and an uneven,
+    // shuffled copy of the curve with bad points gives the same peaks within the grid step.
+    let s = spectrum("R0 + R1|C1 + R2|C2", &[5.0, 30.0, 1e-6, 50.0, 1e-4], None);
+    let res = drt(&s, DrtOptions::default()).unwrap();
+    let again = find_peaks(&res.tau_s, &res.gamma_ohm, DEFAULT_PEAK_THRESHOLD, None);
+    assert_eq!(again.len(), res.peaks.len());
+    for (a, b) in again.iter().zip(&res.peaks) {
+        assert_rel!(a.tau_s, b.tau_s, 1e-12, "τ");
+        assert_rel!(a.resistance_ohm, b.resistance_ohm, 1e-12, "R");
+    }
+    let keep = |k: &usize| k % 3 != 1;
+    let mut tau: Vec<f64> = (0..res.tau_s.len())
+        .filter(keep)
+        .map(|k| res.tau_s[k])
+        .collect();
+    let mut gamma: Vec<f64> = (0..res.tau_s.len())
+        .filter(keep)
+        .map(|k| res.gamma_ohm[k])
+        .collect();
+    tau.extend([f64::NAN, -1.0, 3.0]);
+    gamma.extend([1.0, 1.0, f64::INFINITY]);
+    tau.reverse();
+    gamma.reverse();
+    let uneven = find_peaks(&tau, &gamma, DEFAULT_PEAK_THRESHOLD, None);
+    assert_eq!(uneven.len(), res.peaks.len());
+    for (a, b) in uneven.iter().zip(&res.peaks) {
+        assert!((a.tau_s / b.tau_s).log10().abs() < 0.05, "{a:?} vs {b:?}");
+    }
+}

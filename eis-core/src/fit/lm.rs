@@ -25,6 +25,7 @@ use super::reduce::{Core, norm};
 
 /// Why a run stopped.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum Termination {
     /// The residuals are zero (to the smallest positive number).
     ResidualsZero,
@@ -53,6 +54,27 @@ impl Termination {
             self,
             Termination::ResidualsZero | Termination::Orthogonal | Termination::Converged { .. }
         )
+    }
+}
+
+/// The words of fit documents and reports.
+impl std::fmt::Display for Termination {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Termination::ResidualsZero => f.write_str("residuals are zero"),
+            Termination::Orthogonal => f.write_str("gradient vanished (gtol)"),
+            Termination::Converged { ftol, xtol } => f.write_str(match (ftol, xtol) {
+                (true, true) => "converged (chi-square and step tolerances)",
+                (true, false) => "converged (chi-square tolerance)",
+                _ => "converged (step tolerance)",
+            }),
+            Termination::LostPatience => f.write_str("stopped: evaluation limit reached"),
+            Termination::NoImprovementPossible(what) => write!(
+                f,
+                "stopped: no further improvement possible ({what} at machine precision)"
+            ),
+            Termination::Numerical(what) => write!(f, "stopped: numerical failure in {what}"),
+        }
     }
 }
 

@@ -42,10 +42,11 @@ use crate::circuit::Circuit;
 use crate::dense::modulus;
 use crate::eval::{Grid, Plan};
 use crate::spectrum::{PointRef, Spectrum};
-use lm::{Solver, Termination};
+use lm::Solver;
+pub use lm::Termination;
 use num_complex::Complex64;
 use problem::{Point, Problem, Transform};
-pub use stats::{Covariance, covariance, runs_test_z};
+pub use stats::{BoundSide, Covariance, FitWarning, Part, covariance, runs_test_z};
 
 /// How residuals are weighted. Weights are computed from the data values.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
@@ -282,7 +283,7 @@ pub struct FitResult {
     /// Number of starting points tried.
     pub starts_tried: usize,
     /// Why the winning run stopped.
-    pub termination: String,
+    pub termination: Termination,
     /// Whether the winning run met a convergence criterion.
     pub converged: bool,
     /// The model at each data point.
@@ -293,8 +294,8 @@ pub struct FitResult {
     pub weighting: Weighting,
     /// Whether a runs test found a trend in the residuals (the model misses a feature).
     pub systematic_residuals: bool,
-    /// Warnings in plain words.
-    pub warnings: Vec<String>,
+    /// Warnings, typed; their `Display` gives the words.
+    pub warnings: Vec<FitWarning>,
 }
 
 impl FitResult {

@@ -32,20 +32,143 @@ const RUNS_Z: f64 = -3.0;
 /// Eigenvalue ratio (of the column-scaled JᵀJ) below which the covariance is treated as singular.
 const SINGULAR: f64 = 1e-13;
 
-fn termination_text(t: &Termination) -> String {
-    match t {
-        Termination::ResidualsZero => "residuals are zero".into(),
-        Termination::Orthogonal => "gradient vanished (gtol)".into(),
-        Termination::Converged { ftol, xtol } => match (ftol, xtol) {
-            (true, true) => "converged (chi-square and step tolerances)".into(),
-            (true, false) => "converged (chi-square tolerance)".into(),
-            _ => "converged (step tolerance)".into(),
-        },
-        Termination::LostPatience => "stopped: evaluation limit reached".into(),
-        Termination::NoImprovementPossible(what) => {
-            format!("stopped: no further improvement possible ({what} at machine precision)")
+/// Which side of its range a parameter ended on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum BoundSide {
+    /// The lower bound.
+    Lower,
+    /// The upper bound.
+    Upper,
+}
+
+/// Which part of the residuals.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Part {
+    /// The real part.
+    Real,
+    /// The imaginary part.
+    Imaginary,
+}
+
+/// A warning a fit raises: typed, with its data; [`Display`](std::fmt::Display) gives the words of fit
+/// documents, `results.csv` messages and the terminal.
+#[derive(Debug, Clone, PartialEq)]
+#[non_exhaustive]
+pub enum FitWarning {
+    /// The winning run did not reach a minimum.
+    NotConverged(Termination),
+    /// A free parameter ended on one of its bounds: the optimum may lie beyond it.
+    AtBound {
+        /// The parameter.
+        parameter: String,
+        /// Which bound.
+        side: BoundSide,
+        /// The bound's value.
+        bound: f64,
+        /// The parameter's unit (`1` or empty when it has none).
+        unit: String,
+    },
+    /// A parameter's relative standard error exceeds 100 %.
+    Undetermined {
+        /// The parameter.
+        parameter: String,
+        /// Standard error over |value|.
+        relative_error: f64,
+    },
+    /// The covariance is singular: these parameters have no standard error.
+    SingularCovariance {
+        /// The parameters without a standard error (empty when the solver cannot name them).
+        parameters: Vec<String>,
+    },
+    /// Two free parameters are strongly correlated.
+    Correlated {
+        /// The first parameter, in circuit order.
+        a: String,
+        /// The second.
+        b: String,
+        /// Their correlation coefficient ρ.
+        rho: f64,
+    },
+    /// The residuals of one part follow a trend (runs test): the model misses a feature.
+    SystematicResiduals {
+        /// Which part.
+        part: Part,
+        /// The runs-test z.
+        z: f64,
+    },
+}
+
+impl FitWarning {
+    /// Whether the warning makes a batch result suspect: a parameter on a bound or residuals that
+    /// follow a trend (a fit that did not converge is judged by [`FitResult::converged`]).
+    pub fn marks_suspect(&self) -> bool {
+        matches!(
+            self,
+            FitWarning::AtBound { .. } | FitWarning::SystematicResiduals { .. }
+        )
+    }
+}
+
+impl std::fmt::Display for FitWarning {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            FitWarning::NotConverged(t) => write!(
+                f,
+                "the fit did not converge ({t}); treat the values with suspicion"
+            ),
+            FitWarning::AtBound {
+                parameter,
+                side,
+                bound,
+                unit,
+            } => {
+                let side = match side {
+                    BoundSide::Lower => "lower",
+                    BoundSide::Upper => "upper",
+                };
+                // The value equals the bound to round-off: print the bound once, with its unit unless
+                // the parameter has none.
+                let unit = match unit.as_str() {
+                    "1" | "" => String::new(),
+                    u => format!(" {u}"),
+                };
+                write!(
+                    f,
+                    "{parameter} sits at its {side} bound {}{unit}: the optimum may lie beyond it",
+                    format_si(*bound)
+                )
+            }
+            FitWarning::Undetermined {
+                parameter,
+                relative_error,
+            } => write!(
+                f,
+                "{parameter} is not determined by these data (relative error {:.0} %)",
+                100.0 * relative_error
+            ),
+            FitWarning::SingularCovariance { parameters } => write!(
+                f,
+                "singular covariance: {} cannot be determined from these data (no standard error)",
+                if parameters.is_empty() {
+                    "some parameters".to_owned()
+                } else {
+                    parameters.join(", ")
+                }
+            ),
+            FitWarning::Correlated { a, b, rho } => {
+                write!(f, "{a} and {b} are strongly correlated (rho = {rho:.3})")
+            }
+            FitWarning::SystematicResiduals { part, z } => {
+                let part = match part {
+                    Part::Real => "real",
+                    Part::Imaginary => "imaginary",
+                };
+                write!(
+                    f,
+                    "residuals of the {part} part follow a trend (runs test z = {z:.1}): the model misses a feature of the spectrum"
+                )
+            }
         }
-        Termination::Numerical(what) => format!("stopped: numerical failure in {what}"),
     }
 }
 
@@ -216,30 +339,23 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
 
     let exact = chi <= 1e-20 * m as f64;
     if !s.termination.was_successful() {
-        warnings.push(format!(
-            "the fit did not converge ({}); treat the values with suspicion",
-            termination_text(s.termination)
-        ));
+        warnings.push(FitWarning::NotConverged(*s.termination));
     }
     for (k, &i) in s.free.iter().enumerate() {
         let name = &c.params[i].name;
         if at_bound[i] {
             let (lo, hi) = c.bounds(i);
             let (side, bound) = if (values[i] - lo).abs() <= (hi - values[i]).abs() {
-                ("lower", lo)
+                (BoundSide::Lower, lo)
             } else {
-                ("upper", hi)
+                (BoundSide::Upper, hi)
             };
-            // The value equals the bound to round-off: print the bound once, with its unit unless
-            // the parameter has none.
-            let unit = match c.unit(i) {
-                "1" | "" => String::new(),
-                u => format!(" {u}"),
-            };
-            warnings.push(format!(
-                "{name} sits at its {side} bound {}{unit}: the optimum may lie beyond it",
-                format_si(bound)
-            ));
+            warnings.push(FitWarning::AtBound {
+                parameter: name.clone(),
+                side,
+                bound,
+                unit: c.unit(i).to_owned(),
+            });
         }
         if undetermined[k] {
             continue;
@@ -247,39 +363,33 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         if let Some(se) = stderr[i] {
             let rel = se / values[i].abs();
             if rel > UNDETERMINED && !exact {
-                warnings.push(format!(
-                    "{name} is not determined by these data (relative error {:.0} %)",
-                    100.0 * rel
-                ));
+                warnings.push(FitWarning::Undetermined {
+                    parameter: name.clone(),
+                    relative_error: rel,
+                });
             }
         }
     }
     if singular {
-        let names: Vec<&str> = s
+        let parameters: Vec<String> = s
             .free
             .iter()
             .zip(&undetermined)
             .filter(|(_, u)| **u)
-            .map(|(&i, _)| c.params[i].name.as_str())
+            .map(|(&i, _)| c.params[i].name.clone())
             .collect();
-        warnings.push(format!(
-            "singular covariance: {} cannot be determined from these data (no standard error)",
-            if names.is_empty() {
-                "some parameters".to_owned()
-            } else {
-                names.join(", ")
-            }
-        ));
+        warnings.push(FitWarning::SingularCovariance { parameters });
     }
     if !exact {
         for a_ in 0..nf {
             for b in a_ + 1..nf {
                 let r = corr[a_ * nf + b];
                 if r.abs() > STRONG_CORRELATION && !undetermined[a_] && !undetermined[b] {
-                    warnings.push(format!(
-                        "{} and {} are strongly correlated (rho = {r:.3})",
-                        c.params[s.free[a_]].name, c.params[s.free[b]].name
-                    ));
+                    warnings.push(FitWarning::Correlated {
+                        a: c.params[s.free[a_]].name.clone(),
+                        b: c.params[s.free[b]].name.clone(),
+                        rho: r,
+                    });
                 }
             }
         }
@@ -296,13 +406,11 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
     if max_rel > 1e-9 {
         let re: Vec<f64> = relative.iter().map(|r| r.re).collect();
         let im: Vec<f64> = relative.iter().map(|r| r.im).collect();
-        for (part, v) in [("real", &re), ("imaginary", &im)] {
+        for (part, v) in [(Part::Real, &re), (Part::Imaginary, &im)] {
             if let Some(z) = runs_test_z(v) {
                 if z < RUNS_Z {
                     systematic = true;
-                    warnings.push(format!(
-                        "residuals of the {part} part follow a trend (runs test z = {z:.1}): the model misses a feature of the spectrum"
-                    ));
+                    warnings.push(FitWarning::SystematicResiduals { part, z });
                 }
             }
         }
@@ -330,7 +438,7 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         iterations: s.run_iterations,
         evaluations: s.evaluations,
         starts_tried: s.tried,
-        termination: termination_text(s.termination),
+        termination: *s.termination,
         converged: s.termination.was_successful(),
         model,
         relative_residuals: relative,
@@ -343,6 +451,64 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
 #[cfg(test)]
 mod tests {
     use super::{SINGULAR, certified_inverse, eigen_inverse, runs_test_z};
+
+    /// The words of each warning kind, as fit documents and `results.csv` messages carry them, and
+    /// which kinds mark a batch result suspect (the wording is our own; these pin it).
+    #[test]
+    fn fit_warnings_keep_their_words_and_suspect_classes() {
+        use super::{BoundSide, FitWarning, Part, Termination};
+        let cases = [
+            (
+                FitWarning::NotConverged(Termination::LostPatience),
+                "the fit did not converge (stopped: evaluation limit reached); treat the values with suspicion",
+                false,
+            ),
+            (
+                FitWarning::AtBound {
+                    parameter: "Rct".into(),
+                    side: BoundSide::Lower,
+                    bound: 1e-6,
+                    unit: "Ω".into(),
+                },
+                "Rct sits at its lower bound 1u Ω: the optimum may lie beyond it",
+                true,
+            ),
+            (
+                FitWarning::Undetermined {
+                    parameter: "W.sigma".into(),
+                    relative_error: 2.5,
+                },
+                "W.sigma is not determined by these data (relative error 250 %)",
+                false,
+            ),
+            (
+                FitWarning::SingularCovariance { parameters: vec![] },
+                "singular covariance: some parameters cannot be determined from these data (no standard error)",
+                false,
+            ),
+            (
+                FitWarning::Correlated {
+                    a: "R0".into(),
+                    b: "Rf".into(),
+                    rho: -0.9912,
+                },
+                "R0 and Rf are strongly correlated (rho = -0.991)",
+                false,
+            ),
+            (
+                FitWarning::SystematicResiduals {
+                    part: Part::Imaginary,
+                    z: -4.26,
+                },
+                "residuals of the imaginary part follow a trend (runs test z = -4.3): the model misses a feature of the spectrum",
+                true,
+            ),
+        ];
+        for (w, words, suspect) in cases {
+            assert_eq!(w.to_string(), words);
+            assert_eq!(w.marks_suspect(), suspect, "{words}");
+        }
+    }
     use nalgebra::DMatrix;
 
     /// Where the Cholesky route certifies itself it gives the eigen route's inverse; near singularity

@@ -77,7 +77,17 @@ pub(super) struct Fit {
     pub svd: bool,
 }
 
-/// Log-spaced time constants from 1/ω_max to 1/ω_min (one at the geometric centre when M = 1).
+/// Decades by which the grid of τ reaches below 1/ω_max (half a decade). A process faster than the highest measured
+/// frequency (a film arc, the 45° branch of a porous electrode) still shapes the highest points; with
+/// the grid stopped at 1/ω_max the fit can only mimic it with alternating signs, which left
+/// systematic residuals on the highest points of noisy two-arc spectra. At the low-frequency end the
+/// grid stops at 1/ω_min as in the paper: an open tail there is the series capacitance's job, and time
+/// constants beyond the lowest frequency would give the fit the freedom to follow a drift, which in a
+/// sweep from high to low frequency builds up at that end.
+pub(super) const HIGH_MARGIN_DECADES: f64 = 0.5;
+
+/// Log-spaced time constants from 1/ω_max, lowered by [`HIGH_MARGIN_DECADES`], to 1/ω_min (one at
+/// the geometric centre when M = 1).
 #[cfg(test)]
 pub(super) fn time_constants(m: usize, w_min: f64, w_max: f64) -> Vec<f64> {
     let mut t = vec![0.0; m];
@@ -87,7 +97,7 @@ pub(super) fn time_constants(m: usize, w_min: f64, w_max: f64) -> Vec<f64> {
 
 fn fill_time_constants(t: &mut [f64], w_min: f64, w_max: f64) {
     let m = t.len();
-    let (t1, tm) = (1.0 / w_max, 1.0 / w_min);
+    let (t1, tm) = (10f64.powf(-HIGH_MARGIN_DECADES) / w_max, 1.0 / w_min);
     if m == 1 {
         t[0] = (t1 * tm).sqrt();
         return;
@@ -155,6 +165,8 @@ pub(super) struct Workspace {
     taus: Vec<f64>,
     /// [`SVD_MAX_ROWS`]; the tests lower it to compare the two fallbacks.
     pub svd_max_rows: usize,
+    /// Scratch of 2N for the leverages.
+    scratch: Vec<f64>,
 }
 
 impl Workspace {
@@ -186,6 +198,7 @@ impl Workspace {
             r: vec![0.0; 2 * n],
             taus: Vec::with_capacity(m_max),
             svd_max_rows: SVD_MAX_ROWS,
+            scratch: Vec::new(),
         };
         // Fixed columns: R₀ (real rows), ωL and −1/(ωC) (imaginary rows).
         let weight = ws.weight.clone();
@@ -206,6 +219,11 @@ impl Workspace {
             ws.scale_column(j);
         }
         ws
+    }
+
+    /// Unknowns besides the Voigt elements.
+    pub fn fixed(&self) -> usize {
+        self.design.fixed()
     }
 
     /// Length of the design matrix buffer (2N rows × all columns), read by the tests.
@@ -388,17 +406,11 @@ impl Workspace {
         }
     }
 
-    /// The scaled problem through the eigen-decomposition of its Gram matrix, dropping eigenvalues
-    /// at or below [`GRAM_EIGEN_FLOOR`] of the largest: a pseudo-inverse in O(p³) with no 2N × p
-    /// copy, used above [`SVD_MAX_ROWS`] rows. Expects the Voigt entries of `sol` to hold Aᵀb.
-    fn solve_gram_eigen(&mut self, p: usize) {
+    /// The Gram matrix AᵀA of the first `p` (unit) columns, Voigt entries in closed form; `empty[j]`
+    /// marks a column left at zero.
+    fn gram(&self, p: usize) -> DMatrix<f64> {
         let len = 2 * self.n;
         let fixed = self.design.fixed();
-        for j in 0..fixed {
-            self.sol[j] = dot(self.column(j), &self.b);
-        }
-        let zero = |ws: &mut Self| ws.sol[..p].iter_mut().for_each(|v| *v = 0.0);
-        // A column left at zero (its norm recorded as 1) has zero products.
         let empty: Vec<bool> = (0..p)
             .map(|j| self.column(j).iter().all(|v| *v == 0.0))
             .collect();
@@ -423,6 +435,61 @@ impl Workspace {
                 g[(j, i)] = v;
             }
         }
+        g
+    }
+
+    /// The leverages hᵢ (diagonal of the hat matrix A A⁺) of the 2N rows of the last fit with `p`
+    /// unknowns, written to `h` (real rows, then imaginary rows): hᵢ = Σₖ (aᵢ·vₖ)²/λₖ over the
+    /// eigenpairs of AᵀA kept by the solve ([`GRAM_EIGEN_FLOOR`]). A residual of a row with leverage
+    /// h has variance (1 − h)σ² under independent noise of variance σ², so e/√(1 − h) puts every
+    /// point, edge or interior, on the same scale (Cook & Weisberg 1982, "Residuals and Influence in
+    /// Regression", ch. 2; common practice in regression diagnostics). O(N·p²). Leaves `h` at zero
+    /// when the decomposition fails.
+    pub fn leverage(&mut self, p: usize, h: &mut [f64]) {
+        if h.is_empty() {
+            return;
+        }
+        let len = 2 * self.n;
+        h.iter_mut().for_each(|v| *v = 0.0);
+        let g = self.gram(p);
+        if g.iter().any(|v| !v.is_finite()) {
+            return;
+        }
+        let Some(eig) = g.try_symmetric_eigen(f64::EPSILON, MAX_ITERATIONS) else {
+            return;
+        };
+        let lmax = eig.eigenvalues.iter().copied().fold(0.0, f64::max);
+        self.scratch.resize(len, 0.0);
+        for (k, &lambda) in eig.eigenvalues.iter().enumerate() {
+            if !(lambda > GRAM_EIGEN_FLOOR * lmax && lambda > 0.0) {
+                continue;
+            }
+            let t = &mut self.scratch;
+            t.iter_mut().for_each(|v| *v = 0.0);
+            for j in 0..p {
+                let vj = eig.eigenvectors[(j, k)];
+                let c = &self.cols[j * len..(j + 1) * len];
+                for (t, a) in t.iter_mut().zip(c) {
+                    *t += vj * a;
+                }
+            }
+            let inv = 1.0 / lambda;
+            for (h, t) in h.iter_mut().zip(t.iter()) {
+                *h += t * t * inv;
+            }
+        }
+    }
+
+    /// The scaled problem through the eigen-decomposition of its Gram matrix, dropping eigenvalues
+    /// at or below [`GRAM_EIGEN_FLOOR`] of the largest: a pseudo-inverse in O(p³) with no 2N × p
+    /// copy, used above [`SVD_MAX_ROWS`] rows. Expects the Voigt entries of `sol` to hold Aᵀb.
+    fn solve_gram_eigen(&mut self, p: usize) {
+        let fixed = self.design.fixed();
+        for j in 0..fixed {
+            self.sol[j] = dot(self.column(j), &self.b);
+        }
+        let zero = |ws: &mut Self| ws.sol[..p].iter_mut().for_each(|v| *v = 0.0);
+        let g = self.gram(p);
         let c = DVector::from_column_slice(&self.sol[..p]);
         // The eigen iteration need not end on non-finite input.
         if g.iter().chain(c.iter()).any(|v| !v.is_finite()) {

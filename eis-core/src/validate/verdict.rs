@@ -92,10 +92,42 @@ pub(super) fn runs_z(re: &[f64], im: &[f64], order: &[usize]) -> f64 {
     }
 }
 
-/// The statistics and the verdict of residuals `re`, `im` (fractions of |Z|).
+/// Smallest 1 − h used to standardise a residual: a row the fit almost interpolates (h → 1) would
+/// otherwise turn round-off into a huge standardised residual.
+const MIN_FREEDOM: f64 = 0.05;
+
+/// The larger of |Δ′ᵢ| and |Δ″ᵢ|, each divided by √(1 − h) of its row (`h` holds the 2N leverages,
+/// real rows first; empty for none).
+pub(super) fn standardized(re: &[f64], im: &[f64], h: &[f64], i: usize) -> f64 {
+    let n = re.len();
+    let s = |r: f64, k: usize| match h.get(k) {
+        Some(&h) => r.abs() / (1.0 - h).max(MIN_FREEDOM).sqrt(),
+        None => r.abs(),
+    };
+    s(re[i], i).max(s(im[i], n + i))
+}
+
+/// Whether point `i` is an outlier: its residual exceeds the floor
+/// [`KkOptions::max_residual_percent`] (so a point within it is never one) and, standardised by its
+/// leverage, [`KkOptions::outlier_factor`] times the scatter σ̂.
+pub(super) fn outlier(
+    re: &[f64],
+    im: &[f64],
+    h: &[f64],
+    i: usize,
+    o: &KkOptions,
+    scatter: f64,
+) -> bool {
+    re[i].abs().max(im[i].abs()) > o.max_residual_percent / 100.0
+        && standardized(re, im, h, i) > o.outlier_factor * scatter
+}
+
+/// The statistics and the verdict of residuals `re`, `im` (fractions of |Z|), the points judged on
+/// residuals standardised by the leverages `h` (see [`standardized`]).
 pub(super) fn judge(
     re: &[f64],
     im: &[f64],
+    h: &[f64],
     order: &[usize],
     o: &KkOptions,
     buf: &mut Vec<f64>,
@@ -107,11 +139,7 @@ pub(super) fn judge(
     let systematic = (rms * rms - scatter * scatter).max(0.0).sqrt();
     let runs_z = runs_z(re, im, order);
     let point_limit = (o.max_residual_percent / 100.0).max(o.outlier_factor * scatter);
-    let worst = re
-        .iter()
-        .zip(im)
-        .map(|(a, b)| a.abs().max(b.abs()))
-        .fold(0.0, f64::max);
+    let outlier = |i: usize| outlier(re, im, h, i, o, scatter);
     let stats = Stats {
         rms,
         scatter,
@@ -120,7 +148,7 @@ pub(super) fn judge(
         point_limit,
     };
     let failures = Failures {
-        points: worst > point_limit,
+        points: (0..n).any(outlier),
         rms: 100.0 * rms > o.rms_residual_percent,
         trend: runs_z < -o.runs_z && 100.0 * systematic > o.trend_percent,
     };
