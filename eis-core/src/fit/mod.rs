@@ -739,7 +739,7 @@ fn fit_impl(
             let seed = match seed {
                 Some(d) => Some(d),
                 None => {
-                    let with_l = t.iter().any(|x| matches!(x, start::Term::Inductance(_)));
+                    let with_l = start::has_inductance(t);
                     computed = crate::drt::drt(
                         spectrum,
                         crate::drt::DrtOptions::default().with_inductance(with_l),

@@ -1,7 +1,7 @@
 //! Starts built from the peaks of a DRT of the data.
 
-use super::{Cap, Context, Term, set_arc_tau};
-use crate::element::ElementKind;
+use super::{Cap, Context, Term, set_arc_tau, set_feature};
+use crate::element::{Class, ElementKind, Seed};
 
 /// A time-constant slot as the DRT starts see it, in the order its peak is expected along τ.
 #[derive(Debug, Clone, Copy)]
@@ -10,10 +10,9 @@ enum DrtSlot {
         r: usize,
         cap: Cap,
     },
-    Diffusion {
+    Feature {
         kind: &'static ElementKind,
-        r: usize,
-        tau: usize,
+        first: usize,
     },
 }
 
@@ -21,11 +20,10 @@ enum DrtSlot {
 const MAX_DRT_PEAKS: usize = 8;
 
 /// Starting points built from a DRT: its peaks (ascending τ) are assigned to the circuit's
-/// time-constant slots in τ order, arcs first in circuit order (the first arc in the text is taken as the
-/// fastest), then diffusion elements (the slowest). Each arc gets its peak's resistance and τ; a
-/// diffusion element gets its τ and R from the peak through the element's exact Voigt expansion (first
-/// term: τ₁ = 4τ/π², R₁ = 8R/π² for the transmissive form; τ₁ = τ/π², R₁ = 2R/π² for the reflective
-/// form; the Gerischer peak is taken at τ). Peaks left over add their resistance to the nearest assigned
+/// time-constant slots in τ order, arcs and porous electrodes first in circuit order (the first in the
+/// text is taken as the fastest), then diffusion elements (the slowest). Each arc gets its peak's
+/// resistance and τ; a feature element gets its R and τ from the peak through the peak fractions of its
+/// seed (for finite diffusion the first term of its exact Voigt expansion). Peaks left over add their resistance to the nearest assigned
 /// peak in ln τ, so that the total polarisation resistance is kept; slots left over (fewer peaks than
 /// slots) get a small resistance half a decade beyond their neighbours. R₀ comes from R∞ and a series
 /// inductance from the DRT's L. Everything else (CPE exponents at 0.9, series capacitors, semi-infinite
@@ -40,32 +38,36 @@ pub(crate) fn drt_starts(
     template: &[f64],
     count: usize,
 ) -> Vec<Vec<f64>> {
+    // Arcs and porous electrodes (interfaces) in circuit order, then the other features (diffusion,
+    // the slowest).
     let mut arcs_ = Vec::new();
     let mut diffusions = Vec::new();
     let mut offset = None;
     let mut inductance = None;
+    let mut feature = |kind: &'static ElementKind, first: usize, arcs_: &mut Vec<DrtSlot>| {
+        let slot = DrtSlot::Feature { kind, first };
+        if kind.class == Class::Porous {
+            arcs_.push(slot);
+        } else {
+            diffusions.push(slot);
+        }
+    };
     for t in terms {
         match t {
-            Term::Offset(r) => offset = offset.or(Some(*r)),
-            Term::Inductance(l) => inductance = inductance.or(Some(*l)),
+            Term::Linear { kind, first } => match kind.class {
+                Class::Resistive => offset = offset.or(Some(*first)),
+                Class::Inductive => inductance = inductance.or(Some(*first)),
+                _ => {}
+            },
+            Term::Feature { kind, first } => feature(kind, *first, &mut arcs_),
             Term::Arc { r, cap, inner } => {
                 arcs_.push(DrtSlot::Arc { r: *r, cap: *cap });
                 for it in inner {
-                    if let Term::Diffusion { kind, r, tau } = it {
-                        diffusions.push(DrtSlot::Diffusion {
-                            kind,
-                            r: *r,
-                            tau: *tau,
-                        });
+                    if let Term::Feature { kind, first } = it {
+                        feature(kind, *first, &mut arcs_);
                     }
                 }
             }
-            Term::Diffusion { kind, r, tau } => diffusions.push(DrtSlot::Diffusion {
-                kind,
-                r: *r,
-                tau: *tau,
-            }),
-            _ => {}
         }
     }
     let slots: Vec<DrtSlot> = arcs_.into_iter().chain(diffusions).collect();
@@ -168,19 +170,14 @@ pub(crate) fn drt_starts(
                         ctx.put(&mut p, ri, r);
                         set_arc_tau(ctx, &mut p, ri, cap, tau);
                     }
-                    DrtSlot::Diffusion {
-                        kind,
-                        r: ri,
-                        tau: ti,
-                    } => {
-                        let pi2 = std::f64::consts::PI * std::f64::consts::PI;
-                        let (rv, tv) = match kind.symbol {
-                            "Wt" => (r * pi2 / 8.0, tau * pi2 / 4.0),
-                            "Wr" => (r * pi2 / 2.0, tau * pi2),
-                            _ => (r, tau),
+                    DrtSlot::Feature { kind, first } => {
+                        // The peak is the feature's largest Voigt term: scale it back to the
+                        // element's own resistance and time constant.
+                        let (rf, tf) = match kind.seed {
+                            Seed::Feature { peak, .. } => peak,
+                            _ => (1.0, 1.0),
                         };
-                        ctx.put(&mut p, ri, rv);
-                        ctx.put(&mut p, ti, tv);
+                        set_feature(ctx, &mut p, kind, first, r / rf, tau / tf);
                     }
                 }
             }

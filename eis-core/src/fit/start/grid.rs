@@ -1,149 +1,128 @@
 //! The time-constant grid: resistances by non-negative least squares at each grid point of the
 //! surrogate, the best distinct points as starts.
 
-use super::{Cap, Context, N0, Term, log_grid, set_arc_tau};
+use super::{
+    Cap, Context, Term, linear_seed, log_grid, set_arc_tau, set_feature, set_linear, unit_shape,
+};
 use crate::dense::dot;
-use crate::element::ElementKind;
+use crate::element::{ARC_WINDOW, ElementKind, Seed};
 use crate::nnls::{NnlsWorkspace, solve_normal};
 use nalgebra::DMatrix;
 use num_complex::Complex64;
 
-/// Which time-constant slot a grid column belongs to.
-#[derive(Debug, Clone, Copy, PartialEq)]
-enum Slot {
-    ArcC,
-    ArcQ(f64),
-    Diffusion(&'static ElementKind),
-}
-
-/// One column of the surrogate over the grid (given the slot's τ).
-fn column(slot: Slot, tau: f64, grid: &crate::eval::Grid) -> Vec<Complex64> {
-    let one = Complex64::new(1.0, 0.0);
-    match slot {
-        Slot::ArcC => grid
-            .omega()
-            .iter()
-            .map(|&w| one / Complex64::new(1.0, w * tau))
-            .collect(),
-        Slot::ArcQ(n) => grid
-            .omega()
-            .iter()
-            .map(|&w| {
-                one / (one
-                    + Complex64::from_polar((w * tau).powf(n), n * std::f64::consts::FRAC_PI_2))
-            })
-            .collect(),
-        Slot::Diffusion(kind) => {
-            let mut z = vec![Complex64::new(0.0, 0.0); grid.len()];
-            let mut dz = vec![Complex64::new(0.0, 0.0); 2 * grid.len()];
-            (kind.impedance)(&[1.0, tau], grid, &mut z, &mut dz);
-            z
-        }
-    }
-}
-
-/// A free linear coefficient of the surrogate and how it maps back to parameters.
-#[derive(Debug, Clone)]
-enum Coef {
-    Offset(usize),
-    Inductance(usize),
-    SeriesCapInverse(usize),
-    SeriesCpeInverse { q: usize, n: usize },
-    Warburg(usize),
-}
-
-/// A time-constant slot of the recognised circuit.
+/// A time-constant slot of the recognised circuit: an arc or a feature element.
 #[derive(Debug, Clone)]
 struct SlotInfo {
-    slot: Slot,
-    /// For arcs: resistance parameter and capacitive element; for diffusion: R and tau parameters.
     target: Target,
-    /// Grid index range of allowed τ (coarse grid).
+    /// Allowed τ (coarse grid).
     grid: Vec<f64>,
     /// An earlier slot that must have a smaller τ than this one (identical plain arcs).
     before: Option<usize>,
-    /// A plain arc (resistor and capacitive element only).
-    plain: bool,
+    /// For plain arcs (resistor and capacitive element only): the capacitive kind and its values for
+    /// an arc of unit resistance and unit time constant, which identify arcs of the same form.
+    plain: Option<(&'static str, Vec<f64>)>,
 }
 
 #[derive(Debug, Clone, Copy)]
 enum Target {
-    Arc { r: usize, cap: Cap },
-    Diffusion { r: usize, tau: usize },
+    Arc {
+        r: usize,
+        cap: Cap,
+    },
+    Feature {
+        kind: &'static ElementKind,
+        first: usize,
+    },
 }
 
-/// Starting points for a recognised circuit, best first.
-pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Vec<Vec<f64>> {
-    let (wmin, wmax) = ctx.omega_range();
-    let mut fixed_cols: Vec<(Coef, Vec<Complex64>)> = Vec::new();
-    let mut slots: Vec<SlotInfo> = Vec::new();
-    let arc_grid = log_grid(0.3 / wmax, 3.0 / wmin, 1.0);
-    let diff_grid = log_grid(3.0 / wmax, 30.0 / wmin, 1.0);
-    let col = |f: &dyn Fn(f64) -> Complex64| ctx.omegas.iter().map(|&w| f(w)).collect::<Vec<_>>();
-    let push_term = |t: &Term,
-                     fixed_cols: &mut Vec<(Coef, Vec<Complex64>)>,
-                     slots: &mut Vec<SlotInfo>| {
-        match *t {
-            Term::Offset(r) => {
-                fixed_cols.push((Coef::Offset(r), col(&|_| Complex64::new(1.0, 0.0))))
+impl SlotInfo {
+    /// The slot's column over the data's frequencies at time constant `tau`, at unit resistance.
+    fn column(&self, ctx: &Context<'_>, tau: f64) -> Vec<Complex64> {
+        match self.target {
+            Target::Arc { cap, .. } => {
+                let Seed::Capacitive { parallel, .. } = cap.kind.seed else {
+                    return vec![Complex64::new(0.0, 0.0); ctx.grid.len()];
+                };
+                // R = 1 in parallel with the capacitive element: 1/(1 + 1/Z_cap).
+                unit_shape(ctx, cap.kind, cap.first, |fixed, v| {
+                    parallel(1.0, tau, fixed, v)
+                })
+                .into_iter()
+                .map(|z| 1.0 / (1.0 + 1.0 / z))
+                .collect()
             }
-            Term::Inductance(l) => {
-                fixed_cols.push((Coef::Inductance(l), col(&|w| Complex64::new(0.0, w))))
-            }
-            Term::SeriesCap(c) => fixed_cols.push((
-                Coef::SeriesCapInverse(c),
-                col(&|w| Complex64::new(0.0, -1.0 / w)),
-            )),
-            Term::SeriesCpe { q, n } => {
-                let nv = if ctx.fixed[n] { ctx.base[n] } else { N0 };
-                fixed_cols.push((
-                    Coef::SeriesCpeInverse { q, n },
-                    col(&|w| Complex64::from_polar(w.powf(-nv), -nv * std::f64::consts::FRAC_PI_2)),
-                ))
-            }
-            Term::Warburg(s) => fixed_cols.push((
-                Coef::Warburg(s),
-                col(&|w| Complex64::new(1.0, -1.0) / w.sqrt()),
-            )),
-            Term::Diffusion { kind, r, tau } => slots.push(SlotInfo {
-                slot: Slot::Diffusion(kind),
-                target: Target::Diffusion { r, tau },
-                grid: diff_grid.clone(),
-                before: None,
-                plain: false,
-            }),
-            Term::Arc { .. } => unreachable!("arcs handled by the caller"),
+            Target::Feature { kind, first } => match kind.seed {
+                Seed::Feature { of, .. } => {
+                    unit_shape(ctx, kind, first, |fixed, v| of(1.0, tau, fixed, v))
+                }
+                _ => vec![Complex64::new(0.0, 0.0); ctx.grid.len()],
+            },
         }
+    }
+}
+
+/// The surrogate of a recognised circuit: its linear terms (kind, first parameter, column) and its
+/// time-constant slots.
+type Surrogate = (
+    Vec<(&'static ElementKind, usize, Vec<Complex64>)>,
+    Vec<SlotInfo>,
+);
+
+/// Reads the recognised blocks as linear columns and time-constant slots, arcs on the arc window and
+/// features on their own.
+fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
+    let (wmin, wmax) = ctx.omega_range();
+    let window = |(lo, hi): (f64, f64)| log_grid(lo / wmax, hi / wmin, 1.0);
+    let mut linear = Vec::new();
+    let mut slots: Vec<SlotInfo> = Vec::new();
+    let push = |t: &Term, linear: &mut Vec<_>, slots: &mut Vec<SlotInfo>| match *t {
+        Term::Linear { kind, first } => {
+            if let Some(of) = linear_seed(kind) {
+                let z = unit_shape(ctx, kind, first, |fixed, v| of(1.0, fixed, v));
+                linear.push((kind, first, z));
+            }
+        }
+        Term::Feature { kind, first } => slots.push(SlotInfo {
+            target: Target::Feature { kind, first },
+            grid: window(kind.seed.window().unwrap_or(ARC_WINDOW)),
+            before: None,
+            plain: None,
+        }),
+        Term::Arc { .. } => {}
     };
     for t in terms {
         match t {
             Term::Arc { r, cap, inner } => {
-                let slot = match *cap {
-                    Cap::C(_) => Slot::ArcC,
-                    Cap::Q { n, .. } => Slot::ArcQ(if ctx.fixed[n] { ctx.base[n] } else { N0 }),
-                };
                 // A plain arc identical in form to an earlier plain arc must come after it in τ.
-                let plain = inner.is_empty();
-                let before = if plain {
-                    slots.iter().rposition(|s| s.plain && s.slot == slot)
-                } else {
-                    None
-                };
+                let plain = inner.is_empty().then(|| {
+                    let mut v = ctx.base[cap.first..cap.first + cap.kind.params.len()].to_vec();
+                    if let Seed::Capacitive { parallel, .. } = cap.kind.seed {
+                        parallel(1.0, 1.0, &ctx.fixed[cap.first..cap.first + v.len()], &mut v);
+                    }
+                    (cap.kind.symbol, v)
+                });
+                let before = plain
+                    .as_ref()
+                    .and_then(|p| slots.iter().rposition(|s| s.plain.as_ref() == Some(p)));
                 slots.push(SlotInfo {
-                    slot,
                     target: Target::Arc { r: *r, cap: *cap },
-                    grid: arc_grid.clone(),
+                    grid: window(ARC_WINDOW),
                     before,
                     plain,
                 });
                 for it in inner {
-                    push_term(it, &mut fixed_cols, &mut slots);
+                    push(it, &mut linear, &mut slots);
                 }
             }
-            other => push_term(other, &mut fixed_cols, &mut slots),
+            other => push(other, &mut linear, &mut slots),
         }
     }
+    (linear, slots)
+}
 
+/// Starting points for a recognised circuit, best first.
+pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Vec<Vec<f64>> {
+    let (fixed_cols, slots) = surrogate(ctx, terms);
     let n = ctx.omegas.len();
     let weigh = |v: &[Complex64]| -> Vec<f64> {
         let mut out = Vec::with_capacity(2 * n);
@@ -171,13 +150,12 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
         .collect();
 
     // All candidate columns, weighted: fixed columns first, then each slot's fine grid.
-    let mut cols: Vec<Vec<f64>> = fixed_cols.iter().map(|(_, c)| weigh(c)).collect();
+    let mut cols: Vec<Vec<f64>> = fixed_cols.iter().map(|(_, _, c)| weigh(c)).collect();
     let mut slot_offset = Vec::with_capacity(slots.len());
     for (s, f) in slots.iter().zip(&fine) {
         slot_offset.push(cols.len());
         for &tau in f {
-            let c = column(s.slot, tau, ctx.grid);
-            cols.push(weigh(&c));
+            cols.push(weigh(&s.column(ctx, tau)));
         }
     }
     let m = cols.len();
@@ -193,10 +171,10 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
     }
     let nf = fixed_cols.len();
     let k = nf + slots.len();
-    let mut solver = Surrogate::new(k);
+    let mut solver = Normal::new(k);
 
     // Evaluate one assignment of fine-grid indices to slots.
-    let evaluate = |assign: &[usize], solver: &mut Surrogate| -> (f64, Vec<f64>) {
+    let evaluate = |assign: &[usize], solver: &mut Normal| -> (f64, Vec<f64>) {
         let idx = (0..nf).chain(assign.iter().enumerate().map(|(s, &g)| slot_offset[s] + g));
         for (i, a) in idx.enumerate() {
             solver.b[i] = rhs[a];
@@ -283,44 +261,15 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
         .into_iter()
         .map(|(a, x)| {
             let mut p = ctx.base.to_vec();
-            for (c, (coef, _)) in fixed_cols.iter().enumerate() {
-                let v = x[c];
-                match *coef {
-                    Coef::Offset(r) => ctx.put(&mut p, r, if v > 0.0 { v } else { 1e-3 * scale }),
-                    Coef::Inductance(l) => {
-                        ctx.put(&mut p, l, if v > 0.0 { v } else { 1e-3 * scale / wmax })
-                    }
-                    Coef::SeriesCapInverse(ci) => ctx.put(
-                        &mut p,
-                        ci,
-                        if v > 0.0 {
-                            1.0 / v
-                        } else {
-                            1e3 / (wmin * scale)
-                        },
-                    ),
-                    Coef::SeriesCpeInverse { q, n } => {
-                        ctx.put(
-                            &mut p,
-                            q,
-                            if v > 0.0 {
-                                1.0 / v
-                            } else {
-                                1e3 / (wmin * scale)
-                            },
-                        );
-                        ctx.put(&mut p, n, N0);
-                    }
-                    Coef::Warburg(s) => ctx.put(
-                        &mut p,
-                        s,
-                        if v > 0.0 {
-                            v
-                        } else {
-                            1e-3 * scale * wmin.sqrt()
-                        },
-                    ),
-                }
+            for (c, (kind, first, z)) in fixed_cols.iter().enumerate() {
+                // A coefficient the NNLS left at zero becomes one whose term reaches 1e-3 of the data's
+                // scale where it is largest.
+                let v = if x[c] > 0.0 {
+                    x[c]
+                } else {
+                    1e-3 * scale / z.iter().map(|v| v.norm()).fold(0.0, f64::max).max(1e-300)
+                };
+                set_linear(ctx, &mut p, kind, *first, v);
             }
             for (s, info) in slots.iter().enumerate() {
                 let tau = fine[s][a[s]];
@@ -331,9 +280,8 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
                         ctx.put(&mut p, ri, r);
                         set_arc_tau(ctx, &mut p, ri, cap, tau);
                     }
-                    Target::Diffusion { r: ri, tau: ti } => {
-                        ctx.put(&mut p, ri, r);
-                        ctx.put(&mut p, ti, tau);
+                    Target::Feature { kind, first } => {
+                        set_feature(ctx, &mut p, kind, first, r, tau)
                     }
                 }
             }
@@ -345,16 +293,16 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
 /// The surrogate's normal equations at one grid point, G x = b with x ≥ 0 (G = AᵀA, b = Aᵀy over the
 /// chosen columns), solved by the crate's Lawson–Hanson NNLS; buffers are allocated once and reused for
 /// every grid point.
-struct Surrogate {
+struct Normal {
     g: DMatrix<f64>,
     b: Vec<f64>,
     x: Vec<f64>,
     workspace: NnlsWorkspace,
 }
 
-impl Surrogate {
-    fn new(k: usize) -> Surrogate {
-        Surrogate {
+impl Normal {
+    fn new(k: usize) -> Normal {
+        Normal {
             g: DMatrix::zeros(k, k),
             b: vec![0.0; k],
             x: vec![0.0; k],

@@ -14,18 +14,12 @@ pub(crate) fn order_identical_arcs(ctx: &Context<'_>, terms: &[Term], p: &mut [f
             _ => None,
         })
         .collect();
-    let indices = |r: usize, cap: Cap| -> Vec<usize> {
-        match cap {
-            Cap::C(c) => vec![r, c],
-            Cap::Q { q, n } => vec![r, q, n],
-        }
-    };
+    let indices =
+        |r: usize, cap: Cap| -> Vec<usize> { std::iter::once(r).chain(cap.range()).collect() };
     for _ in 0..plain.len() {
         for w in 0..plain.len().saturating_sub(1) {
             let (a, b) = (plain[w], plain[w + 1]);
-            if std::mem::discriminant(&a.1) != std::mem::discriminant(&b.1)
-                || arc_tau(p, a.0, a.1) <= arc_tau(p, b.0, b.1)
-            {
+            if a.1.kind != b.1.kind || arc_tau(p, a.0, a.1) <= arc_tau(p, b.0, b.1) {
                 continue;
             }
             let (ia, ib) = (indices(a.0, a.1), indices(b.0, b.1));

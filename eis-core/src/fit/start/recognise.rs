@@ -2,6 +2,7 @@
 
 use super::{Cap, Term};
 use crate::circuit::{Circuit, Node};
+use crate::element::{Class, Seed};
 
 /// Reads the circuit as a list of building blocks in series, if it is made of them.
 pub(crate) fn recognise(c: &Circuit) -> Option<Vec<Term>> {
@@ -12,24 +13,23 @@ pub(crate) fn recognise(c: &Circuit) -> Option<Vec<Term>> {
     top.into_iter().map(|n| block(c, n, true)).collect()
 }
 
+/// One block. At the top level: any element the seeds know (linear elements, capacitors and CPEs in
+/// series, features) and arcs; in an arc's resistive branch, beside its resistor, only diffusive and
+/// feature elements (diffusion hung on the charge-transfer resistance).
 fn block(c: &Circuit, node: &Node, top: bool) -> Option<Term> {
     match node {
         Node::Element(i) => {
             let e = &c.elements[*i];
-            let p = e.first_param;
-            Some(match e.kind.symbol {
-                "R" if top => Term::Offset(p),
-                "L" if top => Term::Inductance(p),
-                "C" if top => Term::SeriesCap(p),
-                "Q" if top => Term::SeriesCpe { q: p, n: p + 1 },
-                "W" => Term::Warburg(p),
-                "Wt" | "Wr" | "G" => Term::Diffusion {
-                    kind: e.kind,
-                    r: p,
-                    tau: p + 1,
-                },
-                _ => return None,
-            })
+            let (kind, first) = (e.kind, e.first_param);
+            match kind.seed {
+                Seed::Feature { .. } => Some(Term::Feature { kind, first }),
+                Seed::Linear { .. } | Seed::Capacitive { .. }
+                    if top || kind.class == Class::Diffusive =>
+                {
+                    Some(Term::Linear { kind, first })
+                }
+                _ => None,
+            }
         }
         Node::Parallel(ch) if top && ch.len() == 2 => {
             let (cap_node, branch) = if is_cap(c, &ch[0]) {
@@ -43,12 +43,9 @@ fn block(c: &Circuit, node: &Node, top: bool) -> Option<Term> {
                 return None;
             };
             let ce = &c.elements[*ci];
-            let cap = match ce.kind.symbol {
-                "C" => Cap::C(ce.first_param),
-                _ => Cap::Q {
-                    q: ce.first_param,
-                    n: ce.first_param + 1,
-                },
+            let cap = Cap {
+                kind: ce.kind,
+                first: ce.first_param,
             };
             let parts: Vec<&Node> = match branch {
                 Node::Series(s) => s.iter().collect(),
@@ -58,7 +55,9 @@ fn block(c: &Circuit, node: &Node, top: bool) -> Option<Term> {
             let mut inner = Vec::new();
             for part in parts {
                 match part {
-                    Node::Element(i) if c.elements[*i].kind.symbol == "R" && r.is_none() => {
+                    Node::Element(i)
+                        if c.elements[*i].kind.class == Class::Resistive && r.is_none() =>
+                    {
                         r = Some(c.elements[*i].first_param);
                     }
                     other => inner.push(block(c, other, false)?),
@@ -70,8 +69,9 @@ fn block(c: &Circuit, node: &Node, top: bool) -> Option<Term> {
     }
 }
 
+/// Whether a node is a single capacitive element with a seed for arcs.
 fn is_cap(c: &Circuit, n: &Node) -> bool {
-    matches!(n, Node::Element(i) if matches!(c.elements[*i].kind.symbol, "C" | "Q"))
+    matches!(n, Node::Element(i) if matches!(c.elements[*i].kind.seed, Seed::Capacitive { .. }))
 }
 
 #[cfg(test)]
