@@ -386,6 +386,7 @@ pub static KINDS: &[ElementKind] = &[
         class: Class::Diffusive,
         seed: Seed::Feature {
             of: seed::resistance_time,
+            tau: seed::second,
             window: seed::DIFFUSION_WINDOW,
             peak: seed::TRANSMISSIVE_PEAK,
         },
@@ -409,6 +410,7 @@ pub static KINDS: &[ElementKind] = &[
         class: Class::Diffusive,
         seed: Seed::Feature {
             of: seed::resistance_time,
+            tau: seed::second,
             window: seed::DIFFUSION_WINDOW,
             peak: seed::REFLECTIVE_PEAK,
         },
@@ -426,6 +428,7 @@ pub static KINDS: &[ElementKind] = &[
         class: Class::Diffusive,
         seed: Seed::Feature {
             of: seed::resistance_time,
+            tau: seed::second,
             window: seed::DIFFUSION_WINDOW,
             peak: (1.0, 1.0),
         },
@@ -440,6 +443,7 @@ pub static KINDS: &[ElementKind] = &[
         class: Class::Porous,
         seed: Seed::Feature {
             of: seed::one_rail,
+            tau: seed::one_rail_tau,
             window: seed::ARC_WINDOW,
             peak: (1.0, 1.0),
         },
@@ -466,6 +470,7 @@ pub static KINDS: &[ElementKind] = &[
         class: Class::Porous,
         seed: Seed::Feature {
             of: seed::two_rails,
+            tau: seed::two_rails_tau,
             window: seed::ARC_WINDOW,
             peak: (1.0, 1.0),
         },

@@ -67,6 +67,8 @@ pub enum Seed {
     Feature {
         /// The element's values for resistance `r` and time constant `tau`.
         of: SeedTwo,
+        /// Its time constant at given values (the inverse of `of` in τ).
+        tau: fn(&[f64]) -> f64,
         /// Where its time constant may lie, as factors of 1/ω_max and 1/ω_min of the data.
         window: (f64, f64),
         /// The largest peak of its distribution of relaxation times, as fractions (R₁/r, τ₁/τ) of its
@@ -137,6 +139,21 @@ pub(super) fn cpe_tau(r: f64, p: &[f64]) -> f64 {
 pub(super) fn resistance_time(r: f64, tau: f64, fixed: &[bool], out: &mut [f64]) {
     set(out, fixed, 0, r);
     set(out, fixed, 1, tau);
+}
+
+/// The time constant of a (resistance, time constant) pair.
+pub(super) fn second(p: &[f64]) -> f64 {
+    p[1]
+}
+
+/// The interface time constant (Rct·Q)^(1/n) of a one-rail line.
+pub(super) fn one_rail_tau(p: &[f64]) -> f64 {
+    (p[1] * p[2]).powf(1.0 / p[3])
+}
+
+/// The interface time constant (Rct·Q)^(1/n) of a two-rail line.
+pub(super) fn two_rails_tau(p: &[f64]) -> f64 {
+    (p[2] * p[3]).powf(1.0 / p[4])
 }
 
 /// First term of the exact Voigt expansion of transmissive finite diffusion, R·tanh√(jωτ)/√(jωτ):

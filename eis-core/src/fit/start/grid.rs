@@ -16,10 +16,11 @@ struct SlotInfo {
     target: Target,
     /// Allowed τ (coarse grid).
     grid: Vec<f64>,
-    /// An earlier slot that must have a smaller τ than this one (identical plain arcs).
+    /// An earlier slot that must have a smaller τ than this one (identical plain arcs or features in
+    /// series).
     before: Option<usize>,
-    /// For plain arcs (resistor and capacitive element only): the capacitive kind and its values for
-    /// an arc of unit resistance and unit time constant, which identify arcs of the same form.
+    /// For plain arcs (resistor and capacitive element only) and features in series: the (capacitive)
+    /// kind and its values at unit resistance and time constant, which identify blocks of one form.
     plain: Option<(&'static str, Vec<f64>)>,
 }
 
@@ -75,19 +76,31 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
     let window = |(lo, hi): (f64, f64)| log_grid(lo / wmax, hi / wmin, 1.0);
     let mut linear = Vec::new();
     let mut slots: Vec<SlotInfo> = Vec::new();
-    let push = |t: &Term, linear: &mut Vec<_>, slots: &mut Vec<SlotInfo>| match *t {
+    let push = |t: &Term, top: bool, linear: &mut Vec<_>, slots: &mut Vec<SlotInfo>| match *t {
         Term::Linear { kind, first } => {
             if let Some(of) = linear_seed(kind) {
                 let z = unit_shape(ctx, kind, first, |fixed, v| of(1.0, fixed, v));
                 linear.push((kind, first, z));
             }
         }
-        Term::Feature { kind, first } => slots.push(SlotInfo {
-            target: Target::Feature { kind, first },
-            grid: window(kind.seed.window().unwrap_or(ARC_WINDOW)),
-            before: None,
-            plain: None,
-        }),
+        Term::Feature { kind, first } => {
+            // A feature in series identical in form to an earlier one must come after it in τ.
+            let range = first..first + kind.params.len();
+            let mut v = ctx.base[range.clone()].to_vec();
+            if let Seed::Feature { of, .. } = kind.seed {
+                of(1.0, 1.0, &ctx.fixed[range], &mut v);
+            }
+            let plain = top.then_some((kind.symbol, v));
+            let before = plain
+                .as_ref()
+                .and_then(|p| slots.iter().rposition(|s| s.plain.as_ref() == Some(p)));
+            slots.push(SlotInfo {
+                target: Target::Feature { kind, first },
+                grid: window(kind.seed.window().unwrap_or(ARC_WINDOW)),
+                before,
+                plain,
+            })
+        }
         Term::Arc { .. } => {}
     };
     for t in terms {
@@ -111,10 +124,10 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
                     plain,
                 });
                 for it in inner {
-                    push(it, &mut linear, &mut slots);
+                    push(it, false, &mut linear, &mut slots);
                 }
             }
-            other => push(other, &mut linear, &mut slots),
+            other => push(other, true, &mut linear, &mut slots),
         }
     }
     (linear, slots)

@@ -418,6 +418,7 @@ mod tests {
                 crate::element::set(out, fixed, 0, r);
                 crate::element::set(out, fixed, 1, tau);
             },
+            tau: |p| p[1],
             window: crate::element::ARC_WINDOW,
             peak: (1.0, 1.0),
         },

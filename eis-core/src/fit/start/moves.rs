@@ -1,28 +1,59 @@
 //! Variants of a fitted point: identical arcs put in order, arcs swapped or moved along τ.
 
-use super::{Cap, Context, Term, arc_tau, arcs, log_grid, set_arc_tau};
+use super::{Context, Term, arc_tau, arcs, log_grid, set_arc_tau};
+use crate::element::{ElementKind, Seed};
 
-/// Puts structurally identical plain arcs (same capacitive kind, nothing in their resistive branch) in
-/// increasing time-constant order along the circuit text. Series impedances commute, so this only fixes
-/// the labelling of an exact symmetry: the first such arc in the text is the fastest (highest frequency).
-/// Arcs whose swap would break a bound or a fixed value are left alone.
+/// A block that can trade places with another of the same form: its element kind (the capacitive
+/// kind for an arc), its parameter indices and its time constant at `p`.
+fn unit(t: &Term, p: &[f64]) -> Option<(&'static ElementKind, Vec<usize>, f64)> {
+    match t {
+        Term::Arc { r, cap, inner } if inner.is_empty() => Some((
+            cap.kind,
+            std::iter::once(*r).chain(cap.range()).collect(),
+            arc_tau(p, *r, *cap),
+        )),
+        Term::Feature { kind, first } => {
+            let range = *first..*first + kind.params.len();
+            let tau = match kind.seed {
+                Seed::Feature { tau, .. } => tau(&p[range.clone()]),
+                _ => f64::NAN,
+            };
+            Some((kind, range.collect(), tau))
+        }
+        _ => None,
+    }
+}
+
+/// Puts structurally identical blocks in increasing time-constant order along the circuit text: plain
+/// arcs (same capacitive kind, nothing in their resistive branch) among themselves, and feature
+/// elements of the same kind in series (two porous electrodes, say). Series impedances commute, so
+/// this only fixes the labelling of an exact symmetry: the first such block in the text is the fastest
+/// (highest frequency). Blocks whose swap would break a bound or a fixed value are left alone.
 pub(crate) fn order_identical_arcs(ctx: &Context<'_>, terms: &[Term], p: &mut [f64]) {
-    let plain: Vec<(usize, Cap)> = terms
+    let arcs: Vec<&Term> = terms
         .iter()
-        .filter_map(|t| match t {
-            Term::Arc { r, cap, inner } if inner.is_empty() => Some((*r, *cap)),
-            _ => None,
-        })
+        .filter(|t| matches!(t, Term::Arc { inner, .. } if inner.is_empty()))
         .collect();
-    let indices =
-        |r: usize, cap: Cap| -> Vec<usize> { std::iter::once(r).chain(cap.range()).collect() };
-    for _ in 0..plain.len() {
-        for w in 0..plain.len().saturating_sub(1) {
-            let (a, b) = (plain[w], plain[w + 1]);
-            if a.1.kind != b.1.kind || arc_tau(p, a.0, a.1) <= arc_tau(p, b.0, b.1) {
+    let features: Vec<&Term> = terms
+        .iter()
+        .filter(|t| matches!(t, Term::Feature { .. }))
+        .collect();
+    for group in [arcs, features] {
+        order_group(ctx, &group, p);
+    }
+}
+
+/// Bubble-sorts neighbouring blocks of one group by time constant where they are identical in form.
+fn order_group(ctx: &Context<'_>, group: &[&Term], p: &mut [f64]) {
+    for _ in 0..group.len() {
+        for w in 0..group.len().saturating_sub(1) {
+            let (Some(a), Some(b)) = (unit(group[w], p), unit(group[w + 1], p)) else {
+                continue;
+            };
+            if a.0 != b.0 || a.2 <= b.2 {
                 continue;
             }
-            let (ia, ib) = (indices(a.0, a.1), indices(b.0, b.1));
+            let (ia, ib) = (a.1, b.1);
             let swappable = ia.iter().zip(&ib).all(|(&i, &j)| {
                 let (lo_i, hi_i) = ctx.circuit.bounds(i);
                 let (lo_j, hi_j) = ctx.circuit.bounds(j);
