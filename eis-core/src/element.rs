@@ -5,11 +5,15 @@
 //!
 //! Write one [`ImpedanceFn`], `fn(params, grid, z, dz)`, that writes Z(ωᵢ) into `z[i]` and
 //! ∂Z(ωᵢ)/∂params`[k]` into `dz[k * grid.len() + i]` for every frequency of the [`Grid`], then add one
-//! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function. Work that
-//! does not depend on the frequency (a phase, a logarithm of a parameter) belongs before the loop over
-//! the grid; ln ω and √ω come precomputed with the grid. The parser, the
-//! printer, the compiled evaluator, the fitter and the CLI pick it up from the table; the test
-//! `every_kind_matches_finite_differences` checks the new derivatives automatically.
+//! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function, its limits
+//! at direct current and infinite frequency ([`LimitFn`]), its [`Class`] and its [`Seed`] (how the
+//! automatic starts build its values from a resistance and a time constant, or from one coefficient).
+//! Work that does not depend on the frequency (a phase, a logarithm of a parameter) belongs before the
+//! loop over the grid; ln ω and √ω come precomputed with the grid. The parser, the printer, the
+//! compiled evaluator, the fitter (its starts read only the class and seed), the circuit limits
+//! ([`circuit_limit`]) and the CLI pick it up from the table; the tests
+//! `every_kind_matches_finite_differences` and `every_kind_limit_matches_its_impedance` check the new
+//! derivatives and limits automatically.
 //!
 //! # Conventions
 //!

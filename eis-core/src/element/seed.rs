@@ -204,3 +204,70 @@ impl Seed {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::element::{KINDS, kind_by_symbol};
+
+    /// Every seed of the table builds what it says: a feature's time-constant read-back returns the τ
+    /// it was seeded with, a capacitive element in parallel with r gives an arc of the asked τ (R·C,
+    /// and (R·Q)^(1/n) for a CPE: the time constant of an R|CPE arc, common practice), and a linear
+    /// seed is proportional to its coefficient.
+    #[test]
+    fn every_seed_is_inverted_by_its_time_constant() {
+        let (r, tau) = (2.0, 0.01);
+        for kind in KINDS {
+            let fixed = vec![false; kind.params.len()];
+            let mut v: Vec<f64> = kind.params.iter().map(|p| p.default).collect();
+            match kind.seed {
+                Seed::Feature { of, tau: back, .. } => {
+                    of(r, tau, &fixed, &mut v);
+                    assert!((back(&v) / tau - 1.0).abs() < 1e-12, "{}", kind.symbol);
+                }
+                Seed::Capacitive {
+                    parallel,
+                    tau: back,
+                    ..
+                } => {
+                    parallel(r, tau, &fixed, &mut v);
+                    assert!((back(r, &v) / tau - 1.0).abs() < 1e-12, "{}", kind.symbol);
+                }
+                Seed::Linear { of } => {
+                    let mut w = v.clone();
+                    of(1.0, &fixed, &mut v);
+                    of(3.0, &fixed, &mut w);
+                    let (z1, _) = kind.eval_at(&v, 10.0);
+                    let (z3, _) = kind.eval_at(&w, 10.0);
+                    assert!(
+                        (z3 - 3.0 * z1).norm() < 1e-12 * z3.norm(),
+                        "{}",
+                        kind.symbol
+                    );
+                }
+            }
+        }
+    }
+
+    /// A porous-electrode seed for an arc of resistance r: Rct = r and Rion = PORE_FRACTION·r, so its
+    /// DC limit is that of de Levie's line, √(Rion·Rct)·coth√(Rion/Rct) (de Levie 1963, Electrochim.
+    /// Acta 8, 751), about Rct + Rion/3; a fixed exponent is kept and Q follows it.
+    #[test]
+    fn porous_seeds_put_the_arc_on_the_interface() {
+        let pe = kind_by_symbol("Pe").unwrap();
+        let Seed::Feature { of, tau: back, .. } = pe.seed else {
+            panic!("Pe is a feature");
+        };
+        let (r, tau) = (0.02, 1e-3);
+        let mut v = vec![0.0, 0.0, 0.0, 0.7];
+        of(r, tau, &[false, false, false, true], &mut v);
+        assert_eq!(v[1], r);
+        assert_eq!(v[0], PORE_FRACTION * r);
+        assert_eq!(v[3], 0.7);
+        assert!((back(&v) / tau - 1.0).abs() < 1e-12);
+        let x = (v[0] / v[1]).sqrt();
+        let de_levie = (v[0] * v[1]).sqrt() / x.tanh();
+        let dc = (pe.limit)(&v, false).real;
+        assert!((dc / de_levie - 1.0).abs() < 1e-12, "{dc} vs {de_levie}");
+    }
+}
