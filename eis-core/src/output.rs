@@ -30,6 +30,25 @@ use std::io::{self, BufWriter, Write};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, Ordering};
 
+/// One CSV line, with its line end: the fields separated by commas, a field holding a comma, a quote
+/// or a line end quoted (quotes doubled), as the `csv` crate writes them.
+pub fn csv_line<I, T>(fields: I) -> String
+where
+    I: IntoIterator<Item = T>,
+    T: AsRef<[u8]>,
+{
+    let mut w = csv::WriterBuilder::new()
+        .buffer_capacity(256)
+        .from_writer(Vec::new());
+    // Writing into memory cannot fail; a failure would leave the line empty rather than panic.
+    let bytes = w
+        .write_record(fields)
+        .ok()
+        .and_then(|()| w.into_inner().ok())
+        .unwrap_or_default();
+    String::from_utf8_lossy(&bytes).into_owned()
+}
+
 /// Why an output file cannot be written.
 #[derive(Debug, thiserror::Error)]
 #[non_exhaustive]
@@ -341,6 +360,18 @@ pub fn write(path: &Path, bytes: &[u8], inputs: &[PathBuf]) -> Result<(), Output
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Fields with a comma, a quote or a line end are enclosed in quotes, quotes inside doubled; others
+    /// are written as they are (Shafranovich 2005, RFC 4180 "Common Format and MIME Type for
+    /// Comma-Separated Values (CSV) Files", section 2, rules 5-7).
+    #[test]
+    fn csv_line_quotes_only_what_rfc_4180_requires() {
+        assert_eq!(csv_line(["a", "1.5", ""]), "a,1.5,\n");
+        assert_eq!(
+            csv_line(["x,y", "say \"hi\"", "two\nlines", "cr\r"]),
+            "\"x,y\",\"say \"\"hi\"\"\",\"two\nlines\",\"cr\r\"\n"
+        );
+    }
 
     fn scratch(name: &str) -> PathBuf {
         let d = std::env::temp_dir().join(format!("eis-core-output-{name}-{}", std::process::id()));

@@ -626,13 +626,8 @@ pub fn read_results_csv(text: &str, x: &str, at_soc: Option<f64>) -> Result<Resu
                 continue;
             }
         }
-        let cell = match cell_col {
-            Some(c) if !get(c).is_empty() => get(c).to_owned(),
-            _ => std::path::Path::new(get(file_col))
-                .file_stem()
-                .map(|s| s.to_string_lossy().into_owned())
-                .unwrap_or_default(),
-        };
+        let cell =
+            crate::campaign::cell_name(cell_col.map(get), std::path::Path::new(get(file_col)));
         let mut values = Vec::new();
         for (k, (name, vi, si)) in quantity_cols.iter().enumerate() {
             if let Ok(v) = get(*vi).parse::<f64>() {
@@ -669,21 +664,25 @@ pub fn read_results_csv(text: &str, x: &str, at_soc: Option<f64>) -> Result<Resu
 /// `trends.csv`: one row per point of every series.
 pub fn trends_csv(report: &TrendReport) -> String {
     use crate::number::format_float;
-    let mut out = format!(
-        "cell,quantity,{},y,y_stderr,change_percent,slope,slope_stderr,onset,flagged\n",
-        report.x_name
-    );
+    use crate::output::csv_line;
+    let mut out = csv_line([
+        "cell",
+        "quantity",
+        &report.x_name,
+        "y",
+        "y_stderr",
+        "change_percent",
+        "slope",
+        "slope_stderr",
+        "onset",
+        "flagged",
+    ]);
     for s in &report.series {
         for i in 0..s.x.len() {
             let opt = |v: Option<f64>| v.map(format_float).unwrap_or_default();
-            let cell = if s.cell.contains([',', '"']) {
-                format!("\"{}\"", s.cell.replace('"', "\"\""))
-            } else {
-                s.cell.clone()
-            };
-            out.push_str(&format!(
-                "{cell},{},{},{},{},{},{},{},{},{}\n",
-                s.quantity,
+            out.push_str(&csv_line([
+                s.cell.clone(),
+                s.quantity.clone(),
                 format_float(s.x[i]),
                 format_float(s.y[i]),
                 opt(s.y_stderr[i]),
@@ -691,8 +690,8 @@ pub fn trends_csv(report: &TrendReport) -> String {
                 opt(s.slope),
                 opt(s.slope_stderr),
                 opt(s.onset_x),
-                s.flagged.contains(&i)
-            ));
+                s.flagged.contains(&i).to_string(),
+            ]));
         }
     }
     out

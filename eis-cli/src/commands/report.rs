@@ -81,15 +81,8 @@ fn meta_num(r: &SpectrumResult, k: &str) -> Option<f64> {
 }
 
 fn cell_of(r: &SpectrumResult) -> String {
-    r.metadata
-        .get("cell")
-        .map(|v| v.to_string())
-        .unwrap_or_else(|| {
-            Path::new(&r.file)
-                .file_stem()
-                .map(|s| s.to_string_lossy().into_owned())
-                .unwrap_or_default()
-        })
+    let cell = r.metadata.get("cell").map(ToString::to_string);
+    eis_core::campaign::cell_name(cell.as_deref(), Path::new(&r.file))
 }
 
 const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222}\

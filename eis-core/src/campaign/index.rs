@@ -217,13 +217,8 @@ fn scan(path: &Path, reader: &ReaderOptions) -> Vec<Found> {
                 }
                 let fields = &imp.spectrum.meta.fields;
                 let num = |k: &str| meta_field(fields, k).and_then(MetaValue::as_f64);
-                let cell = match meta_field(fields, "cell") {
-                    Some(v) => v.to_string(),
-                    None => path
-                        .file_stem()
-                        .map(|s| s.to_string_lossy().into_owned())
-                        .unwrap_or_default(),
-                };
+                let cell = meta_field(fields, "cell").map(MetaValue::to_string);
+                let cell = super::cell_name(cell.as_deref(), path);
                 out.push(Found::Spectrum {
                     spectrum: imp.spectrum.meta.spectrum,
                     cell,

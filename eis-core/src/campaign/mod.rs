@@ -67,6 +67,18 @@ use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 use std::sync::atomic::AtomicUsize;
 
+/// The cell a spectrum belongs to: its `cell` field when it has a non-empty one, else the name of its
+/// file without folder and extension. Series, trends and the report group spectra by it.
+pub fn cell_name(cell: Option<&str>, file: &Path) -> String {
+    match cell.filter(|c| !c.is_empty()) {
+        Some(c) => c.to_owned(),
+        None => file
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_default(),
+    }
+}
+
 /// Settings of a batch.
 #[derive(Debug, Clone)]
 pub struct BatchSettings {

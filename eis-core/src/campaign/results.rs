@@ -9,7 +9,7 @@ use super::{BatchError, Paths, SpectrumResult, Stage, Status, Summary, failed, i
 use crate::circuit::Circuit;
 use crate::derive::{QUANTITIES, QuantityKind, arc_column};
 use crate::number::format_float;
-use crate::output::OutputFile;
+use crate::output::{OutputFile, csv_line};
 use std::collections::{BTreeSet, HashMap, HashSet};
 use std::io::{self, Write};
 use std::path::{Path, PathBuf};
@@ -116,15 +116,6 @@ impl Finish<'_> {
     }
 }
 
-/// Quotes a CSV field when needed.
-fn csv_field(s: &str) -> String {
-    if s.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", s.replace('"', "\"\""))
-    } else {
-        s.to_owned()
-    }
-}
-
 /// A number cell: empty when there is no value or it is not finite (an infinite time constant), so
 /// that every reader of the table sees a missing number, never a word it cannot parse.
 fn num(v: Option<f64>) -> String {
@@ -195,25 +186,17 @@ impl<'a> Table<'a> {
             header.push(format!("{}_stderr", p.name));
         }
         header.push("reduced_chi_square".into());
-        let mut out = header
-            .iter()
-            .map(|h| csv_field(h))
-            .collect::<Vec<_>>()
-            .join(",");
-        out.push('\n');
-        out
+        csv_line(&header)
     }
 
     /// The row of one result, with its line end.
     pub(super) fn row(&self, r: &SpectrumResult) -> String {
-        let mut row: Vec<String> = vec![csv_field(&r.file), r.spectrum.to_string()];
+        let mut row: Vec<String> = vec![r.file.clone(), r.spectrum.to_string()];
         for k in &self.meta {
-            row.push(csv_field(
-                &r.metadata.get(k).map(|v| v.to_string()).unwrap_or_default(),
-            ));
+            row.push(r.metadata.get(k).map(|v| v.to_string()).unwrap_or_default());
         }
         row.push(r.status.as_str().into());
-        row.push(csv_field(&r.message));
+        row.push(r.message.clone());
         row.push(
             r.kk.as_ref()
                 .map(|k| k.valid.to_string())
@@ -239,9 +222,7 @@ impl<'a> Table<'a> {
             row.push(num(e.and_then(|e| e.stderr)));
         }
         row.push(num(r.fit.as_ref().map(|f| f.statistics.reduced_chi_square)));
-        let mut out = row.join(",");
-        out.push('\n');
-        out
+        csv_line(&row)
     }
 }
 

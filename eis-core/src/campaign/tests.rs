@@ -368,3 +368,14 @@ fn campaign_resume_refuses_results_of_another_model_unless_told() {
     let want = "another reader settings (was `fmin: None`, now `fmin: Some(2.0)`)";
     assert!(e.to_string().contains(want), "{e}");
 }
+
+/// The cell is the `cell` field when given and not empty, else the file's stem (common practice for
+/// exports named after their cell).
+#[test]
+fn campaign_cell_is_the_cell_field_else_the_file_stem() {
+    let file = Path::new("runs/Z3_c100_soc50.csv");
+    assert_eq!(cell_name(Some("Z3"), file), "Z3");
+    assert_eq!(cell_name(Some(""), file), "Z3_c100_soc50");
+    assert_eq!(cell_name(None, file), "Z3_c100_soc50");
+    assert_eq!(cell_name(None, Path::new("")), "");
+}
