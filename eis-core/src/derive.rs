@@ -136,7 +136,7 @@ pub struct QuantityKind {
 }
 
 /// The battery quantities, in the order of the fit document and `results.csv`. Adding a quantity is
-/// one row here (and its computation in [`derive`]).
+/// one row here (and its computation in [`derive()`]).
 pub const QUANTITIES: &[QuantityKind] = &[
     QuantityKind {
         key: QuantityKey::Ohmic,

@@ -47,7 +47,7 @@ pub struct DemoFile {
 
 /// Parameters of a cell at a cycle and SOC (in the order of [`MODEL`]), and the
 /// shunt resistance of a soft short if one is present.
-pub fn cell_state(cell: &str, cycle: f64, soc: f64) -> ([f64; 10], Option<f64>) {
+pub(crate) fn cell_state(cell: &str, cycle: f64, soc: f64) -> ([f64; 10], Option<f64>) {
     let s = soc / 100.0;
     // Charge transfer is slowest near empty and full.
     let soc_factor = 0.25 / (s * (1.0 - s)).max(0.05);
@@ -89,9 +89,9 @@ pub fn cell_state(cell: &str, cycle: f64, soc: f64) -> ([f64; 10], Option<f64>) 
 }
 
 /// The cells, cycles and SOC levels of the campaign.
-pub const CELLS: [&str; 5] = ["Z1", "Z2", "Z3", "Z4", "Z5"];
+pub(crate) const CELLS: [&str; 5] = ["Z1", "Z2", "Z3", "Z4", "Z5"];
 /// SOC levels, %.
-pub const SOCS: [f64; 3] = [20.0, 50.0, 80.0];
+pub(crate) const SOCS: [f64; 3] = [20.0, 50.0, 80.0];
 
 /// Cycles at which spectra are taken.
 pub fn cycles() -> Vec<f64> {
@@ -99,12 +99,12 @@ pub fn cycles() -> Vec<f64> {
 }
 
 /// Frequencies of every spectrum: 20 kHz to 20 mHz, 8 per decade.
-pub fn frequencies() -> Vec<f64> {
+pub(crate) fn frequencies() -> Vec<f64> {
     log_frequencies(2e4, 2e-2, 8)
 }
 
 /// Simulates one spectrum; `drift` makes Rct rise by that fraction over the sweep time.
-pub fn spectrum(
+pub(crate) fn spectrum(
     cell: &str,
     cycle: f64,
     soc: f64,

@@ -174,3 +174,100 @@ fn drt_writes_a_plot_when_asked() {
     assert!(svg.starts_with("<svg") || svg.starts_with("<?xml"));
     assert!(svg.contains("</svg>"));
 }
+
+/// The value of a plot label such as `2.54 Ω` or `332 mΩ`, in Ω.
+fn ohms(label: &str) -> Option<f64> {
+    let number = label.strip_suffix("Ω")?.trim_end();
+    let (digits, scale) = match number.chars().last()? {
+        'm' => (&number[..number.len() - 1], 1e-3),
+        'µ' | 'u' => (number.trim_end_matches(['µ', 'u']), 1e-6),
+        'k' => (&number[..number.len() - 1], 1e3),
+        'M' => (&number[..number.len() - 1], 1e6),
+        _ => (number, 1.0),
+    };
+    digits.trim().parse::<f64>().ok().map(|v| v * scale)
+}
+
+/// The plot of `eis drt` marks exactly the peaks it reports: one label per peak of the table holding
+/// its resistance, one "window edge" mark per peak at the edge, nothing else. Three RC arcs, the third
+/// with τ = 3 s beyond the lowest frequency (0.1 Hz, τ = 1.6 s): for ideal RC arcs the DRT is
+/// R·δ(ln τ − ln RC) (common practice), so the first two are resolved and the third piles γ at the
+/// window edge.
+#[test]
+fn drt_plot_marks_exactly_the_reported_peaks() {
+    let dir = scratch("drt-plot-peaks");
+    eis(
+        &dir,
+        &[
+            "simulate",
+            "--model",
+            "R0 + R1|C1 + R2|C2 + R3|C3",
+            "--set",
+            "R0=5",
+            "--set",
+            "R1=20",
+            "--set",
+            "C1=0.5u",
+            "--set",
+            "R2=50",
+            "--set",
+            "C2=20u",
+            "--set",
+            "R3=40",
+            "--set",
+            "C3=75m",
+            "--fmin",
+            "0.1",
+            "--fmax",
+            "100k",
+            "-o",
+            "s.csv",
+        ],
+    )
+    .expect_code(0);
+    let run = eis(&dir, &["drt", "s.csv", "--json", "--plot", "drt.svg"]).expect_code(0);
+    let v: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    let table: Vec<f64> = v["peaks"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["resistance_ohm"].as_f64().unwrap())
+        .collect();
+    let edge = v["edge_peaks"].as_array().unwrap();
+    assert_eq!(table.len(), 2, "{}", run.stdout);
+    assert_eq!(edge.len(), 1, "{}", run.stdout);
+    assert_eq!(edge[0]["at_window_edge"], true);
+    let svg = std::fs::read_to_string(dir.join("drt.svg")).unwrap();
+    let texts: Vec<String> = svg
+        .split("<text")
+        .skip(1)
+        .filter_map(|t| {
+            let body = &t[t.find('>')? + 1..];
+            Some(body[..body.find("</text>")?].trim().to_owned())
+        })
+        .collect();
+    let labels: Vec<f64> = texts
+        .iter()
+        .filter(|t| t.as_str() != "γ / Ω")
+        .filter_map(|t| ohms(t))
+        .collect();
+    assert_eq!(labels.len(), table.len(), "{texts:?}");
+    for (label, r) in labels.iter().zip(&table) {
+        assert!(
+            (label / r - 1.0).abs() < 0.006,
+            "label {label} Ω for a {r} Ω peak"
+        );
+    }
+    assert_eq!(
+        texts.iter().filter(|t| t.as_str() == "window edge").count(),
+        edge.len(),
+        "{texts:?}"
+    );
+    // The text output keeps the edge peak out of the table and says why.
+    let text = eis(&dir, &["drt", "s.csv"]).expect_code(0).stdout;
+    assert!(text.contains("peaks        2"), "{text}");
+    assert!(
+        text.contains("at the window edge, produced by a process beyond the data"),
+        "{text}"
+    );
+}

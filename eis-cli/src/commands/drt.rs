@@ -2,7 +2,9 @@
 
 use crate::io::{Failure, Outcome, bad, read_spectra, write_output};
 use anyhow::anyhow;
-use eis_core::drt::{DrtOptions, DrtResult, LambdaMethod, Part, Penalty, drt};
+use eis_core::drt::{
+    DEFAULT_PEAK_THRESHOLD, DrtOptions, DrtResult, LambdaMethod, Part, Penalty, drt,
+};
 use eis_core::number::{format_float, format_si};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -37,8 +39,12 @@ pub struct Args {
     /// Model a series inductance (for spectra that turn inductive at high frequency).
     #[arg(long)]
     inductance: bool,
-    /// Smallest peak reported, as a fraction of the largest γ.
-    #[arg(allow_negative_numbers = true, long, default_value = "0.05", value_parser = parse_fraction)]
+    /// Leave out the series capacitance that takes up an open capacitive tail at low frequency.
+    #[arg(long)]
+    no_capacitance: bool,
+    /// Smallest peak reported, as a fraction of the largest γ (a separated process of 4 % of the
+    /// largest stays above the default; ripple and noise bumps below it).
+    #[arg(allow_negative_numbers = true, long, default_value_t = DEFAULT_PEAK_THRESHOLD, value_parser = parse_fraction)]
     peak_threshold: f64,
     /// Print the result as JSON on stdout instead of a summary.
     #[arg(long)]
@@ -53,22 +59,25 @@ pub struct Args {
     reader: crate::reader_args::ReaderArgs,
 }
 
-/// The DRT plot of a result: γ against τ, each peak marked with its resistance.
+/// The DRT plot of a result: γ against τ, each peak of the table marked with its resistance, each peak
+/// at the window edge marked as such (exactly the peaks `eis drt` reports, no others).
 pub fn drt_plot(r: &DrtResult, title: String) -> crate::plot::Plot {
     use crate::plot::{DrtPeak, DrtPlot, Plot};
+    let table = r.peaks.iter().map(|pk| DrtPeak {
+        tau: pk.tau_s,
+        gamma: pk.gamma_ohm,
+        label: Some(crate::format::quantity(pk.resistance_ohm, 3, "Ω")),
+    });
+    let edge = r.edge_peaks.iter().map(|pk| DrtPeak {
+        tau: pk.tau_s,
+        gamma: pk.gamma_ohm,
+        label: Some("window edge".to_owned()),
+    });
     Plot::Drt(DrtPlot {
         title,
         tau: r.tau_s.clone(),
         gamma: r.gamma_ohm.clone(),
-        peaks: r
-            .peaks
-            .iter()
-            .map(|pk| DrtPeak {
-                tau: pk.tau_s,
-                gamma: pk.gamma_ohm,
-                label: Some(crate::format::quantity(pk.resistance_ohm, 3, "Ω")),
-            })
-            .collect(),
+        peaks: table.chain(edge).collect(),
     })
 }
 
@@ -139,6 +148,7 @@ pub fn run(args: Args) -> Outcome {
             Fitted::Imag => Part::Imaginary,
         })
         .with_inductance(args.inductance)
+        .with_capacitance(!args.no_capacitance)
         .with_peak_threshold(args.peak_threshold);
     let spinner = crate::io::step_for(spectrum.len(), "computing the DRT");
     let result = drt(spectrum, options);
@@ -206,6 +216,12 @@ fn summary(r: &DrtResult) -> String {
     if let Some(l) = r.inductance_h {
         s.push_str(&format!("L            {} H\n", format_si(round(l))));
     }
+    if let Some(c) = r.capacitance_f {
+        s.push_str(&format!(
+            "C_series     {} F (an open capacitive tail at low frequency)\n",
+            format_si(round(c))
+        ));
+    }
     s.push_str(&format!(
         "R_pol        {} Ohm\n",
         format_si(round(r.r_pol_ohm))
@@ -215,19 +231,33 @@ fn summary(r: &DrtResult) -> String {
         100.0 * r.residual_rms
     ));
     s.push_str(&format!("peaks        {}\n", r.peaks.len()));
-    if !r.peaks.is_empty() {
-        s.push_str("  tau_s        frequency_hz  resistance_ohm  width_decades\n");
-        for p in &r.peaks {
-            s.push_str(&format!(
-                "  {:<12} {:<13} {:<15} {:.2}\n",
-                format_si(round(p.tau_s)),
-                format_si(round(p.frequency_hz)),
-                format_si(round(p.resistance_ohm)),
-                p.width_decades
-            ));
-        }
+    peak_table(&mut s, &r.peaks);
+    if !r.edge_peaks.is_empty() {
+        s.push_str(&format!(
+            "at the window edge, produced by a process beyond the data ({}; not in the table \
+             above, their τ and resistance are not those of a resolved process):\n",
+            r.edge_peaks.len()
+        ));
+        peak_table(&mut s, &r.edge_peaks);
     }
     s
+}
+
+/// The rows of a peak table, with its header.
+fn peak_table(s: &mut String, peaks: &[eis_core::drt::DrtPeak]) {
+    if peaks.is_empty() {
+        return;
+    }
+    s.push_str("  tau_s        frequency_hz  resistance_ohm  width_decades\n");
+    for p in peaks {
+        s.push_str(&format!(
+            "  {:<12} {:<13} {:<15} {:.2}\n",
+            format_si(round(p.tau_s)),
+            format_si(round(p.frequency_hz)),
+            format_si(round(p.resistance_ohm)),
+            p.width_decades
+        ));
+    }
 }
 
 /// Four significant digits, for display only.

@@ -15,6 +15,7 @@ pub struct DrtSetup {
     pub(super) frequency_hz: Vec<f64>,
     pub(super) omega: Vec<f64>,
     pub(super) omega_max: f64,
+    pub(super) omega_min: f64,
     /// ln τ_m of the basis centres, ascending.
     pub(super) centres: Vec<f64>,
     pub(super) epsilon: f64,
@@ -29,6 +30,7 @@ pub struct DrtSetup {
     pub(super) grid_basis: DMatrix<f64>,
     pub(super) has_r_inf: bool,
     pub(super) has_l: bool,
+    pub(super) has_c: bool,
 }
 
 /// Gram entry ∫φ_i^(k) φ_j^(k) d ln τ of the Gaussians exp(−ε²(y − y_i)²) for derivative order k = 0,
@@ -155,7 +157,8 @@ impl DrtSetup {
 
         let has_r_inf = options.part != Part::Imaginary;
         let has_l = options.inductance && options.part != Part::Real;
-        let extra = has_r_inf as usize + has_l as usize;
+        let has_c = options.capacitance && options.part != Part::Real;
+        let extra = has_r_inf as usize + has_l as usize + has_c as usize;
         let order = options.penalty.order();
         let mut penalty = DMatrix::zeros(extra + m, extra + m);
         for a in 0..m {
@@ -178,11 +181,13 @@ impl DrtSetup {
         });
 
         let omega_max = omega.iter().fold(0.0f64, |a, &b| a.max(b));
+        let omega_min = omega.iter().fold(f64::INFINITY, |a, &b| a.min(b));
         Ok(DrtSetup {
             options,
             frequency_hz: frequency_hz.to_vec(),
             omega,
             omega_max,
+            omega_min,
             centres,
             epsilon,
             kernel_re,
@@ -192,6 +197,7 @@ impl DrtSetup {
             grid_basis,
             has_r_inf,
             has_l,
+            has_c,
         })
     }
 
@@ -224,7 +230,7 @@ impl DrtSetup {
     ) -> (DMatrix<f64>, DVector<f64>) {
         let n = self.omega.len();
         let m = self.centres.len();
-        let extra = self.has_r_inf as usize + self.has_l as usize;
+        let extra = self.has_r_inf as usize + self.has_l as usize + self.has_c as usize;
         let parts: &[bool] = match self.options.part {
             Part::Both => &[false, true],
             Part::Real => &[false],
@@ -246,6 +252,15 @@ impl DrtSetup {
                 if self.has_l {
                     a[(r, col)] = if imag {
                         s * self.omega[i] / self.omega_max
+                    } else {
+                        0.0
+                    };
+                    col += 1;
+                }
+                if self.has_c {
+                    // −1/(ωC), with the elastance 1/C in units of R_ref·ω_min.
+                    a[(r, col)] = if imag {
+                        -s * self.omega_min / self.omega[i]
                     } else {
                         0.0
                     };

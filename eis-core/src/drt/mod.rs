@@ -2,9 +2,11 @@
 //!
 //! # Model
 //!
-//! Z(ω) = R∞ + jωL + ∫ γ(ln τ) / (1 + jωτ) d ln τ, with γ ≥ 0 in Ω per unit of ln τ (not per second: a
-//! density g(τ) per unit τ relates as γ = τ·g). The inductance term is optional
-//! ([`DrtOptions::with_inductance`]).
+//! Z(ω) = R∞ + jωL + 1/(jωC) + ∫ γ(ln τ) / (1 + jωτ) d ln τ, with γ ≥ 0 in Ω per unit of ln τ (not
+//! per second: a density g(τ) per unit τ relates as γ = τ·g). The inductance term is optional
+//! ([`DrtOptions::with_inductance`]); the series capacitance, on by default
+//! ([`DrtOptions::with_capacitance`]), takes up an open capacitive tail at low frequency, which a
+//! distribution of relaxation times alone can only imitate by piling γ against the end of the window.
 //!
 //! γ is expanded in Gaussian radial basis functions φ_m(y) = exp(−(ε(y − y_m))²), y = ln τ, one centred
 //! at τ_m = 1/ω_m for each distinct measured frequency (Wan, Saccoccio, Chen & Ciucci 2015, Electrochim.
@@ -14,15 +16,15 @@
 //!
 //! # Problem solved
 //!
-//! min ‖W(Z − A x)‖² + λ·xᵀMx subject to x ≥ 0, over x = (R∞, L, coefficients), real and imaginary
-//! parts stacked (or one part only, [`Part`]). M is the Gram matrix of the first or second derivatives
-//! of the basis functions ([`Penalty`]); it does not touch R∞ or L. The solver is the Lawson–Hanson
+//! min ‖W(Z − A x)‖² + λ·xᵀMx subject to x ≥ 0, over x = (R∞, L, 1/C, coefficients), real and
+//! imaginary parts stacked (or one part only, [`Part`]). M is the Gram matrix of the first or second
+//! derivatives of the basis functions ([`Penalty`]); it does not touch R∞, L or 1/C. The solver is the Lawson–Hanson
 //! active-set method on the normal equations ([`crate::nnls`]).
 //!
 //! The problem is made scale-free before solving, so that one λ means the same for a 10 mΩ cell and a
 //! 10 kΩ coating: the residual of each point is divided by |Z_i| ([`Weighting::Modulus`], the default)
 //! or by max|Z| ([`Weighting::Unit`]), and the unknowns are expressed in units of R_ref = max|Z| (L in
-//! units of R_ref/ω_max). λ is reported in these units.
+//! units of R_ref/ω_max, 1/C in units of R_ref·ω_min). λ is reported in these units.
 //!
 //! # Choosing λ
 //!
@@ -39,7 +41,8 @@
 //! γ on a fine log-spaced τ grid that covers the basis centres plus three basis widths on each side (so
 //! the grid holds practically all of γ's area); its peaks, each with τ, frequency 1/(2πτ), height, width
 //! and resistance (the area under γ between the valleys that separate it from its neighbours, so that
-//! the peak resistances add up to the area of γ); R∞, L, the polarisation resistance ∫γ d ln τ (exact,
+//! the peak resistances add up to the area of γ), those inside the measured window apart from those at
+//! its edge (the rule is in [`find_peaks`]); R∞, L, C, the polarisation resistance ∫γ d ln τ (exact,
 //! from the coefficients), and residuals relative to |Z|.
 //!
 //! # Reuse
@@ -256,6 +259,10 @@ pub struct DrtResult {
     pub r_inf_ohm: f64,
     /// Series inductance (H), when modelled.
     pub inductance_h: Option<f64>,
+    /// Series capacitance (F), when modelled and the data show an open capacitive tail: None when not
+    /// modelled, or when its reactance at the lowest frequency is below 1 % of |Z| there (no tail the
+    /// data can tell from the rest; the fit, residuals included, still uses it).
+    pub capacitance_f: Option<f64>,
     /// Polarisation resistance ∫γ d ln τ (Ω).
     pub r_pol_ohm: f64,
     /// The output τ grid (s), ascending.
@@ -264,6 +271,10 @@ pub struct DrtResult {
     pub gamma_ohm: Vec<f64>,
     /// Peaks of γ, ascending in τ.
     pub peaks: Vec<DrtPeak>,
+    /// Peaks at the edge of the measured window or beyond it, ascending in τ: produced by a process
+    /// beyond the data (typically a diffusion tail still rising at the lowest frequency), so their τ
+    /// and resistance are not those of a resolved process. Kept apart from [`DrtResult::peaks`].
+    pub edge_peaks: Vec<DrtPeak>,
     /// Frequencies of the input points (Hz), in input order.
     pub frequency_hz: Vec<f64>,
     /// (Z′ − Ẑ′)/|Z| at each input point.
@@ -283,6 +294,10 @@ pub struct DrtResult {
     /// Things the user should know (λ at the end of its range, a poor fit, ...).
     pub warnings: Vec<String>,
 }
+
+/// The smallest reactance of the series capacitance at the lowest frequency, relative to |Z| there,
+/// for which [`DrtResult::capacitance_f`] reports it.
+const CAPACITANCE_SHOWN: f64 = 0.01;
 
 /// The fewest distinct frequencies a DRT accepts.
 pub const MIN_POINTS: usize = 5;
@@ -389,6 +404,12 @@ impl DrtSetup {
             inductance = Some(x[col] * r_ref / self.omega_max);
             col += 1;
         }
+        // The elastance 1/C (F⁻¹), unscaled; 0 means no capacitance in series.
+        let mut elastance = 0.0;
+        if self.has_c {
+            elastance = x[col] * r_ref * self.omega_min;
+            col += 1;
+        }
         let coef: Vec<f64> = x[col..].iter().map(|v| v * r_ref).collect();
         let coef_v = DVector::from_column_slice(&coef);
         let model_re = &self.kernel_re * &coef_v;
@@ -416,12 +437,16 @@ impl DrtSetup {
             inductance = Some((num / den).max(0.0));
         }
         let l = inductance.unwrap_or(0.0);
+        let i_min = (0..n)
+            .min_by(|&a, &b| self.omega[a].total_cmp(&self.omega[b]))
+            .unwrap_or(0);
         let mut residual_real = Vec::with_capacity(n);
         let mut residual_imag = Vec::with_capacity(n);
         let mut sum_sq = 0.0;
         for i in 0..n {
             let rr = (z[i].re - r_inf - model_re[i]) / modulus[i];
-            let ri = (z[i].im - self.omega[i] * l - model_im[i]) / modulus[i];
+            let ri = (z[i].im - self.omega[i] * l + elastance / self.omega[i] - model_im[i])
+                / modulus[i];
             sum_sq += rr * rr + ri * ri;
             residual_real.push(rr);
             residual_imag.push(ri);
@@ -435,16 +460,25 @@ impl DrtSetup {
         }
         if residual_rms > 0.05 {
             warnings.push(format!(
-                "the DRT model fits poorly (rms residual {:.1} % of |Z|); a capacitive or diffusion \
-                 tail at low frequency cannot be represented by a distribution of relaxation times",
+                "the DRT model fits poorly (rms residual {:.1} % of |Z|); a diffusion tail at low \
+                 frequency is represented only roughly by a distribution of relaxation times",
                 100.0 * residual_rms
             ));
         }
 
         let gamma: Vec<f64> = (&self.grid_basis * &coef_v).iter().copied().collect();
         let r_pol = coef.iter().sum::<f64>() * PI.sqrt() / self.epsilon;
-        let peaks = peaks_on_grid(&self.grid, &gamma, self.options.peak_threshold, None);
-        if ![r_inf, r_pol, l].iter().all(|v| v.is_finite()) || gamma.iter().any(|g| !g.is_finite())
+        let window = (self.centres[0], self.centres[self.centres.len() - 1]);
+        let (edge_peaks, peaks): (Vec<DrtPeak>, Vec<DrtPeak>) = peaks_on_grid(
+            &self.grid,
+            &gamma,
+            self.options.peak_threshold,
+            Some(window),
+        )
+        .into_iter()
+        .partition(|p| p.at_window_edge);
+        if ![r_inf, r_pol, l, elastance].iter().all(|v| v.is_finite())
+            || gamma.iter().any(|g| !g.is_finite())
         {
             return Err(DrtError::new(DrtErrorKind::Numerical(
                 "the DRT result is not finite",
@@ -457,10 +491,13 @@ impl DrtSetup {
             part: self.options.part,
             r_inf_ohm: r_inf,
             inductance_h: inductance,
+            capacitance_f: (elastance / self.omega_min > CAPACITANCE_SHOWN * modulus[i_min])
+                .then(|| 1.0 / elastance),
             r_pol_ohm: r_pol,
             tau_s: self.grid.iter().map(|y| y.exp()).collect(),
             gamma_ohm: gamma,
             peaks,
+            edge_peaks,
             frequency_hz: self.frequency_hz.clone(),
             residual_real,
             residual_imag,

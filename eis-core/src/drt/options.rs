@@ -112,6 +112,7 @@ pub struct DrtOptions {
     pub(super) penalty: Penalty,
     pub(super) part: Part,
     pub(super) inductance: bool,
+    pub(super) capacitance: bool,
     pub(super) weighting: Weighting,
     pub(super) rbf_width: f64,
     pub(super) grid_per_decade: usize,
@@ -127,6 +128,7 @@ impl Default for DrtOptions {
             penalty: Penalty::Second,
             part: Part::Both,
             inductance: false,
+            capacitance: true,
             weighting: Weighting::Modulus,
             rbf_width: 2.0,
             grid_per_decade: 40,
@@ -159,6 +161,16 @@ impl DrtOptions {
     /// Whether a series inductance L ≥ 0 is part of the model. Default: false.
     pub fn with_inductance(mut self, inductance: bool) -> Self {
         self.inductance = inductance;
+        self
+    }
+
+    /// Whether a series capacitance C > 0 is part of the model (its elastance 1/C ≥ 0 is an unknown
+    /// beside R∞ and L, not penalised). Default: true. An open capacitive tail (−Z″ still rising at
+    /// the lowest frequency, as a blocking or diffusion-limited electrode gives) is then taken up by C
+    /// instead of piling γ against the end of the window; data without such a tail leave 1/C at 0.
+    /// Fitting the real part alone cannot see a capacitance, and none is modelled then.
+    pub fn with_capacitance(mut self, capacitance: bool) -> Self {
+        self.capacitance = capacitance;
         self
     }
 
@@ -221,6 +233,11 @@ impl DrtOptions {
     /// Whether a series inductance is modelled.
     pub fn inductance(&self) -> bool {
         self.inductance
+    }
+
+    /// Whether a series capacitance is modelled.
+    pub fn capacitance(&self) -> bool {
+        self.capacitance
     }
 
     pub(super) fn validate(&self) -> Result<(), DrtError> {

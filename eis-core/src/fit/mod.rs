@@ -46,7 +46,7 @@ use lm::Solver;
 pub use lm::Termination;
 use num_complex::Complex64;
 use problem::{Point, Problem, Transform};
-pub use stats::{BoundSide, Covariance, FitWarning, Part, covariance, runs_test_z};
+pub use stats::{BoundSide, FitWarning, Part};
 
 /// How residuals are weighted. Weights are computed from the data values.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
