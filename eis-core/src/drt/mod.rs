@@ -67,7 +67,7 @@
 mod basis;
 mod lambda;
 mod options;
-mod peaks;
+pub mod peaks;
 #[cfg(test)]
 mod tests;
 
