@@ -85,8 +85,10 @@ impl TrendSettings {
 /// One series: a quantity of a cell against x.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Series {
-    /// Cell (with ` @ SOC n` when SOC levels are kept apart).
+    /// Cell.
     pub cell: String,
+    /// The SOC level, when SOC levels are kept apart (x is not SOC and the records hold several).
+    pub soc: Option<f64>,
     /// Quantity name (results column).
     pub quantity: String,
     /// x values, ascending.
@@ -147,6 +149,8 @@ handle suspect cells by your lab's own rules.";
 pub struct Flag {
     /// Cell.
     pub cell: String,
+    /// The SOC level of the series, when SOC levels are kept apart.
+    pub soc: Option<f64>,
     /// Quantity.
     pub quantity: String,
     /// Kind.
@@ -157,6 +161,28 @@ pub struct Flag {
     pub change_percent: Option<f64>,
     /// Plain explanation, ending with the caution.
     pub explanation: String,
+}
+
+/// A series' name for people: the cell, with ` @ SOC n` when SOC levels are kept apart.
+fn series_label(cell: &str, soc: Option<f64>) -> String {
+    match soc {
+        Some(s) => format!("{cell} @ SOC {}", trim(s)),
+        None => cell.to_owned(),
+    }
+}
+
+impl Series {
+    /// The series' name for people: the cell, with ` @ SOC n` when SOC levels are kept apart.
+    pub fn label(&self) -> String {
+        series_label(&self.cell, self.soc)
+    }
+}
+
+impl Flag {
+    /// The flagged series' name for people, as [`Series::label`].
+    pub fn label(&self) -> String {
+        series_label(&self.cell, self.soc)
+    }
 }
 
 /// The whole analysis.
@@ -284,28 +310,29 @@ pub fn analyse(
             })
             .len()
             > 1;
-    let key = |r: &Record| -> String {
-        match (split_soc, r.soc) {
-            (true, Some(s)) => format!("{} @ SOC {}", r.cell, trim(s)),
-            _ => r.cell.clone(),
-        }
+    // A series' group: the cell, and the SOC level when levels are kept apart (compared by its label,
+    // so that levels equal in print are one group).
+    let key = |r: &Record| -> (String, Option<f64>, String) {
+        let soc = r.soc.filter(|_| split_soc);
+        (r.cell.clone(), soc, series_label(&r.cell, soc))
     };
-    let mut keys: Vec<String> = Vec::new();
+    let mut keys: Vec<(String, Option<f64>, String)> = Vec::new();
     for r in records {
         let k = key(r);
-        if !keys.contains(&k) {
+        if !keys.iter().any(|o| o.2 == k.2) {
             keys.push(k);
         }
     }
     let mut series = Vec::new();
     let mut flags = Vec::new();
-    for k in &keys {
-        let mut rs: Vec<&Record> = records.iter().filter(|r| &key(r) == k).collect();
+    for (cell, soc, label) in &keys {
+        let mut rs: Vec<&Record> = records.iter().filter(|r| &key(r).2 == label).collect();
         rs.sort_by(|a, b| a.x.total_cmp(&b.x));
         for r in &rs {
             if r.kk_valid == Some(false) {
                 flags.push(Flag {
-                    cell: k.clone(),
+                    cell: cell.clone(),
+                    soc: *soc,
                     quantity: r.source.clone(),
                     kind: FlagKind::InvalidMeasurement,
                     onset_x: Some(r.x),
@@ -342,7 +369,8 @@ pub fn analyse(
                     .then_some(x0)
             });
             let mut s = Series {
-                cell: k.clone(),
+                cell: cell.clone(),
+                soc: *soc,
                 quantity: q.clone(),
                 x: x.clone(),
                 y: y.clone(),
@@ -391,7 +419,8 @@ pub fn analyse(
                         .filter(|&i| onset.is_none_or(|o| x[i] >= o))
                         .collect();
                     flags.push(Flag {
-                        cell: k.clone(),
+                        cell: cell.clone(),
+                        soc: *soc,
                         quantity: q.clone(),
                         kind,
                         onset_x: onset,
@@ -402,7 +431,7 @@ pub fn analyse(
             }
             series.push(s);
         }
-        if let Some(f) = soft_short(&rs, k, x_name, settings) {
+        if let Some(f) = soft_short(&rs, (cell, *soc), x_name, settings) {
             flags.push(f);
         }
     }
@@ -432,7 +461,12 @@ fn polarisation(r: &Record) -> Option<f64> {
     Some(total - ohmic)
 }
 
-fn soft_short(rs: &[&Record], cell: &str, x_name: &str, s: &TrendSettings) -> Option<Flag> {
+fn soft_short(
+    rs: &[&Record],
+    (cell, soc): (&str, Option<f64>),
+    x_name: &str,
+    s: &TrendSettings,
+) -> Option<Flag> {
     let pts: Vec<(f64, f64)> = rs
         .iter()
         .filter(|r| r.kk_valid != Some(false))
@@ -454,6 +488,7 @@ fn soft_short(rs: &[&Record], cell: &str, x_name: &str, s: &TrendSettings) -> Op
             let change = 100.0 * (last - level) / level;
             return Some(Flag {
                 cell: cell.to_owned(),
+                soc,
                 quantity: "polarisation_resistance_ohm".to_owned(),
                 kind: FlagKind::PossibleSoftShort,
                 onset_x: Some(pts[k].0),
@@ -532,6 +567,48 @@ mod tests {
         assert_eq!((f.cell.as_str(), f.kind), ("A", FlagKind::OhmicGrowth));
         assert_eq!(f.onset_x, Some(200.0));
         assert!(f.explanation.contains("not a safety verdict"));
+    }
+
+    /// Series of one cell at two SOC levels are kept apart, and trends.csv names cell and SOC in
+    /// columns of their own (a column per field, common practice for tables read by other programs).
+    #[test]
+    fn soc_levels_are_separate_series_with_their_own_column() {
+        let mut recs = Vec::new();
+        for k in 0..4 {
+            for soc in [20.0, 80.0] {
+                let mut r = record("Z1", 50.0 * k as f64, 0.1 + soc * 1e-3, 0.5);
+                r.soc = Some(soc);
+                recs.push(r);
+            }
+        }
+        let q = vec!["ohmic_resistance_ohm".to_owned()];
+        let rep = analyse(&recs, "cycle", &q, &TrendSettings::default());
+        let keys: Vec<(&str, Option<f64>, String)> = rep
+            .series
+            .iter()
+            .map(|s| (s.cell.as_str(), s.soc, s.label()))
+            .collect();
+        assert_eq!(
+            keys,
+            [
+                ("Z1", Some(20.0), "Z1 @ SOC 20".to_owned()),
+                ("Z1", Some(80.0), "Z1 @ SOC 80".to_owned())
+            ]
+        );
+        let csv = trends_csv(&rep);
+        let mut lines = csv.lines();
+        assert_eq!(
+            lines.next(),
+            Some(
+                "cell,soc,quantity,cycle,y,y_stderr,change_percent,slope,slope_stderr,onset,flagged"
+            )
+        );
+        assert!(
+            lines
+                .next()
+                .is_some_and(|l| l.starts_with("Z1,20,ohmic_resistance_ohm,0,"))
+        );
+        assert!(!csv.contains('@'), "{csv}");
     }
 
     #[test]
@@ -667,6 +744,7 @@ pub fn trends_csv(report: &TrendReport) -> String {
     use crate::output::csv_line;
     let mut out = csv_line([
         "cell",
+        "soc",
         "quantity",
         &report.x_name,
         "y",
@@ -682,6 +760,7 @@ pub fn trends_csv(report: &TrendReport) -> String {
             let opt = |v: Option<f64>| v.map(format_float).unwrap_or_default();
             out.push_str(&csv_line([
                 s.cell.clone(),
+                opt(s.soc),
                 s.quantity.clone(),
                 format_float(s.x[i]),
                 format_float(s.y[i]),
