@@ -125,6 +125,9 @@ pub enum FlagKind {
     PossibleSoftShort,
     /// A spectrum that failed the Kramers–Kronig check.
     InvalidMeasurement,
+    /// One point departing from both its neighbours, which agree with each other: a jump, not a
+    /// trend; it is left out of the trend statistics.
+    SinglePointJump,
 }
 
 impl FlagKind {
@@ -136,6 +139,7 @@ impl FlagKind {
             FlagKind::TransportGrowth => "transport-growth",
             FlagKind::PossibleSoftShort => "possible-soft-short",
             FlagKind::InvalidMeasurement => "invalid-measurement",
+            FlagKind::SinglePointJump => "single-point-jump",
         }
     }
 }
@@ -233,6 +237,14 @@ interfaces: likely causes are a growing surface film or passivation layer, or lo
             "The total resistance fell suddenly toward the ohmic value{since} (polarisation part down by \
 {:.0} %): a possible soft short, for example through dendrites. Such a cell may self-discharge or heat.",
             -change
+        ),
+        FlagKind::SinglePointJump => format!(
+            "One spectrum ({quantity}{}) departs by {change:+.0} % from both its neighbours, which \
+agree with each other: a single jump (an arc assigned to the wrong process, a disturbed measurement), not a \
+trend. It is left out of the growth statistics; check that fit before trusting it.",
+            onset
+                .map(|x| format!(" at {x_name} {}", trim(x)))
+                .unwrap_or_default()
         ),
         FlagKind::InvalidMeasurement => "This spectrum failed the Kramers-Kronig check: the cell was probably \
 not stable during the sweep (drift, temperature, a film still forming) or the measurement was disturbed; \
@@ -359,9 +371,30 @@ pub fn analyse(
             let y: Vec<f64> = pts.iter().map(|p| p.1).collect();
             let base = y[0];
             let change: Vec<f64> = y.iter().map(|v| 100.0 * (v - base) / base.abs()).collect();
+            // Single-point jumps are flagged on their own and left out of the trend statistics, so
+            // that one spike neither raises a growth flag nor fakes an onset.
+            let jumps = single_jumps(&pts, settings.growth_percent);
+            for &i in &jumps {
+                let (xi, yi) = (pts[i].0, pts[i].1);
+                let reference = 0.5 * (pts[i - 1].1 + pts[i + 1].1);
+                let jump = 100.0 * (yi - reference) / reference.abs();
+                flags.push(Flag {
+                    cell: cell.clone(),
+                    soc: *soc,
+                    quantity: q.clone(),
+                    kind: FlagKind::SinglePointJump,
+                    onset_x: Some(xi),
+                    change_percent: Some(jump),
+                    explanation: explain(FlagKind::SinglePointJump, q, jump, Some(xi), x_name),
+                });
+            }
             // Trend statistics on the trusted points only.
-            let (tx, ty): (Vec<f64>, Vec<f64>) =
-                pts.iter().filter(|p| p.3).map(|p| (p.0, p.1)).unzip();
+            let (tx, ty): (Vec<f64>, Vec<f64>) = pts
+                .iter()
+                .enumerate()
+                .filter(|(i, p)| p.3 && !jumps.contains(i))
+                .map(|(_, p)| (p.0, p.1))
+                .unzip();
             let lf = line_fit(&tx, &ty);
             let hinge_fit = hinge(&tx, &ty);
             let onset = hinge_fit.and_then(|(x0, rss_h, rss_f)| {
@@ -429,6 +462,9 @@ pub fn analyse(
                     });
                 }
             }
+            s.flagged.extend(&jumps);
+            s.flagged.sort_unstable();
+            s.flagged.dedup();
             series.push(s);
         }
         if let Some(f) = soft_short(&rs, (cell, *soc), x_name, settings) {
@@ -440,6 +476,30 @@ pub fn analyse(
         series,
         flags,
     }
+}
+
+/// Interior trusted points (indices into `pts`: x, y, standard error, trusted) that depart from both
+/// trusted neighbours by at least `percent` % of their mean and by more than six times the series'
+/// median step between successive points, while the two neighbours differ by less than a quarter of
+/// that departure.
+fn single_jumps(pts: &[(f64, f64, Option<f64>, bool)], percent: f64) -> Vec<usize> {
+    let mut steps: Vec<f64> = pts.windows(2).map(|w| (w[1].1 - w[0].1).abs()).collect();
+    steps.sort_by(f64::total_cmp);
+    let typical = steps.get(steps.len() / 2).copied().unwrap_or(0.0);
+    (1..pts.len().saturating_sub(1))
+        .filter(|&i| {
+            let (a, p, b) = (pts[i - 1], pts[i], pts[i + 1]);
+            if !(a.3 && p.3 && b.3) {
+                return false;
+            }
+            let reference = 0.5 * (a.1 + b.1);
+            let departure = (p.1 - reference).abs();
+            reference != 0.0
+                && 100.0 * departure / reference.abs() >= percent
+                && departure > 6.0 * typical
+                && (b.1 - a.1).abs() < 0.25 * departure
+        })
+        .collect()
 }
 
 fn value(r: &Record, name: &str) -> Option<f64> {
@@ -567,6 +627,40 @@ mod tests {
         assert_eq!((f.cell.as_str(), f.kind), ("A", FlagKind::OhmicGrowth));
         assert_eq!(f.onset_x, Some(200.0));
         assert!(f.explanation.contains("not a safety verdict"));
+    }
+
+    /// One spiking point among steady neighbours is a jump flag of its own and raises no growth flag;
+    /// without the spike the same series is quiet (an outlier is judged against its neighbours, common
+    /// practice in trend screening).
+    #[test]
+    fn a_single_spike_is_its_own_flag_not_growth() {
+        let ct = |k: usize| 0.5 + 0.002 * ((k * 7 % 5) as f64 - 2.0);
+        let recs: Vec<Record> = (0..12)
+            .map(|k| {
+                let mut r = record("Z4", 25.0 * k as f64, 0.1, ct(k));
+                if k == 6 {
+                    r.values[1].1 = 4.0 * ct(k);
+                }
+                r
+            })
+            .collect();
+        let q = vec!["charge_transfer_resistance_ohm".to_owned()];
+        let rep = analyse(&recs, "cycle", &q, &TrendSettings::default());
+        let kinds: Vec<FlagKind> = rep.flags.iter().map(|f| f.kind).collect();
+        assert_eq!(kinds, [FlagKind::SinglePointJump], "{:?}", rep.flags);
+        assert_eq!(rep.flags[0].onset_x, Some(150.0));
+        assert!(rep.flags[0].explanation.contains("not a safety verdict"));
+        assert_eq!(rep.series[0].flagged, [6]);
+        // A lasting step is not a single jump.
+        let stepped: Vec<Record> = (0..12)
+            .map(|k| record("Z4", 25.0 * k as f64, 0.1, if k < 6 { 0.5 } else { 2.0 }))
+            .collect();
+        let rep = analyse(&stepped, "cycle", &q, &TrendSettings::default());
+        assert!(
+            rep.flags
+                .iter()
+                .all(|f| f.kind != FlagKind::SinglePointJump)
+        );
     }
 
     /// Series of one cell at two SOC levels are kept apart, and trends.csv names cell and SOC in
