@@ -85,8 +85,10 @@ impl TrendSettings {
 /// One series: a quantity of a cell against x.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Series {
-    /// Cell (with ` @ SOC n` when SOC levels are kept apart).
+    /// Cell.
     pub cell: String,
+    /// The SOC level, when SOC levels are kept apart (x is not SOC and the records hold several).
+    pub soc: Option<f64>,
     /// Quantity name (results column).
     pub quantity: String,
     /// x values, ascending.
@@ -123,6 +125,9 @@ pub enum FlagKind {
     PossibleSoftShort,
     /// A spectrum that failed the Kramers–Kronig check.
     InvalidMeasurement,
+    /// One point departing from both its neighbours, which agree with each other: a jump, not a
+    /// trend; it is left out of the trend statistics.
+    SinglePointJump,
 }
 
 impl FlagKind {
@@ -134,6 +139,7 @@ impl FlagKind {
             FlagKind::TransportGrowth => "transport-growth",
             FlagKind::PossibleSoftShort => "possible-soft-short",
             FlagKind::InvalidMeasurement => "invalid-measurement",
+            FlagKind::SinglePointJump => "single-point-jump",
         }
     }
 }
@@ -147,6 +153,8 @@ handle suspect cells by your lab's own rules.";
 pub struct Flag {
     /// Cell.
     pub cell: String,
+    /// The SOC level of the series, when SOC levels are kept apart.
+    pub soc: Option<f64>,
     /// Quantity.
     pub quantity: String,
     /// Kind.
@@ -157,6 +165,28 @@ pub struct Flag {
     pub change_percent: Option<f64>,
     /// Plain explanation, ending with the caution.
     pub explanation: String,
+}
+
+/// A series' name for people: the cell, with ` @ SOC n` when SOC levels are kept apart.
+fn series_label(cell: &str, soc: Option<f64>) -> String {
+    match soc {
+        Some(s) => format!("{cell} @ SOC {}", trim(s)),
+        None => cell.to_owned(),
+    }
+}
+
+impl Series {
+    /// The series' name for people: the cell, with ` @ SOC n` when SOC levels are kept apart.
+    pub fn label(&self) -> String {
+        series_label(&self.cell, self.soc)
+    }
+}
+
+impl Flag {
+    /// The flagged series' name for people, as [`Series::label`].
+    pub fn label(&self) -> String {
+        series_label(&self.cell, self.soc)
+    }
 }
 
 /// The whole analysis.
@@ -207,6 +237,14 @@ interfaces: likely causes are a growing surface film or passivation layer, or lo
             "The total resistance fell suddenly toward the ohmic value{since} (polarisation part down by \
 {:.0} %): a possible soft short, for example through dendrites. Such a cell may self-discharge or heat.",
             -change
+        ),
+        FlagKind::SinglePointJump => format!(
+            "One spectrum ({quantity}{}) departs by {change:+.0} % from both its neighbours, which \
+agree with each other: a single jump (an arc assigned to the wrong process, a disturbed measurement), not a \
+trend. It is left out of the growth statistics; check that fit before trusting it.",
+            onset
+                .map(|x| format!(" at {x_name} {}", trim(x)))
+                .unwrap_or_default()
         ),
         FlagKind::InvalidMeasurement => "This spectrum failed the Kramers-Kronig check: the cell was probably \
 not stable during the sweep (drift, temperature, a film still forming) or the measurement was disturbed; \
@@ -284,28 +322,29 @@ pub fn analyse(
             })
             .len()
             > 1;
-    let key = |r: &Record| -> String {
-        match (split_soc, r.soc) {
-            (true, Some(s)) => format!("{} @ SOC {}", r.cell, trim(s)),
-            _ => r.cell.clone(),
-        }
+    // A series' group: the cell, and the SOC level when levels are kept apart (compared by its label,
+    // so that levels equal in print are one group).
+    let key = |r: &Record| -> (String, Option<f64>, String) {
+        let soc = r.soc.filter(|_| split_soc);
+        (r.cell.clone(), soc, series_label(&r.cell, soc))
     };
-    let mut keys: Vec<String> = Vec::new();
+    let mut keys: Vec<(String, Option<f64>, String)> = Vec::new();
     for r in records {
         let k = key(r);
-        if !keys.contains(&k) {
+        if !keys.iter().any(|o| o.2 == k.2) {
             keys.push(k);
         }
     }
     let mut series = Vec::new();
     let mut flags = Vec::new();
-    for k in &keys {
-        let mut rs: Vec<&Record> = records.iter().filter(|r| &key(r) == k).collect();
+    for (cell, soc, label) in &keys {
+        let mut rs: Vec<&Record> = records.iter().filter(|r| &key(r).2 == label).collect();
         rs.sort_by(|a, b| a.x.total_cmp(&b.x));
         for r in &rs {
             if r.kk_valid == Some(false) {
                 flags.push(Flag {
-                    cell: k.clone(),
+                    cell: cell.clone(),
+                    soc: *soc,
                     quantity: r.source.clone(),
                     kind: FlagKind::InvalidMeasurement,
                     onset_x: Some(r.x),
@@ -332,9 +371,30 @@ pub fn analyse(
             let y: Vec<f64> = pts.iter().map(|p| p.1).collect();
             let base = y[0];
             let change: Vec<f64> = y.iter().map(|v| 100.0 * (v - base) / base.abs()).collect();
+            // Single-point jumps are flagged on their own and left out of the trend statistics, so
+            // that one spike neither raises a growth flag nor fakes an onset.
+            let jumps = single_jumps(&pts, settings.growth_percent);
+            for &i in &jumps {
+                let (xi, yi) = (pts[i].0, pts[i].1);
+                let reference = 0.5 * (pts[i - 1].1 + pts[i + 1].1);
+                let jump = 100.0 * (yi - reference) / reference.abs();
+                flags.push(Flag {
+                    cell: cell.clone(),
+                    soc: *soc,
+                    quantity: q.clone(),
+                    kind: FlagKind::SinglePointJump,
+                    onset_x: Some(xi),
+                    change_percent: Some(jump),
+                    explanation: explain(FlagKind::SinglePointJump, q, jump, Some(xi), x_name),
+                });
+            }
             // Trend statistics on the trusted points only.
-            let (tx, ty): (Vec<f64>, Vec<f64>) =
-                pts.iter().filter(|p| p.3).map(|p| (p.0, p.1)).unzip();
+            let (tx, ty): (Vec<f64>, Vec<f64>) = pts
+                .iter()
+                .enumerate()
+                .filter(|(i, p)| p.3 && !jumps.contains(i))
+                .map(|(_, p)| (p.0, p.1))
+                .unzip();
             let lf = line_fit(&tx, &ty);
             let hinge_fit = hinge(&tx, &ty);
             let onset = hinge_fit.and_then(|(x0, rss_h, rss_f)| {
@@ -342,7 +402,8 @@ pub fn analyse(
                     .then_some(x0)
             });
             let mut s = Series {
-                cell: k.clone(),
+                cell: cell.clone(),
+                soc: *soc,
                 quantity: q.clone(),
                 x: x.clone(),
                 y: y.clone(),
@@ -391,7 +452,8 @@ pub fn analyse(
                         .filter(|&i| onset.is_none_or(|o| x[i] >= o))
                         .collect();
                     flags.push(Flag {
-                        cell: k.clone(),
+                        cell: cell.clone(),
+                        soc: *soc,
                         quantity: q.clone(),
                         kind,
                         onset_x: onset,
@@ -400,9 +462,12 @@ pub fn analyse(
                     });
                 }
             }
+            s.flagged.extend(&jumps);
+            s.flagged.sort_unstable();
+            s.flagged.dedup();
             series.push(s);
         }
-        if let Some(f) = soft_short(&rs, k, x_name, settings) {
+        if let Some(f) = soft_short(&rs, (cell, *soc), x_name, settings) {
             flags.push(f);
         }
     }
@@ -411,6 +476,30 @@ pub fn analyse(
         series,
         flags,
     }
+}
+
+/// Interior trusted points (indices into `pts`: x, y, standard error, trusted) that depart from both
+/// trusted neighbours by at least `percent` % of their mean and by more than six times the series'
+/// median step between successive points, while the two neighbours differ by less than a quarter of
+/// that departure.
+fn single_jumps(pts: &[(f64, f64, Option<f64>, bool)], percent: f64) -> Vec<usize> {
+    let mut steps: Vec<f64> = pts.windows(2).map(|w| (w[1].1 - w[0].1).abs()).collect();
+    steps.sort_by(f64::total_cmp);
+    let typical = steps.get(steps.len() / 2).copied().unwrap_or(0.0);
+    (1..pts.len().saturating_sub(1))
+        .filter(|&i| {
+            let (a, p, b) = (pts[i - 1], pts[i], pts[i + 1]);
+            if !(a.3 && p.3 && b.3) {
+                return false;
+            }
+            let reference = 0.5 * (a.1 + b.1);
+            let departure = (p.1 - reference).abs();
+            reference != 0.0
+                && 100.0 * departure / reference.abs() >= percent
+                && departure > 6.0 * typical
+                && (b.1 - a.1).abs() < 0.25 * departure
+        })
+        .collect()
 }
 
 fn value(r: &Record, name: &str) -> Option<f64> {
@@ -432,7 +521,12 @@ fn polarisation(r: &Record) -> Option<f64> {
     Some(total - ohmic)
 }
 
-fn soft_short(rs: &[&Record], cell: &str, x_name: &str, s: &TrendSettings) -> Option<Flag> {
+fn soft_short(
+    rs: &[&Record],
+    (cell, soc): (&str, Option<f64>),
+    x_name: &str,
+    s: &TrendSettings,
+) -> Option<Flag> {
     let pts: Vec<(f64, f64)> = rs
         .iter()
         .filter(|r| r.kk_valid != Some(false))
@@ -454,6 +548,7 @@ fn soft_short(rs: &[&Record], cell: &str, x_name: &str, s: &TrendSettings) -> Op
             let change = 100.0 * (last - level) / level;
             return Some(Flag {
                 cell: cell.to_owned(),
+                soc,
                 quantity: "polarisation_resistance_ohm".to_owned(),
                 kind: FlagKind::PossibleSoftShort,
                 onset_x: Some(pts[k].0),
@@ -532,6 +627,82 @@ mod tests {
         assert_eq!((f.cell.as_str(), f.kind), ("A", FlagKind::OhmicGrowth));
         assert_eq!(f.onset_x, Some(200.0));
         assert!(f.explanation.contains("not a safety verdict"));
+    }
+
+    /// One spiking point among steady neighbours is a jump flag of its own and raises no growth flag;
+    /// without the spike the same series is quiet (an outlier is judged against its neighbours, common
+    /// practice in trend screening).
+    #[test]
+    fn a_single_spike_is_its_own_flag_not_growth() {
+        let ct = |k: usize| 0.5 + 0.002 * ((k * 7 % 5) as f64 - 2.0);
+        let recs: Vec<Record> = (0..12)
+            .map(|k| {
+                let mut r = record("Z4", 25.0 * k as f64, 0.1, ct(k));
+                if k == 6 {
+                    r.values[1].1 = 4.0 * ct(k);
+                }
+                r
+            })
+            .collect();
+        let q = vec!["charge_transfer_resistance_ohm".to_owned()];
+        let rep = analyse(&recs, "cycle", &q, &TrendSettings::default());
+        let kinds: Vec<FlagKind> = rep.flags.iter().map(|f| f.kind).collect();
+        assert_eq!(kinds, [FlagKind::SinglePointJump], "{:?}", rep.flags);
+        assert_eq!(rep.flags[0].onset_x, Some(150.0));
+        assert!(rep.flags[0].explanation.contains("not a safety verdict"));
+        assert_eq!(rep.series[0].flagged, [6]);
+        // A lasting step is not a single jump.
+        let stepped: Vec<Record> = (0..12)
+            .map(|k| record("Z4", 25.0 * k as f64, 0.1, if k < 6 { 0.5 } else { 2.0 }))
+            .collect();
+        let rep = analyse(&stepped, "cycle", &q, &TrendSettings::default());
+        assert!(
+            rep.flags
+                .iter()
+                .all(|f| f.kind != FlagKind::SinglePointJump)
+        );
+    }
+
+    /// Series of one cell at two SOC levels are kept apart, and trends.csv names cell and SOC in
+    /// columns of their own (a column per field, common practice for tables read by other programs).
+    #[test]
+    fn soc_levels_are_separate_series_with_their_own_column() {
+        let mut recs = Vec::new();
+        for k in 0..4 {
+            for soc in [20.0, 80.0] {
+                let mut r = record("Z1", 50.0 * k as f64, 0.1 + soc * 1e-3, 0.5);
+                r.soc = Some(soc);
+                recs.push(r);
+            }
+        }
+        let q = vec!["ohmic_resistance_ohm".to_owned()];
+        let rep = analyse(&recs, "cycle", &q, &TrendSettings::default());
+        let keys: Vec<(&str, Option<f64>, String)> = rep
+            .series
+            .iter()
+            .map(|s| (s.cell.as_str(), s.soc, s.label()))
+            .collect();
+        assert_eq!(
+            keys,
+            [
+                ("Z1", Some(20.0), "Z1 @ SOC 20".to_owned()),
+                ("Z1", Some(80.0), "Z1 @ SOC 80".to_owned())
+            ]
+        );
+        let csv = trends_csv(&rep);
+        let mut lines = csv.lines();
+        assert_eq!(
+            lines.next(),
+            Some(
+                "cell,soc,quantity,cycle,y,y_stderr,change_percent,slope,slope_stderr,onset,flagged"
+            )
+        );
+        assert!(
+            lines
+                .next()
+                .is_some_and(|l| l.starts_with("Z1,20,ohmic_resistance_ohm,0,"))
+        );
+        assert!(!csv.contains('@'), "{csv}");
     }
 
     #[test]
@@ -667,6 +838,7 @@ pub fn trends_csv(report: &TrendReport) -> String {
     use crate::output::csv_line;
     let mut out = csv_line([
         "cell",
+        "soc",
         "quantity",
         &report.x_name,
         "y",
@@ -682,6 +854,7 @@ pub fn trends_csv(report: &TrendReport) -> String {
             let opt = |v: Option<f64>| v.map(format_float).unwrap_or_default();
             out.push_str(&csv_line([
                 s.cell.clone(),
+                opt(s.soc),
                 s.quantity.clone(),
                 format_float(s.x[i]),
                 format_float(s.y[i]),

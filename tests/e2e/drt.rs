@@ -266,6 +266,12 @@ fn drt_plot_marks_exactly_the_reported_peaks() {
     // The text output keeps the edge peak out of the table and says why.
     let text = eis(&dir, &["drt", "s.csv"]).expect_code(0).stdout;
     assert!(text.contains("peaks        2"), "{text}");
+    // JSON and text give the residual in the same unit, named in the key.
+    let rms = v["residual_rms_percent"].as_f64().unwrap();
+    assert!(
+        text.contains(&format!("rms residual {rms:.3} % of |Z|")),
+        "{rms} vs {text}"
+    );
     assert!(
         text.contains("at the window edge, produced by a process beyond the data"),
         "{text}"

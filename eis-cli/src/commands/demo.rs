@@ -106,7 +106,7 @@ pub fn run(args: Args) -> Outcome {
             .flags
             .iter()
             .filter(|f| f.kind == kind)
-            .map(|f| f.cell.split(" @").next().unwrap_or("").to_owned())
+            .map(|f| f.cell.clone())
             .collect();
         v.dedup();
         v
@@ -270,7 +270,7 @@ pub fn run(args: Args) -> Outcome {
         let _ = writeln!(
             o,
             "    {} {}: {} from cycle {}",
-            f.cell,
+            f.label(),
             f.kind.as_str(),
             f.change_percent
                 .map(|c| format!("{c:+.0} %"))

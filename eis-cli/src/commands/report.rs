@@ -146,7 +146,7 @@ pub fn write_report(
                 let _ = writeln!(
                     h,
                     "<tr class=\"flag\"><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-                    esc(&f.cell),
+                    esc(&f.label()),
                     f.kind.as_str(),
                     esc(&f.quantity),
                     f.onset_x

@@ -98,7 +98,7 @@ pub fn human(report: &TrendReport) -> String {
         .map(|s| {
             let last = s.change_percent.last().copied().unwrap_or(0.0);
             vec![
-                s.cell.clone(),
+                s.label(),
                 s.quantity.clone(),
                 s.x.len().to_string(),
                 quantity(s.y.first().copied().unwrap_or(f64::NAN), 4, ""),
@@ -142,7 +142,7 @@ pub fn human(report: &TrendReport) -> String {
                 out,
                 "  [{}] {} {}: {}",
                 f.kind.as_str(),
-                f.cell,
+                f.label(),
                 f.quantity,
                 f.explanation.trim_end_matches(FLAG_CAUTION).trim()
             );
@@ -160,7 +160,7 @@ pub fn trend_plot(report: &TrendReport, q: &str) -> crate::plot::Plot {
         .iter()
         .filter(|s| s.quantity == q)
         .map(|s| TrendSeries {
-            label: s.cell.clone(),
+            label: s.label(),
             points: s
                 .x
                 .iter()

@@ -67,7 +67,7 @@
 mod basis;
 mod lambda;
 mod options;
-mod peaks;
+pub mod peaks;
 #[cfg(test)]
 mod tests;
 
@@ -277,11 +277,16 @@ pub struct DrtResult {
     pub edge_peaks: Vec<DrtPeak>,
     /// Frequencies of the input points (Hz), in input order.
     pub frequency_hz: Vec<f64>,
-    /// (Z′ − Ẑ′)/|Z| at each input point.
+    /// (Z′ − Ẑ′)/|Z| at each input point, a fraction (JSON: `residual_real_percent`, in percent as
+    /// the text output shows residuals).
+    #[serde(rename = "residual_real_percent", serialize_with = "percents")]
     pub residual_real: Vec<f64>,
-    /// (Z″ − Ẑ″)/|Z| at each input point.
+    /// (Z″ − Ẑ″)/|Z| at each input point, a fraction (JSON: `residual_imag_percent`, in percent).
+    #[serde(rename = "residual_imag_percent", serialize_with = "percents")]
     pub residual_imag: Vec<f64>,
-    /// Root mean square of both relative residuals over all points.
+    /// Root mean square of both relative residuals over all points, a fraction (JSON:
+    /// `residual_rms_percent`, in percent, as the text output).
+    #[serde(rename = "residual_rms_percent", serialize_with = "percent")]
     pub residual_rms: f64,
     /// Centres of the basis functions (s), ascending.
     pub basis_tau_s: Vec<f64>,
@@ -293,6 +298,16 @@ pub struct DrtResult {
     pub lambda_scan: Vec<LambdaPoint>,
     /// Things the user should know (λ at the end of its range, a poor fit, ...).
     pub warnings: Vec<String>,
+}
+
+/// A fraction written in percent.
+fn percent<S: serde::Serializer>(fraction: &f64, serializer: S) -> Result<S::Ok, S::Error> {
+    serializer.serialize_f64(100.0 * fraction)
+}
+
+/// Fractions written in percent.
+fn percents<S: serde::Serializer>(fractions: &[f64], serializer: S) -> Result<S::Ok, S::Error> {
+    serializer.collect_seq(fractions.iter().map(|f| 100.0 * f))
 }
 
 /// The smallest reactance of the series capacitance at the lowest frequency, relative to |Z| there,

@@ -11,7 +11,7 @@ pub enum LambdaMethod {
     Gcv,
     /// The corner of the L-curve.
     LCurve,
-    /// This value, in the scale-free units described in the [module docs](self).
+    /// This value, in the scale-free units described in the [module docs](super).
     Fixed(f64),
 }
 
@@ -208,7 +208,7 @@ impl DrtOptions {
 
     /// A local maximum of γ counts as a peak when its height, and its rise above the higher of the
     /// valleys that separate it from its neighbours, are both at least this fraction of the largest γ
-    /// (the rule is in the [peaks module](super::find_peaks)). Default:
+    /// (the rule is in the [peaks module](super::peaks)). Default:
     /// [`DEFAULT_PEAK_THRESHOLD`](super::DEFAULT_PEAK_THRESHOLD). In [0, 1).
     pub fn with_peak_threshold(mut self, fraction: f64) -> Self {
         self.peak_threshold = fraction;

@@ -296,6 +296,13 @@ fn drt_options_all_run_and_agree_on_an_rc() {
         assert_eq!(json["lambda_method"], o.lambda().name());
         assert_eq!(json["part"], o.part().name());
         assert_eq!(res.part.to_string(), o.part().name());
+        // Residuals in JSON are in percent, as the text output, and the keys say so.
+        assert_eq!(json["residual_rms_percent"], 100.0 * res.residual_rms);
+        assert_eq!(
+            json["residual_real_percent"][3],
+            100.0 * res.residual_real[3]
+        );
+        assert!(json.get("residual_rms").is_none());
     }
 }
 
