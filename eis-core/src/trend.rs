@@ -168,7 +168,7 @@ pub struct Flag {
 }
 
 /// A series' name for people: the cell, with ` @ SOC n` when SOC levels are kept apart.
-fn series_label(cell: &str, soc: Option<f64>) -> String {
+pub fn series_label(cell: &str, soc: Option<f64>) -> String {
     match soc {
         Some(s) => format!("{cell} @ SOC {}", trim(s)),
         None => cell.to_owned(),

@@ -462,9 +462,12 @@ fn drt_and_trend_from_json() {
     );
     std::fs::write(
         dir.join("trend.json"),
-        r#"{"x_label": "cycle", "y_label": "Rct", "y_unit": "Ω", "cells": [
-            {"cell": "A1", "points": [{"x": 0, "y": 0.012, "y_err": 0.0002}, {"x": 100, "y": 0.014, "y_err": 0.0002, "flagged": true}, {"x": 200, "y": 0.016}]},
-            {"cell": "A2", "points": [{"x": 0, "y": 0.011}, {"x": 100, "y": 0.0125}, {"x": 200, "y": null}]}]}"#,
+        // The shape of `eis trend --json`.
+        r#"{"x_name": "cycle", "flags": [], "series": [
+            {"cell": "A1", "quantity": "charge_transfer_resistance_ohm", "x": [0, 100, 200],
+             "y": [0.012, 0.014, 0.016], "y_stderr": [0.0002, 0.0002, null], "flagged": [1]},
+            {"cell": "A2", "quantity": "charge_transfer_resistance_ohm", "x": [0, 100, 200],
+             "y": [0.011, 0.0125, null], "y_stderr": [null, null, null], "flagged": []}]}"#,
     )
     .unwrap();
     eis(
@@ -477,7 +480,7 @@ fn drt_and_trend_from_json() {
         .map(|t| t.text)
         .collect();
     for want in [
-        "Rct / mΩ",
+        "charge transfer resistance / mΩ",
         "cycle",
         "A1",
         "A2",
@@ -634,4 +637,74 @@ fn help_shows_an_example() {
         "{}",
         run.stdout
     );
+}
+
+/// `eis plot` reads exactly the documents `eis drt --json` and `eis trend --json` write (issue 14): no
+/// hand-made intermediate shape, and the DRT plot marks the peaks the DRT reported.
+#[test]
+fn plot_reads_what_drt_and_trend_write() {
+    let dir = scratch("plot-reads-json");
+    eis(&dir, &["demo", "--out", "d"]).expect_code(0);
+    let spectrum = "d/converted/Z1_c000_soc50_1.csv";
+    let drt = eis(&dir, &["drt", spectrum, "--json"]).expect_code(0);
+    std::fs::write(dir.join("drt.json"), &drt.stdout).unwrap();
+    eis(
+        &dir,
+        &["plot", "drt.json", "--kind", "drt", "-o", "drt.svg"],
+    )
+    .expect_code(0);
+    let svg = std::fs::read_to_string(dir.join("drt.svg")).unwrap();
+    let doc: serde_json::Value = serde_json::from_str(&drt.stdout).unwrap();
+    let edge = doc["edge_peaks"].as_array().map_or(0, Vec::len);
+    assert_eq!(
+        svg.matches("window edge").count(),
+        edge,
+        "every edge peak of the document marked, no other"
+    );
+
+    let trend = eis(
+        &dir,
+        &["trend", "d/results/results.csv", "--x", "cycle", "--json"],
+    );
+    assert!(trend.code == 0 || trend.code == 1, "{}", trend.stderr);
+    std::fs::write(dir.join("trend.json"), &trend.stdout).unwrap();
+    // More than one quantity: the plot asks which.
+    let run = eis(
+        &dir,
+        &["plot", "trend.json", "--kind", "trend", "-o", "t.svg"],
+    )
+    .expect_code(2);
+    assert!(run.stderr.contains("--quantity"), "{}", run.stderr);
+    eis(
+        &dir,
+        &[
+            "plot",
+            "trend.json",
+            "--kind",
+            "trend",
+            "--quantity",
+            "ohmic_resistance_ohm",
+            "-o",
+            "t.svg",
+        ],
+    )
+    .expect_code(0);
+    let svg = std::fs::read_to_string(dir.join("t.svg")).unwrap();
+    // One legend entry per series of that quantity in the document (cell and SOC level).
+    let series = doc_series(&trend.stdout, "ohmic_resistance_ohm");
+    assert!(series > 1);
+    assert!(
+        svg.contains("Z1 @ SOC 50"),
+        "legend names cell and SOC level"
+    );
+}
+
+fn doc_series(text: &str, q: &str) -> usize {
+    let doc: serde_json::Value = serde_json::from_str(text).unwrap();
+    doc["series"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|s| s["quantity"] == q)
+        .count()
 }

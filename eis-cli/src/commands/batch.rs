@@ -176,7 +176,8 @@ pub fn expand(inputs: &[String]) -> Result<Vec<PathBuf>, Failure> {
 
 /// Trend plots of a results table, one PNG per default quantity, at the SOC level nearest 50 %.
 fn write_trend_plots(results: &Path, dir: &Path) -> Result<(), Failure> {
-    use crate::commands::trend::{analyse_file, default_quantities, trend_plot};
+    use crate::commands::trend::{analyse_file, default_quantities};
+    use crate::plot::build::trend as trend_plot;
     std::fs::create_dir_all(dir)
         .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", dir.display())))?;
     let settings = eis_core::trend::TrendSettings::default();

@@ -128,7 +128,13 @@ pub fn run(args: Args) -> Outcome {
             eis_core::fit::fit(&circuit, &s, &eis_core::fit::FitSettings::default(), None)
         {
             let p = plots.join("Z3_c300_soc50_fit.png");
-            crate::commands::fit::write_fit_plot(&p, &circuit, &s, &r, &[])?;
+            crate::commands::plot::write_plot(
+                &crate::plot::build::fit(&circuit, &s, &r),
+                &p,
+                None,
+                (900, 650),
+                &[],
+            )?;
             written.push(p);
         }
     }
@@ -173,7 +179,7 @@ pub fn run(args: Args) -> Outcome {
     ] {
         if at50.series.iter().any(|s| s.quantity == q) {
             let p = plots.join(format!("trend_{q}.png"));
-            let mut plot = crate::commands::trend::trend_plot(&at50, q);
+            let mut plot = crate::plot::build::trend(&at50, q);
             if let Plot::Trend(t) = &mut plot {
                 t.title.push_str(" at 50 % SOC");
             }
@@ -186,7 +192,7 @@ pub fn run(args: Args) -> Outcome {
         if let Ok(d) = eis_core::drt::drt(&s, eis_core::drt::DrtOptions::default()) {
             let p = plots.join("Z1_c000_soc50_drt.png");
             crate::commands::plot::write_plot(
-                &crate::commands::drt::drt_plot(
+                &crate::plot::build::drt(
                     &d,
                     "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
                 ),

@@ -59,28 +59,6 @@ pub struct Args {
     reader: crate::reader_args::ReaderArgs,
 }
 
-/// The DRT plot of a result: γ against τ, each peak of the table marked with its resistance, each peak
-/// at the window edge marked as such (exactly the peaks `eis drt` reports, no others).
-pub fn drt_plot(r: &DrtResult, title: String) -> crate::plot::Plot {
-    use crate::plot::{DrtPeak, DrtPlot, Plot};
-    let table = r.peaks.iter().map(|pk| DrtPeak {
-        tau: pk.tau_s,
-        gamma: pk.gamma_ohm,
-        label: Some(crate::format::quantity(pk.resistance_ohm, 3, "Ω")),
-    });
-    let edge = r.edge_peaks.iter().map(|pk| DrtPeak {
-        tau: pk.tau_s,
-        gamma: pk.gamma_ohm,
-        label: Some("window edge".to_owned()),
-    });
-    Plot::Drt(DrtPlot {
-        title,
-        tau: r.tau_s.clone(),
-        gamma: r.gamma_ohm.clone(),
-        peaks: table.chain(edge).collect(),
-    })
-}
-
 #[derive(Clone, Copy, clap::ValueEnum)]
 enum Method {
     /// Generalised cross-validation.
@@ -174,7 +152,8 @@ pub fn run(args: Args) -> Outcome {
             .file_stem()
             .map(|s| s.to_string_lossy().into_owned())
             .unwrap_or_default();
-        let plot = drt_plot(&result, format!("Distribution of relaxation times: {stem}"));
+        let plot =
+            crate::plot::build::drt(&result, format!("Distribution of relaxation times: {stem}"));
         crate::commands::plot::write_plot(&plot, path, None, (900, 600), &inputs)?;
     }
     if args.json {

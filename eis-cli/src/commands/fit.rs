@@ -222,7 +222,13 @@ fn finish(
         write_output(Some(out), &fitted_csv(spectrum, result), &inputs)?;
     }
     if let Some(p) = &args.plot {
-        write_fit_plot(p, circuit, spectrum, result, &inputs)?;
+        crate::commands::plot::write_plot(
+            &crate::plot::build::fit(circuit, spectrum, result),
+            p,
+            None,
+            (900, 650),
+            &inputs,
+        )?;
     }
     let text = if args.json {
         let encoded = match selection {
@@ -318,51 +324,6 @@ fn fitted_csv(s: &Spectrum, r: &FitResult) -> String {
         );
     }
     out
-}
-
-pub fn write_fit_plot(
-    path: &std::path::Path,
-    c: &Circuit,
-    s: &Spectrum,
-    r: &FitResult,
-    inputs: &[PathBuf],
-) -> Result<(), Failure> {
-    use crate::plot::{Annotation, NyquistPlot, Plot, SeriesData};
-    // The model on a fine grid over the measured window.
-    let (lo, hi) = s
-        .frequency_hz
-        .iter()
-        .fold((f64::INFINITY, 0.0f64), |(a, b), &f| (a.min(f), b.max(f)));
-    let freq = eis_core::eval::log_frequencies(hi, lo, 40);
-    let plan = eis_core::Plan::compile(c);
-    let omegas: Vec<f64> = freq.iter().map(|&f| eis_core::eval::angular(f)).collect();
-    let z = plan.impedances(&r.values, &omegas);
-    let d = derive(c, r);
-    let annotations = d
-        .arcs
-        .iter()
-        .filter(|a| a.peak_frequency.value >= lo && a.peak_frequency.value <= hi)
-        .map(|a| {
-            let w = eis_core::eval::angular(a.peak_frequency.value);
-            Annotation {
-                z: plan.impedance(&r.values, w),
-                text: format!(
-                    "{} {}",
-                    a.resistor,
-                    quantity(a.peak_frequency.value, 3, "Hz")
-                ),
-            }
-        })
-        .collect();
-    let plot = Plot::Nyquist(NyquistPlot {
-        title: format!("Fit of {}", eis_core::circuit::print_expression(c)),
-        series: vec![
-            SeriesData::markers("data", s.frequency_hz.clone(), s.z.clone()),
-            SeriesData::line("fit", freq, z),
-        ],
-        annotations,
-    });
-    crate::commands::plot::write_plot(&plot, path, None, (900, 650), inputs)
 }
 
 /// The readable report.

@@ -16,8 +16,8 @@
 
 use crate::io::{Failure, Outcome, bad, read_spectra, write_atomic};
 use crate::plot::{
-    self, BodePlot, DrtPeak, DrtPlot, Format, NyquistPlot, OverlayPlot, OverlaySpectrum, Plot,
-    ResidualPlot, SeriesData, TrendPlot, TrendPoint, TrendSeries,
+    self, BodePlot, DrtPlot, Format, NyquistPlot, OverlayPlot, OverlaySpectrum, Plot, ResidualPlot,
+    SeriesData, TrendPlot,
 };
 use anyhow::anyhow;
 use eis_core::Spectrum;
@@ -98,6 +98,10 @@ pub struct Args {
     /// Height in pixels.
     #[arg(allow_negative_numbers = true, long, default_value_t = plot::DEFAULT_SIZE.1, value_parser = clap::value_parser!(u32).range(100..=10000))]
     height: u32,
+    /// With --kind trend: the quantity to draw (a results column, e.g. ohmic_resistance_ohm), needed
+    /// when the report of `eis trend --json` holds more than one.
+    #[arg(long, value_name = "NAME")]
+    quantity: Option<String>,
     /// Do not mark the characteristic frequencies of arcs (Nyquist) or peaks (DRT).
     #[arg(long)]
     no_marks: bool,
@@ -251,8 +255,9 @@ fn build(args: &Args) -> Result<Plot, Failure> {
         }
         Kind::Trend => {
             let input = one_input(args)?;
-            let mut t = parse_trend(&read_text(input)?).map_err(|e| json_error(input, e))?;
-            t.title = title(format!("{} against {}", t.y_label, t.x_label));
+            let mut t = parse_trend(&read_text(input)?, args.quantity.as_deref())
+                .map_err(|e| json_error(input, e))?;
+            t.title = title(std::mem::take(&mut t.title));
             Ok(Plot::Trend(t))
         }
     }
@@ -491,25 +496,29 @@ fn residuals_against(
     })
 }
 
+/// A DRT peak as `eis drt --json` writes it (other fields are read past).
 #[derive(Deserialize)]
-#[serde(deny_unknown_fields)]
 struct DrtPeakJson {
     tau_s: f64,
     gamma_ohm: f64,
     #[serde(default)]
-    label: Option<String>,
+    resistance_ohm: Option<f64>,
 }
 
+/// The parts of `eis drt --json` a plot needs (other fields are read past): the curve, the peak table
+/// and the peaks at the window edge.
 #[derive(Deserialize)]
-#[serde(deny_unknown_fields)]
 struct DrtJson {
     tau_s: Vec<Option<f64>>,
     gamma_ohm: Vec<Option<f64>>,
     #[serde(default)]
     peaks: Option<Vec<DrtPeakJson>>,
+    #[serde(default)]
+    edge_peaks: Vec<DrtPeakJson>,
 }
 
-/// Parses a DRT: `{"tau_s", "gamma_ohm", "peaks"?}`; peaks are found when absent.
+/// Parses what `eis drt --json` writes; without a `peaks` list the peaks are found by the library's
+/// rule ([`eis_core::drt::find_peaks`]).
 fn parse_drt(text: &str) -> anyhow::Result<DrtPlot> {
     let d: DrtJson = serde_json::from_str(text)?;
     same_len(
@@ -517,81 +526,86 @@ fn parse_drt(text: &str) -> anyhow::Result<DrtPlot> {
         &[("tau_s", d.tau_s.len()), ("gamma_ohm", d.gamma_ohm.len())],
     )?;
     let (tau, gamma) = (numbers(d.tau_s), numbers(d.gamma_ohm));
-    let peaks = match d.peaks {
-        Some(p) => p
-            .into_iter()
-            .map(|p| DrtPeak {
-                tau: p.tau_s,
-                gamma: p.gamma_ohm,
-                label: p.label,
-            })
-            .collect(),
-        None => plot::drt_peaks(&tau, &gamma),
-    };
-    Ok(DrtPlot {
-        title: String::new(),
-        tau,
-        gamma,
-        peaks,
+    Ok(match d.peaks {
+        Some(p) => plot::build::drt_curve(
+            String::new(),
+            tau,
+            gamma,
+            p.iter()
+                .map(|p| (p.tau_s, p.gamma_ohm, p.resistance_ohm.unwrap_or(f64::NAN))),
+            d.edge_peaks.iter().map(|p| (p.tau_s, p.gamma_ohm)),
+        ),
+        None => {
+            let peaks = plot::drt_peaks(&tau, &gamma);
+            DrtPlot {
+                title: String::new(),
+                tau,
+                gamma,
+                peaks,
+            }
+        }
     })
 }
 
+/// One series of `eis trend --json` (other fields are read past).
 #[derive(Deserialize)]
-#[serde(deny_unknown_fields)]
-struct TrendPointJson {
-    x: Option<f64>,
-    y: Option<f64>,
-    #[serde(default)]
-    y_err: Option<f64>,
-    #[serde(default)]
-    flagged: bool,
-}
-
-#[derive(Deserialize)]
-#[serde(deny_unknown_fields)]
-struct TrendCellJson {
+struct TrendSeriesJson {
     cell: String,
-    points: Vec<TrendPointJson>,
-}
-
-#[derive(Deserialize)]
-#[serde(deny_unknown_fields)]
-struct TrendJson {
-    x_label: String,
     #[serde(default)]
-    x_unit: String,
-    y_label: String,
-    y_unit: String,
-    cells: Vec<TrendCellJson>,
+    soc: Option<f64>,
+    quantity: String,
+    x: Vec<Option<f64>>,
+    y: Vec<Option<f64>>,
+    #[serde(default)]
+    y_stderr: Vec<Option<f64>>,
+    #[serde(default)]
+    flagged: Vec<usize>,
 }
 
-/// Parses a trend: `{"x_label", "x_unit"?, "y_label", "y_unit", "cells": [...]}`.
-fn parse_trend(text: &str) -> anyhow::Result<TrendPlot> {
+/// The parts of `eis trend --json` a plot needs.
+#[derive(Deserialize)]
+struct TrendJson {
+    x_name: String,
+    series: Vec<TrendSeriesJson>,
+}
+
+/// Parses what `eis trend --json` writes and draws quantity `q` (needed when the report holds more
+/// than one).
+fn parse_trend(text: &str, q: Option<&str>) -> anyhow::Result<TrendPlot> {
     let t: TrendJson = serde_json::from_str(text)?;
-    Ok(TrendPlot {
-        title: String::new(),
-        series: t
-            .cells
-            .into_iter()
-            .map(|c| TrendSeries {
-                label: c.cell,
-                points: c
-                    .points
-                    .into_iter()
-                    .map(|p| TrendPoint {
-                        x: p.x.unwrap_or(f64::NAN),
-                        y: p.y.unwrap_or(f64::NAN),
-                        y_err: p.y_err,
-                        flagged: p.flagged,
-                    })
-                    .collect(),
-            })
-            .collect(),
-        x_label: t.x_label,
-        x_unit: t.x_unit,
-        y_label: t.y_label,
-        y_unit: t.y_unit,
-    })
+    let mut names: Vec<&str> = Vec::new();
+    for s in &t.series {
+        if !names.contains(&s.quantity.as_str()) {
+            names.push(&s.quantity);
+        }
+    }
+    let q = match (q, names.as_slice()) {
+        (Some(q), _) if names.contains(&q) => q.to_owned(),
+        (Some(q), _) => anyhow::bail!("no trend of `{q}` here; it holds {}", names.join(", ")),
+        (None, [one]) => (*one).to_owned(),
+        (None, []) => anyhow::bail!("the trend report holds no series"),
+        (None, _) => anyhow::bail!(
+            "the trend report holds {} quantities; choose one with --quantity ({})",
+            names.len(),
+            names.join(", ")
+        ),
+    };
+    let series = t
+        .series
+        .iter()
+        .filter(|s| s.quantity == q)
+        .map(|s| {
+            same_len("trend", &[("x", s.x.len()), ("y", s.y.len())])?;
+            Ok(plot::build::trend_series(
+                eis_core::trend::series_label(&s.cell, s.soc),
+                &numbers(s.x.clone()),
+                &numbers(s.y.clone()),
+                &s.y_stderr,
+                &s.flagged,
+            ))
+        })
+        .collect::<anyhow::Result<Vec<_>>>()?;
+    Ok(plot::build::trend_of(&t.x_name, &q, series))
 }
 
 #[cfg(test)]
@@ -634,13 +648,23 @@ mod tests {
 
     #[test]
     fn trend_json() {
-        let t = parse_trend(
-            r#"{"x_label": "cycle", "y_label": "Rct", "y_unit": "Ω",
-                "cells": [{"cell": "A1", "points": [{"x": 1, "y": 0.01, "y_err": 0.001}, {"x": 2, "y": null, "flagged": true}]}]}"#,
-        )
-        .unwrap();
+        // The shape `eis trend --json` writes (series with cell, soc, quantity, x, y, y_stderr,
+        // flagged; other fields read past).
+        let text = r#"{"x_name": "cycle", "flags": [], "series": [
+            {"cell": "A1", "soc": 50, "quantity": "charge_transfer_resistance_ohm", "x": [1, 2],
+             "y": [0.01, null], "y_stderr": [0.001, null], "slope": null, "flagged": [1]},
+            {"cell": "A1", "soc": 50, "quantity": "ohmic_resistance_ohm", "x": [1], "y": [0.02],
+             "y_stderr": [null], "flagged": []}]}"#;
+        let t = parse_trend(text, Some("charge_transfer_resistance_ohm")).unwrap();
+        assert_eq!(t.series.len(), 1);
+        assert_eq!(t.series[0].label, "A1 @ SOC 50");
         assert_eq!(t.series[0].points.len(), 2);
         assert!(t.series[0].points[1].flagged && t.series[0].points[1].y.is_nan());
+        assert_eq!(t.series[0].points[0].y_err, Some(0.001));
+        let e = parse_trend(text, None).unwrap_err().to_string();
+        assert!(e.contains("--quantity"), "{e}");
+        let e = parse_trend(text, Some("nope")).unwrap_err().to_string();
+        assert!(e.contains("no trend of `nope`"), "{e}");
     }
 
     #[test]

@@ -2,9 +2,10 @@
 //! scripts, nothing fetched): summary, flags with their reasons, Kramers–Kronig failures, fits with
 //! warnings, failed files, trend plots, a table per cell and Nyquist overlays per cell.
 
-use crate::commands::trend::{analyse_file, default_quantities, quantity_label, trend_plot};
+use crate::commands::trend::{analyse_file, default_quantities};
 use crate::format::quantity;
 use crate::io::{Failure, Outcome, bad, write_atomic};
+use crate::plot::build::{quantity_label, trend as trend_plot};
 use crate::plot::{Format, OverlayPlot, OverlaySpectrum, Plot, render};
 use anyhow::anyhow;
 use eis_core::Circuit;

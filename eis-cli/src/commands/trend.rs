@@ -152,58 +152,6 @@ pub fn human(report: &TrendReport) -> String {
     out
 }
 
-/// Trend plot of one quantity, all series.
-pub fn trend_plot(report: &TrendReport, q: &str) -> crate::plot::Plot {
-    use crate::plot::{Plot, TrendPlot, TrendPoint, TrendSeries};
-    let series = report
-        .series
-        .iter()
-        .filter(|s| s.quantity == q)
-        .map(|s| TrendSeries {
-            label: s.label(),
-            points: s
-                .x
-                .iter()
-                .zip(&s.y)
-                .zip(&s.y_stderr)
-                .enumerate()
-                .map(|(i, ((&x, &y), &y_err))| TrendPoint {
-                    x,
-                    y,
-                    y_err,
-                    flagged: s.flagged.contains(&i),
-                })
-                .collect(),
-        })
-        .collect();
-    let (label, unit) = quantity_label(q);
-    Plot::Trend(TrendPlot {
-        title: format!("{label} against {}", report.x_name),
-        series,
-        x_label: report.x_name.clone(),
-        x_unit: if report.x_name == "soc" {
-            "%".into()
-        } else {
-            String::new()
-        },
-        y_label: label,
-        y_unit: unit,
-    })
-}
-
-/// Axis label and unit of a results column.
-pub fn quantity_label(q: &str) -> (String, String) {
-    if let Some(row) = quantity_of_column(q) {
-        return (row.axis.to_owned(), row.unit.to_owned());
-    }
-    let (base, unit) = if let Some(b) = q.strip_suffix("_ohm") {
-        (b, "Ω")
-    } else {
-        (q, "")
-    };
-    (base.replace('_', " "), unit.to_owned())
-}
-
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
     if args.by != "cell" {
@@ -231,7 +179,13 @@ pub fn run(args: Args) -> Outcome {
             .first()
             .map(|s| s.quantity.clone())
             .ok_or_else(|| bad(anyhow!("nothing to plot")))?;
-        crate::commands::plot::write_plot(&trend_plot(&report, &q), p, None, (900, 600), &inputs)?;
+        crate::commands::plot::write_plot(
+            &crate::plot::build::trend(&report, &q),
+            p,
+            None,
+            (900, 600),
+            &inputs,
+        )?;
     }
     let text = if args.json {
         let mut s = serde_json::to_string_pretty(&report)

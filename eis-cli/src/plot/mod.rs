@@ -24,6 +24,7 @@
 //! - Legends sit below the axes and colour bars beside them, so neither hides data.
 
 mod axis;
+pub mod build;
 pub mod colormap;
 mod frame;
 mod kinds;
