@@ -1,20 +1,7 @@
 //! Starts built from the peaks of a DRT of the data.
 
-use super::{Cap, Context, Term, set_arc_tau, set_feature};
+use super::{Context, Slot, Term, set_arc_tau, set_feature};
 use crate::element::{Class, ElementKind, Seed};
-
-/// A time-constant slot as the DRT starts see it, in the order its peak is expected along τ.
-#[derive(Debug, Clone, Copy)]
-enum DrtSlot {
-    Arc {
-        r: usize,
-        cap: Cap,
-    },
-    Feature {
-        kind: &'static ElementKind,
-        first: usize,
-    },
-}
 
 /// At most this many DRT peaks (the largest) take part in the assignment.
 const MAX_DRT_PEAKS: usize = 8;
@@ -44,8 +31,8 @@ pub(crate) fn drt_starts(
     let mut diffusions = Vec::new();
     let mut offset = None;
     let mut inductance = None;
-    let mut feature = |kind: &'static ElementKind, first: usize, arcs_: &mut Vec<DrtSlot>| {
-        let slot = DrtSlot::Feature { kind, first };
+    let mut feature = |kind: &'static ElementKind, first: usize, arcs_: &mut Vec<Slot>| {
+        let slot = Slot::Feature { kind, first };
         if kind.class == Class::Porous {
             arcs_.push(slot);
         } else {
@@ -61,7 +48,7 @@ pub(crate) fn drt_starts(
             },
             Term::Feature { kind, first } => feature(kind, *first, &mut arcs_),
             Term::Arc { r, cap, inner } => {
-                arcs_.push(DrtSlot::Arc { r: *r, cap: *cap });
+                arcs_.push(Slot::Arc { r: *r, cap: *cap });
                 for it in inner {
                     if let Term::Feature { kind, first } = it {
                         feature(kind, *first, &mut arcs_);
@@ -70,7 +57,7 @@ pub(crate) fn drt_starts(
             }
         }
     }
-    let slots: Vec<DrtSlot> = arcs_.into_iter().chain(diffusions).collect();
+    let slots: Vec<Slot> = arcs_.into_iter().chain(diffusions).collect();
     let mut peaks: Vec<(f64, f64)> = drt
         .peaks
         .iter()
@@ -166,11 +153,11 @@ pub(crate) fn drt_starts(
                 };
                 let tau = tau_slot[s].unwrap_or(1.0);
                 match *slot {
-                    DrtSlot::Arc { r: ri, cap } => {
+                    Slot::Arc { r: ri, cap } => {
                         ctx.put(&mut p, ri, r);
                         set_arc_tau(ctx, &mut p, ri, cap, tau);
                     }
-                    DrtSlot::Feature { kind, first } => {
+                    Slot::Feature { kind, first } => {
                         // The peak is the feature's largest Voigt term: scale it back to the
                         // element's own resistance and time constant.
                         let (rf, tf) = match kind.seed {

@@ -2,7 +2,7 @@
 //! surrogate, the best distinct points as starts.
 
 use super::{
-    Cap, Context, Term, linear_seed, log_grid, set_arc_tau, set_feature, set_linear, unit_shape,
+    Context, Slot, Term, linear_seed, log_grid, set_arc_tau, set_feature, set_linear, unit_shape,
 };
 use crate::dense::dot;
 use crate::element::{ARC_WINDOW, ElementKind, Seed};
@@ -13,7 +13,7 @@ use num_complex::Complex64;
 /// A time-constant slot of the recognised circuit: an arc or a feature element.
 #[derive(Debug, Clone)]
 struct SlotInfo {
-    target: Target,
+    target: Slot,
     /// Allowed τ (coarse grid).
     grid: Vec<f64>,
     /// An earlier slot that must have a smaller τ than this one (identical plain arcs or features in
@@ -24,23 +24,11 @@ struct SlotInfo {
     plain: Option<(&'static str, Vec<f64>)>,
 }
 
-#[derive(Debug, Clone, Copy)]
-enum Target {
-    Arc {
-        r: usize,
-        cap: Cap,
-    },
-    Feature {
-        kind: &'static ElementKind,
-        first: usize,
-    },
-}
-
 impl SlotInfo {
     /// The slot's column over the data's frequencies at time constant `tau`, at unit resistance.
     fn column(&self, ctx: &Context<'_>, tau: f64) -> Vec<Complex64> {
         match self.target {
-            Target::Arc { cap, .. } => {
+            Slot::Arc { cap, .. } => {
                 let Seed::Capacitive { parallel, .. } = cap.kind.seed else {
                     return vec![Complex64::new(0.0, 0.0); ctx.grid.len()];
                 };
@@ -52,7 +40,7 @@ impl SlotInfo {
                 .map(|z| 1.0 / (1.0 + 1.0 / z))
                 .collect()
             }
-            Target::Feature { kind, first } => match kind.seed {
+            Slot::Feature { kind, first } => match kind.seed {
                 Seed::Feature { of, .. } => {
                     unit_shape(ctx, kind, first, |fixed, v| of(1.0, tau, fixed, v))
                 }
@@ -62,12 +50,11 @@ impl SlotInfo {
     }
 }
 
-/// The surrogate of a recognised circuit: its linear terms (kind, first parameter, column) and its
-/// time-constant slots.
-type Surrogate = (
-    Vec<(&'static ElementKind, usize, Vec<Complex64>)>,
-    Vec<SlotInfo>,
-);
+/// A linear term of the surrogate: kind, first parameter and its column at coefficient 1.
+type LinearTerm = (&'static ElementKind, usize, Vec<Complex64>);
+
+/// The surrogate of a recognised circuit: its linear terms and its time-constant slots.
+type Surrogate = (Vec<LinearTerm>, Vec<SlotInfo>);
 
 /// Reads the recognised blocks as linear columns and time-constant slots, arcs on the arc window and
 /// features on their own.
@@ -95,7 +82,7 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
                 .as_ref()
                 .and_then(|p| slots.iter().rposition(|s| s.plain.as_ref() == Some(p)));
             slots.push(SlotInfo {
-                target: Target::Feature { kind, first },
+                target: Slot::Feature { kind, first },
                 grid: window(kind.seed.window().unwrap_or(ARC_WINDOW)),
                 before,
                 plain,
@@ -118,7 +105,7 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
                     .as_ref()
                     .and_then(|p| slots.iter().rposition(|s| s.plain.as_ref() == Some(p)));
                 slots.push(SlotInfo {
-                    target: Target::Arc { r: *r, cap: *cap },
+                    target: Slot::Arc { r: *r, cap: *cap },
                     grid: window(ARC_WINDOW),
                     before,
                     plain,
@@ -136,69 +123,113 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
 /// Starting points for a recognised circuit, best first.
 pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Vec<Vec<f64>> {
     let (fixed_cols, slots) = surrogate(ctx, terms);
-    let n = ctx.omegas.len();
-    let weigh = |v: &[Complex64]| -> Vec<f64> {
-        let mut out = Vec::with_capacity(2 * n);
-        out.extend((0..n).map(|i| ctx.w_re[i] * v[i].re));
-        out.extend((0..n).map(|i| ctx.w_im[i] * v[i].im));
-        out
-    };
-    let y = weigh(ctx.data);
-    let yy: f64 = y.iter().map(|v| v * v).sum();
+    let tables = Tables::new(ctx, &fixed_cols, &slots);
+    let chosen = search(&tables, &slots, count);
+    to_params(ctx, &fixed_cols, &slots, &tables.fine, chosen)
+}
 
-    // Fine grids: the coarse grid plus half-decade midpoints, so refinement can use the same columns.
-    let fine: Vec<Vec<f64>> = slots
-        .iter()
-        .map(|s| {
-            let g = &s.grid;
-            let mut f = Vec::with_capacity(2 * g.len());
-            for k in 0..g.len() {
-                f.push(g[k]);
-                if k + 1 < g.len() {
-                    f.push((g[k] * g[k + 1]).sqrt());
+/// The weighted columns of the surrogate over every slot's fine grid, as a Gram matrix computed once.
+struct Tables {
+    /// Per slot: the coarse grid plus half-decade midpoints (even indices are the coarse points).
+    fine: Vec<Vec<f64>>,
+    /// Index of each slot's first column.
+    slot_offset: Vec<usize>,
+    /// Gram matrix of all columns (m × m) and the columns' products with the data.
+    gram: Vec<f64>,
+    rhs: Vec<f64>,
+    /// Weighted sum of squares of the data.
+    yy: f64,
+    m: usize,
+    /// Number of linear (fixed-shape) columns, which come first.
+    nf: usize,
+}
+
+impl Tables {
+    fn new(ctx: &Context<'_>, fixed_cols: &[LinearTerm], slots: &[SlotInfo]) -> Tables {
+        let n = ctx.omegas.len();
+        let weigh = |v: &[Complex64]| -> Vec<f64> {
+            let mut out = Vec::with_capacity(2 * n);
+            out.extend((0..n).map(|i| ctx.w_re[i] * v[i].re));
+            out.extend((0..n).map(|i| ctx.w_im[i] * v[i].im));
+            out
+        };
+        let y = weigh(ctx.data);
+        let yy: f64 = y.iter().map(|v| v * v).sum();
+
+        // Fine grids: the coarse grid plus half-decade midpoints, so refinement can use the same columns.
+        let fine: Vec<Vec<f64>> = slots
+            .iter()
+            .map(|s| {
+                let g = &s.grid;
+                let mut f = Vec::with_capacity(2 * g.len());
+                for k in 0..g.len() {
+                    f.push(g[k]);
+                    if k + 1 < g.len() {
+                        f.push((g[k] * g[k + 1]).sqrt());
+                    }
                 }
-            }
-            f
-        })
-        .collect();
+                f
+            })
+            .collect();
 
-    // All candidate columns, weighted: fixed columns first, then each slot's fine grid.
-    let mut cols: Vec<Vec<f64>> = fixed_cols.iter().map(|(_, _, c)| weigh(c)).collect();
-    let mut slot_offset = Vec::with_capacity(slots.len());
-    for (s, f) in slots.iter().zip(&fine) {
-        slot_offset.push(cols.len());
-        for &tau in f {
-            cols.push(weigh(&s.column(ctx, tau)));
-        }
-    }
-    let m = cols.len();
-    let mut gram = vec![0.0; m * m];
-    let mut rhs = vec![0.0; m];
-    for a in 0..m {
-        rhs[a] = dot(&cols[a], &y);
-        for b in a..m {
-            let g = dot(&cols[a], &cols[b]);
-            gram[a * m + b] = g;
-            gram[b * m + a] = g;
-        }
-    }
-    let nf = fixed_cols.len();
-    let k = nf + slots.len();
-    let mut solver = Normal::new(k);
-
-    // Evaluate one assignment of fine-grid indices to slots.
-    let evaluate = |assign: &[usize], solver: &mut Normal| -> (f64, Vec<f64>) {
-        let idx = (0..nf).chain(assign.iter().enumerate().map(|(s, &g)| slot_offset[s] + g));
-        for (i, a) in idx.enumerate() {
-            solver.b[i] = rhs[a];
-            let from = (0..nf).chain(assign.iter().enumerate().map(|(s, &g)| slot_offset[s] + g));
-            for (j, b) in from.enumerate() {
-                solver.g[(i, j)] = gram[a * m + b];
+        // All candidate columns, weighted: fixed columns first, then each slot's fine grid.
+        let mut cols: Vec<Vec<f64>> = fixed_cols.iter().map(|(_, _, c)| weigh(c)).collect();
+        let mut slot_offset = Vec::with_capacity(slots.len());
+        for (s, f) in slots.iter().zip(&fine) {
+            slot_offset.push(cols.len());
+            for &tau in f {
+                cols.push(weigh(&s.column(ctx, tau)));
             }
         }
-        solver.solve(yy)
-    };
+        let m = cols.len();
+        let mut gram = vec![0.0; m * m];
+        let mut rhs = vec![0.0; m];
+        for a in 0..m {
+            rhs[a] = dot(&cols[a], &y);
+            for b in a..m {
+                let g = dot(&cols[a], &cols[b]);
+                gram[a * m + b] = g;
+                gram[b * m + a] = g;
+            }
+        }
+        Tables {
+            fine,
+            slot_offset,
+            gram,
+            rhs,
+            yy,
+            m,
+            nf: fixed_cols.len(),
+        }
+    }
 
+    /// The surrogate's least-squares coefficients and sum of squares for one assignment of fine-grid
+    /// indices to slots.
+    fn evaluate(&self, assign: &[usize], solver: &mut Normal) -> (f64, Vec<f64>) {
+        let (nf, m) = (self.nf, self.m);
+        let columns = || {
+            (0..nf).chain(
+                assign
+                    .iter()
+                    .enumerate()
+                    .map(|(s, &g)| self.slot_offset[s] + g),
+            )
+        };
+        for (i, a) in columns().enumerate() {
+            solver.b[i] = self.rhs[a];
+            for (j, b) in columns().enumerate() {
+                solver.g[(i, j)] = self.gram[a * m + b];
+            }
+        }
+        solver.solve(self.yy)
+    }
+}
+
+/// Searches the grid: every slot on its coarse points (respecting the order of identical blocks), then
+/// half-decade moves around the best; returns the best distinct assignments with their coefficients.
+fn search(tables: &Tables, slots: &[SlotInfo], count: usize) -> Vec<(Vec<usize>, Vec<f64>)> {
+    let fine = &tables.fine;
+    let mut solver = Normal::new(tables.nf + slots.len());
     // Coarse search: every slot on its coarse points (even fine indices), respecting arc order.
     let coarse_len: Vec<usize> = slots.iter().map(|s| s.grid.len()).collect();
     let mut results: Vec<(f64, Vec<usize>, Vec<f64>)> = Vec::new();
@@ -217,7 +248,7 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
         {
             continue;
         }
-        let (sse, x) = evaluate(&assign, &mut solver);
+        let (sse, x) = tables.evaluate(&assign, &mut solver);
         results.push((sse, assign.clone(), x));
     }
     results.sort_by(|a, b| a.0.total_cmp(&b.0));
@@ -249,7 +280,7 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
             {
                 continue;
             }
-            let (sse, x) = evaluate(&a, &mut solver);
+            let (sse, x) = tables.evaluate(&a, &mut solver);
             refined.push((sse, a, x));
         }
     }
@@ -269,6 +300,18 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
         }
     }
 
+    chosen
+}
+
+/// Parameter values of each chosen grid point.
+fn to_params(
+    ctx: &Context<'_>,
+    fixed_cols: &[LinearTerm],
+    slots: &[SlotInfo],
+    fine: &[Vec<f64>],
+    chosen: Vec<(Vec<usize>, Vec<f64>)>,
+) -> Vec<Vec<f64>> {
+    let nf = fixed_cols.len();
     let scale = ctx.scale();
     chosen
         .into_iter()
@@ -289,13 +332,11 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
                 let v = x[nf + s];
                 let r = if v > 0.0 { v } else { 1e-3 * scale };
                 match info.target {
-                    Target::Arc { r: ri, cap } => {
+                    Slot::Arc { r: ri, cap } => {
                         ctx.put(&mut p, ri, r);
                         set_arc_tau(ctx, &mut p, ri, cap, tau);
                     }
-                    Target::Feature { kind, first } => {
-                        set_feature(ctx, &mut p, kind, first, r, tau)
-                    }
+                    Slot::Feature { kind, first } => set_feature(ctx, &mut p, kind, first, r, tau),
                 }
             }
             p

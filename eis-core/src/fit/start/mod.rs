@@ -75,6 +75,20 @@ pub(crate) enum Term {
     },
 }
 
+/// A time-constant slot of a recognised circuit: an arc (its resistor and capacitive element) or a
+/// feature element.
+#[derive(Debug, Clone, Copy)]
+pub(crate) enum Slot {
+    Arc {
+        r: usize,
+        cap: Cap,
+    },
+    Feature {
+        kind: &'static ElementKind,
+        first: usize,
+    },
+}
+
 impl Term {
     /// The class of a single-element block (None for arcs).
     fn class(&self) -> Option<Class> {
