@@ -33,6 +33,9 @@ Qdl.n = 0.5..1\n\
 role Rf = film\n\
 role Rct = charge-transfer\n";
 
+/// The one export file of the campaign that is cut short and garbled (no spectrum can be read from it).
+pub const CORRUPT_FILE: &str = "Z5_c175_soc50.csv";
+
 /// The file-name pattern of the demo files.
 pub const NAME_PATTERN: &str = "{cell}_c{cycle}_soc{soc}";
 
@@ -228,7 +231,7 @@ pub fn files() -> Vec<DemoFile> {
             for soc in SOCS {
                 seed += 1;
                 let name = format!("{cell}_c{:03}_soc{}.csv", cycle as u32, soc as u32);
-                if cell == "Z5" && cycle == 175.0 && soc == 50.0 {
+                if name == CORRUPT_FILE {
                     // A file cut short by a full disk, with a garbled line.
                     out.push(DemoFile {
                         name,

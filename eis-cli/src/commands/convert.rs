@@ -3,11 +3,11 @@
 use crate::io::{Failure, Outcome, write_atomic};
 use crate::reader_args::ReaderArgs;
 use anyhow::anyhow;
-use eis_core::import::{FileWarnings, SpectrumReader};
+use eis_core::import::{FileWarnings, ReaderOptions, SpectrumReader};
 use eis_core::number::format_float;
 use eis_core::spectrum::MetaValue;
 use std::collections::HashSet;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 /// Convert potentiostat exports to canonical spectrum CSV files.
@@ -59,12 +59,35 @@ impl Row {
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
     let options = args.reader.options()?;
-    std::fs::create_dir_all(&args.out)
-        .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", args.out.display())))?;
+    let failed = convert(&args.inputs, &args.out, &options)?;
+    Ok(if failed.is_empty() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    })
+}
+
+/// One input that could not be converted (whole or in part), with the reason.
+pub struct FailedInput {
+    /// The input file as given.
+    pub file: String,
+    /// What went wrong.
+    pub error: String,
+}
+
+/// Converts every spectrum of `inputs` into `out` (canonical CSV files and index.csv), reporting
+/// each problem on standard error as it goes; returns the inputs that failed. `Err` only when the
+/// output folder or the index cannot be written.
+pub fn convert(
+    inputs: &[PathBuf],
+    out: &Path,
+    options: &ReaderOptions,
+) -> Result<Vec<FailedInput>, Failure> {
+    std::fs::create_dir_all(out)
+        .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", out.display())))?;
     let mut rows: Vec<Row> = Vec::new();
     let mut written: HashSet<String> = HashSet::new();
-    let mut failed = false;
-    for input in &args.inputs {
+    for input in inputs {
         let file = input.display().to_string();
         let stem = input
             .file_stem()
@@ -75,7 +98,6 @@ pub fn run(args: Args) -> Outcome {
             Err(e) => {
                 eprintln!("error: {e}");
                 rows.push(Row::failed(file, None, e.to_string()));
-                failed = true;
                 continue;
             }
         };
@@ -87,7 +109,6 @@ pub fn run(args: Args) -> Outcome {
                 Err(e) => {
                     eprintln!("error: {e}");
                     rows.push(Row::failed(file.clone(), e.spectrum, e.to_string()));
-                    failed = true;
                     continue;
                 }
             };
@@ -101,21 +122,16 @@ pub fn run(args: Args) -> Outcome {
                 let msg = format!("{file}: output name {name} is already used by an earlier input");
                 eprintln!("error: {msg}");
                 rows.push(Row::failed(file.clone(), Some(n), msg));
-                failed = true;
                 continue;
             }
-            if let Err(f) = write_atomic(
-                &args.out.join(&name),
-                s.to_canonical_csv().as_bytes(),
-                &args.inputs,
-            ) {
+            if let Err(f) = write_atomic(&out.join(&name), s.to_canonical_csv().as_bytes(), inputs)
+            {
                 let msg = match f {
                     Failure::BadInput(e) | Failure::Failed(e) => format!("{e:#}"),
                     Failure::BrokenPipe => "standard output closed".to_owned(),
                 };
                 eprintln!("error: {msg}");
                 rows.push(Row::failed(file.clone(), Some(n), msg));
-                failed = true;
                 continue;
             }
             let (lo, hi) = s
@@ -137,18 +153,22 @@ pub fn run(args: Args) -> Outcome {
         }
     }
     let index = index_csv(&rows).map_err(|e| Failure::Failed(anyhow!("index: {e}")))?;
-    write_atomic(&args.out.join("index.csv"), &index, &args.inputs)?;
+    write_atomic(&out.join("index.csv"), &index, inputs)?;
     let ok = rows.iter().filter(|r| r.error.is_none()).count();
     eprintln!(
         "converted {ok} spectra from {} files into {}",
-        args.inputs.len(),
-        args.out.display()
+        inputs.len(),
+        out.display()
     );
-    Ok(if failed {
-        ExitCode::from(1)
-    } else {
-        ExitCode::SUCCESS
-    })
+    Ok(rows
+        .into_iter()
+        .filter_map(|r| {
+            r.error.map(|error| FailedInput {
+                file: r.file,
+                error,
+            })
+        })
+        .collect())
 }
 
 /// The index: file, spectrum, points, fmin_hz, fmax_hz, the metadata fields in order of first

@@ -61,19 +61,25 @@ pub fn run(args: Args) -> Outcome {
     let model_s = model_path.display().to_string();
 
     step("2. converting every export to canonical CSV");
-    let mut convert_args: Vec<String> = vec!["eis".into(), "convert".into()];
-    convert_args.extend(
-        files
-            .iter()
-            .map(|f| raw.join(&f.name).display().to_string()),
-    );
-    convert_args.extend([
-        "--out".into(),
-        converted.display().to_string(),
-        "--name-pattern".into(),
-        scenario::NAME_PATTERN.into(),
-    ]);
-    let _ = crate::dispatch(&convert_args);
+    let exports: Vec<PathBuf> = files.iter().map(|f| raw.join(&f.name)).collect();
+    let reader = ReaderOptions {
+        name_pattern: Some(
+            NamePattern::parse(scenario::NAME_PATTERN).map_err(|e| bad(anyhow!(e)))?,
+        ),
+        ..ReaderOptions::default()
+    };
+    let failed = crate::commands::convert::convert(&exports, &converted, &reader)?;
+    // The campaign holds one corrupt file on purpose; anything else failing is a fault of the tool.
+    if let Some(f) = failed
+        .iter()
+        .find(|f| !f.file.ends_with(scenario::CORRUPT_FILE))
+    {
+        return Err(Failure::Failed(anyhow!(
+            "the demo could not convert {}: {}",
+            f.file,
+            f.error
+        )));
+    }
 
     step("3. checking (Kramers-Kronig) and fitting every spectrum");
     crate::dispatch(&[
@@ -113,12 +119,6 @@ pub fn run(args: Args) -> Outcome {
     };
 
     step("5. plots");
-    let reader = ReaderOptions {
-        name_pattern: Some(
-            NamePattern::parse(scenario::NAME_PATTERN).map_err(|e| bad(anyhow!(e)))?,
-        ),
-        ..ReaderOptions::default()
-    };
     let circuit = load_model(&model_s)?;
     let mut written = Vec::new();
     // A fit of a film-grown spectrum.
