@@ -78,6 +78,8 @@ pub mod scenario;
 pub mod select;
 pub mod simulate;
 pub mod spectrum;
+#[doc(hidden)]
+pub mod testing;
 pub mod trend;
 pub mod validate;
 

@@ -12,15 +12,6 @@ fn z_of(model: &str, params: &[f64], w: f64) -> Complex64 {
     Plan::compile(&parse(model).unwrap()).impedance(params, w)
 }
 
-#[track_caller]
-fn assert_close(got: Complex64, want: Complex64, rel: f64) {
-    let err = (got - want).norm() / want.norm();
-    assert!(
-        err <= rel,
-        "got {got}, want {want}, relative error {err:e} > {rel:e}"
-    );
-}
-
 fn omegas() -> impl Iterator<Item = f64> {
     (0..=70).map(|k| angular(10f64.powf(-3.0 + k as f64 * 0.1)))
 }
@@ -31,29 +22,29 @@ fn omegas() -> impl Iterator<Item = f64> {
 #[test]
 fn elements_match_their_closed_forms() {
     for w in omegas() {
-        assert_close(z_of("R1", &[7.0], w), Complex64::new(7.0, 0.0), 1e-15);
-        assert_close(z_of("C1", &[3e-6], w), 1.0 / (J * w * 3e-6), 1e-15);
-        assert_close(z_of("L1", &[2e-6], w), J * w * 2e-6, 1e-15);
-        assert_close(
+        eis_core::assert_close!(z_of("R1", &[7.0], w), Complex64::new(7.0, 0.0), 1e-15);
+        eis_core::assert_close!(z_of("C1", &[3e-6], w), 1.0 / (J * w * 3e-6), 1e-15);
+        eis_core::assert_close!(z_of("L1", &[2e-6], w), J * w * 2e-6, 1e-15);
+        eis_core::assert_close!(
             z_of("Q1", &[2e-5, 0.83], w),
             1.0 / (2e-5 * (J * w).powf(0.83)),
             1e-13,
         );
-        assert_close(
+        eis_core::assert_close!(
             z_of("W1", &[12.0], w),
             12.0 * Complex64::new(1.0, -1.0) / w.sqrt(),
             1e-15,
         );
         let s = (J * w * 0.7).sqrt();
         if s.norm() < 300.0 {
-            assert_close(z_of("Wt1", &[5.0, 0.7], w), 5.0 * s.tanh() / s, 1e-13);
-            assert_close(
+            eis_core::assert_close!(z_of("Wt1", &[5.0, 0.7], w), 5.0 * s.tanh() / s, 1e-13);
+            eis_core::assert_close!(
                 z_of("Wr1", &[5.0, 0.7], w),
                 5.0 * s.cosh() / s.sinh() / s,
                 1e-13,
             );
         }
-        assert_close(
+        eis_core::assert_close!(
             z_of("G1", &[9.0, 2e-3], w),
             9.0 / (1.0 + J * w * 2e-3).sqrt(),
             1e-15,
@@ -69,19 +60,19 @@ fn elements_match_their_closed_forms() {
 fn finite_diffusion_limits() {
     let (r, tau) = (20.0, 5.0);
     let w_low = 1e-8 / tau;
-    assert_close(z_of("Wt", &[r, tau], w_low), Complex64::new(r, 0.0), 1e-8);
+    eis_core::assert_close!(z_of("Wt", &[r, tau], w_low), Complex64::new(r, 0.0), 1e-8);
     let c_l = tau / r;
     // The first neglected term is R·jωτ/45, relative size ~ (ωτ)²/15 here.
     let w_low = 1e-4 / tau;
-    assert_close(
+    eis_core::assert_close!(
         z_of("Wr", &[r, tau], w_low),
         r / 3.0 + 1.0 / (J * w_low * c_l),
         1e-8,
     );
     for w_high in [1e4 / tau, 1e8 / tau, 1e14 / tau] {
         let want = r / (J * w_high * tau).sqrt();
-        assert_close(z_of("Wt", &[r, tau], w_high), want, 1e-12);
-        assert_close(z_of("Wr", &[r, tau], w_high), want, 1e-12);
+        eis_core::assert_close!(z_of("Wt", &[r, tau], w_high), want, 1e-12);
+        eis_core::assert_close!(z_of("Wr", &[r, tau], w_high), want, 1e-12);
     }
 }
 
@@ -91,7 +82,7 @@ fn finite_diffusion_limits() {
 fn warburg_conventions() {
     let sigma = 3.0;
     for w in omegas() {
-        assert_close(
+        eis_core::assert_close!(
             z_of("W", &[sigma], w),
             SQRT_2 * sigma / (J * w).sqrt(),
             1e-15,
@@ -99,7 +90,7 @@ fn warburg_conventions() {
     }
     let (r, tau) = (20.0, 5.0);
     let w = 1e6 / tau;
-    assert_close(
+    eis_core::assert_close!(
         z_of("Wt", &[r, tau], w),
         z_of("W", &[r / (2.0 * tau).sqrt()], w),
         1e-12,
@@ -113,7 +104,7 @@ fn gerischer_peak() {
     let (r, tau) = (8.0, 1e-3);
     let w_peak = 3f64.sqrt() / tau;
     let z = z_of("G", &[r, tau], w_peak);
-    assert_close(
+    eis_core::assert_close!(
         z,
         r * Complex64::new(6f64.sqrt() / 4.0, -1.0 / (2.0 * SQRT_2)),
         1e-14,
@@ -130,8 +121,8 @@ fn gerischer_peak() {
 #[test]
 fn cpe_limits() {
     for w in omegas() {
-        assert_close(z_of("Q", &[4e-6, 1.0], w), z_of("C", &[4e-6], w), 1e-14);
-        assert_close(z_of("Q", &[0.25, 0.0], w), Complex64::new(4.0, 0.0), 1e-15);
+        eis_core::assert_close!(z_of("Q", &[4e-6, 1.0], w), z_of("C", &[4e-6], w), 1e-14);
+        eis_core::assert_close!(z_of("Q", &[0.25, 0.0], w), Complex64::new(4.0, 0.0), 1e-15);
     }
 }
 
@@ -157,7 +148,7 @@ fn randles_apex() {
     let f = 1.0 / (2.0 * PI * 100.0 * 20e-6);
     assert!((f - 79.5775).abs() < 1e-4);
     let z = z_of("Rs + Rct|Cdl", &[10.0, 100.0, 20e-6], angular(f));
-    assert_close(z, Complex64::new(60.0, -50.0), 1e-14);
+    eis_core::assert_close!(z, Complex64::new(60.0, -50.0), 1e-14);
 }
 
 /// Randles with a σ-Warburg: at low frequency the 45° line extrapolates to R_s + R_ct − 2σ²C_dl on the

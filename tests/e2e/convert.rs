@@ -23,7 +23,7 @@ fn simulated(dir: &Path, name: &str, circuit: &str) -> Vec<(f64, f64, f64)> {
 }
 
 fn close(a: f64, b: f64) -> bool {
-    (a - b).abs() <= 1e-12 * b.abs().max(1e-300)
+    eis_core::testing::close(a, b, 1e-12)
 }
 
 #[test]

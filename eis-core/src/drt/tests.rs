@@ -8,19 +8,6 @@ use crate::simulate::{Noise, simulate};
 use nalgebra::DMatrix;
 use serde_json::Value;
 
-/// Relative closeness with a message naming the quantity.
-macro_rules! assert_rel {
-    ($got:expr, $want:expr, $tol:expr, $what:expr) => {{
-        let (g, w): (f64, f64) = ($got, $want);
-        assert!(
-            ((g - w) / w).abs() <= $tol,
-            "{}: got {g}, want {w} (relative tolerance {})",
-            $what,
-            $tol
-        );
-    }};
-}
-
 const FIXTURE: &str = include_str!("../../../tests/reference/drt_fixture.json");
 
 fn fixture() -> Value {
@@ -60,7 +47,7 @@ fn drt_kernel_matches_scipy_quadrature() {
     let fx = fixture();
     let f = vector(&fx["frequency_hz"]);
     let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
-    assert_rel!(
+    crate::assert_close!(
         setup.epsilon(),
         fx["epsilon"].as_f64().unwrap(),
         1e-14,
@@ -104,13 +91,13 @@ fn drt_gram_matches_quadrature() {
     }
     // Hand check at d = 0: ∫φ′² = ε√(π/2), ∫φ″² = 3ε³√(π/2).
     let c = (PI / 2.0).sqrt();
-    assert_rel!(
+    crate::assert_close!(
         gaussian_gram(1, 2.0, 0.0),
         2.0 * c,
         1e-15,
         "order 1 at d = 0"
     );
-    assert_rel!(
+    crate::assert_close!(
         gaussian_gram(2, 2.0, 0.0),
         24.0 * c,
         1e-15,
@@ -163,7 +150,7 @@ fn drt_regularised_nnls_matches_scipy() {
             "λ = {lambda}: objective {obj} vs SciPy {want_obj}"
         );
         eprintln!("λ = {lambda}: objective {obj:.12e}, SciPy {want_obj:.12e}");
-        assert_rel!(obj, want_obj, 1e-8, "objective");
+        crate::assert_close!(obj, want_obj, 1e-8, "objective");
         let free = problem.x.iter().filter(|v| **v > 0.0).count() as u64;
         assert_eq!(
             free,
@@ -184,16 +171,16 @@ fn drt_zarc_matches_cole_cole_distribution() {
     assert_eq!(res.peaks.len(), 1, "{:?}", res.peaks);
     let p = res.peaks[0];
     // Stated tolerance: the peak within 2 % of τ₀ (0.009 decades), the area within 2 % of R.
-    assert_rel!(p.tau_s, tau0, 0.02, "peak τ");
-    assert_rel!(p.resistance_ohm, r, 0.02, "peak area");
-    assert_rel!(res.r_pol_ohm, r, 0.02, "polarisation resistance");
-    assert_rel!(
+    crate::assert_close!(p.tau_s, tau0, 0.02, "peak τ");
+    crate::assert_close!(p.resistance_ohm, r, 0.02, "peak area");
+    crate::assert_close!(res.r_pol_ohm, r, 0.02, "polarisation resistance");
+    crate::assert_close!(
         p.gamma_ohm,
         r / (2.0 * PI) * (phi * PI / 2.0).tan(),
         0.05,
         "peak height"
     );
-    assert_rel!(res.r_inf_ohm, r0, 0.01, "R∞");
+    crate::assert_close!(res.r_inf_ohm, r0, 0.01, "R∞");
     // Shape: within the measured τ range, γ follows the analytic distribution to 3 % of its peak.
     let peak = cole_cole(r, tau0, phi, tau0);
     let (tmin, tmax) = (1.0 / (2.0 * PI * 1e5), 1.0 / (2.0 * PI * 0.1));
@@ -223,15 +210,15 @@ fn drt_single_rc_gives_one_peak_at_rc() {
         let s = spectrum("R0 + R1|C1", &[5.0, r, c], noise);
         let res = drt(&s, DrtOptions::default()).unwrap();
         assert_eq!(res.peaks.len(), 1, "noise {noise:?}: {:?}", res.peaks);
-        assert_rel!(res.peaks[0].tau_s, r * c, 0.02, "τ");
-        assert_rel!(
+        crate::assert_close!(res.peaks[0].tau_s, r * c, 0.02, "τ");
+        crate::assert_close!(
             res.peaks[0].frequency_hz,
             1.0 / (2.0 * PI * r * c),
             0.02,
             "frequency"
         );
-        assert_rel!(res.peaks[0].resistance_ohm, r, 0.02, "area");
-        assert_rel!(res.r_inf_ohm, 5.0, 0.02, "R∞");
+        crate::assert_close!(res.peaks[0].resistance_ohm, r, 0.02, "area");
+        crate::assert_close!(res.r_inf_ohm, 5.0, 0.02, "R∞");
     }
 }
 
@@ -252,12 +239,12 @@ fn drt_two_arcs_a_decade_apart_give_two_peaks() {
         let s = spectrum("R0 + R1|C1 + R2|C2", &[2.0, r1, c1, r2, c2], noise);
         let res = drt(&s, DrtOptions::default()).unwrap();
         assert_eq!(res.peaks.len(), 2, "C2 = {c2}: {:?}", res.peaks);
-        assert_rel!(res.peaks[0].tau_s, r1 * c1, 0.05, "τ1");
-        assert_rel!(res.peaks[1].tau_s, r2 * c2, 0.05, "τ2");
-        assert_rel!(res.peaks[0].resistance_ohm, r1, 0.03, "R1");
-        assert_rel!(res.peaks[1].resistance_ohm, r2, 0.03, "R2");
+        crate::assert_close!(res.peaks[0].tau_s, r1 * c1, 0.05, "τ1");
+        crate::assert_close!(res.peaks[1].tau_s, r2 * c2, 0.05, "τ2");
+        crate::assert_close!(res.peaks[0].resistance_ohm, r1, 0.03, "R1");
+        crate::assert_close!(res.peaks[1].resistance_ohm, r2, 0.03, "R2");
         let sum: f64 = res.peaks.iter().map(|p| p.resistance_ohm).sum();
-        assert_rel!(sum, res.r_pol_ohm, 0.005, "peak areas add up to ∫γ");
+        crate::assert_close!(sum, res.r_pol_ohm, 0.005, "peak areas add up to ∫γ");
     }
 }
 
@@ -282,9 +269,9 @@ fn drt_options_all_run_and_agree_on_an_rc() {
     for o in variants {
         let res = drt(&s, o).unwrap();
         assert_eq!(res.peaks.len(), 1, "{o:?}: {:?}", res.peaks);
-        assert_rel!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
-        assert_rel!(res.peaks[0].resistance_ohm, 50.0, 0.03, "R");
-        assert_rel!(res.r_inf_ohm, 5.0, 0.05, "R∞");
+        crate::assert_close!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
+        crate::assert_close!(res.peaks[0].resistance_ohm, 50.0, 0.03, "R");
+        crate::assert_close!(res.r_inf_ohm, 5.0, 0.05, "R∞");
         assert_eq!(
             res.lambda_scan.is_empty(),
             matches!(o.lambda(), LambdaMethod::Fixed(_))
@@ -315,9 +302,9 @@ fn drt_recovers_a_series_inductance() {
             DrtOptions::default().with_inductance(true).with_part(part),
         )
         .unwrap();
-        assert_rel!(res.inductance_h.unwrap(), 2e-6, 0.02, "L");
+        crate::assert_close!(res.inductance_h.unwrap(), 2e-6, 0.02, "L");
         assert_eq!(res.peaks.len(), 1);
-        assert_rel!(res.peaks[0].resistance_ohm, 50.0, 0.02, "R");
+        crate::assert_close!(res.peaks[0].resistance_ohm, 50.0, 0.02, "R");
     }
     let res = drt(&s, DrtOptions::default()).unwrap();
     assert_eq!(res.inductance_h, None);
@@ -441,8 +428,8 @@ fn the_basis_is_bounded_whatever_the_number_of_points() {
     let s = simulate(&plan, &[5.0, 50.0, 20e-6], &every_fourth, None);
     let r = drt(&s, DrtOptions::default()).unwrap();
     assert_eq!(r.peaks.len(), 1, "{:?}", r.peaks);
-    assert_rel!(r.peaks[0].tau_s, 1e-3, 0.05, "τ of the peak");
-    assert_rel!(r.peaks[0].resistance_ohm, 50.0, 0.02, "R of the peak");
+    crate::assert_close!(r.peaks[0].tau_s, 1e-3, 0.05, "τ of the peak");
+    crate::assert_close!(r.peaks[0].resistance_ohm, 50.0, 0.02, "R of the peak");
 }
 
 /// Issue 13: impedances from 1e-300 to 1e300 Ω give the same DRT up to the scale (γ, R∞ and the
@@ -465,22 +452,12 @@ fn the_drt_does_not_depend_on_the_scale_of_z() {
             let o = DrtOptions::default().with_weighting(weighting);
             let r = drt(&s, o).unwrap();
             let r0 = drt(&base, o).unwrap();
-            let what = format!("× {scale:e}, {weighting:?}");
-            assert_rel!(r.lambda, r0.lambda, 1e-9, format!("λ {what}"));
-            assert_rel!(
-                r.r_inf_ohm / scale,
-                r0.r_inf_ohm,
-                1e-6,
-                format!("R∞ {what}")
-            );
-            assert_rel!(
-                r.r_pol_ohm / scale,
-                r0.r_pol_ohm,
-                1e-6,
-                format!("Rpol {what}")
-            );
+            let what = "× {scale:e}, {weighting:?}";
+            crate::assert_close!(r.lambda, r0.lambda, 1e-9, "λ {what}");
+            crate::assert_close!(r.r_inf_ohm / scale, r0.r_inf_ohm, 1e-6, "R∞ {what}");
+            crate::assert_close!(r.r_pol_ohm / scale, r0.r_pol_ohm, 1e-6, "Rpol {what}");
             assert_eq!(r.peaks.len(), r0.peaks.len(), "{what}");
-            assert_rel!(r.residual_rms, r0.residual_rms, 1e-6, format!("rms {what}"));
+            crate::assert_close!(r.residual_rms, r0.residual_rms, 1e-6, "rms {what}");
         }
     }
     assert!(reference.r_pol_ohm > 0.0);
@@ -496,7 +473,7 @@ fn degenerate_spectra_give_results_or_typed_errors() {
         vec![Complex64::new(3.0, 0.0); good.len()],
     );
     let r = drt(&flat, DrtOptions::default()).unwrap();
-    assert_rel!(r.r_inf_ohm, 3.0, 1e-3, "R∞ of a resistor");
+    crate::assert_close!(r.r_inf_ohm, 3.0, 1e-3, "R∞ of a resistor");
     assert!(r.r_pol_ohm.abs() < 1e-3 * 3.0, "Rpol {}", r.r_pol_ohm);
     // Every frequency twice.
     let mut twice = good.clone();
@@ -558,8 +535,8 @@ fn find_peaks_on_a_curve_read_back_matches_the_drt() {
     let again = find_peaks(&res.tau_s, &res.gamma_ohm, DEFAULT_PEAK_THRESHOLD, None);
     assert_eq!(again.len(), res.peaks.len());
     for (a, b) in again.iter().zip(&res.peaks) {
-        assert_rel!(a.tau_s, b.tau_s, 1e-12, "τ");
-        assert_rel!(a.resistance_ohm, b.resistance_ohm, 1e-12, "R");
+        crate::assert_close!(a.tau_s, b.tau_s, 1e-12, "τ");
+        crate::assert_close!(a.resistance_ohm, b.resistance_ohm, 1e-12, "R");
     }
     let keep = |k: &usize| k % 3 != 1;
     let mut tau: Vec<f64> = (0..res.tau_s.len())
@@ -608,9 +585,9 @@ fn a_small_process_a_decade_and_a_half_away_is_kept() {
         };
         // Stated tolerance: τ within 0.15 decades, R within 20 % (small) and 3 % (large).
         assert!((small.tau_s / small_tau).log10().abs() < 0.15, "{small:?}");
-        assert_rel!(small.resistance_ohm, 2.0, 0.2, "small R");
+        crate::assert_close!(small.resistance_ohm, 2.0, 0.2, "small R");
         assert!((large.tau_s / 1e-3).log10().abs() < 0.05, "{large:?}");
-        assert_rel!(large.resistance_ohm, 50.0, 0.03, "large R");
+        crate::assert_close!(large.resistance_ohm, 50.0, 0.03, "large R");
     }
 }
 
@@ -624,9 +601,9 @@ fn an_open_capacitive_tail_is_taken_by_the_series_capacitance() {
     let res = drt(&s, DrtOptions::default()).unwrap();
     assert_eq!(res.peaks.len(), 1, "{:?}", res.peaks);
     assert!(res.edge_peaks.is_empty(), "{:?}", res.edge_peaks);
-    assert_rel!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
-    assert_rel!(res.peaks[0].resistance_ohm, 50.0, 0.03, "R");
-    assert_rel!(res.capacitance_f.unwrap(), 0.05, 0.02, "series C");
+    crate::assert_close!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
+    crate::assert_close!(res.peaks[0].resistance_ohm, 50.0, 0.03, "R");
+    crate::assert_close!(res.capacitance_f.unwrap(), 0.05, 0.02, "series C");
     assert!(res.residual_rms < 0.01, "rms {}", res.residual_rms);
     let without = drt(&s, DrtOptions::default().with_capacitance(false)).unwrap();
     assert_eq!(without.capacitance_f, None);
@@ -661,7 +638,7 @@ fn a_process_beyond_the_window_gives_an_edge_peak() {
     );
     let res = drt(&s, DrtOptions::default()).unwrap();
     assert_eq!(res.peaks.len(), 1, "{:?}", res.peaks);
-    assert_rel!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
+    crate::assert_close!(res.peaks[0].tau_s, 1e-3, 0.05, "τ");
     assert!(!res.peaks[0].at_window_edge);
     assert_eq!(res.edge_peaks.len(), 1, "{:?}", res.edge_peaks);
     let edge = res.edge_peaks[0];
@@ -714,7 +691,7 @@ fn physics_model_spectra_report_no_edge_peak_and_keep_the_interfacial_peaks() {
         }
         let r = &s["reference"];
         for electrode in ["negative", "positive"] {
-            let tau_dl = r[format!("{electrode}_double_layer_time_constant_s")]
+            let tau_dl = r["{electrode}_double_layer_time_constant_s"]
                 .as_f64()
                 .unwrap();
             assert!(

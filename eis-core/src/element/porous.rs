@@ -187,10 +187,6 @@ mod tests {
         rct / (1.0 + rct * y)
     }
 
-    fn close(a: Complex64, b: Complex64, rel: f64) -> bool {
-        (a - b).norm() <= rel * b.norm()
-    }
-
     /// Independent reference: a ladder of `sections` cells (midpoint rule, second order in 1/sections),
     /// ionic rail resistors ri/N, shunts N·z, the far end blocked, summed from the far end
     /// (common practice: the transmission line is the limit of this ladder; de Levie 1963,
@@ -287,13 +283,13 @@ mod tests {
             let one = at("Pe", &[ri, rct, q, n], w);
             let ladder = ladder_one_rail(ri, zi, 4000);
             assert!(
-                close(one, ladder, 2e-6),
+                crate::testing::close(one, ladder, 2e-6),
                 "Pe at w={w}: {one} vs ladder {ladder}"
             );
             let two = at("Pm", &[ri, re, rct, q, n], w);
             let ladder = ladder_two_rails(ri, re, zi, 2000);
             assert!(
-                close(two, ladder, 1e-5),
+                crate::testing::close(two, ladder, 1e-5),
                 "Pm at w={w}: {two} vs ladder {ladder}"
             );
         }
@@ -305,8 +301,16 @@ mod tests {
         let (rct, q, n) = (5.0, 1e-3, 0.9);
         for w in [1e-3, 1.0, 1e3, 1e6] {
             let zi = interface(rct, q, n, w);
-            assert!(close(at("Pe", &[1e-12, rct, q, n], w), zi, 1e-9));
-            assert!(close(at("Pm", &[1e-12, 1e-12, rct, q, n], w), zi, 1e-9));
+            assert!(crate::testing::close(
+                at("Pe", &[1e-12, rct, q, n], w),
+                zi,
+                1e-9
+            ));
+            assert!(crate::testing::close(
+                at("Pm", &[1e-12, 1e-12, rct, q, n], w),
+                zi,
+                1e-9
+            ));
         }
     }
 
@@ -320,7 +324,10 @@ mod tests {
             let nu = (ri / rct).sqrt();
             let exact = (ri * rct).sqrt() / nu.tanh();
             let z = at("Pe", &[ri, rct, 1e-3, 0.9], w);
-            assert!(close(z, Complex64::new(exact, 0.0), 1e-6), "{z} vs {exact}");
+            assert!(
+                crate::testing::close(z, Complex64::new(exact, 0.0), 1e-6),
+                "{z} vs {exact}"
+            );
         }
         let z = at("Pe", &[0.01, 10.0, 1e-3, 0.9], w);
         assert!((z.re - (10.0 + 0.01 / 3.0)).abs() < 1e-5, "{z}");
@@ -354,10 +361,10 @@ mod tests {
         for w in [1e-2, 1.0, 1e2, 1e4] {
             let a = at("Pm", &[2.0, 0.5, 5.0, 1e-3, 0.8], w);
             let b = at("Pm", &[0.5, 2.0, 5.0, 1e-3, 0.8], w);
-            assert!(close(a, b, 1e-13), "{a} vs {b}");
+            assert!(crate::testing::close(a, b, 1e-13), "{a} vs {b}");
             let one = at("Pe", &[2.0, 5.0, 1e-3, 0.8], w);
             let two = at("Pm", &[2.0, 1e-10, 5.0, 1e-3, 0.8], w);
-            assert!(close(two, one, 1e-9), "{two} vs {one}");
+            assert!(crate::testing::close(two, one, 1e-9), "{two} vs {one}");
         }
     }
 
