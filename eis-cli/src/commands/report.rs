@@ -213,6 +213,14 @@ pub fn write_report(
         }
         h.push_str("</table>\n");
     }
+    let advice = eis_core::campaign::advice(&results);
+    if !advice.is_empty() {
+        h.push_str("<h2>Identifiability</h2>\n<ul>\n");
+        for a in &advice {
+            let _ = writeln!(h, "<li>{}</li>", esc(&a.to_string()));
+        }
+        h.push_str("</ul>\n");
+    }
     h.push_str("<h2>Fits with warnings</h2>\n");
     let warned: Vec<(&SpectrumResult, &eis_core::report::FitDocument)> = results
         .iter()

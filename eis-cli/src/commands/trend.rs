@@ -152,6 +152,28 @@ pub fn human(report: &TrendReport) -> String {
     out
 }
 
+/// The grouped identifiability advice of the fits in `dir/results.jsonl` (written by `eis batch`
+/// beside results.csv), as a section of the readable summary; empty when there is no such file or
+/// nothing to advise. Lines that are not results are passed over.
+fn advice_beside(dir: &std::path::Path) -> String {
+    let Ok(text) = std::fs::read_to_string(dir.join("results.jsonl")) else {
+        return String::new();
+    };
+    let results: Vec<eis_core::campaign::SpectrumResult> = text
+        .lines()
+        .filter_map(|l| serde_json::from_str(l).ok())
+        .collect();
+    let advice = eis_core::campaign::advice(&results);
+    let mut out = String::new();
+    if !advice.is_empty() {
+        out.push_str("\nidentifiability (from results.jsonl)\n");
+        for a in &advice {
+            let _ = writeln!(out, "  {a}");
+        }
+    }
+    out
+}
+
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
     if args.by != "cell" {
@@ -193,7 +215,9 @@ pub fn run(args: Args) -> Outcome {
         s.push('\n');
         s
     } else {
-        human(&report)
+        let mut text = human(&report);
+        text.push_str(&advice_beside(&dir));
+        text
     };
     write_output(None, &text, &inputs)?;
     Ok(if report.flags.is_empty() {

@@ -42,6 +42,7 @@
 //! once fitted. What remains proportional to the number of spectra is a few hundred bytes each: keys,
 //! line positions, series order and each input file's name.
 
+mod advice;
 mod chains;
 mod index;
 mod journal;
@@ -49,6 +50,7 @@ mod results;
 #[cfg(test)]
 mod tests;
 
+pub use advice::{Advice, AdviceKind, advice};
 pub use journal::{JOURNAL, RunSettings, SETTINGS};
 pub use results::{finished, results_quantities, results_table};
 

@@ -379,3 +379,53 @@ fn campaign_cell_is_the_cell_field_else_the_file_stem() {
     assert_eq!(cell_name(None, file), "Z3_c100_soc50");
     assert_eq!(cell_name(None, Path::new("")), "");
 }
+
+/// Grouped advice counts each problem once per fit, in agreement with the warnings the fits raised
+/// themselves (the same |ρ| > 0.98 and 100 % relative-error limits), and says what would help.
+#[test]
+fn campaign_advice_groups_the_fits_own_warnings() {
+    let reference = reference();
+    let results: Vec<SpectrumResult> = reference
+        .jsonl
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    let fits = results.iter().filter(|r| r.fit.is_some()).count();
+    let advice = advice(&results);
+    assert!(!advice.is_empty());
+    assert!(advice.windows(2).all(|w| w[0].fits >= w[1].fits));
+    for a in &advice {
+        assert_eq!(a.of, fits);
+        let words = match &a.kind {
+            AdviceKind::Correlated { a, b, .. } => format!("{a} and {b} are strongly correlated"),
+            AdviceKind::Undetermined { parameter } => format!("{parameter} is not determined"),
+            AdviceKind::AtBound { parameter } => format!("{parameter} sits at its"),
+        };
+        let warned = results
+            .iter()
+            .filter_map(|r| r.fit.as_ref())
+            .filter(|d| d.warnings.iter().any(|w| w.starts_with(&words)))
+            .count();
+        assert_eq!(a.fits, warned, "{a}");
+        assert!(a.to_string().contains("What would help"), "{a}");
+    }
+}
+
+#[test]
+fn campaign_advice_rounds_the_sweep_limit_for_people() {
+    let a = Advice {
+        kind: AdviceKind::Correlated {
+            a: "R0".into(),
+            b: "Rf".into(),
+            arc_frequency_hz: Some(20_792.737),
+        },
+        fits: 175,
+        of: 194,
+    };
+    let text = a.to_string();
+    assert!(
+        text.starts_with("R0 and Rf strongly correlated in 175 of 194 fits"),
+        "{text}"
+    );
+    assert!(text.contains("extend the sweep above 210kHz"), "{text}");
+}
