@@ -32,6 +32,7 @@
 //! }
 //! ```
 
+pub mod joint;
 mod lm;
 mod problem;
 mod reduce;
