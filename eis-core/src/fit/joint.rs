@@ -34,7 +34,7 @@
 //! matrix through its Schur complement). Each spectrum's [`FitResult`] carries the block of its own
 //! parameters (local and shared): the marginal covariance of what it reports.
 
-use super::lm::Termination;
+pub use super::lm::Termination;
 use super::problem::{Point, Problem, Transform};
 use super::{FitError, FitResult, Prepared, Weighting, prepare, start, stats};
 use crate::circuit::Circuit;

@@ -32,6 +32,7 @@
 //! }
 //! ```
 
+pub mod chain;
 pub mod joint;
 mod lm;
 mod problem;
