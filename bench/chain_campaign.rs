@@ -281,6 +281,55 @@ fn chains(warm_starts: bool) {
     );
 }
 
+/// Each chain fitted jointly with the CPE exponents and the diffusion time constant shared, from
+/// per-spectrum seeds: `thorough` seeds by the chain fits, else by one warm run each after a chain fit
+/// of the first spectrum.
+fn share(thorough: bool) {
+    use eis_core::fit::chain::fit_in_chain;
+    use eis_core::fit::joint::{JointSettings, fit_joint, shared_indices};
+    let c = circuit();
+    let plan = Plan::compile(&c);
+    let shared = shared_indices(&c, &["Q1.n", "Q2.n", "Wt1.tau"]).expect("names of the model");
+    let all = plan_campaign();
+    let t0 = std::time::Instant::now();
+    let mut ok = 0;
+    let mut joint_time = 0.0;
+    for chain in all.chunks(CYCLES) {
+        let spectra: Vec<Spectrum> = chain.iter().map(|p| spectrum(&plan, p)).collect();
+        let mut seeds: Vec<Vec<f64>> = Vec::new();
+        for (k, s) in spectra.iter().enumerate() {
+            let prev = seeds.last().cloned();
+            let v = if thorough || k == 0 {
+                fit_in_chain(&c, s, &FitSettings::default(), prev.as_deref(), prev.as_deref())
+                    .map(|f| f.result.values)
+            } else {
+                fit_from(&c, s, &FitSettings::default(), prev.as_deref().unwrap_or(&[])).map(|r| r.values)
+            };
+            seeds.push(v.unwrap_or_else(|_| prev.unwrap_or_else(|| c.default_values())));
+        }
+        let refs: Vec<&Spectrum> = spectra.iter().collect();
+        let t1 = std::time::Instant::now();
+        let r = fit_joint(&c, &refs, &shared, &seeds, &JointSettings::default());
+        joint_time += t1.elapsed().as_secs_f64();
+        let Ok(r) = r else { continue };
+        for (p, f) in chain.iter().zip(&r.fits) {
+            let v = &f.values;
+            if right(&p.truth, v[0], v[1], v[4]) {
+                ok += 1;
+            } else {
+                eprintln!("{}: {:?}", p.name, v);
+            }
+        }
+    }
+    println!(
+        "joint fits ({} seeds): {ok} of {} right; {:.2} s on one core ({:.2} s in the joint fits)",
+        if thorough { "chain-fit" } else { "warm-run" },
+        all.len(),
+        t0.elapsed().as_secs_f64(),
+        joint_time
+    );
+}
+
 fn main() {
     let args: Vec<String> = std::env::args().skip(1).collect();
     let r = match args.iter().map(String::as_str).collect::<Vec<_>>()[..] {
@@ -291,6 +340,14 @@ fn main() {
         }
         ["chains"] => {
             chains(true);
+            Ok(())
+        }
+        ["share"] => {
+            share(false);
+            Ok(())
+        }
+        ["share-thorough"] => {
+            share(true);
             Ok(())
         }
         ["chains-cold"] => {
