@@ -19,7 +19,7 @@ use super::{
 };
 use crate::circuit::Circuit;
 use crate::fit::FitResult;
-use crate::fit::chain::{arc_order, fit_in_chain};
+use crate::fit::chain::{arc_order, fit_in_chain, tame};
 use crate::fit::joint::{JointSettings, fit_joint, shared_indices};
 use crate::import::{ReaderOptions, SpectrumReader};
 use crate::report::FitDocument;
@@ -404,7 +404,7 @@ impl Work<'_> {
     ) -> Result<FitResult, String> {
         let settings = &self.settings.fit;
         if let Some(p) = previous.filter(|_| self.settings.warm_start) {
-            if let Ok(r) = crate::fit::fit_from(self.circuit, s, settings, p) {
+            if let Ok(r) = crate::fit::fit_from(self.circuit, s, settings, &tame(self.circuit, p)) {
                 let same = arc_order(self.circuit, &r.values) == arc_order(self.circuit, p);
                 if r.converged && same && !r.at_bound.iter().any(|b| *b) {
                     return Ok(r);

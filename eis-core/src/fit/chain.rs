@@ -219,6 +219,24 @@ fn swapped(
         .collect()
 }
 
+/// Values more than this factor away from a parameter's default are not carried into a warm start.
+const FAR: f64 = 1e12;
+
+/// A warm start made safe to run from: a positive parameter that the previous fit drove towards zero
+/// or infinity (an inductance of 1e-261 H when the data show none) starts again from the circuit's
+/// default value. From such a point the internal coordinate sits hundreds of units out, its column of
+/// the Jacobian vanishes, and the run stops on its step test where it began.
+pub(crate) fn tame(circuit: &Circuit, warm: &[f64]) -> Vec<f64> {
+    let base = circuit.default_values();
+    warm.iter()
+        .zip(&base)
+        .map(|(&v, &d)| {
+            let far = d > 0.0 && v > 0.0 && (v / d > FAR || d / v > FAR);
+            if far || !v.is_finite() { d } else { v }
+        })
+        .collect()
+}
+
 fn acceptable(r: &FitResult) -> bool {
     r.converged && !r.at_bound.iter().any(|b| *b)
 }
@@ -247,7 +265,13 @@ pub fn fit_in_chain(
             WarmVerdict::Cold
         }
         Some(w) => {
-            let run = match fit_from(circuit, spectrum, &cold, w) {
+            if w.len() != circuit.params.len() {
+                return Err(FitError::WarmStartLength {
+                    got: w.len(),
+                    want: circuit.params.len(),
+                });
+            }
+            let run = match fit_from(circuit, spectrum, &cold, &tame(circuit, w)) {
                 Ok(r) => Some(r),
                 // A warm start of the wrong length is the caller's error; other failures of the
                 // single run only mean the full search runs.
