@@ -41,6 +41,9 @@ pub const COMPARABLE: f64 = 4.0;
 /// (the screening runs stop at a loose tolerance, so they may sit just above their minimum).
 const SCREEN_SLACK: f64 = 1e-6;
 
+/// χ² per residual below which a fit meets its data to round-off.
+const EXACT: f64 = 1e-20;
+
 /// Number of fresh grid candidates a warm run is screened against.
 const SCREENED: usize = 3;
 
@@ -283,7 +286,12 @@ pub fn fit_in_chain(
                 .filter(|r| acceptable(r))
                 .map_or(f64::INFINITY, |r| r.chi_square);
             let screened = screen(circuit, spectrum, &cold);
-            let bar = screened.map_or(f64::INFINITY, |s| s * (1.0 + SCREEN_SLACK));
+            // Data met to round-off (χ² below 1e-20 per residual, weighted residuals being relative)
+            // leave nothing to compare.
+            let exact = run
+                .as_ref()
+                .map_or(0.0, |r| EXACT * (2 * r.points) as f64);
+            let bar = screened.map_or(f64::INFINITY, |s| s * (1.0 + SCREEN_SLACK)).max(exact);
             if warm_chi.is_finite() && warm_chi <= bar {
                 candidates.extend(run);
                 WarmVerdict::Accepted
@@ -342,7 +350,9 @@ fn choose(
         Some(o) => o,
         None => (0..best_order.len()).collect(),
     };
-    let limit = best.chi_square + COMPARABLE * best.reduced_chi_square;
+    // Data met to round-off make every optimum that meets them comparable.
+    let limit = (best.chi_square + COMPARABLE * best.reduced_chi_square)
+        .max(EXACT * (2 * best.points) as f64);
     let orders: Vec<Option<Vec<usize>>> = candidates
         .iter()
         .map(|c| arc_order(circuit, &c.values))
