@@ -160,7 +160,11 @@ fn generate(dir: &Path) -> std::io::Result<()> {
     }
     std::fs::write(dir.join("truth.csv"), truth)?;
     std::fs::write(dir.join("model.circ"), format!("{MODEL}\n"))?;
-    println!("wrote {} spectra to {}", CELLS * SOCS.len() * CYCLES, dir.display());
+    println!(
+        "wrote {} spectra to {}",
+        CELLS * SOCS.len() * CYCLES,
+        dir.display()
+    );
     Ok(())
 }
 
@@ -196,8 +200,10 @@ fn score(results: &Path) -> Result<(), String> {
     let chi = col("reduced_chi_square")?;
     let c = circuit();
     let plan = Plan::compile(&c);
-    let planned: std::collections::HashMap<String, Planned> =
-        plan_campaign().into_iter().map(|p| (p.name.clone(), p)).collect();
+    let planned: std::collections::HashMap<String, Planned> = plan_campaign()
+        .into_iter()
+        .map(|p| (p.name.clone(), p))
+        .collect();
     // Misses whose χ² lies above that of the fit from the true values: the search settled for a
     // worse basin (the rest are not identifiable from the one spectrum).
     let mut worse = 0;
@@ -218,7 +224,9 @@ fn score(results: &Path) -> Result<(), String> {
         } else {
             let from_truth = planned
                 .get(&stem)
-                .and_then(|p| fit_from(&c, &spectrum(&plan, p), &FitSettings::default(), &p.truth).ok())
+                .and_then(|p| {
+                    fit_from(&c, &spectrum(&plan, p), &FitSettings::default(), &p.truth).ok()
+                })
                 .map_or(f64::NAN, |r| r.reduced_chi_square);
             if v(chi) > from_truth * (1.0 + 1e-6) {
                 worse += 1;
@@ -239,7 +247,9 @@ fn score(results: &Path) -> Result<(), String> {
     for w in &wrong {
         eprintln!("{w}");
     }
-    println!("{ok} of {total} right; {worse} misses with chi-square above the fit from the true values");
+    println!(
+        "{ok} of {total} right; {worse} misses with chi-square above the fit from the true values"
+    );
     Ok(())
 }
 
@@ -257,7 +267,8 @@ fn chains(warm_starts: bool) {
         for p in chain {
             let s = spectrum(&plan, p);
             let warm = previous.as_deref().filter(|_| warm_starts);
-            let Ok(f) = fit_in_chain(&c, &s, &FitSettings::default(), warm, previous.as_deref()) else {
+            let Ok(f) = fit_in_chain(&c, &s, &FitSettings::default(), warm, previous.as_deref())
+            else {
                 previous = None;
                 continue;
             };
@@ -300,10 +311,22 @@ fn share(thorough: bool) {
         for (k, s) in spectra.iter().enumerate() {
             let prev = seeds.last().cloned();
             let v = if thorough || k == 0 {
-                fit_in_chain(&c, s, &FitSettings::default(), prev.as_deref(), prev.as_deref())
-                    .map(|f| f.result.values)
+                fit_in_chain(
+                    &c,
+                    s,
+                    &FitSettings::default(),
+                    prev.as_deref(),
+                    prev.as_deref(),
+                )
+                .map(|f| f.result.values)
             } else {
-                fit_from(&c, s, &FitSettings::default(), prev.as_deref().unwrap_or(&[])).map(|r| r.values)
+                fit_from(
+                    &c,
+                    s,
+                    &FitSettings::default(),
+                    prev.as_deref().unwrap_or(&[]),
+                )
+                .map(|r| r.values)
             };
             seeds.push(v.unwrap_or_else(|_| prev.unwrap_or_else(|| c.default_values())));
         }

@@ -41,7 +41,11 @@ fn a_warm_start_in_a_worse_basin_is_replaced_by_the_full_search() {
     let f = fit_in_chain(&c, &s, &settings, Some(&trap), None).unwrap();
     assert!(matches!(f.warm, WarmVerdict::Replaced { .. }), "{}", f.warm);
     // Noise-free data: the optimum is the truth (common practice).
-    assert!(close(&f.result.values, &truth, 1e-5), "{:?}", f.result.values);
+    assert!(
+        close(&f.result.values, &truth, 1e-5),
+        "{:?}",
+        f.result.values
+    );
 }
 
 /// A warm start in the right basin is taken without the full search, and ends at the truth of the
@@ -54,7 +58,11 @@ fn a_warm_start_in_the_right_basin_is_accepted() {
     let warm: Vec<f64> = truth.iter().map(|v| v * 1.05).collect();
     let f = fit_in_chain(&c, &s, &FitSettings::default(), Some(&warm), None).unwrap();
     assert_eq!(f.warm, WarmVerdict::Accepted);
-    assert!(close(&f.result.values, &truth, 1e-5), "{:?}", f.result.values);
+    assert!(
+        close(&f.result.values, &truth, 1e-5),
+        "{:?}",
+        f.result.values
+    );
 }
 
 /// A planted near-degenerate chain: a film arc and a charge-transfer arc with finite diffusion a
@@ -131,10 +139,19 @@ fn a_jump_the_data_force_is_flagged() {
     .unwrap();
     assert_eq!(arc_order(&c, &f1.result.values), Some(vec![1, 0]));
     // Noise-free data: the optimum is the truth (common practice).
-    assert!(close(&f1.result.values, &after, 1e-4), "{:?}", f1.result.values);
+    assert!(
+        close(&f1.result.values, &after, 1e-4),
+        "{:?}",
+        f1.result.values
+    );
     match f1.identity {
         Identity::ForcedJump { chi_square_ratio } => assert!(chi_square_ratio > 10.0),
         other => panic!("{other:?}"),
     }
-    assert!(f1.result.warnings.iter().any(|w| w.contains("change order")));
+    assert!(
+        f1.result
+            .warnings
+            .iter()
+            .any(|w| w.contains("change order"))
+    );
 }

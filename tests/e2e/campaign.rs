@@ -419,7 +419,11 @@ fn shared_parameters_are_fitted_per_chain() {
         }
     }
     let run = run_batch(&dir, "bad", &["--share", "Qx.n"]).expect_code(2);
-    assert!(run.stderr.contains("`Qx.n` is not a parameter"), "{}", run.stderr);
+    assert!(
+        run.stderr.contains("`Qx.n` is not a parameter"),
+        "{}",
+        run.stderr
+    );
 }
 
 #[test]

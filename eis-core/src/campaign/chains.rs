@@ -18,8 +18,8 @@ use super::{
     guarded, process,
 };
 use crate::circuit::Circuit;
-use crate::fit::FitResult;
-use crate::fit::chain::{arc_order, fit_in_chain, tame};
+use crate::fit::chain::{arc_order, fit_in_chain, seed_run, tame};
+use crate::fit::fit_from;
 use crate::fit::joint::{JointSettings, fit_joint, shared_indices};
 use crate::import::{ReaderOptions, SpectrumReader};
 use crate::report::FitDocument;
@@ -257,7 +257,10 @@ impl Work<'_> {
                         let en = &self.entries[i];
                         if !self.done.contains_key(&en.key()) {
                             let msg = format!("cannot fit jointly: {e}");
-                            self.record(en.key(), &failed(self.files.get(en.file), en.spectrum, msg));
+                            self.record(
+                                en.key(),
+                                &failed(self.files.get(en.file), en.spectrum, msg),
+                            );
                         }
                     }
                 }
@@ -272,7 +275,12 @@ impl Work<'_> {
                 let e = &self.entries[i];
                 let mut cache = ChainCache::new([(e.input, e.spectrum)]);
                 let s = cache
-                    .take(&self.inputs[e.input], e.input, e.spectrum, &self.settings.reader)
+                    .take(
+                        &self.inputs[e.input],
+                        e.input,
+                        e.spectrum,
+                        &self.settings.reader,
+                    )
                     .ok()?;
                 guarded(|| fit_in_chain(self.circuit, &s, &self.settings.fit, None, None))
                     .ok()?
@@ -325,8 +333,8 @@ impl Work<'_> {
             .and_then(|r| r);
             match item {
                 Ok(item) => {
-                    if let Ok(f) = &item.seed {
-                        previous = Some(f.values.clone());
+                    if let Ok(v) = &item.seed {
+                        previous = Some(v.clone());
                     }
                     items.push(item);
                 }
@@ -337,7 +345,7 @@ impl Work<'_> {
         let spectra: Vec<&Spectrum> = seeded.iter().map(|it| &it.spectrum).collect();
         let starts: Vec<Vec<f64>> = seeded
             .iter()
-            .filter_map(|it| it.seed.as_ref().ok().map(|f| f.values.clone()))
+            .filter_map(|it| it.seed.as_ref().ok().cloned())
             .collect();
         let settings = JointSettings {
             weighting: self.settings.fit.weighting,
@@ -356,64 +364,86 @@ impl Work<'_> {
         for mut item in items {
             let e = &entries[item.index];
             let file = self.files.get(e.file);
-            let fit = match &item.seed {
+            let seed = match &item.seed {
+                Ok(seed) => seed,
                 Err(msg) => {
                     item.result.status = Status::Failed;
                     item.result.message = format!("cannot fit: {msg}");
                     self.record(e.key(), &item.result);
                     continue;
                 }
-                Ok(seed) => {
-                    let joint_fit = joint.as_ref().ok().and_then(|j| j.fits.get(k));
-                    k += 1;
-                    match (joint_fit, &joint) {
-                        (Some(f), Ok(j)) => {
-                            if !j.converged() {
-                                item.problems.push(format!(
-                                    "the joint fit of the chain did not converge ({:?})",
-                                    j.termination
-                                ));
-                            }
-                            item.result.shared = names.clone();
-                            item.result.chain_spectra = Some(chain_len);
-                            f
-                        }
-                        (_, Err(msg)) => {
-                            item.problems
-                                .push(format!("joint fit not possible ({msg}); fitted on its own"));
-                            seed
-                        }
-                        _ => seed,
+            };
+            let joint_fit = joint.as_ref().ok().and_then(|j| j.fits.get(k));
+            k += 1;
+            let own;
+            let fit = match (joint_fit, &joint) {
+                (Some(f), Ok(j)) => {
+                    if !j.converged() {
+                        item.problems.push(format!(
+                            "the joint fit of the chain did not converge ({:?})",
+                            j.termination
+                        ));
                     }
+                    item.result.shared = names.clone();
+                    item.result.chain_spectra = Some(chain_len);
+                    f
+                }
+                (_, Err(msg)) => {
+                    item.problems
+                        .push(format!("joint fit not possible ({msg}); fitted on its own"));
+                    own = fit_from(self.circuit, &item.spectrum, &self.settings.fit, seed);
+                    match &own {
+                        Ok(f) => f,
+                        Err(e) => {
+                            item.result.status = Status::Failed;
+                            item.result.message = format!("cannot fit: {e}");
+                            self.record(self.entries[item.index].key(), &item.result);
+                            continue;
+                        }
+                    }
+                }
+                (None, Ok(_)) => {
+                    // Cannot happen: the joint fit returns one result per seeded spectrum.
+                    item.result.status = Status::Failed;
+                    item.result.message = "internal error: the joint fit lost a spectrum".into();
+                    self.record(e.key(), &item.result);
+                    continue;
                 }
             };
             let (mut result, mut problems) = (item.result, item.problems);
-            conclude(self.circuit, file, e.spectrum, fit, &mut result, &mut problems);
+            conclude(
+                self.circuit,
+                file,
+                e.spectrum,
+                fit,
+                &mut result,
+                &mut problems,
+            );
             finish_status(&mut result, problems);
             self.record(e.key(), &result);
         }
     }
 
-    /// The seed of one spectrum of a shared chain: a warm run from its predecessor when that converges
-    /// with the arcs in the same order, else a chain fit (warm from the predecessor or the template).
+    /// The seed of one spectrum of a shared chain (values): a loose warm run from its predecessor when
+    /// it converges with the arcs in the same order and nothing on a bound, else a chain fit (warm from
+    /// the predecessor or the template).
     fn seed(
         &self,
         s: &Spectrum,
         previous: Option<&[f64]>,
         template: Option<&[f64]>,
-    ) -> Result<FitResult, String> {
+    ) -> Result<Vec<f64>, String> {
         let settings = &self.settings.fit;
         if let Some(p) = previous.filter(|_| self.settings.warm_start) {
-            if let Ok(r) = crate::fit::fit_from(self.circuit, s, settings, &tame(self.circuit, p)) {
-                let same = arc_order(self.circuit, &r.values) == arc_order(self.circuit, p);
-                if r.converged && same && !r.at_bound.iter().any(|b| *b) {
-                    return Ok(r);
+            if let Some((v, good)) = seed_run(self.circuit, s, settings, &tame(self.circuit, p)) {
+                if good && arc_order(self.circuit, &v) == arc_order(self.circuit, p) {
+                    return Ok(v);
                 }
             }
         }
         let warm = previous.or(template).filter(|_| self.settings.warm_start);
         fit_in_chain(self.circuit, s, settings, warm, previous)
-            .map(|f| f.result)
+            .map(|f| f.result.values)
             .map_err(|e| e.to_string())
     }
 }
@@ -424,7 +454,7 @@ struct Item {
     spectrum: Spectrum,
     result: SpectrumResult,
     problems: Vec<String>,
-    seed: Result<FitResult, String>,
+    seed: Result<Vec<f64>, String>,
 }
 
 /// Groups and orders entries into chains (indices into `entries`), cut into chunks.

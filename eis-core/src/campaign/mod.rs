@@ -13,9 +13,12 @@
 //!    number. A group is cut into chunks of [`BatchSettings::chunk`] spectra.
 //! 3. **Work.** The first spectrum of the first chunk is fitted from automatic starts and serves as the
 //!    starting point of every chunk. Chunks then run in parallel (rayon). Within a chunk each spectrum is
-//!    checked and fitted, the fit warm-started from its predecessor's result; [`crate::fit::fit`] falls back to the automatic
-//!    start when the warm start ends on a bound or with trending residuals. Each result is appended, as
-//!    one JSON line, to a journal in the output folder the moment it is done.
+//!    checked and fitted along the chain ([`crate::fit::chain::fit_in_chain`]): warm-started from its
+//!    predecessor's result when a screening of fresh candidates finds nothing better (else the full
+//!    automatic search), and among optima of comparable χ² the one whose arcs keep the predecessor's
+//!    order. With shared parameters ([`Share`]) each chain is fitted at once instead
+//!    ([`crate::fit::joint`]). Each result is appended, as one JSON line, to a journal in the output
+//!    folder the moment it is done.
 //! 4. **Finish.** `results.jsonl` and `results.csv` are written from the journal, sorted by file and
 //!    spectrum, each through a temporary file renamed over the target: a reader sees the old or the new
 //!    file, never half of one. The journal is then removed.
@@ -158,7 +161,8 @@ pub struct SpectrumResult {
     pub status: Status,
     /// The first problem, or empty.
     pub message: String,
-    /// Whether the fit was warm-started from the previous spectrum of the series.
+    /// Whether the fit came from a warm start (the previous spectrum's result), accepted because a
+    /// screening of fresh candidates found nothing better.
     pub warm_started: bool,
     /// Kramers–Kronig summary.
     pub kk: Option<KkSummary>,

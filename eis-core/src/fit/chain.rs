@@ -240,6 +240,55 @@ pub(crate) fn tame(circuit: &Circuit, warm: &[f64]) -> Vec<f64> {
         .collect()
 }
 
+/// One local run from `start` to a loose tolerance, without statistics: the values reached, and
+/// whether the run converged with no parameter on a bound. For seeding a joint fit, which refines
+/// them. None when the data cannot be prepared or the run gives no finite χ².
+pub(crate) fn seed_run(
+    circuit: &Circuit,
+    spectrum: &Spectrum,
+    settings: &FitSettings,
+    start: &[f64],
+) -> Option<(Vec<f64>, bool)> {
+    if start.len() != circuit.params.len() {
+        return None;
+    }
+    let prep = prepare(spectrum, settings.weighting).ok()?;
+    let plan = Plan::compile(circuit);
+    let base = circuit.default_values();
+    let free: Vec<usize> = (0..base.len())
+        .filter(|&i| !circuit.params[i].fixed)
+        .collect();
+    let transforms = start::transforms(circuit, &free);
+    let mut s = base.clone();
+    for &i in &free {
+        let (lo, hi) = circuit.bounds(i);
+        let v = start[i];
+        s[i] = if v.is_finite() && v > lo && v < hi {
+            v
+        } else {
+            base[i]
+        };
+    }
+    let run = run_lm(
+        &plan,
+        &prep,
+        &free,
+        &transforms,
+        &s,
+        settings.tolerance.max(SCREEN_TOLERANCE),
+        settings.patience,
+    );
+    if !run.chi_square.is_finite() {
+        return None;
+    }
+    let inside = free
+        .iter()
+        .zip(&transforms)
+        .all(|(&i, t)| !t.at_bound(t.to_internal(run.params[i])));
+    let good = run.termination.was_successful() && inside;
+    Some((run.params, good))
+}
+
 fn acceptable(r: &FitResult) -> bool {
     r.converged && !r.at_bound.iter().any(|b| *b)
 }
@@ -288,10 +337,10 @@ pub fn fit_in_chain(
             let screened = screen(circuit, spectrum, &cold);
             // Data met to round-off (χ² below 1e-20 per residual, weighted residuals being relative)
             // leave nothing to compare.
-            let exact = run
-                .as_ref()
-                .map_or(0.0, |r| EXACT * (2 * r.points) as f64);
-            let bar = screened.map_or(f64::INFINITY, |s| s * (1.0 + SCREEN_SLACK)).max(exact);
+            let exact = run.as_ref().map_or(0.0, |r| EXACT * (2 * r.points) as f64);
+            let bar = screened
+                .map_or(f64::INFINITY, |s| s * (1.0 + SCREEN_SLACK))
+                .max(exact);
             if warm_chi.is_finite() && warm_chi <= bar {
                 candidates.extend(run);
                 WarmVerdict::Accepted
@@ -401,8 +450,17 @@ mod tests {
     #[test]
     fn arc_order_ranks_time_constants() {
         let c = parse("R0 + Ra|Ca + Rb|Cb").unwrap();
-        assert_eq!(arc_order(&c, &[1.0, 1.0, 1e-3, 1.0, 1e-1]), Some(vec![0, 1]));
-        assert_eq!(arc_order(&c, &[1.0, 1.0, 1e-1, 1.0, 1e-3]), Some(vec![1, 0]));
-        assert_eq!(arc_order(&parse("R0 + Ra|Ca").unwrap(), &[1.0, 1.0, 1.0]), None);
+        assert_eq!(
+            arc_order(&c, &[1.0, 1.0, 1e-3, 1.0, 1e-1]),
+            Some(vec![0, 1])
+        );
+        assert_eq!(
+            arc_order(&c, &[1.0, 1.0, 1e-1, 1.0, 1e-3]),
+            Some(vec![1, 0])
+        );
+        assert_eq!(
+            arc_order(&parse("R0 + Ra|Ca").unwrap(), &[1.0, 1.0, 1.0]),
+            None
+        );
     }
 }

@@ -869,15 +869,17 @@ impl JointCovariance {
                 let mut c_ks = vec![0.0; nl * ns];
                 for a in 0..nl {
                     for b in 0..ns {
-                        c_ks[a * ns + b] =
-                            -(0..ns).map(|c| y[a * ns + c] * c_ss[c * ns + b]).sum::<f64>();
+                        c_ks[a * ns + b] = -(0..ns)
+                            .map(|c| y[a * ns + c] * c_ss[c * ns + b])
+                            .sum::<f64>();
                     }
                 }
                 let mut c_kk = inv.clone();
                 for a in 0..nl {
                     for b in 0..nl {
-                        c_kk[a * nl + b] -=
-                            (0..ns).map(|c| c_ks[a * ns + c] * y[b * ns + c]).sum::<f64>();
+                        c_kk[a * nl + b] -= (0..ns)
+                            .map(|c| c_ks[a * ns + c] * y[b * ns + c])
+                            .sum::<f64>();
                     }
                 }
                 // Back to parameters: unscale, times dp/dx, times the reduced χ².
@@ -1042,19 +1044,15 @@ mod tests {
         let truths: Vec<Vec<f64>> = (0..5)
             .map(|k| vec![1.0 + 0.1 * k as f64, 20.0 + 3.0 * k as f64, 2e-4, 0.85])
             .collect();
-        let spectra: Vec<Spectrum> = truths.iter().map(|t| simulate(&plan, t, &f, None)).collect();
+        let spectra: Vec<Spectrum> = truths
+            .iter()
+            .map(|t| simulate(&plan, t, &f, None))
+            .collect();
         let refs: Vec<&Spectrum> = spectra.iter().collect();
         let starts: Vec<Vec<f64>> = truths
             .iter()
             .enumerate()
-            .map(|(k, t)| {
-                vec![
-                    t[0] * 1.2,
-                    t[1] * 0.8,
-                    t[2] * 1.5,
-                    0.8 + 0.02 * k as f64,
-                ]
-            })
+            .map(|(k, t)| vec![t[0] * 1.2, t[1] * 0.8, t[2] * 1.5, 0.8 + 0.02 * k as f64])
             .collect();
         let shared = shared_indices(&c, &["Qdl.n"]).unwrap();
         let r = fit_joint(&c, &refs, &shared, &starts, &JointSettings::default()).unwrap();
@@ -1073,6 +1071,9 @@ mod tests {
             shared_indices(&c, &["Qx.n"]),
             Err(JointError::UnknownParameter { .. })
         ));
-        assert_eq!(shared_indices(&c, &["Qdl.n", "R0", "Qdl.n"]).unwrap(), [0, 3]);
+        assert_eq!(
+            shared_indices(&c, &["Qdl.n", "R0", "Qdl.n"]).unwrap(),
+            [0, 3]
+        );
     }
 }
