@@ -28,7 +28,9 @@
 //! data force the change: the fit keeps the better optimum and says so ([`Identity::ForcedJump`]).
 
 use super::start::{self, Context};
-use super::{FitError, FitResult, FitSettings, SCREEN_TOLERANCE, fit, fit_from, prepare, run_lm};
+use super::{
+    FitError, FitResult, FitSettings, Prepared, SCREEN_TOLERANCE, fit, fit_from, prepare, run_lm,
+};
 use crate::circuit::Circuit;
 use crate::eval::Plan;
 use crate::spectrum::Spectrum;
@@ -149,26 +151,44 @@ pub fn arc_order(circuit: &Circuit, values: &[f64]) -> Option<Vec<usize>> {
     )
 }
 
+/// What the start search needs besides the prepared data: the circuit's defaults and fixed flags.
+struct Setup {
+    base: Vec<f64>,
+    fixed: Vec<bool>,
+}
+
+impl Setup {
+    fn new(circuit: &Circuit) -> Setup {
+        Setup {
+            base: circuit.default_values(),
+            fixed: circuit.params.iter().map(|p| p.fixed).collect(),
+        }
+    }
+
+    fn context<'a>(&'a self, circuit: &'a Circuit, prep: &'a Prepared) -> Context<'a> {
+        Context {
+            circuit,
+            omegas: &prep.omegas,
+            grid: &prep.grid,
+            data: &prep.data,
+            w_re: &prep.w_re,
+            w_im: &prep.w_im,
+            base: &self.base,
+            fixed: &self.fixed,
+        }
+    }
+}
+
 /// Lowest χ² of a few fresh candidates (the best grid points, each run to a loose tolerance); None when
 /// the circuit is outside the recognised blocks or the data cannot be prepared.
 fn screen(circuit: &Circuit, spectrum: &Spectrum, settings: &FitSettings) -> Option<f64> {
     let terms = start::recognise(circuit)?;
     let prep = prepare(spectrum, settings.weighting).ok()?;
     let plan = Plan::compile(circuit);
-    let base = circuit.default_values();
-    let fixed: Vec<bool> = circuit.params.iter().map(|p| p.fixed).collect();
-    let free: Vec<usize> = (0..base.len()).filter(|&i| !fixed[i]).collect();
+    let setup = Setup::new(circuit);
+    let free: Vec<usize> = (0..setup.base.len()).filter(|&i| !setup.fixed[i]).collect();
     let transforms = start::transforms(circuit, &free);
-    let ctx = Context {
-        circuit,
-        omegas: &prep.omegas,
-        grid: &prep.grid,
-        data: &prep.data,
-        w_re: &prep.w_re,
-        w_im: &prep.w_im,
-        base: &base,
-        fixed: &fixed,
-    };
+    let ctx = setup.context(circuit, &prep);
     start::grid_starts(&ctx, &terms, SCREENED)
         .iter()
         .map(|s| {
@@ -203,18 +223,8 @@ fn swapped(
     let Ok(prep) = prepare(spectrum, settings.weighting) else {
         return Vec::new();
     };
-    let base = circuit.default_values();
-    let fixed: Vec<bool> = circuit.params.iter().map(|p| p.fixed).collect();
-    let ctx = Context {
-        circuit,
-        omegas: &prep.omegas,
-        grid: &prep.grid,
-        data: &prep.data,
-        w_re: &prep.w_re,
-        w_im: &prep.w_im,
-        base: &base,
-        fixed: &fixed,
-    };
+    let setup = Setup::new(circuit);
+    let ctx = setup.context(circuit, &prep);
     start::arc_swaps(&ctx, &terms, values)
         .iter()
         .filter_map(|s| fit_from(circuit, spectrum, settings, s).ok())

@@ -359,20 +359,7 @@ fn cholesky(a: &mut [f64], n: usize) -> bool {
 
 /// Solves L Lᵀ x = b in place with the factor from [`cholesky`].
 fn cholesky_solve(l: &[f64], n: usize, b: &mut [f64]) {
-    for i in 0..n {
-        let mut s = b[i];
-        for k in 0..i {
-            s -= l[i * n + k] * b[k];
-        }
-        b[i] = s / l[i * n + i];
-    }
-    for i in (0..n).rev() {
-        let mut s = b[i];
-        for k in i + 1..n {
-            s -= l[k * n + i] * b[k];
-        }
-        b[i] = s / l[i * n + i];
-    }
+    crate::nnls::chol_solve(l, n, n, b);
 }
 
 /// Solves L Lᵀ X = B in place for B of `cols` columns (row-major n × cols).
@@ -958,19 +945,7 @@ impl JointCovariance {
                 cov[a * nf + b] = entry(i, j);
             }
         }
-        let mut corr = vec![0.0; nf * nf];
-        for a in 0..nf {
-            for b in 0..nf {
-                let d = (cov[a * nf + a] * cov[b * nf + b]).sqrt();
-                corr[a * nf + b] = if a == b {
-                    1.0
-                } else if d > 0.0 {
-                    cov[a * nf + b] / d
-                } else {
-                    0.0
-                };
-            }
-        }
+        let corr = stats::correlation(&cov, nf);
         for (a, &i) in free.iter().enumerate() {
             let v = cov[a * nf + a];
             r.stderr[i] = (v.is_finite() && v >= 0.0).then(|| v.sqrt());

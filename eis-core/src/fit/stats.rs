@@ -118,24 +118,30 @@ pub fn covariance(j: &DMatrix<f64>, chi_square: f64, dof: usize) -> Covariance {
             cov[a_ * nf + b] = reduced * inv[(a_, b)] / (scale[a_] * scale[b]);
         }
     }
-    let mut corr = vec![0.0; nf * nf];
-    for a_ in 0..nf {
-        for b in 0..nf {
-            let d = (cov[a_ * nf + a_] * cov[b * nf + b]).sqrt();
-            corr[a_ * nf + b] = if a_ == b {
-                1.0
-            } else if d > 0.0 {
-                cov[a_ * nf + b] / d
-            } else {
-                0.0
-            };
-        }
-    }
+    let corr = correlation(&cov, nf);
     Covariance {
         matrix: cov,
         correlation: corr,
         undetermined,
     }
+}
+
+/// The correlation matrix (row-major, nf × nf) of a covariance matrix; 0 where a variance is zero.
+pub(super) fn correlation(cov: &[f64], nf: usize) -> Vec<f64> {
+    let mut corr = vec![0.0; nf * nf];
+    for a in 0..nf {
+        for b in 0..nf {
+            let d = (cov[a * nf + a] * cov[b * nf + b]).sqrt();
+            corr[a * nf + b] = if a == b {
+                1.0
+            } else if d > 0.0 {
+                cov[a * nf + b] / d
+            } else {
+                0.0
+            };
+        }
+    }
+    corr
 }
 
 /// A⁻¹ by Cholesky when that is provably what [`eigen_inverse`] gives: every eigenvalue of the
