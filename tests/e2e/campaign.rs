@@ -392,7 +392,7 @@ fn shared_parameters_are_fitted_per_chain() {
     let (head, rows) = read("shared");
     assert_eq!(rows.len(), plain.len());
     assert!(!plain_head.iter().any(|h| h == "shared"));
-    assert_eq!(head.iter().last(), Some("shared"));
+    assert_eq!(head.iter().next_back(), Some("shared"));
     let col = |n: &str| head.iter().position(|h| h == n).unwrap();
     let (cell, soc, status) = (col("cell"), col("soc"), col("status"));
     let mut per_chain: std::collections::BTreeMap<(String, String), Vec<f64>> = Default::default();

@@ -454,8 +454,6 @@ fn choose(
 mod tests {
     use super::*;
     use crate::circuit::parse;
-    use crate::eval::log_frequencies;
-    use crate::simulate::{Noise, simulate};
 
     #[test]
     fn arc_order_ranks_time_constants() {

@@ -650,11 +650,9 @@ pub fn fit_joint(
             }
             for m in &mut members {
                 for a in 0..nl {
-                    let mut t = m.yg[a];
-                    for b in 0..ns {
-                        t += m.y[a * ns + b] * delta_s[b];
-                    }
-                    m.step[a] = -t;
+                    let row = &m.y[a * ns..(a + 1) * ns];
+                    let t: f64 = row.iter().zip(delta_s).map(|(y, d)| y * d).sum();
+                    m.step[a] = -(m.yg[a] + t);
                     predicted += -m.step[a] * m.g[a] + mu * m.d[a] * m.step[a] * m.step[a];
                     step_norm += m.step[a] * m.step[a];
                     x_norm += m.xl[a] * m.xl[a];
@@ -755,6 +753,9 @@ pub fn fit_joint(
     })
 }
 
+/// Of one spectrum's local block in scaled coordinates: Ũ⁻¹, Ũ⁻¹W̃ and the scaling.
+type LocalInverse = (Vec<f64>, Vec<f64>, Vec<f64>);
+
 /// The blocks of the joint covariance, in parameters (not internal coordinates).
 struct JointCovariance {
     /// Per spectrum: C_kk (nl × nl) and C_ks (nl × ns), None where U_k is singular.
@@ -787,7 +788,7 @@ impl JointCovariance {
             }
         }
         // Per spectrum: Ũ⁻¹ and Ũ⁻¹W̃ (scaled), and S̃ −= W̃ᵀŨ⁻¹W̃.
-        let mut inv_u: Vec<Option<(Vec<f64>, Vec<f64>, Vec<f64>)>> = Vec::new();
+        let mut inv_u: Vec<Option<LocalInverse>> = Vec::new();
         let mut schur_ok = true;
         for m in members {
             let sc: Vec<f64> = (0..nl).map(|a| scale_of(m.u[a * nl + a])).collect();
