@@ -374,8 +374,8 @@ fn demo_runs_the_whole_pipeline() {
 
 /// `--share`: every chain of a cell and SOC level fitted at once with the lead inductance and the CPE
 /// exponents common to it (the scenario keeps them constant per cell). One row per spectrum; the shared
-/// values are the same along each chain and named in the last column; a name the circuit does not
-/// have is a usage error.
+/// values are the same along each chain and named in the last column; `--share-by cell` makes one
+/// chain per cell; a name the circuit does not have is a usage error.
 #[test]
 fn shared_parameters_are_fitted_per_chain() {
     let dir = scratch("campaign_share");
@@ -417,6 +417,22 @@ fn shared_parameters_are_fitted_per_chain() {
         if k.0 != "Z4" {
             assert!((v[0] - 0.9).abs() < 0.01, "{k:?}: {}", v[0]);
         }
+    }
+    // --share-by cell: one chain per cell across its SOC levels, one shared value per cell.
+    run_batch(&dir, "bycell", &["--share", "Qf.n", "--share-by", "cell"]).expect_code(1);
+    let (head, rows) = read("bycell");
+    let col = |n: &str| head.iter().position(|h| h == n).unwrap();
+    let mut per_cell: std::collections::BTreeMap<String, Vec<f64>> = Default::default();
+    for r in rows.iter().filter(|r| &r[col("status")] != "failed") {
+        let v: f64 = r[col("Qf.n")].parse().unwrap();
+        per_cell
+            .entry(r[col("cell")].to_owned())
+            .or_default()
+            .push(v);
+    }
+    assert_eq!(per_cell.len(), 5);
+    for (k, v) in &per_cell {
+        assert!(v.len() >= 38 && v.iter().all(|x| x == &v[0]), "{k}: {v:?}");
     }
     let run = run_batch(&dir, "bad", &["--share", "Qx.n"]).expect_code(2);
     assert!(
