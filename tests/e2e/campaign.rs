@@ -372,6 +372,76 @@ fn demo_runs_the_whole_pipeline() {
     assert_eq!(&png[..8], b"\x89PNG\r\n\x1a\n");
 }
 
+/// `--share`: every chain of a cell and SOC level fitted at once with the lead inductance and the CPE
+/// exponents common to it (the scenario keeps them constant per cell). One row per spectrum; the shared
+/// values are the same along each chain and named in the last column; `--share-by cell` makes one
+/// chain per cell; a name the circuit does not have is a usage error.
+#[test]
+fn shared_parameters_are_fitted_per_chain() {
+    let dir = scratch("campaign_share");
+    write_campaign(&dir);
+    run_batch(&dir, "plain", &[]).expect_code(1);
+    run_batch(&dir, "shared", &["--share", "L0,Qf.n,Qdl.n"]).expect_code(1);
+    let read = |name: &str| {
+        let mut rd = csv::Reader::from_path(dir.join(name).join("results.csv")).unwrap();
+        let head = rd.headers().unwrap().clone();
+        let rows: Vec<csv::StringRecord> = rd.records().map(|r| r.unwrap()).collect();
+        (head, rows)
+    };
+    let (plain_head, plain) = read("plain");
+    let (head, rows) = read("shared");
+    assert_eq!(rows.len(), plain.len());
+    assert!(!plain_head.iter().any(|h| h == "shared"));
+    assert_eq!(head.iter().next_back(), Some("shared"));
+    let col = |n: &str| head.iter().position(|h| h == n).unwrap();
+    let (cell, soc, status) = (col("cell"), col("soc"), col("status"));
+    let mut per_chain: std::collections::BTreeMap<(String, String), Vec<f64>> = Default::default();
+    let mut fitted = 0;
+    for r in &rows {
+        if &r[status] == "failed" {
+            continue;
+        }
+        fitted += 1;
+        assert_eq!(&r[col("shared")], "L0;Qf.n;Qdl.n");
+        assert!(!r[col("Qf.n_stderr")].is_empty(), "{r:?}");
+        let v: f64 = r[col("Qf.n")].parse().unwrap();
+        per_chain
+            .entry((r[cell].to_owned(), r[soc].to_owned()))
+            .or_default()
+            .push(v);
+    }
+    assert!(fitted >= 190, "{fitted}");
+    for (k, v) in &per_chain {
+        assert!(v.iter().all(|x| x == &v[0]), "{k:?}: {v:?}");
+        // The scenario's film exponent is 0.9 in every cell (eis_core::scenario, invented data).
+        if k.0 != "Z4" {
+            assert!((v[0] - 0.9).abs() < 0.01, "{k:?}: {}", v[0]);
+        }
+    }
+    // --share-by cell: one chain per cell across its SOC levels, one shared value per cell.
+    run_batch(&dir, "bycell", &["--share", "Qf.n", "--share-by", "cell"]).expect_code(1);
+    let (head, rows) = read("bycell");
+    let col = |n: &str| head.iter().position(|h| h == n).unwrap();
+    let mut per_cell: std::collections::BTreeMap<String, Vec<f64>> = Default::default();
+    for r in rows.iter().filter(|r| &r[col("status")] != "failed") {
+        let v: f64 = r[col("Qf.n")].parse().unwrap();
+        per_cell
+            .entry(r[col("cell")].to_owned())
+            .or_default()
+            .push(v);
+    }
+    assert_eq!(per_cell.len(), 5);
+    for (k, v) in &per_cell {
+        assert!(v.len() >= 38 && v.iter().all(|x| x == &v[0]), "{k}: {v:?}");
+    }
+    let run = run_batch(&dir, "bad", &["--share", "Qx.n"]).expect_code(2);
+    assert!(
+        run.stderr.contains("`Qx.n` is not a parameter"),
+        "{}",
+        run.stderr
+    );
+}
+
 #[test]
 fn batch_bad_usage_exits_2() {
     let dir = scratch("campaign_bad");

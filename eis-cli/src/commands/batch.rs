@@ -3,7 +3,8 @@
 use crate::commands::fit::WeightArg;
 use crate::io::{Failure, Outcome, bad, load_model, step};
 use anyhow::anyhow;
-use eis_core::campaign::{BatchError, BatchSettings, Resume, Stage, run_batch};
+use eis_core::campaign::{BatchError, BatchSettings, ChainBy, Resume, Share, Stage, run_batch};
+use eis_core::fit::joint::shared_indices;
 use eis_core::fit::{FitSettings, Weighting};
 use indicatif::{ProgressBar, ProgressStyle};
 use std::collections::HashSet;
@@ -45,6 +46,15 @@ pub struct Args {
     /// Residual weighting.
     #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
     weight: WeightArg,
+    /// Fit each chain at once with these parameters common to all its spectra (comma-separated names,
+    /// e.g. Q1.n,Q2.n,Wt1.tau) and the others per spectrum. A chain is the spectra of one cell at one
+    /// SOC level, ordered by cycle (see --share-by). Rows stay one per spectrum; the shared values are
+    /// repeated and named in a last column `shared`.
+    #[arg(long, value_name = "NAMES", value_delimiter = ',')]
+    share: Vec<String>,
+    /// How chains are formed for --share: one per cell and SOC level, or one per cell.
+    #[arg(long, value_enum, default_value_t = ShareBy::CellSoc, requires = "share")]
+    share_by: ShareBy,
     /// Also write DIR/report.html (campaign summary, trends and flags).
     #[arg(long)]
     report: bool,
@@ -54,6 +64,15 @@ pub struct Args {
     plot: Option<PathBuf>,
     #[command(flatten)]
     reader: crate::reader_args::ReaderArgs,
+}
+
+/// How chains are formed for `--share`.
+#[derive(Clone, Copy, clap::ValueEnum)]
+enum ShareBy {
+    /// One chain per cell and SOC level.
+    CellSoc,
+    /// One chain per cell, whatever the SOC level.
+    Cell,
 }
 
 /// What identifies a folder however it is reached (through links, `..`, another spelling).
@@ -202,10 +221,24 @@ fn write_trend_plots(results: &Path, dir: &Path) -> Result<(), Failure> {
 pub fn run(args: Args) -> Outcome {
     let circuit = load_model(&args.model)?;
     let inputs = expand(&args.inputs)?;
+    let share = if args.share.is_empty() {
+        None
+    } else {
+        // Names checked here, so that a typo is a usage error before any work.
+        shared_indices(&circuit, &args.share).map_err(bad)?;
+        Some(Share {
+            names: args.share.iter().map(|n| n.trim().to_owned()).collect(),
+            by: match args.share_by {
+                ShareBy::CellSoc => ChainBy::CellAndSoc,
+                ShareBy::Cell => ChainBy::Cell,
+            },
+        })
+    };
     let settings = BatchSettings {
         fit: FitSettings::default().with_weighting(Weighting::from(args.weight)),
         warm_start: !args.no_warm_start,
         reader: args.reader.options()?,
+        share,
         ..BatchSettings::default()
     };
     if let Some(j) = args.jobs {

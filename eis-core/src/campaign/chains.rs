@@ -1,12 +1,26 @@
-//! Stage 3 of a run: the warm-start chains. Spectra are grouped by cell and SOC level, ordered by
-//! cycle, then time, then file and spectrum number, and cut into chunks; a template fitted from
-//! automatic starts opens every chunk, the chunks run in parallel, and within a chunk each fit starts
-//! from its predecessor's result. Every result goes to the journal the moment it is done.
+//! Stage 3 of a run: the chains. Spectra are grouped by cell and SOC level (or by cell alone, see
+//! [`ChainBy`]), ordered by cycle, then time, then file and spectrum number, and cut into chunks; a
+//! template fitted from automatic starts opens every chunk, the chunks run in parallel, and within a
+//! chunk each fit starts from its predecessor's result and keeps its predecessor's arc identity
+//! ([`crate::fit::chain`]: a warm start is accepted only when a screening of fresh candidates finds
+//! nothing better, and among optima of comparable χ² the one continuous with the neighbour is
+//! taken). Every result goes to the journal the moment it is done.
+//!
+//! With shared parameters ([`Share`]) a chain is not cut: its spectra are read, checked and seeded
+//! one after the other (the first by a chain fit from the template, each next one by a warm run from
+//! its predecessor, or by a chain fit when that run fails or changes the arc order), then fitted at
+//! once ([`crate::fit::joint::fit_joint`]), and their results go to the journal together.
 
 use super::index::{Entry, Key, Names, Series};
 use super::journal::{Journal, Loc, Store};
-use super::{BatchSettings, Paths, SpectrumResult, Stage, Status, failed, guarded, process};
+use super::{
+    BatchSettings, Paths, SpectrumResult, Stage, Status, check, conclude, failed, finish_status,
+    guarded, process,
+};
 use crate::circuit::Circuit;
+use crate::fit::chain::{arc_order, fit_in_chain, seed_run, tame};
+use crate::fit::fit_from;
+use crate::fit::joint::{JointSettings, fit_joint, shared_indices};
 use crate::import::{ReaderOptions, SpectrumReader};
 use crate::report::FitDocument;
 use crate::spectrum::Spectrum;
@@ -15,6 +29,36 @@ use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 use std::sync::atomic::{AtomicUsize, Ordering};
+
+/// How the spectra of a campaign form chains.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[non_exhaustive]
+pub enum ChainBy {
+    /// One chain per cell and SOC level (the `cell` and `soc` fields), ordered by cycle. The default.
+    #[default]
+    CellAndSoc,
+    /// One chain per cell, whatever the SOC level, ordered by cycle (then time).
+    Cell,
+}
+
+impl ChainBy {
+    /// The word used on the command line and in the recorded settings.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            ChainBy::CellAndSoc => "cell-soc",
+            ChainBy::Cell => "cell",
+        }
+    }
+}
+
+/// Parameters common to every spectrum of a chain, fitted jointly (see the module documentation).
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
+pub struct Share {
+    /// Names of the shared parameters (free parameters of the circuit).
+    pub names: Vec<String>,
+    /// How chains are formed.
+    pub by: ChainBy,
+}
 
 /// A warm start: parameter values, and the reduced χ² a warm-started fit is judged by.
 pub(super) type WarmStart = (Vec<f64>, f64);
@@ -48,7 +92,16 @@ impl Work<'_> {
     /// the chains in parallel. Returns the journal, which records where each new result went.
     pub(super) fn run(self, cells: Names) -> Journal {
         self.record_unreadable();
-        let work = chains(self.entries, self.inputs, &cells, self.settings.chunk);
+        if let Some(share) = &self.settings.share {
+            return self.run_shared(cells, share);
+        }
+        let work = chains(
+            self.entries,
+            self.inputs,
+            &cells,
+            self.settings.chunk,
+            ChainBy::CellAndSoc,
+        );
         drop(cells);
         // A template for the first spectrum of every chain: the first spectrum of the first chain,
         // fitted from automatic starts. Chains start warm from it (and fall back to automatic starts
@@ -97,12 +150,21 @@ impl Work<'_> {
         e: &Entry,
         cache: &mut ChainCache,
         warm: Option<&WarmStart>,
+        neighbour: Option<&[f64]>,
     ) -> SpectrumResult {
         let file = self.files.get(e.file);
         let (reader, input) = (&self.settings.reader, &self.inputs[e.input]);
         let result = guarded(|| match cache.take(input, e.input, e.spectrum, reader) {
             Err(msg) => failed(file, e.spectrum, msg),
-            Ok(s) => process(self.circuit, file, e.spectrum, &s, self.settings, warm),
+            Ok(s) => process(
+                self.circuit,
+                file,
+                e.spectrum,
+                &s,
+                self.settings,
+                warm,
+                neighbour,
+            ),
         })
         .unwrap_or_else(|msg| failed(file, e.spectrum, msg));
         self.record(e.key(), &result);
@@ -120,7 +182,7 @@ impl Work<'_> {
                 .and_then(|r| r.fit),
             None => {
                 let mut cache = ChainCache::new([(e.input, e.spectrum)]);
-                let r = self.fit_one(e, &mut cache, None);
+                let r = self.fit_one(e, &mut cache, None, None);
                 r.fit.filter(|_| r.status == Status::Ok)
             }
         };
@@ -165,7 +227,8 @@ impl Work<'_> {
                 .as_ref()
                 .filter(|_| self.settings.warm_start)
                 .map(|(v, chi)| (v.clone(), median(&history).unwrap_or(*chi)));
-            let result = self.fit_one(e, &mut cache, warm.as_ref());
+            let neighbour = previous.as_ref().map(|p| p.0.as_slice());
+            let result = self.fit_one(e, &mut cache, warm.as_ref(), neighbour);
             previous = match &result.fit {
                 Some(d) if result.status != Status::Failed => Some(warm_start(d, self.circuit)),
                 _ => None,
@@ -177,20 +240,239 @@ impl Work<'_> {
     }
 }
 
-/// Groups and orders entries into warm-start chains (indices into `entries`), cut into chunks.
+impl Work<'_> {
+    /// Shared mode: every chain whole, fitted jointly. The template (the first spectrum of the first
+    /// chain, fitted from automatic starts) only seeds the first spectrum of each chain; it is fitted
+    /// again with its chain.
+    fn run_shared(self, cells: Names, share: &Share) -> Journal {
+        let work = chains(self.entries, self.inputs, &cells, usize::MAX, share.by);
+        drop(cells);
+        let shared = match shared_indices(self.circuit, &share.names) {
+            Ok(s) => s,
+            Err(e) => {
+                // The binary checks the names before it starts; a library caller that did not gets
+                // every spectrum failed with the reason.
+                for chain in &work {
+                    for &i in chain {
+                        let en = &self.entries[i];
+                        if !self.done.contains_key(&en.key()) {
+                            let msg = format!("cannot fit jointly: {e}");
+                            self.record(
+                                en.key(),
+                                &failed(self.files.get(en.file), en.spectrum, msg),
+                            );
+                        }
+                    }
+                }
+                return self.into_journal();
+            }
+        };
+        let template = work
+            .first()
+            .and_then(|c| c.first())
+            .filter(|_| self.settings.warm_start)
+            .and_then(|&i| {
+                let e = &self.entries[i];
+                let mut cache = ChainCache::new([(e.input, e.spectrum)]);
+                let s = cache
+                    .take(
+                        &self.inputs[e.input],
+                        e.input,
+                        e.spectrum,
+                        &self.settings.reader,
+                    )
+                    .ok()?;
+                guarded(|| fit_in_chain(self.circuit, &s, &self.settings.fit, None, None))
+                    .ok()?
+                    .ok()
+                    .filter(|f| f.result.converged)
+                    .map(|f| f.result.values)
+            });
+        work.par_iter()
+            .for_each(|chain| self.run_chain_shared(chain, template.as_deref(), &shared));
+        self.into_journal()
+    }
+
+    fn into_journal(self) -> Journal {
+        self.journal
+            .into_inner()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+    }
+
+    /// One chain of the shared mode: read, check and seed each spectrum, fit them jointly, record.
+    /// Spectra an earlier run finished are left out (their chain is refitted without them).
+    fn run_chain_shared(&self, chain: &[usize], template: Option<&[f64]>, shared: &[usize]) {
+        let entries = self.entries;
+        let todo: Vec<usize> = chain
+            .iter()
+            .copied()
+            .filter(|&i| !self.done.contains_key(&entries[i].key()))
+            .collect();
+        let mut cache = ChainCache::new(
+            todo.iter()
+                .map(|&i| (entries[i].input, entries[i].spectrum)),
+        );
+        let mut items: Vec<Item> = Vec::with_capacity(todo.len());
+        let mut previous: Option<Vec<f64>> = None;
+        for &i in &todo {
+            let e = &entries[i];
+            let file = self.files.get(e.file);
+            let input = &self.inputs[e.input];
+            let item = guarded(|| {
+                let s = cache.take(input, e.input, e.spectrum, &self.settings.reader)?;
+                let (result, problems) = check(file, e.spectrum, &s, self.settings);
+                let seed = self.seed(&s, previous.as_deref(), template);
+                Ok::<_, String>(Item {
+                    index: i,
+                    spectrum: s,
+                    result,
+                    problems,
+                    seed,
+                })
+            })
+            .and_then(|r| r);
+            match item {
+                Ok(item) => {
+                    if let Ok(v) = &item.seed {
+                        previous = Some(v.clone());
+                    }
+                    items.push(item);
+                }
+                Err(msg) => self.record(e.key(), &failed(file, e.spectrum, msg)),
+            }
+        }
+        let seeded: Vec<&Item> = items.iter().filter(|it| it.seed.is_ok()).collect();
+        let spectra: Vec<&Spectrum> = seeded.iter().map(|it| &it.spectrum).collect();
+        let starts: Vec<Vec<f64>> = seeded
+            .iter()
+            .filter_map(|it| it.seed.as_ref().ok().cloned())
+            .collect();
+        let settings = JointSettings {
+            weighting: self.settings.fit.weighting,
+            ..JointSettings::default()
+        };
+        let joint = guarded(|| fit_joint(self.circuit, &spectra, shared, &starts, &settings))
+            .and_then(|r| r.map_err(|e| e.to_string()));
+        let chain_len = spectra.len();
+        drop(spectra);
+        drop(seeded);
+        let names: Vec<String> = shared
+            .iter()
+            .map(|&i| self.circuit.params[i].name.clone())
+            .collect();
+        let mut k = 0;
+        for mut item in items {
+            let e = &entries[item.index];
+            let file = self.files.get(e.file);
+            let seed = match &item.seed {
+                Ok(seed) => seed,
+                Err(msg) => {
+                    item.result.status = Status::Failed;
+                    item.result.message = format!("cannot fit: {msg}");
+                    self.record(e.key(), &item.result);
+                    continue;
+                }
+            };
+            let joint_fit = joint.as_ref().ok().and_then(|j| j.fits.get(k));
+            k += 1;
+            let own;
+            let fit = match (joint_fit, &joint) {
+                (Some(f), Ok(j)) => {
+                    if !j.converged() {
+                        item.problems.push(format!(
+                            "the joint fit of the chain did not converge ({:?})",
+                            j.termination
+                        ));
+                    }
+                    item.result.shared = names.clone();
+                    item.result.chain_spectra = Some(chain_len);
+                    f
+                }
+                (_, Err(msg)) => {
+                    item.problems
+                        .push(format!("joint fit not possible ({msg}); fitted on its own"));
+                    own = fit_from(self.circuit, &item.spectrum, &self.settings.fit, seed);
+                    match &own {
+                        Ok(f) => f,
+                        Err(e) => {
+                            item.result.status = Status::Failed;
+                            item.result.message = format!("cannot fit: {e}");
+                            self.record(self.entries[item.index].key(), &item.result);
+                            continue;
+                        }
+                    }
+                }
+                (None, Ok(_)) => {
+                    // Cannot happen: the joint fit returns one result per seeded spectrum.
+                    item.result.status = Status::Failed;
+                    item.result.message = "internal error: the joint fit lost a spectrum".into();
+                    self.record(e.key(), &item.result);
+                    continue;
+                }
+            };
+            let (mut result, mut problems) = (item.result, item.problems);
+            conclude(
+                self.circuit,
+                file,
+                e.spectrum,
+                fit,
+                &mut result,
+                &mut problems,
+            );
+            finish_status(&mut result, problems);
+            self.record(e.key(), &result);
+        }
+    }
+
+    /// The seed of one spectrum of a shared chain (values): a loose warm run from its predecessor when
+    /// it converges with the arcs in the same order and nothing on a bound, else a chain fit (warm from
+    /// the predecessor or the template).
+    fn seed(
+        &self,
+        s: &Spectrum,
+        previous: Option<&[f64]>,
+        template: Option<&[f64]>,
+    ) -> Result<Vec<f64>, String> {
+        let settings = &self.settings.fit;
+        if let Some(p) = previous.filter(|_| self.settings.warm_start) {
+            if let Some((v, good)) = seed_run(self.circuit, s, settings, &tame(self.circuit, p)) {
+                if good && arc_order(self.circuit, &v) == arc_order(self.circuit, p) {
+                    return Ok(v);
+                }
+            }
+        }
+        let warm = previous.or(template).filter(|_| self.settings.warm_start);
+        fit_in_chain(self.circuit, s, settings, warm, previous)
+            .map(|f| f.result.values)
+            .map_err(|e| e.to_string())
+    }
+}
+
+/// One spectrum of a shared chain on its way through.
+struct Item {
+    index: usize,
+    spectrum: Spectrum,
+    result: SpectrumResult,
+    problems: Vec<String>,
+    seed: Result<Vec<f64>, String>,
+}
+
+/// Groups and orders entries into chains (indices into `entries`), cut into chunks.
 pub(super) fn chains(
     entries: &[Entry],
     inputs: &[PathBuf],
     cells: &Names,
     chunk: usize,
+    by: ChainBy,
 ) -> Vec<Vec<usize>> {
     let mut groups: BTreeMap<(&str, Option<i64>), Vec<usize>> = BTreeMap::new();
     for (i, e) in entries.iter().enumerate() {
         if let (None, Some(s)) = (&e.error, &e.series) {
-            groups
-                .entry((cells.get(s.cell), s.soc))
-                .or_default()
-                .push(i);
+            let soc = match by {
+                ChainBy::CellAndSoc => s.soc,
+                ChainBy::Cell => None,
+            };
+            groups.entry((cells.get(s.cell), soc)).or_default().push(i);
         }
     }
     let mut out = Vec::new();

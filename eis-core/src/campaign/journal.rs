@@ -234,6 +234,9 @@ pub struct RunSettings {
     pub reader: String,
     /// Kramers–Kronig settings.
     pub kk: String,
+    /// Shared parameters and the chain grouping (empty when every spectrum is fitted on its own).
+    #[serde(default)]
+    pub share: String,
 }
 
 impl RunSettings {
@@ -246,6 +249,11 @@ impl RunSettings {
             warm_start: settings.warm_start,
             reader: format!("{:?}", settings.reader),
             kk: format!("{:?}", settings.kk),
+            share: settings
+                .share
+                .as_ref()
+                .map(|s| format!("{} by {}", s.names.join(","), s.by.as_str()))
+                .unwrap_or_default(),
         }
     }
 
@@ -258,6 +266,7 @@ impl RunSettings {
             ("fit settings", &self.fit, &now.fit),
             ("reader settings", &self.reader, &now.reader),
             ("Kramers-Kronig settings", &self.kk, &now.kk),
+            ("shared parameters", &self.share, &now.share),
         ];
         if let Some((name, a, b)) = pairs.into_iter().find(|(_, a, b)| a != b) {
             let (a, b) = first_difference(a, b);

@@ -13,9 +13,12 @@
 //!    number. A group is cut into chunks of [`BatchSettings::chunk`] spectra.
 //! 3. **Work.** The first spectrum of the first chunk is fitted from automatic starts and serves as the
 //!    starting point of every chunk. Chunks then run in parallel (rayon). Within a chunk each spectrum is
-//!    checked and fitted, the fit warm-started from its predecessor's result; [`crate::fit::fit`] falls back to the automatic
-//!    start when the warm start ends on a bound or with trending residuals. Each result is appended, as
-//!    one JSON line, to a journal in the output folder the moment it is done.
+//!    checked and fitted along the chain ([`crate::fit::chain::fit_in_chain`]): warm-started from its
+//!    predecessor's result when a screening of fresh candidates finds nothing better (else the full
+//!    automatic search), and among optima of comparable χ² the one whose arcs keep the predecessor's
+//!    order. With shared parameters ([`Share`]) each chain is fitted at once instead
+//!    ([`crate::fit::joint`]). Each result is appended, as one JSON line, to a journal in the output
+//!    folder the moment it is done.
 //! 4. **Finish.** `results.jsonl` and `results.csv` are written from the journal, sorted by file and
 //!    spectrum, each through a temporary file renamed over the target: a reader sees the old or the new
 //!    file, never half of one. The journal is then removed.
@@ -51,12 +54,14 @@ mod results;
 mod tests;
 
 pub use advice::{Advice, AdviceKind, advice};
+pub use chains::{ChainBy, Share};
 pub use journal::{JOURNAL, RunSettings, SETTINGS};
 pub use results::{finished, results_quantities, results_table};
 
 use crate::circuit::Circuit;
 use crate::derive::derive;
-use crate::fit::{FitSettings, fit};
+use crate::fit::chain::{Identity, WarmVerdict, fit_in_chain};
+use crate::fit::{FitResult, FitSettings};
 use crate::import::ReaderOptions;
 use crate::number::format_float;
 use crate::output::OutputError;
@@ -94,6 +99,9 @@ pub struct BatchSettings {
     pub chunk: usize,
     /// Reader settings.
     pub reader: ReaderOptions,
+    /// Parameters fitted jointly along each chain, and how chains are formed. Default none: every
+    /// spectrum is fitted on its own.
+    pub share: Option<Share>,
 }
 
 impl Default for BatchSettings {
@@ -104,6 +112,7 @@ impl Default for BatchSettings {
             warm_start: true,
             chunk: 64,
             reader: ReaderOptions::default(),
+            share: None,
         }
     }
 }
@@ -166,12 +175,20 @@ pub struct SpectrumResult {
     pub status: Status,
     /// The first problem, or empty.
     pub message: String,
-    /// Whether the fit was warm-started from the previous spectrum of the series.
+    /// Whether the fit came from a warm start (the previous spectrum's result), accepted because a
+    /// screening of fresh candidates found nothing better.
     pub warm_started: bool,
     /// Kramers–Kronig summary.
     pub kk: Option<KkSummary>,
     /// The fit document.
     pub fit: Option<FitDocument>,
+    /// Parameters fitted jointly with the rest of the chain (their values are the chain's), empty for
+    /// a fit of its own.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub shared: Vec<String>,
+    /// Spectra in the joint fit this result comes from.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub chain_spectra: Option<usize>,
 }
 
 /// What a run did.
@@ -281,7 +298,8 @@ fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, String> {
     std::panic::catch_unwind(std::panic::AssertUnwindSafe(f))
         .map_err(|p| format!("internal error: {}", panic_message(p.as_ref())))
 }
-/// Checks and fits one spectrum.
+/// Checks and fits one spectrum of a chain: the fit warm-started from `warm` and keeping the arc
+/// identity of `neighbour` (the previous spectrum's values), see [`crate::fit::chain`].
 fn process(
     circuit: &Circuit,
     file: &str,
@@ -289,12 +307,46 @@ fn process(
     spectrum: &Spectrum,
     settings: &BatchSettings,
     warm: Option<&(Vec<f64>, f64)>,
+    neighbour: Option<&[f64]>,
 ) -> SpectrumResult {
     // The last line of defence is tested with a planted fault.
     #[cfg(test)]
     if file.ends_with("panics-in-test.csv") {
         panic!("planted fault");
     }
+    let (mut result, mut problems) = check(file, n, spectrum, settings);
+    let fit_settings = settings.fit.with_warm_reference(warm.map(|w| w.1));
+    match fit_in_chain(
+        circuit,
+        spectrum,
+        &fit_settings,
+        warm.map(|w| w.0.as_slice()),
+        neighbour,
+    ) {
+        Err(e) => {
+            result.status = Status::Failed;
+            result.message = format!("cannot fit: {e}");
+            return result;
+        }
+        Ok(r) => {
+            result.warm_started = r.warm == WarmVerdict::Accepted;
+            if let Identity::ForcedJump { .. } = r.identity {
+                problems.push(r.identity.to_string());
+            }
+            conclude(circuit, file, n, &r.result, &mut result, &mut problems);
+        }
+    }
+    finish_status(&mut result, problems);
+    result
+}
+
+/// The Kramers–Kronig check of one spectrum: a result holding its summary, and the problems found.
+fn check(
+    file: &str,
+    n: usize,
+    spectrum: &Spectrum,
+    settings: &BatchSettings,
+) -> (SpectrumResult, Vec<String>) {
     let mut result = SpectrumResult {
         file: file.to_owned(),
         spectrum: n,
@@ -304,6 +356,8 @@ fn process(
         warm_started: false,
         kk: None,
         fit: None,
+        shared: Vec::new(),
+        chain_spectra: None,
     };
     let mut problems: Vec<String> = Vec::new();
     match kramers_kronig(spectrum, &settings.kk) {
@@ -331,38 +385,37 @@ fn process(
         }
         Err(e) => problems.push(format!("Kramers-Kronig check not possible: {e}")),
     }
-    let fit_settings = settings.fit.with_warm_reference(warm.map(|w| w.1));
-    match fit(
-        circuit,
-        spectrum,
-        &fit_settings,
-        warm.map(|w| w.0.as_slice()),
-    ) {
-        Err(e) => {
-            result.status = Status::Failed;
-            result.message = format!("cannot fit: {e}");
-            return result;
-        }
-        Ok(r) => {
-            result.warm_started = warm.is_some();
-            if !r.converged {
-                problems.push(format!("fit did not converge ({})", r.termination));
-            }
-            for w in r.warnings.iter().filter(|w| w.marks_suspect()) {
-                problems.push(w.to_string());
-            }
-            let d = derive(circuit, &r);
-            let mut doc = document(circuit, &r, &d, None);
-            doc.file = Some(file.to_owned());
-            doc.spectrum = Some(n);
-            result.fit = Some(doc);
-        }
+    (result, problems)
+}
+
+/// Puts a fit into `result`: its document, and the warnings that matter among the problems.
+fn conclude(
+    circuit: &Circuit,
+    file: &str,
+    n: usize,
+    r: &FitResult,
+    result: &mut SpectrumResult,
+    problems: &mut Vec<String>,
+) {
+    if !r.converged {
+        problems.push(format!("fit did not converge ({})", r.termination));
     }
+    for w in r.warnings.iter().filter(|w| w.marks_suspect()) {
+        problems.push(w.to_string());
+    }
+    let d = derive(circuit, r);
+    let mut doc = document(circuit, r, &d, None);
+    doc.file = Some(file.to_owned());
+    doc.spectrum = Some(n);
+    result.fit = Some(doc);
+}
+
+/// Status and message from the problems found.
+fn finish_status(result: &mut SpectrumResult, problems: Vec<String>) {
     if !problems.is_empty() {
         result.status = Status::Suspect;
         result.message = problems.join("; ");
     }
-    result
 }
 
 /// The result of a spectrum that could not be read.
@@ -376,6 +429,8 @@ fn failed(file: &str, spectrum: usize, message: String) -> SpectrumResult {
         warm_started: false,
         kk: None,
         fit: None,
+        shared: Vec::new(),
+        chain_spectra: None,
     }
 }
 

@@ -77,7 +77,8 @@ impl Finish<'_> {
                 break;
             }
         }
-        let table = Table::new(self.circuit, meta, arcs);
+        let mut table = Table::new(self.circuit, meta, arcs);
+        table.shared = !settings.settings.share.is_empty();
         let (results_jsonl, results_csv) = (&paths.results_jsonl, &paths.results_csv);
         let mut jsonl = OutputFile::create(results_jsonl, self.inputs)?;
         let mut csv = OutputFile::create(results_csv, self.inputs)?;
@@ -137,6 +138,9 @@ pub(super) struct Table<'a> {
     pub(super) meta: Vec<String>,
     /// The resistor of each arc.
     arcs: Vec<String>,
+    /// Whether the results come from joint fits: a last column `shared` names the parameters each row
+    /// shares with its chain (separated by `;`).
+    pub(super) shared: bool,
 }
 
 impl<'a> Table<'a> {
@@ -164,6 +168,7 @@ impl<'a> Table<'a> {
             circuit,
             meta,
             arcs,
+            shared: false,
         }
     }
 
@@ -186,6 +191,9 @@ impl<'a> Table<'a> {
             header.push(format!("{}_stderr", p.name));
         }
         header.push("reduced_chi_square".into());
+        if self.shared {
+            header.push("shared".into());
+        }
         csv_line(&header)
     }
 
@@ -222,6 +230,9 @@ impl<'a> Table<'a> {
             row.push(num(e.and_then(|e| e.stderr)));
         }
         row.push(num(r.fit.as_ref().map(|f| f.statistics.reduced_chi_square)));
+        if self.shared {
+            row.push(r.shared.join(";"));
+        }
         csv_line(&row)
     }
 }
@@ -236,11 +247,12 @@ pub fn results_table(circuit: &Circuit, results: &[SpectrumResult]) -> (String, 
         .find_map(|r| r.fit.as_ref())
         .map(|d| d.derived.arcs.iter().map(|a| a.resistor.clone()).collect())
         .unwrap_or_default();
-    let table = Table::new(
+    let mut table = Table::new(
         circuit,
         results.iter().flat_map(|r| r.metadata.keys().cloned()),
         arcs,
     );
+    table.shared = results.iter().any(|r| !r.shared.is_empty());
     let mut out = table.header();
     for r in results {
         out.push_str(&table.row(r));

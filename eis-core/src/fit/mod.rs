@@ -32,6 +32,8 @@
 //! }
 //! ```
 
+pub mod chain;
+pub mod joint;
 mod lm;
 mod problem;
 mod reduce;

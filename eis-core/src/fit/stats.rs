@@ -96,6 +96,21 @@ pub enum FitWarning {
         /// The runs-test z.
         z: f64,
     },
+    /// Along a chain, the arcs change order against the previous spectrum: keeping the order costs
+    /// this many times the χ², so the data force the jump.
+    ArcOrderJump {
+        /// χ² of the best optimum keeping the neighbour's order over the chosen one's.
+        chi_square_ratio: f64,
+    },
+    /// A joint fit of a chain: the parameter is not determined by the whole chain.
+    UndeterminedInChain {
+        /// The parameter.
+        parameter: String,
+        /// Standard error over |value|.
+        relative_error: f64,
+    },
+    /// A joint fit of a chain: the joint covariance is singular (no standard errors).
+    SingularJointCovariance,
 }
 
 impl FitWarning {
@@ -104,7 +119,22 @@ impl FitWarning {
     pub fn marks_suspect(&self) -> bool {
         matches!(
             self,
-            FitWarning::AtBound { .. } | FitWarning::SystematicResiduals { .. }
+            FitWarning::AtBound { .. }
+                | FitWarning::SystematicResiduals { .. }
+                | FitWarning::ArcOrderJump { .. }
+        )
+    }
+
+    /// Whether the warning is about the covariance of the parameters (undetermined, singular,
+    /// correlated): a joint fit replaces these by its own.
+    pub fn is_about_covariance(&self) -> bool {
+        matches!(
+            self,
+            FitWarning::Undetermined { .. }
+                | FitWarning::SingularCovariance { .. }
+                | FitWarning::Correlated { .. }
+                | FitWarning::UndeterminedInChain { .. }
+                | FitWarning::SingularJointCovariance
         )
     }
 }
@@ -168,6 +198,22 @@ impl std::fmt::Display for FitWarning {
                     "residuals of the {part} part follow a trend (runs test z = {z:.1}): the model misses a feature of the spectrum"
                 )
             }
+            FitWarning::ArcOrderJump { chi_square_ratio } => write!(
+                f,
+                "the arcs change order against the previous spectrum of the chain: keeping the order costs {chi_square_ratio:.2} times the chi-square, so the data force the jump"
+            ),
+            FitWarning::UndeterminedInChain {
+                parameter,
+                relative_error,
+            } => write!(
+                f,
+                "{parameter} is not determined by the chain (relative error {:.0} %)",
+                100.0 * relative_error
+            ),
+            FitWarning::SingularJointCovariance => write!(
+                f,
+                "singular joint covariance: the chain cannot determine every parameter (no standard errors)"
+            ),
         }
     }
 }
@@ -241,24 +287,30 @@ pub fn covariance(j: &DMatrix<f64>, chi_square: f64, dof: usize) -> Covariance {
             cov[a_ * nf + b] = reduced * inv[(a_, b)] / (scale[a_] * scale[b]);
         }
     }
-    let mut corr = vec![0.0; nf * nf];
-    for a_ in 0..nf {
-        for b in 0..nf {
-            let d = (cov[a_ * nf + a_] * cov[b * nf + b]).sqrt();
-            corr[a_ * nf + b] = if a_ == b {
-                1.0
-            } else if d > 0.0 {
-                cov[a_ * nf + b] / d
-            } else {
-                0.0
-            };
-        }
-    }
+    let corr = correlation(&cov, nf);
     Covariance {
         matrix: cov,
         correlation: corr,
         undetermined,
     }
+}
+
+/// The correlation matrix (row-major, nf × nf) of a covariance matrix; 0 where a variance is zero.
+pub(super) fn correlation(cov: &[f64], nf: usize) -> Vec<f64> {
+    let mut corr = vec![0.0; nf * nf];
+    for a in 0..nf {
+        for b in 0..nf {
+            let d = (cov[a * nf + a] * cov[b * nf + b]).sqrt();
+            corr[a * nf + b] = if a == b {
+                1.0
+            } else if d > 0.0 {
+                cov[a * nf + b] / d
+            } else {
+                0.0
+            };
+        }
+    }
+    corr
 }
 
 /// A⁻¹ by Cholesky when that is provably what [`eigen_inverse`] gives: every eigenvalue of the
