@@ -114,10 +114,40 @@ pub struct ArcEntry {
     pub capacitance_f: f64,
     /// Its standard error.
     pub capacitance_f_stderr: Option<f64>,
-    /// Role: film, charge-transfer, contact or other.
+    /// Role: film, charge-transfer, contact, diffusion or other.
     pub role: String,
     /// Whether the data determine this arc.
     pub determined: bool,
+    /// Whether its characteristic frequency lies outside the measured window (then it is summed
+    /// nowhere).
+    #[serde(default)]
+    pub beyond_data: bool,
+}
+
+/// A diffusion element seen only as a tail still rising at the lowest measured frequency.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TailEntry {
+    /// The element.
+    pub element: String,
+    /// Warburg coefficient σ = R/√(2τ) (Ω·s^−½).
+    pub sigma_ohm_s_half: Option<f64>,
+    /// Its standard error.
+    pub sigma_ohm_s_half_stderr: Option<f64>,
+    /// Re Z of the element at the lowest measured frequency: a lower bound on its resistance (Ω).
+    pub resistance_at_least_ohm: Option<f64>,
+    /// Its standard error.
+    pub resistance_at_least_ohm_stderr: Option<f64>,
+}
+
+/// A process whose characteristic frequency lies outside the measured window.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct BeyondEntry {
+    /// The arc's resistor or the element.
+    pub process: String,
+    /// Its characteristic frequency (Hz).
+    pub frequency_hz: Option<f64>,
+    /// `below-window` or `above-window`.
+    pub placement: String,
 }
 
 /// Derived quantities of a fit document; null where the model has no such quantity.
@@ -127,24 +157,36 @@ pub struct DerivedEntry {
     pub ohmic_resistance_ohm: Option<f64>,
     /// Its standard error.
     pub ohmic_resistance_ohm_stderr: Option<f64>,
-    /// Sum of the arc resistances.
+    /// Sum of the interfacial (kinetic) resistances inside the measured window.
     pub charge_transfer_resistance_ohm: Option<f64>,
     /// Its standard error.
     pub charge_transfer_resistance_ohm_stderr: Option<f64>,
-    /// Sum of finite diffusion resistances.
+    /// Sum of diffusive resistances inside the measured window.
     pub diffusion_resistance_ohm: Option<f64>,
     /// Its standard error.
     pub diffusion_resistance_ohm_stderr: Option<f64>,
-    /// Real resistance at zero frequency.
+    /// Real resistance at zero frequency, without the processes beyond the data.
     pub dc_resistance_ohm: Option<f64>,
     /// Its standard error.
     pub dc_resistance_ohm_stderr: Option<f64>,
-    /// Sum of semi-infinite Warburg coefficients.
+    /// Sum of Warburg coefficients (semi-infinite Warburgs and still-rising tails).
     pub warburg_sigma_ohm_s_half: Option<f64>,
     /// Its standard error.
     pub warburg_sigma_ohm_s_half_stderr: Option<f64>,
+    /// Sum of the porous lines' ionic (pore) resistances.
+    #[serde(default)]
+    pub pore_resistance_ohm: Option<f64>,
+    /// Its standard error.
+    #[serde(default)]
+    pub pore_resistance_ohm_stderr: Option<f64>,
     /// The arcs.
     pub arcs: Vec<ArcEntry>,
+    /// Diffusion tails still rising at the lowest frequency.
+    #[serde(default)]
+    pub diffusion_tails: Vec<TailEntry>,
+    /// Processes beyond the data, summed nowhere.
+    #[serde(default)]
+    pub beyond_data: Vec<BeyondEntry>,
 }
 
 /// Fit statistics of a fit document.
@@ -271,6 +313,7 @@ pub fn document(
     let (dif, dif_se) = split(d.diffusion_resistance);
     let (dc, dc_se) = split(d.dc_resistance);
     let (sig, sig_se) = split(d.warburg_sigma);
+    let (pore, pore_se) = split(d.pore_resistance);
     let nf = r.free.len();
     FitDocument {
         file: None,
@@ -288,6 +331,37 @@ pub fn document(
             dc_resistance_ohm_stderr: dc_se,
             warburg_sigma_ohm_s_half: sig,
             warburg_sigma_ohm_s_half_stderr: sig_se,
+            pore_resistance_ohm: pore,
+            pore_resistance_ohm_stderr: pore_se,
+            diffusion_tails: d
+                .diffusion_tails
+                .iter()
+                .map(|t| {
+                    let (sigma, sigma_se) = split(Some(t.sigma));
+                    let (low, low_se) = split(Some(t.resistance_at_least));
+                    TailEntry {
+                        element: t.element.clone(),
+                        sigma_ohm_s_half: sigma,
+                        sigma_ohm_s_half_stderr: sigma_se,
+                        resistance_at_least_ohm: low,
+                        resistance_at_least_ohm_stderr: low_se,
+                    }
+                })
+                .collect(),
+            beyond_data: d
+                .beyond_data
+                .iter()
+                .map(|b| BeyondEntry {
+                    process: b.process.clone(),
+                    frequency_hz: b.frequency_hz.is_finite().then_some(b.frequency_hz),
+                    placement: match b.placement {
+                        crate::roles::Placement::BelowWindow => "below-window",
+                        crate::roles::Placement::AboveWindow => "above-window",
+                        crate::roles::Placement::InWindow => "in-window",
+                    }
+                    .to_owned(),
+                })
+                .collect(),
             arcs: d
                 .arcs
                 .iter()
@@ -304,6 +378,7 @@ pub fn document(
                     capacitance_f_stderr: a.capacitance.stderr,
                     role: a.role.as_str().to_owned(),
                     determined: a.determined,
+                    beyond_data: a.placement != crate::roles::Placement::InWindow,
                 })
                 .collect(),
         },

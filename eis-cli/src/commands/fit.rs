@@ -253,6 +253,7 @@ fn candidates_table(sel: &Selection) -> String {
     let entries = sel.entries();
     let rows: Vec<Vec<String>> = entries
         .iter()
+        .filter(|e| e.fitted)
         .map(|e| {
             let num = |v: Option<f64>| v.map_or("-".to_owned(), |v| format!("{v:.1}"));
             vec![
@@ -290,6 +291,21 @@ fn candidates_table(sel: &Selection) -> String {
     .lines()
     {
         let _ = writeln!(out, "  {line}");
+    }
+    // Skipped candidates on one line per reason.
+    let mut reasons: Vec<(&str, usize)> = Vec::new();
+    for e in entries.iter().filter(|e| !e.fitted) {
+        match reasons.iter_mut().find(|(r, _)| *r == e.reason) {
+            Some((_, n)) => *n += 1,
+            None => reasons.push((&e.reason, 1)),
+        }
+    }
+    for (reason, n) in reasons {
+        let _ = writeln!(
+            out,
+            "  {n} candidate{} {reason}",
+            if n == 1 { "" } else { "s" }
+        );
     }
     out
 }
@@ -365,6 +381,16 @@ pub fn write_fit_plot(
     crate::commands::plot::write_plot(&plot, path, None, (900, 650), inputs)
 }
 
+/// A relative error in percent, `> 1000 %` above ten (a parameter collapsing to 1e-261 would print
+/// hundreds of digits).
+fn relative_percent(r: f64) -> String {
+    if r > 10.0 || !r.is_finite() {
+        "> 1000 %".to_owned()
+    } else {
+        format!("{:.2} %", 100.0 * r)
+    }
+}
+
 /// The readable report.
 fn human(doc: &FitDocument, s: &Spectrum) -> String {
     let mut out = String::new();
@@ -396,7 +422,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
                     with_error(p.value, p.stderr)
                 },
                 p.relative_error
-                    .map(|r| format!("{:.2} %", 100.0 * r))
+                    .map(relative_percent)
                     .unwrap_or_else(|| "-".into()),
                 p.unit.clone(),
                 if p.at_bound {
@@ -444,6 +470,20 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
         "Ohm s^-1/2",
     );
     push(
+        "pore (ionic) resistance",
+        d.pore_resistance_ohm,
+        d.pore_resistance_ohm_stderr,
+        "Ohm",
+    );
+    for t in &d.diffusion_tails {
+        push(
+            &format!("diffusion resistance of {}, at least", t.element),
+            t.resistance_at_least_ohm,
+            t.resistance_at_least_ohm_stderr,
+            "Ohm",
+        );
+    }
+    push(
         "DC resistance",
         d.dc_resistance_ohm,
         d.dc_resistance_ohm_stderr,
@@ -472,6 +512,40 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
     if doc.derived.dc_resistance_ohm.is_none() {
         out.push_str("  (no finite DC resistance: the model blocks direct current)\n");
     }
+    for t in &d.diffusion_tails {
+        let _ = writeln!(
+            out,
+            "  ({} still rises at the lowest frequency: its resistance and time constant are not \
+             determined, only its Warburg coefficient and a lower bound)",
+            t.element
+        );
+    }
+    if !d.beyond_data.is_empty() {
+        let names: Vec<String> = d
+            .beyond_data
+            .iter()
+            .map(|b| {
+                let side = if b.placement == "below-window" {
+                    "below"
+                } else {
+                    "above"
+                };
+                match b.frequency_hz {
+                    Some(f) => format!(
+                        "{} ({}, {side} the window)",
+                        b.process,
+                        quantity(f, 3, "Hz")
+                    ),
+                    None => format!("{} ({side} the window)", b.process),
+                }
+            })
+            .collect();
+        let _ = writeln!(
+            out,
+            "  beyond the data, summed into no resistance above: {}",
+            names.join(", ")
+        );
+    }
     if !d.arcs.is_empty() {
         out.push_str("\narcs\n");
         let rows: Vec<Vec<String>> = d
@@ -485,7 +559,9 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
                     with_error(a.time_constant_s, a.time_constant_s_stderr),
                     with_error(a.peak_frequency_hz, a.peak_frequency_hz_stderr),
                     with_error(a.capacitance_f, a.capacitance_f_stderr),
-                    if a.determined {
+                    if a.beyond_data {
+                        "beyond the data".into()
+                    } else if a.determined {
                         String::new()
                     } else {
                         "NOT DETERMINED by the data".into()
