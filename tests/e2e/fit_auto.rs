@@ -96,12 +96,17 @@ fn readable_report_shows_the_candidates_table() {
     assert!(run.stdout.contains("winner"));
     // Skipped candidates take one line per reason, not one row each.
     assert!(
-        run.stdout
-            .contains("candidates skipped: no point has a positive imaginary part, so no inductance"),
+        run.stdout.contains(
+            "candidates skipped: no point has a positive imaginary part, so no inductance"
+        ),
         "{}",
         run.stdout
     );
-    assert!(!run.stdout.contains("2 arcs + inductance "), "{}", run.stdout);
+    assert!(
+        !run.stdout.contains("2 arcs + inductance "),
+        "{}",
+        run.stdout
+    );
 }
 
 #[test]
