@@ -213,8 +213,8 @@ pub fn family() -> Vec<Member> {
 }
 
 /// The members for cells with porous electrodes and a diffusion tail still rising at the lowest
-/// frequency (tried besides [`family`] when [`SelectOptions::physics`] is on): 2–3 arcs followed by a
-/// Warburg or a reflective tail, and two porous electrodes (one per electrode of a cell) followed by a
+/// frequency (tried besides [`family`] when [`SelectOptions::physics`] is on): 2 arcs followed by a
+/// Warburg or a reflective tail, 3 arcs followed by a reflective tail, and two porous electrodes (one per electrode of a cell) followed by a
 /// Warburg tail, without / with inductance. Kept small: each member costs a fit per spectrum.
 pub fn physics_family() -> Vec<Member> {
     let mut out = Vec::new();
@@ -222,7 +222,6 @@ pub fn physics_family() -> Vec<Member> {
         for (arcs, porous, tail) in [
             (2, false, Tail::Warburg),
             (2, false, Tail::Reflective),
-            (3, false, Tail::Warburg),
             (3, false, Tail::Reflective),
             (2, true, Tail::Warburg),
         ] {
