@@ -16,6 +16,13 @@
 //!
 //! 18 members in all ([`family`]). Arcs are numbered from the fastest (highest frequency) to the slowest.
 //!
+//! For cells with porous electrodes and diffusion that goes on below the lowest frequency,
+//! [`physics_family`] adds 8 members (on by default, [`SelectOptions::with_physics`]): a tail in
+//! series after the arcs, `Wd` (semi-infinite Warburg) or `Wrd` (reflective), on 2 arcs, a reflective
+//! tail on 3 arcs, and two porous electrodes `Pe1 + Pe2` with a Warburg tail, each without / with
+//! inductance: `R0 + Pe1 + Pe2 + Wd`. They are skipped when −Z″ does not rise over the three lowest
+//! frequencies (no tail to describe).
+//!
 //! # Selection
 //!
 //! 1. A DRT of the spectrum (automatic λ by GCV; with an inductance term when some point has a positive
@@ -34,6 +41,11 @@
 //!    - tier 3: residuals that follow a trend (runs test, [`crate::fit::FitResult::systematic_residuals`]):
 //!      the model misses a feature of the spectrum;
 //!    - tier 4: the fit did not converge.
+//!
+//!    A candidate whose decomposition is physically implausible ([`crate::roles::implausible`]: a
+//!    kinetic arc or porous interface beyond the measured window, a kinetic arc fitted by a diffusion
+//!    element, a diffusion pseudo-capacitance in a Randles arc) is **rejected**, ranked after every
+//!    other candidate, when a plausible converged candidate reaches at most 20 times its χ².
 //!
 //!    The first candidate is the winner; each candidate carries the reason for its place.
 //!
@@ -682,7 +694,7 @@ pub struct AutoDocument {
 }
 
 /// The rule of [`select`] in one sentence, as reported in [`AutoDocument::selection_rule`].
-pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and determined parameters, 2 some parameter undetermined or at a bound, 3 residuals with a trend, 4 not converged), then lowest BIC within a tier";
+pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and determined parameters, 2 some parameter undetermined or at a bound, 3 residuals with a trend, 4 not converged), then lowest BIC within a tier; implausible decompositions (a kinetic process beyond the data or in a diffusion element) after the rest when a plausible candidate fits within 20x chi-square";
 
 /// Builds the document of a model choice from the winner's fit document.
 pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> AutoDocument {
@@ -697,6 +709,25 @@ pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_physics_family_has_eight_distinct_parseable_members() {
+        let f = physics_family();
+        assert_eq!(f.len(), 8);
+        let texts: std::collections::BTreeSet<String> =
+            f.iter().map(|m| m.circuit_text()).collect();
+        assert_eq!(texts.len(), 8);
+        assert!(family().iter().all(|m| !texts.contains(&m.circuit_text())));
+        for m in &f {
+            let c = m.circuit();
+            assert!(c.element_index("Wd").is_some() || c.element_index("Wrd").is_some());
+        }
+        let porous = f.iter().find(|m| m.porous && !m.inductance).unwrap();
+        assert_eq!(
+            porous.circuit_text().lines().next(),
+            Some("R0 + Pe1 + Pe2 + Wd")
+        );
+    }
 
     #[test]
     fn the_family_has_eighteen_distinct_parseable_members() {

@@ -28,7 +28,8 @@ pub struct Args {
     /// Spectrum file.
     input: PathBuf,
     /// Circuit file (.circ), inline expression, or `auto` to choose among 1-3 arcs with or without
-    /// finite diffusion and series inductance (ranked by BIC and a residual check).
+    /// finite diffusion, diffusion tails, porous electrodes and series inductance (ranked by BIC and a
+    /// residual check; implausible decompositions rejected).
     #[arg(long, short)]
     model: String,
     /// Which spectrum of the file, from 1.
