@@ -27,6 +27,7 @@
 //! exact limit function (a rational function of the resistances).
 
 use crate::circuit::{Circuit, Node, Role};
+use crate::element::circuit_limit;
 use crate::fit::FitResult;
 use crate::roles::{ArcFacts, BeyondData, DiffusionTail, Placement, classify, tail_values};
 use std::f64::consts::PI;
@@ -127,56 +128,13 @@ fn delta(r: &FitResult, grad: &[(usize, f64)]) -> Option<f64> {
     Some(var.max(0.0).sqrt())
 }
 
-/// A real-part limit of a subtree: `open` means its impedance diverges (no current through it).
-#[derive(Debug, Clone, Copy)]
-struct Lim {
-    real: f64,
-    open: bool,
-}
-
-fn limit(c: &Circuit, node: &Node, p: &[f64], high: bool) -> Lim {
-    let fin = |real| Lim { real, open: false };
-    let open = |real| Lim { real, open: true };
-    match node {
-        Node::Element(i) => {
-            let e = &c.elements[*i];
-            let q = &p[e.first_param..e.first_param + e.kind.params.len()];
-            let l = (e.kind.limit)(q, high);
-            Lim {
-                real: l.real,
-                open: l.open,
-            }
-        }
-        Node::Series(ch) => {
-            let mut out = fin(0.0);
-            for n in ch {
-                let l = limit(c, n, p, high);
-                out.real += l.real;
-                out.open |= l.open;
-            }
-            out
-        }
-        Node::Parallel(ch) => {
-            let lims: Vec<Lim> = ch.iter().map(|n| limit(c, n, p, high)).collect();
-            let closed: Vec<f64> = lims.iter().filter(|l| !l.open).map(|l| l.real).collect();
-            if closed.is_empty() {
-                return open(f64::NAN);
-            }
-            if closed.contains(&0.0) {
-                return fin(0.0);
-            }
-            fin(1.0 / closed.iter().map(|r| 1.0 / r).sum::<f64>())
-        }
-    }
-}
-
 /// Value and central-difference gradient of a limit (only over resistances that matter).
 fn limit_quantity(c: &Circuit, r: &FitResult, high: bool, zero: &[usize]) -> Option<Quantity> {
     let mut values = r.values.clone();
     for &i in zero {
         values[i] = 0.0;
     }
-    let base = limit(c, &c.root, &values, high);
+    let base = circuit_limit(c, &values, high);
     if (!high && base.open) || !base.real.is_finite() {
         return None;
     }
@@ -187,7 +145,7 @@ fn limit_quantity(c: &Circuit, r: &FitResult, high: bool, zero: &[usize]) -> Opt
         up[i] += h;
         let mut dn = values.clone();
         dn[i] -= h;
-        let g = (limit(c, &c.root, &up, high).real - limit(c, &c.root, &dn, high).real) / (2.0 * h);
+        let g = (circuit_limit(c, &up, high).real - circuit_limit(c, &dn, high).real) / (2.0 * h);
         if g.is_finite() && g != 0.0 {
             grad.push((i, g));
         }
@@ -214,13 +172,13 @@ fn find_arcs(c: &Circuit, node: &Node, out: &mut Vec<ArcShape>) {
             let caps: Vec<usize> = ch
                 .iter()
                 .filter_map(|n| match n {
-                    Node::Element(i) if c.elements[*i].kind.capacitive => Some(*i),
+                    Node::Element(i) if c.elements[*i].kind.is_capacitive() => Some(*i),
                     _ => None,
                 })
                 .collect();
             let others: Vec<&Node> = ch
                 .iter()
-                .filter(|n| !matches!(n, Node::Element(i) if c.elements[*i].kind.capacitive))
+                .filter(|n| !matches!(n, Node::Element(i) if c.elements[*i].kind.is_capacitive()))
                 .collect();
             if caps.len() == 1 && others.len() == 1 {
                 let parts: Vec<&Node> = match others[0] {
@@ -266,7 +224,7 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
             let mut dn = p.clone();
             dn[i] -= h;
             let g =
-                (limit(c, &c.root, &up, true).real - limit(c, &c.root, &dn, true).real) / (2.0 * h);
+                (circuit_limit(c, &up, true).real - circuit_limit(c, &dn, true).real) / (2.0 * h);
             (g.is_finite() && g != 0.0).then_some((i, g))
         })
         .collect();

@@ -5,11 +5,15 @@
 //!
 //! Write one [`ImpedanceFn`], `fn(params, grid, z, dz)`, that writes Z(ωᵢ) into `z[i]` and
 //! ∂Z(ωᵢ)/∂params`[k]` into `dz[k * grid.len() + i]` for every frequency of the [`Grid`], then add one
-//! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function. Work that
-//! does not depend on the frequency (a phase, a logarithm of a parameter) belongs before the loop over
-//! the grid; ln ω and √ω come precomputed with the grid. The parser, the
-//! printer, the compiled evaluator, the fitter and the CLI pick it up from the table; the test
-//! `every_kind_matches_finite_differences` checks the new derivatives automatically.
+//! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function, its limits
+//! at direct current and infinite frequency ([`LimitFn`]), its [`Class`] and its [`Seed`] (how the
+//! automatic starts build its values from a resistance and a time constant, or from one coefficient).
+//! Work that does not depend on the frequency (a phase, a logarithm of a parameter) belongs before the
+//! loop over the grid; ln ω and √ω come precomputed with the grid. The parser, the printer, the
+//! compiled evaluator, the fitter (its starts read only the class and seed), the circuit limits
+//! ([`circuit_limit`]) and the CLI pick it up from the table; the tests
+//! `every_kind_matches_finite_differences` and `every_kind_limit_matches_its_impedance` check the new
+//! derivatives and limits automatically.
 //!
 //! # Conventions
 //!
@@ -122,6 +126,73 @@ impl Limit {
     }
 }
 
+/// The [`Limit`] of a whole circuit at parameter values `p` (circuit order) as ω → ∞ (`high`) or
+/// ω → 0, combined from its elements' limit functions: series limits add; a parallel group is open
+/// when every branch is, is shorted by a branch of zero limit, and otherwise combines its finite
+/// branches' real parts as parallel resistances (open branches carry no current). The real part of an
+/// all-open parallel group is undetermined (NaN).
+///
+/// ```
+/// use eis_core::{circuit::parse, element::circuit_limit};
+/// let c = parse("R0 + Rct|Qdl + Wd").unwrap();
+/// let p = c.default_values();
+/// assert_eq!(circuit_limit(&c, &p, true).real, p[0]);
+/// assert!(circuit_limit(&c, &p, false).open);
+/// ```
+pub fn circuit_limit(c: &crate::circuit::Circuit, p: &[f64], high: bool) -> Limit {
+    node_limit(c, &c.root, p, high)
+}
+
+fn node_limit(
+    c: &crate::circuit::Circuit,
+    node: &crate::circuit::Node,
+    p: &[f64],
+    high: bool,
+) -> Limit {
+    use crate::circuit::Node;
+    match node {
+        Node::Element(i) => {
+            let e = &c.elements[*i];
+            let q = p
+                .get(e.first_param..e.first_param + e.kind.params.len())
+                .unwrap_or(&[]);
+            if q.len() != e.kind.params.len() {
+                return Limit::finite(f64::NAN);
+            }
+            (e.kind.limit)(q, high)
+        }
+        Node::Series(ch) => {
+            let mut out = Limit::finite(0.0);
+            for n in ch {
+                let l = node_limit(c, n, p, high);
+                out.real += l.real;
+                out.open |= l.open;
+            }
+            out
+        }
+        Node::Parallel(ch) => {
+            let mut closed = 0;
+            let mut conductance = 0.0;
+            for n in ch {
+                let l = node_limit(c, n, p, high);
+                if l.open {
+                    continue;
+                }
+                if l.real == 0.0 {
+                    return Limit::finite(0.0);
+                }
+                closed += 1;
+                conductance += 1.0 / l.real;
+            }
+            if closed == 0 {
+                Limit::open(f64::NAN)
+            } else {
+                Limit::finite(1.0 / conductance)
+            }
+        }
+    }
+}
+
 /// Signature of an element's limit function: `(params, high)` gives the [`Limit`] of Z as ω → ∞
 /// (`high`) or ω → 0.
 pub type LimitFn = fn(&[f64], bool) -> Limit;
@@ -142,12 +213,18 @@ pub struct ElementKind {
     /// Its limits at direct current and at infinite frequency (ohmic and DC resistances of a circuit
     /// are computed from these).
     pub limit: LimitFn,
-    /// Whether the element behaves like a capacitor in parallel with a resistor to form an arc
-    /// (used to recognise arcs for derived battery quantities).
-    pub capacitive: bool,
+    /// What the element does in a cell's spectrum (recognising arcs, diffusion and porous electrodes).
+    pub class: Class,
+    /// How automatic starting values are built for it from the data.
+    pub seed: Seed,
 }
 
 impl ElementKind {
+    /// Whether the element forms an arc with a resistor in parallel (its class is capacitive).
+    pub fn is_capacitive(&self) -> bool {
+        self.class == Class::Capacitive
+    }
+
     /// Z and ∂Z/∂params at one angular frequency (allocates; for tests and one-off use — evaluate a
     /// whole [`Grid`] through [`ElementKind::impedance`] in loops).
     ///
@@ -228,7 +305,8 @@ pub static KINDS: &[ElementKind] = &[
         params: &[positive("R", "Ohm", 10.0, "resistance")],
         impedance: resistor,
         limit: |p, _| Limit::finite(p[0]),
-        capacitive: false,
+        class: Class::Resistive,
+        seed: Seed::Linear { of: seed::scale },
     },
     ElementKind {
         symbol: "C",
@@ -243,7 +321,12 @@ pub static KINDS: &[ElementKind] = &[
                 Limit::open(0.0)
             }
         },
-        capacitive: true,
+        class: Class::Capacitive,
+        seed: Seed::Capacitive {
+            series: seed::inverse,
+            parallel: seed::capacitor_parallel,
+            tau: seed::capacitor_tau,
+        },
     },
     ElementKind {
         symbol: "L",
@@ -258,7 +341,8 @@ pub static KINDS: &[ElementKind] = &[
                 Limit::finite(0.0)
             }
         },
-        capacitive: false,
+        class: Class::Inductive,
+        seed: Seed::Linear { of: seed::scale },
     },
     ElementKind {
         symbol: "Q",
@@ -270,7 +354,12 @@ pub static KINDS: &[ElementKind] = &[
         ],
         impedance: cpe,
         limit: cpe_limit,
-        capacitive: true,
+        class: Class::Capacitive,
+        seed: Seed::Capacitive {
+            series: seed::cpe_series,
+            parallel: seed::cpe_parallel,
+            tau: seed::cpe_tau,
+        },
     },
     ElementKind {
         symbol: "W",
@@ -285,7 +374,8 @@ pub static KINDS: &[ElementKind] = &[
                 Limit::open(f64::INFINITY)
             }
         },
-        capacitive: false,
+        class: Class::Diffusive,
+        seed: Seed::Linear { of: seed::scale },
     },
     ElementKind {
         symbol: "Wt",
@@ -297,7 +387,13 @@ pub static KINDS: &[ElementKind] = &[
         ],
         impedance: diffusion_transmissive,
         limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
-        capacitive: false,
+        class: Class::Diffusive,
+        seed: Seed::Feature {
+            of: seed::resistance_time,
+            tau: seed::second,
+            window: seed::DIFFUSION_WINDOW,
+            peak: seed::TRANSMISSIVE_PEAK,
+        },
     },
     ElementKind {
         symbol: "Wr",
@@ -315,7 +411,13 @@ pub static KINDS: &[ElementKind] = &[
                 Limit::open(p[0] / 3.0)
             }
         },
-        capacitive: false,
+        class: Class::Diffusive,
+        seed: Seed::Feature {
+            of: seed::resistance_time,
+            tau: seed::second,
+            window: seed::DIFFUSION_WINDOW,
+            peak: seed::REFLECTIVE_PEAK,
+        },
     },
     ElementKind {
         symbol: "G",
@@ -327,7 +429,13 @@ pub static KINDS: &[ElementKind] = &[
         ],
         impedance: gerischer,
         limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
-        capacitive: false,
+        class: Class::Diffusive,
+        seed: Seed::Feature {
+            of: seed::resistance_time,
+            tau: seed::second,
+            window: seed::DIFFUSION_WINDOW,
+            peak: (1.0, 1.0),
+        },
     },
     ElementKind {
         symbol: "Pe",
@@ -336,7 +444,13 @@ pub static KINDS: &[ElementKind] = &[
         params: &[PORE_RAIL, LINE_RCT, LINE_Q, EXPONENT],
         impedance: porous::one_rail,
         limit: porous::one_rail_limit,
-        capacitive: false,
+        class: Class::Porous,
+        seed: Seed::Feature {
+            of: seed::one_rail,
+            tau: seed::one_rail_tau,
+            window: seed::ARC_WINDOW,
+            peak: (1.0, 1.0),
+        },
     },
     ElementKind {
         symbol: "Pm",
@@ -357,7 +471,13 @@ pub static KINDS: &[ElementKind] = &[
         ],
         impedance: porous::two_rails,
         limit: porous::two_rails_limit,
-        capacitive: false,
+        class: Class::Porous,
+        seed: Seed::Feature {
+            of: seed::two_rails,
+            tau: seed::two_rails_tau,
+            window: seed::ARC_WINDOW,
+            peak: (1.0, 1.0),
+        },
     },
 ];
 
@@ -375,6 +495,12 @@ pub fn kind_for_name(name: &str) -> Option<&'static ElementKind> {
 }
 
 mod porous;
+mod seed;
+
+pub use seed::{
+    ARC_WINDOW, Class, DIFFUSION_WINDOW, PORE_FRACTION, SEED_EXPONENT, SOLID_FRACTION, Seed,
+    SeedOne, SeedTwo, set,
+};
 
 const J: Complex64 = Complex64::new(0.0, 1.0);
 const ZERO: Complex64 = Complex64::new(0.0, 0.0);

@@ -17,14 +17,14 @@
 //! 3. **Role lines win.** A `role` line of the circuit file sets an arc's role; the window test of
 //!    rule 1 still applies (it is about what the data show, not about physics).
 //! 4. **Class from the element table.** A porous line (`Pe`, `Pm`) is kinetic through its interface
-//!    (its `Rct` is charge transfer) and ionic through its rail (`Rion` is pore resistance). An arc
+//!    (its `Rct` is charge transfer, unless rule 5 finds its interface capacitance storage-sized) and
+//!    ionic through its rail (`Rion` is pore resistance). An arc
 //!    whose resistive branch holds a diffusion element (a Randles arc) is read like any other arc by
 //!    rule 5 (a fit can hang a diffusion pseudo-capacitance there). `Wt`, `Wr` inside the window are
 //!    diffusion resistances.
 //! 5. **Arcs by their effective capacitance**, measured against a double-layer reference C_dl:
-//!    the interface capacitance of the largest porous line when there is one, else the largest
-//!    capacitance among the arcs in the window once those above a gap of [`STORAGE_RATIO`] are set
-//!    aside. A double layer stores far less charge than the bulk of an electrode, and a dielectric
+//!    the largest capacitance among the arcs and porous interfaces in the window once those above a
+//!    gap of [`STORAGE_RATIO`] are set aside. A double layer stores far less charge than the bulk of an electrode, and a dielectric
 //!    film less than a double layer (common practice: chemical or intercalation capacitances are
 //!    thousands of times a double layer's, film capacitances one to two orders below it). So an arc with
 //!    C_eff > [`STORAGE_RATIO`]·C_dl is diffusion (chemical storage, e.g. the pseudo-arc of solid
@@ -32,8 +32,8 @@
 //!    other arc is charge transfer. This uses neither the arc's place in the formula nor its size.
 //!
 //! Charge-transfer resistance = the in-window arcs of role charge-transfer plus the in-window porous
-//! `Rct`s. Diffusion resistance = the in-window `Wt`/`Wr` resistances plus the in-window arcs of role
-//! diffusion. Pore resistance = the porous `Rion`s.
+//! `Rct`s of double-layer size. Diffusion resistance = the in-window `Wt`/`Wr` resistances plus the
+//! in-window arcs of role diffusion and storage-sized porous `Rct`s. Pore resistance = the porous `Rion`s.
 
 use crate::circuit::{Circuit, Role};
 use crate::element::Grid;
@@ -170,7 +170,7 @@ pub fn classify(c: &Circuit, r: &FitResult, arcs: &[ArcFacts]) -> Classified {
     let mut out = Classified::default();
 
     // Rule 4: porous lines and finite diffusion elements, by their kind.
-    let mut kinetic_refs: Vec<(f64, f64, f64)> = Vec::new(); // (R, τ, C) of known kinetic processes
+    let mut lines: Vec<(usize, f64, f64)> = Vec::new(); // (Rct parameter, τ, C) of in-window lines
     for (index, e) in c.elements.iter().enumerate() {
         let q = &p[e.first_param..e.first_param + e.kind.params.len()];
         match e.kind.symbol {
@@ -179,10 +179,7 @@ pub fn classify(c: &Circuit, r: &FitResult, arcs: &[ArcFacts]) -> Classified {
                 let (tau, cap) = line_interface(q);
                 out.pore.push(e.first_param);
                 match Placement::of(hz(tau), window) {
-                    Placement::InWindow => {
-                        out.charge_transfer.push(rct);
-                        kinetic_refs.push((p[rct], tau, cap));
-                    }
+                    Placement::InWindow => lines.push((rct, tau, cap)),
                     placement => {
                         out.left_out_of_dc.push(rct);
                         out.beyond.push(BeyondData {
@@ -216,24 +213,27 @@ pub fn classify(c: &Circuit, r: &FitResult, arcs: &[ArcFacts]) -> Classified {
         .iter()
         .map(|a| Placement::of(hz(a.tau), window))
         .collect();
-    // Rule 5: the double-layer reference.
-    let reference: Option<(f64, f64)> =
-        if let Some(k) = kinetic_refs.iter().max_by(|x, y| x.0.total_cmp(&y.0)) {
-            Some((k.2, k.1))
-        } else {
-            let mut caps: Vec<(f64, f64)> = arcs
-                .iter()
-                .zip(&placements)
-                .filter(|(a, pl)| **pl == Placement::InWindow && a.capacitance.is_finite())
-                .map(|(a, _)| (a.capacitance, a.tau))
-                .collect();
-            caps.sort_by(|x, y| x.0.total_cmp(&y.0));
-            let cut = caps
-                .windows(2)
-                .position(|w| w[1].0 > STORAGE_RATIO * w[0].0)
-                .map_or(caps.len(), |k| k + 1);
-            caps[..cut].last().copied()
-        };
+    // Rule 5: the double-layer reference, over the in-window arcs and porous interfaces.
+    let mut caps: Vec<(f64, f64)> = arcs
+        .iter()
+        .zip(&placements)
+        .filter(|(_, pl)| **pl == Placement::InWindow)
+        .map(|(a, _)| (a.capacitance, a.tau))
+        .chain(lines.iter().map(|&(_, tau, cap)| (cap, tau)))
+        .filter(|(cap, _)| cap.is_finite())
+        .collect();
+    caps.sort_by(|x, y| x.0.total_cmp(&y.0));
+    let cut = caps
+        .windows(2)
+        .position(|w| w[1].0 > STORAGE_RATIO * w[0].0)
+        .map_or(caps.len(), |k| k + 1);
+    let reference: Option<(f64, f64)> = caps[..cut].last().copied();
+    for &(rct, _, cap) in &lines {
+        match reference {
+            Some((c_ref, _)) if cap > STORAGE_RATIO * c_ref => out.diffusion.push(rct),
+            _ => out.charge_transfer.push(rct),
+        }
+    }
 
     for (a, pl) in arcs.iter().zip(&placements) {
         let (role, from_circuit) = match c.role_of(&a.resistor) {
