@@ -10,14 +10,18 @@
 //!   or for a CPE the Brug et al. 1984 formula C = Q^(1/n)·(1/R_s + 1/R)^((n−1)/n) with R_s the ohmic
 //!   resistance; Brug, van den Eeden, Sluyters-Rehbach & Sluyters 1984, J. Electroanal. Chem. 176, 275),
 //!   and a role.
-//! - **Roles**: from the circuit file's `role` lines; otherwise by this rule: an arc whose branch holds a
-//!   diffusion element is the charge transfer; if none is, the slowest arc (largest τ) is; of the
-//!   remaining arcs the fastest is the surface film and the others are "other".
-//! - **Charge-transfer (interface) resistance**: the sum of the arcs' resistances.
-//! - **Diffusion resistance**: the sum of R of the finite diffusion elements (`Wt`, `Wr`); a
-//!   semi-infinite Warburg has no finite resistance and is reported by its σ.
+//! - **Roles, charge-transfer, diffusion and pore resistance**: by physics, not by position in the
+//!   formula: the rule is in [`crate::roles`] (class from the element table, time constant against the
+//!   measured window, effective capacitance against the double layer's; `role` lines of the circuit
+//!   file win). Charge-transfer resistance sums the interfacial (kinetic) processes inside the window
+//!   only (arcs of role charge-transfer, porous-line `Rct`); diffusion resistance the diffusive ones
+//!   (`Wt`, `Wr`, arcs of role diffusion); pore resistance the porous lines' `Rion`. A semi-infinite
+//!   Warburg, and a finite diffusion element whose τ lies below the window (a tail still rising at the
+//!   lowest frequency), are reported by their Warburg coefficient σ; such a tail also by the lower
+//!   bound Re Z(ω_lo) on its resistance. Processes beyond the data are listed and summed nowhere.
 //! - **DC resistance**: Re Z(ω → 0) when the circuit passes direct current (no blocking capacitor,
-//!   CPE, reflective diffusion or semi-infinite Warburg on every path).
+//!   CPE, reflective diffusion or semi-infinite Warburg on every path), with the resistances of the
+//!   processes beyond the data left out (set to zero).
 //!
 //! Gradients are analytic for arc quantities; for the two limits they are central differences of the
 //! exact limit function (a rational function of the resistances).
@@ -25,6 +29,7 @@
 use crate::circuit::{Circuit, Node, Role};
 use crate::element::circuit_limit;
 use crate::fit::FitResult;
+use crate::roles::{ArcFacts, BeyondData, DiffusionTail, Placement, classify, tail_values};
 use crate::trend::FlagKind;
 use std::f64::consts::PI;
 
@@ -54,8 +59,11 @@ pub struct Arc {
     pub capacitance: Quantity,
     /// Physical role.
     pub role: Role,
-    /// Whether the role came from the circuit file (else from the ordering rule).
+    /// Whether the role came from the circuit file (else from the rule of [`crate::roles`]).
     pub role_from_circuit: bool,
+    /// Where its characteristic frequency lies against the measured window; outside it the arc is
+    /// beyond the data and summed nowhere.
+    pub placement: Placement,
     /// Whether the data determine the arc (resistance with a relative error of at most 100 %).
     pub determined: bool,
 }
@@ -65,16 +73,23 @@ pub struct Arc {
 pub struct Derived {
     /// High-frequency real resistance (Ω).
     pub ohmic_resistance: Option<Quantity>,
-    /// Sum of the arc resistances (Ω).
+    /// Sum of the interfacial (kinetic) resistances inside the measured window (Ω).
     pub charge_transfer_resistance: Option<Quantity>,
-    /// Sum of the finite diffusion resistances (Ω).
+    /// Sum of the diffusive resistances inside the measured window (Ω).
     pub diffusion_resistance: Option<Quantity>,
-    /// Sum of semi-infinite Warburg coefficients σ (Ω·s^−½), when the circuit has any.
+    /// Sum of the Warburg coefficients σ (Ω·s^−½) of semi-infinite Warburgs and of still-rising
+    /// diffusion tails, when the circuit has any.
     pub warburg_sigma: Option<Quantity>,
-    /// Real resistance at zero frequency, where finite (Ω).
+    /// Real resistance at zero frequency, where finite, without the processes beyond the data (Ω).
     pub dc_resistance: Option<Quantity>,
+    /// Sum of the porous lines' ionic (pore) resistances (Ω), when the circuit has porous lines.
+    pub pore_resistance: Option<Quantity>,
     /// The arcs, in circuit order.
     pub arcs: Vec<Arc>,
+    /// Finite diffusion elements seen only as a tail still rising at the lowest frequency.
+    pub diffusion_tails: Vec<DiffusionTail>,
+    /// Processes whose characteristic frequency lies outside the measured window: summed nowhere.
+    pub beyond_data: Vec<BeyondData>,
 }
 
 /// Which battery quantity: the key of a row of [`QUANTITIES`].
@@ -91,6 +106,8 @@ pub enum QuantityKey {
     Dc,
     /// Sum of the semi-infinite Warburg coefficients.
     WarburgSigma,
+    /// Sum of the porous lines' ionic (pore) resistances.
+    Pore,
 }
 
 impl QuantityKey {
@@ -198,6 +215,18 @@ pub const QUANTITIES: &[QuantityKind] = &[
         flag: None,
         get: |d| d.warburg_sigma,
     },
+    QuantityKind {
+        key: QuantityKey::Pore,
+        column: "pore_resistance_ohm",
+        label: "pore (ionic) resistance",
+        short: "pore",
+        axis: "pore resistance",
+        unit: "Ω",
+        unit_ascii: "Ohm",
+        in_results: false,
+        flag: None,
+        get: |d| d.pore_resistance,
+    },
 ];
 
 /// The row of a `results.csv` column, if it is a battery quantity.
@@ -253,17 +282,21 @@ fn delta(r: &FitResult, grad: &[(usize, f64)]) -> Option<f64> {
 }
 
 /// Value and central-difference gradient of a limit (only over resistances that matter).
-fn limit_quantity(c: &Circuit, r: &FitResult, high: bool) -> Option<Quantity> {
-    let base = circuit_limit(c, &r.values, high);
+fn limit_quantity(c: &Circuit, r: &FitResult, high: bool, zero: &[usize]) -> Option<Quantity> {
+    let mut values = r.values.clone();
+    for &i in zero {
+        values[i] = 0.0;
+    }
+    let base = circuit_limit(c, &values, high);
     if (!high && base.open) || !base.real.is_finite() {
         return None;
     }
     let mut grad = Vec::new();
-    for &i in &r.free {
-        let h = 1e-6 * r.values[i].abs().max(1e-300);
-        let mut up = r.values.clone();
+    for &i in r.free.iter().filter(|i| !zero.contains(i)) {
+        let h = 1e-6 * values[i].abs().max(1e-300);
+        let mut up = values.clone();
         up[i] += h;
-        let mut dn = r.values.clone();
+        let mut dn = values.clone();
         dn[i] -= h;
         let g = (circuit_limit(c, &up, high).real - circuit_limit(c, &dn, high).real) / (2.0 * h);
         if g.is_finite() && g != 0.0 {
@@ -331,8 +364,7 @@ fn find_arcs(c: &Circuit, node: &Node, out: &mut Vec<ArcShape>) {
 /// Derives the battery quantities of a fitted circuit.
 pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
     let p = &r.values;
-    let ohmic = limit_quantity(c, r, true);
-    let dc = limit_quantity(c, r, false);
+    let ohmic = limit_quantity(c, r, true, &[]);
     let rs = ohmic.map(|q| q.value).unwrap_or(0.0);
     // Gradient of the ohmic resistance, for Brug capacitances that depend on it.
     let ohmic_grad: Vec<(usize, f64)> = r
@@ -425,11 +457,29 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
                 },
                 role: Role::Other,
                 role_from_circuit: false,
+                placement: Placement::InWindow,
                 determined: determined || (r.fixed[ri]),
             }
         })
         .collect();
-    assign_roles(c, &shapes, &mut arcs);
+    let facts: Vec<ArcFacts> = shapes
+        .iter()
+        .zip(&arcs)
+        .map(|(s, a)| ArcFacts {
+            resistor: a.resistor.clone(),
+            resistance_param: c.elements[s.resistor].first_param,
+            with_diffusion: s.with_diffusion,
+            tau: a.time_constant.value,
+            capacitance: a.capacitance.value,
+        })
+        .collect();
+    let classes = classify(c, r, &facts);
+    for (a, &(role, from_circuit, placement)) in arcs.iter_mut().zip(&classes.arcs) {
+        a.role = role;
+        a.role_from_circuit = from_circuit;
+        a.placement = placement;
+    }
+    let dc = limit_quantity(c, r, false, &classes.left_out_of_dc);
 
     let sum_of = |idx: &[usize]| -> Option<Quantity> {
         if idx.is_empty() {
@@ -441,29 +491,39 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
             stderr: delta(r, &grad),
         })
     };
-    let arc_r: Vec<usize> = shapes
-        .iter()
-        .map(|s| c.elements[s.resistor].first_param)
-        .collect();
-    let diff_r: Vec<usize> = c
-        .elements
-        .iter()
-        .filter(|e| matches!(e.kind.symbol, "Wt" | "Wr"))
-        .map(|e| e.first_param)
-        .collect();
-    let sigma: Vec<usize> = c
-        .elements
-        .iter()
-        .filter(|e| e.kind.symbol == "W")
-        .map(|e| e.first_param)
-        .collect();
+    let mut diffusion_tails = Vec::new();
+    let mut sigma_value: f64 = classes.sigma.iter().map(|&i| p[i]).sum();
+    let mut sigma_grad: Vec<(usize, f64)> = classes.sigma.iter().map(|&i| (i, 1.0)).collect();
+    for &k in &classes.tails {
+        let ((sigma, gs), (at_least, gl)) = tail_values(c, r, k);
+        sigma_value += sigma;
+        sigma_grad.extend(gs.iter().copied());
+        diffusion_tails.push(DiffusionTail {
+            element: c.elements[k].name.clone(),
+            sigma: Quantity {
+                value: sigma,
+                stderr: delta(r, &gs),
+            },
+            resistance_at_least: Quantity {
+                value: at_least,
+                stderr: delta(r, &gl),
+            },
+        });
+    }
+    let warburg_sigma = (!sigma_grad.is_empty()).then(|| Quantity {
+        value: sigma_value,
+        stderr: delta(r, &sigma_grad),
+    });
     Derived {
         ohmic_resistance: ohmic,
-        charge_transfer_resistance: sum_of(&arc_r),
-        diffusion_resistance: sum_of(&diff_r),
-        warburg_sigma: sum_of(&sigma),
+        charge_transfer_resistance: sum_of(&classes.charge_transfer),
+        diffusion_resistance: sum_of(&classes.diffusion),
+        warburg_sigma,
         dc_resistance: dc,
+        pore_resistance: sum_of(&classes.pore),
         arcs,
+        diffusion_tails,
+        beyond_data: classes.beyond,
     }
 }
 
@@ -478,55 +538,6 @@ fn merge(mut g: Vec<(usize, f64)>) -> Vec<(usize, f64)> {
         }
     }
     out
-}
-
-fn assign_roles(c: &Circuit, shapes: &[ArcShape], arcs: &mut [Arc]) {
-    let mut unassigned: Vec<usize> = Vec::new();
-    for (k, a) in arcs.iter_mut().enumerate() {
-        if let Some(role) = c.role_of(&a.resistor) {
-            a.role = role;
-            a.role_from_circuit = true;
-        } else {
-            unassigned.push(k);
-        }
-    }
-    if unassigned.is_empty() {
-        return;
-    }
-    let has_ct = arcs
-        .iter()
-        .any(|a| a.role == Role::ChargeTransfer && a.role_from_circuit);
-    let mut ct_given = has_ct;
-    for &k in &unassigned {
-        if shapes[k].with_diffusion && !ct_given {
-            arcs[k].role = Role::ChargeTransfer;
-            ct_given = true;
-        }
-    }
-    let mut rest: Vec<usize> = unassigned
-        .iter()
-        .copied()
-        .filter(|&k| arcs[k].role != Role::ChargeTransfer)
-        .collect();
-    rest.sort_by(|&a, &b| {
-        arcs[a]
-            .time_constant
-            .value
-            .total_cmp(&arcs[b].time_constant.value)
-    });
-    if !ct_given {
-        if let Some(k) = rest.pop() {
-            arcs[k].role = Role::ChargeTransfer;
-        }
-    }
-    let has_film = arcs.iter().any(|a| a.role == Role::Film);
-    for (pos, &k) in rest.iter().enumerate() {
-        arcs[k].role = if pos == 0 && !has_film {
-            Role::Film
-        } else {
-            Role::Other
-        };
-    }
 }
 
 /// Short-circuit current V/R_dc and matched-load power V²/(4R_dc) with their standard errors.
@@ -560,6 +571,7 @@ mod tests {
             QuantityKey::Diffusion,
             QuantityKey::Dc,
             QuantityKey::WarburgSigma,
+            QuantityKey::Pore,
         ];
         assert_eq!(keys.len(), QUANTITIES.len());
         for k in keys {

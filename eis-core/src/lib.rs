@@ -74,6 +74,7 @@ pub mod nnls;
 pub mod number;
 pub mod output;
 pub mod report;
+pub mod roles;
 pub mod scenario;
 pub mod select;
 pub mod simulate;

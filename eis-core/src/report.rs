@@ -117,22 +117,56 @@ pub struct ArcEntry {
     pub capacitance_f: f64,
     /// Its standard error.
     pub capacitance_f_stderr: Option<f64>,
-    /// Role: film, charge-transfer, contact or other.
+    /// Role: film, charge-transfer, contact, diffusion or other.
     pub role: String,
     /// Whether the data determine this arc.
     pub determined: bool,
+    /// Whether its characteristic frequency lies outside the measured window (then it is summed
+    /// nowhere).
+    #[serde(default)]
+    pub beyond_data: bool,
+}
+
+/// A diffusion element seen only as a tail still rising at the lowest measured frequency.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TailEntry {
+    /// The element.
+    pub element: String,
+    /// Warburg coefficient σ = R/√(2τ) (Ω·s^−½).
+    pub sigma_ohm_s_half: Option<f64>,
+    /// Its standard error.
+    pub sigma_ohm_s_half_stderr: Option<f64>,
+    /// Re Z of the element at the lowest measured frequency: a lower bound on its resistance (Ω).
+    pub resistance_at_least_ohm: Option<f64>,
+    /// Its standard error.
+    pub resistance_at_least_ohm_stderr: Option<f64>,
+}
+
+/// A process whose characteristic frequency lies outside the measured window.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct BeyondEntry {
+    /// The arc's resistor or the element.
+    pub process: String,
+    /// Its characteristic frequency (Hz).
+    pub frequency_hz: Option<f64>,
+    /// `below-window` or `above-window`.
+    pub placement: String,
 }
 
 /// Derived quantities of a fit document: the battery quantities of [`QUANTITIES`] and the arcs.
 ///
 /// Written as one field per quantity (its column name, then `<column>_stderr`; null where the model
-/// has no such quantity), in table order, then `arcs`.
+/// has no such quantity), in table order, then `arcs`, `diffusion_tails` and `beyond_data`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct DerivedEntry {
     /// The quantities the model has.
     pub quantities: BTreeMap<QuantityKey, Quantity>,
     /// The arcs.
     pub arcs: Vec<ArcEntry>,
+    /// Diffusion tails still rising at the lowest frequency.
+    pub diffusion_tails: Vec<TailEntry>,
+    /// Processes beyond the data, summed nowhere.
+    pub beyond_data: Vec<BeyondEntry>,
 }
 
 impl DerivedEntry {
@@ -147,16 +181,26 @@ impl DerivedEntry {
     }
 }
 
+/// A derived value as (value, standard error) for a document.
+fn split(q: Option<Quantity>) -> (Option<f64>, Option<f64>) {
+    match q {
+        Some(q) => (Some(q.value), q.stderr),
+        None => (None, None),
+    }
+}
+
 impl Serialize for DerivedEntry {
     fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
         use serde::ser::SerializeMap;
-        let mut m = s.serialize_map(Some(2 * QUANTITIES.len() + 1))?;
+        let mut m = s.serialize_map(Some(2 * QUANTITIES.len() + 3))?;
         for q in QUANTITIES {
             let v = self.get(q.key);
             m.serialize_entry(q.column, &v.map(|v| v.value))?;
             m.serialize_entry(&format!("{}_stderr", q.column), &v.and_then(|v| v.stderr))?;
         }
         m.serialize_entry("arcs", &self.arcs)?;
+        m.serialize_entry("diffusion_tails", &self.diffusion_tails)?;
+        m.serialize_entry("beyond_data", &self.beyond_data)?;
         m.end()
     }
 }
@@ -166,6 +210,10 @@ impl<'de> Deserialize<'de> for DerivedEntry {
         #[derive(Deserialize)]
         struct Fields {
             arcs: Vec<ArcEntry>,
+            #[serde(default)]
+            diffusion_tails: Vec<TailEntry>,
+            #[serde(default)]
+            beyond_data: Vec<BeyondEntry>,
             #[serde(flatten)]
             numbers: BTreeMap<String, Option<f64>>,
         }
@@ -186,6 +234,8 @@ impl<'de> Deserialize<'de> for DerivedEntry {
         Ok(DerivedEntry {
             quantities,
             arcs: f.arcs,
+            diffusion_tails: f.diffusion_tails,
+            beyond_data: f.beyond_data,
         })
     }
 }
@@ -329,6 +379,36 @@ pub fn document(
                     capacitance_f_stderr: a.capacitance.stderr,
                     role: a.role.as_str().to_owned(),
                     determined: a.determined,
+                    beyond_data: a.placement != crate::roles::Placement::InWindow,
+                })
+                .collect(),
+            diffusion_tails: d
+                .diffusion_tails
+                .iter()
+                .map(|t| {
+                    let (sigma, sigma_se) = split(Some(t.sigma));
+                    let (low, low_se) = split(Some(t.resistance_at_least));
+                    TailEntry {
+                        element: t.element.clone(),
+                        sigma_ohm_s_half: sigma,
+                        sigma_ohm_s_half_stderr: sigma_se,
+                        resistance_at_least_ohm: low,
+                        resistance_at_least_ohm_stderr: low_se,
+                    }
+                })
+                .collect(),
+            beyond_data: d
+                .beyond_data
+                .iter()
+                .map(|b| BeyondEntry {
+                    process: b.process.clone(),
+                    frequency_hz: b.frequency_hz.is_finite().then_some(b.frequency_hz),
+                    placement: match b.placement {
+                        crate::roles::Placement::BelowWindow => "below-window",
+                        crate::roles::Placement::AboveWindow => "above-window",
+                        crate::roles::Placement::InWindow => "in-window",
+                    }
+                    .to_owned(),
                 })
                 .collect(),
         },

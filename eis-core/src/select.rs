@@ -16,6 +16,13 @@
 //!
 //! 18 members in all ([`family`]). Arcs are numbered from the fastest (highest frequency) to the slowest.
 //!
+//! For cells with porous electrodes and diffusion that goes on below the lowest frequency,
+//! [`physics_family`] adds 8 members (on by default, [`SelectOptions::with_physics`]): a tail in
+//! series after the arcs, `Wd` (semi-infinite Warburg) or `Wrd` (reflective), on 2 arcs, a reflective
+//! tail on 3 arcs, and two porous electrodes `Pe1 + Pe2` with a Warburg tail, each without / with
+//! inductance: `R0 + Pe1 + Pe2 + Wd`. They are skipped when −Z″ does not rise over the three lowest
+//! frequencies (no tail to describe).
+//!
 //! # Selection
 //!
 //! 1. A DRT of the spectrum (automatic λ by GCV; with an inductance term when some point has a positive
@@ -34,6 +41,11 @@
 //!    - tier 3: residuals that follow a trend (runs test, [`crate::fit::FitResult::systematic_residuals`]):
 //!      the model misses a feature of the spectrum;
 //!    - tier 4: the fit did not converge.
+//!
+//!    A candidate whose decomposition is physically implausible ([`crate::roles::implausible`]: a
+//!    kinetic arc or porous interface beyond the measured window, a kinetic arc fitted by a diffusion
+//!    element, a diffusion pseudo-capacitance in a Randles arc) is **rejected**, ranked after every
+//!    other candidate, when a plausible converged candidate reaches at most 20 times its χ².
 //!
 //!    The first candidate is the winner; each candidate carries the reason for its place.
 //!
@@ -79,15 +91,46 @@ impl Diffusion {
     }
 }
 
+/// A diffusion tail in series after the arcs: the slow end of a cell whose diffusion still rises at
+/// the lowest measured frequency.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Tail {
+    /// No tail.
+    #[default]
+    None,
+    /// Semi-infinite Warburg `Wd` in series.
+    Warburg,
+    /// Reflective finite diffusion `Wrd` in series (a blocking end: the tail turns capacitive).
+    Reflective,
+}
+
+impl Tail {
+    /// The word used in outputs: `none`, `warburg`, `reflective`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Tail::None => "none",
+            Tail::Warburg => "warburg",
+            Tail::Reflective => "reflective",
+        }
+    }
+}
+
 /// One member of the family.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Member {
-    /// Number of arcs, 1 to 3.
+    /// Number of arcs (or porous electrodes), 1 to 3.
     pub arcs: usize,
     /// Diffusion in the last arc's resistive branch.
     pub diffusion: Diffusion,
     /// Series inductance `L0`.
     pub inductance: bool,
+    /// A diffusion tail in series after the arcs.
+    #[serde(default)]
+    pub tail: Tail,
+    /// The arcs are porous electrodes (uniform transmission lines `Pe`) instead of `R|Q`.
+    #[serde(default)]
+    pub porous: bool,
 }
 
 impl Member {
@@ -99,6 +142,10 @@ impl Member {
         }
         parts.push("R0".to_owned());
         for k in 1..=self.arcs {
+            if self.porous {
+                parts.push(format!("Pe{k}"));
+                continue;
+            }
             let w = match self.diffusion {
                 Diffusion::Transmissive if k == self.arcs => Some("Wtd"),
                 Diffusion::Reflective if k == self.arcs => Some("Wrd"),
@@ -109,9 +156,18 @@ impl Member {
                 None => format!("R{k}|Q{k}"),
             });
         }
+        match self.tail {
+            Tail::None => {}
+            Tail::Warburg => parts.push("Wd".to_owned()),
+            Tail::Reflective => parts.push("Wrd".to_owned()),
+        }
         let mut text = parts.join(" + ");
         for k in 1..=self.arcs {
-            text.push_str(&format!("\nQ{k}.n = 0.5..1"));
+            if self.porous {
+                text.push_str(&format!("\nPe{k}.n = 0.5..1"));
+            } else {
+                text.push_str(&format!("\nQ{k}.n = 0.5..1"));
+            }
         }
         text
     }
@@ -123,9 +179,19 @@ impl Member {
 
     /// A short label, e.g. `2 arcs + transmissive diffusion + inductance`.
     pub fn label(&self) -> String {
-        let mut s = format!("{} arc{}", self.arcs, if self.arcs == 1 { "" } else { "s" });
+        let plural = if self.arcs == 1 { "" } else { "s" };
+        let mut s = if self.porous {
+            format!("{} porous electrode{plural}", self.arcs)
+        } else {
+            format!("{} arc{plural}", self.arcs)
+        };
         if self.diffusion != Diffusion::None {
             s.push_str(&format!(" + {} diffusion", self.diffusion.as_str()));
+        }
+        match self.tail {
+            Tail::None => {}
+            Tail::Warburg => s.push_str(" + Warburg tail"),
+            Tail::Reflective => s.push_str(" + reflective tail"),
         }
         if self.inductance {
             s.push_str(" + inductance");
@@ -149,8 +215,35 @@ pub fn family() -> Vec<Member> {
                     arcs,
                     diffusion,
                     inductance,
+                    tail: Tail::None,
+                    porous: false,
                 });
             }
+        }
+    }
+    out
+}
+
+/// The members for cells with porous electrodes and a diffusion tail still rising at the lowest
+/// frequency (tried besides [`family`] when [`SelectOptions::physics`] is on): 2 arcs followed by a
+/// Warburg or a reflective tail, 3 arcs followed by a reflective tail, and two porous electrodes (one per electrode of a cell) followed by a
+/// Warburg tail, without / with inductance. Kept small: each member costs a fit per spectrum.
+pub fn physics_family() -> Vec<Member> {
+    let mut out = Vec::new();
+    for inductance in [false, true] {
+        for (arcs, porous, tail) in [
+            (2, false, Tail::Warburg),
+            (2, false, Tail::Reflective),
+            (3, false, Tail::Reflective),
+            (2, true, Tail::Warburg),
+        ] {
+            out.push(Member {
+                arcs,
+                diffusion: Diffusion::None,
+                inductance,
+                tail,
+                porous,
+            });
         }
     }
     out
@@ -167,6 +260,8 @@ pub struct SelectOptions {
     pub prune: bool,
     /// Fit candidates on several threads. Default true.
     pub parallel: bool,
+    /// Also try the members of [`physics_family`] (porous electrodes, diffusion tails). Default true.
+    pub physics: bool,
 }
 
 impl Default for SelectOptions {
@@ -175,6 +270,7 @@ impl Default for SelectOptions {
             fit: FitSettings::default().with_starts(3).with_arc_moves(false),
             prune: true,
             parallel: true,
+            physics: true,
         }
     }
 }
@@ -188,6 +284,11 @@ impl SelectOptions {
     /// Enables or disables pruning of the family.
     pub fn with_prune(mut self, on: bool) -> Self {
         self.prune = on;
+        self
+    }
+    /// Enables or disables the members of [`physics_family`].
+    pub fn with_physics(mut self, on: bool) -> Self {
+        self.physics = on;
         self
     }
     /// Enables or disables fitting on several threads.
@@ -219,6 +320,9 @@ pub struct Candidate {
     pub tier: Option<u8>,
     /// Place in the ranking from 1 (the winner); None when not fitted.
     pub rank: Option<usize>,
+    /// Whether its decomposition was rejected as implausible (a process beyond the data, a kinetic arc
+    /// in a diffusion element) in favour of a plausible candidate of comparable χ².
+    pub rejected: bool,
     /// Why the candidate is where it is, or why it was skipped.
     pub reason: String,
 }
@@ -265,6 +369,15 @@ pub struct CandidateEntry {
     pub diffusion: Diffusion,
     /// Series inductance.
     pub inductance: bool,
+    /// Diffusion tail in series: `none`, `warburg` or `reflective`.
+    #[serde(default)]
+    pub tail: Tail,
+    /// Whether the arcs are porous electrodes.
+    #[serde(default)]
+    pub porous: bool,
+    /// Whether the decomposition was rejected as implausible.
+    #[serde(default)]
+    pub rejected: bool,
     /// Whether the member was fitted.
     pub fitted: bool,
     /// Number of free parameters.
@@ -298,6 +411,9 @@ impl From<&Candidate> for CandidateEntry {
             arcs: c.member.arcs,
             diffusion: c.member.diffusion,
             inductance: c.member.inductance,
+            tail: c.member.tail,
+            porous: c.member.porous,
+            rejected: c.rejected,
             fitted: r.is_some(),
             parameters: c.circuit.params.iter().filter(|p| !p.fixed).count(),
             bic: r.map(|r| r.bic),
@@ -315,6 +431,10 @@ impl From<&Candidate> for CandidateEntry {
 
 /// Relative standard error above which a parameter counts as not determined (as in the fit's warnings).
 const UNDETERMINED: f64 = 1.0;
+/// An implausible decomposition is rejected when a plausible candidate's χ² is at most this many
+/// times its own: a physically wrong reading is not worth less than a √20 ≈ 4.5-fold gain in rms
+/// residual (a judgement, not a statistical test).
+const COMPARABLE_CHI_SQUARE: f64 = 20.0;
 /// Z″/|Z| above which a point is clearly inductive.
 const CLEARLY_INDUCTIVE: f64 = 0.05;
 
@@ -336,12 +456,22 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         None
     };
     let peaks = seed.as_ref().map(|d| d.peaks.len());
+    let rising = tail_rising(spectrum);
 
-    let mut candidates: Vec<Candidate> = family()
+    let mut members = family();
+    if options.physics {
+        members.extend(physics_family());
+    }
+    let mut candidates: Vec<Candidate> = members
         .into_iter()
         .map(|member| {
             let skip = if !options.prune {
                 None
+            } else if member.tail != Tail::None && !rising {
+                Some(
+                    "skipped: -Z'' does not rise towards the lowest frequencies, so no tail"
+                        .to_owned(),
+                )
             } else if let Some(p) = peaks.filter(|&p| member.arcs > p + 1) {
                 Some(format!(
                     "skipped: the DRT shows {p} peak{}, too few for {} arcs",
@@ -361,6 +491,7 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
                 result: None,
                 tier: None,
                 rank: None,
+                rejected: false,
                 reason: skip.unwrap_or_default(),
             }
         })
@@ -431,9 +562,49 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         }));
     }
 
-    // Fitted candidates by (tier, BIC); the rest keep the family order.
+    // Decompositions that put a process beyond the data or a kinetic arc into a diffusion element,
+    // when a plausible candidate fits comparably.
+    let flaws: Vec<Option<String>> = candidates
+        .iter()
+        .map(|c| {
+            c.result
+                .as_ref()
+                .and_then(|r| crate::roles::implausible(&c.circuit, r))
+        })
+        .collect();
+    let mut rejected: Vec<Option<String>> = vec![None; candidates.len()];
+    for (i, c) in candidates.iter().enumerate() {
+        let (Some(flaw), Some(r)) = (&flaws[i], &c.result) else {
+            continue;
+        };
+        let better = candidates
+            .iter()
+            .zip(&flaws)
+            .filter(|(o, f)| f.is_none() && o.result.as_ref().is_some_and(|o| o.converged))
+            .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
+            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * r.chi_square)
+            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
+        if let Some((o, _)) = better {
+            rejected[i] = Some(format!(
+                "rejected: {flaw}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
+                o.member.label()
+            ));
+        }
+    }
+    for (c, why) in candidates.iter_mut().zip(rejected) {
+        if let Some(why) = why {
+            c.rejected = true;
+            c.reason = why;
+        }
+    }
+
+    // Fitted candidates by (rejected, tier, BIC); the rest keep the family order.
     candidates.sort_by(|a, b| match (&a.result, &b.result) {
-        (Some(ra), Some(rb)) => a.tier.cmp(&b.tier).then(ra.bic.total_cmp(&rb.bic)),
+        (Some(ra), Some(rb)) => a
+            .rejected
+            .cmp(&b.rejected)
+            .then(a.tier.cmp(&b.tier))
+            .then(ra.bic.total_cmp(&rb.bic)),
         (Some(_), None) => std::cmp::Ordering::Less,
         (None, Some(_)) => std::cmp::Ordering::Greater,
         (None, None) => std::cmp::Ordering::Equal,
@@ -445,6 +616,8 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         c.rank = Some(k + 1);
         let place = if k == 0 {
             "winner: best tier, lowest BIC in it".to_owned()
+        } else if c.rejected {
+            "ranks below every plausible candidate".to_owned()
         } else if c.tier == best_tier {
             format!("BIC {:.1} above the winner", r.bic - best_bic)
         } else {
@@ -456,6 +629,20 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         drt_peaks: peaks,
         candidates,
     })
+}
+
+/// Whether −Z″ rises towards the lowest frequencies (over the three lowest points): a diffusion tail
+/// that goes on beyond the data.
+fn tail_rising(s: &Spectrum) -> bool {
+    let mut pts: Vec<(f64, f64)> = s
+        .frequency_hz
+        .iter()
+        .zip(&s.z)
+        .filter(|(f, z)| f.is_finite() && z.im.is_finite())
+        .map(|(&f, z)| (f, -z.im))
+        .collect();
+    pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+    pts.len() >= 3 && pts[0].1 > pts[1].1 && pts[1].1 > pts[2].1 && pts[0].1 > 0.0
 }
 
 /// The tier of a fitted candidate and the reason in words.
@@ -507,7 +694,7 @@ pub struct AutoDocument {
 }
 
 /// The rule of [`select`] in one sentence, as reported in [`AutoDocument::selection_rule`].
-pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and determined parameters, 2 some parameter undetermined or at a bound, 3 residuals with a trend, 4 not converged), then lowest BIC within a tier";
+pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and determined parameters, 2 some parameter undetermined or at a bound, 3 residuals with a trend, 4 not converged), then lowest BIC within a tier; implausible decompositions (a kinetic process beyond the data or in a diffusion element) after the rest when a plausible candidate fits within 20x chi-square";
 
 /// Builds the document of a model choice from the winner's fit document.
 pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> AutoDocument {
@@ -522,6 +709,25 @@ pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_physics_family_has_eight_distinct_parseable_members() {
+        let f = physics_family();
+        assert_eq!(f.len(), 8);
+        let texts: std::collections::BTreeSet<String> =
+            f.iter().map(|m| m.circuit_text()).collect();
+        assert_eq!(texts.len(), 8);
+        assert!(family().iter().all(|m| !texts.contains(&m.circuit_text())));
+        for m in &f {
+            let c = m.circuit();
+            assert!(c.element_index("Wd").is_some() || c.element_index("Wrd").is_some());
+        }
+        let porous = f.iter().find(|m| m.porous && !m.inductance).unwrap();
+        assert_eq!(
+            porous.circuit_text().lines().next(),
+            Some("R0 + Pe1 + Pe2 + Wd")
+        );
+    }
 
     #[test]
     fn the_family_has_eighteen_distinct_parseable_members() {
@@ -540,7 +746,9 @@ mod tests {
             Member {
                 arcs: 2,
                 diffusion: Diffusion::Transmissive,
-                inductance: true
+                inductance: true,
+                tail: Tail::None,
+                porous: false,
             }
             .circuit_text()
             .lines()

@@ -44,7 +44,8 @@ fn auto_picks_the_simulated_circuit_and_lists_the_candidates() {
         Some("R0 + R1|Q1{n=0.5..1} + (R2 + Wtd)|Q2{n=0.5..1}")
     );
     let cands = doc["candidates"].as_array().unwrap();
-    assert_eq!(cands.len(), 18, "the whole family is listed");
+    // The 18 circuits of the classic family and the 8 porous-electrode and diffusion-tail members.
+    assert_eq!(cands.len(), 26, "the whole family is listed");
     let first = &cands[0];
     assert_eq!(first["rank"], 1);
     assert_eq!(first["arcs"], 2);
@@ -93,6 +94,19 @@ fn readable_report_shows_the_candidates_table() {
     );
     assert!(run.stdout.contains("2 arcs + transmissive diffusion"));
     assert!(run.stdout.contains("winner"));
+    // Skipped candidates take one line per reason, not one row each.
+    assert!(
+        run.stdout.contains(
+            "candidates skipped: no point has a positive imaginary part, so no inductance"
+        ),
+        "{}",
+        run.stdout
+    );
+    assert!(
+        !run.stdout.contains("2 arcs + inductance "),
+        "{}",
+        run.stdout
+    );
 }
 
 #[test]

@@ -28,7 +28,8 @@ pub struct Args {
     /// Spectrum file.
     input: PathBuf,
     /// Circuit file (.circ), inline expression, or `auto` to choose among 1-3 arcs with or without
-    /// finite diffusion and series inductance (ranked by BIC and a residual check).
+    /// finite diffusion, diffusion tails, porous electrodes and series inductance (ranked by BIC and a
+    /// residual check; implausible decompositions rejected).
     #[arg(long, short)]
     model: String,
     /// Which spectrum of the file, from 1.
@@ -259,6 +260,7 @@ fn candidates_table(sel: &Selection) -> String {
     let entries = sel.entries();
     let rows: Vec<Vec<String>> = entries
         .iter()
+        .filter(|e| e.fitted)
         .map(|e| {
             let num = |v: Option<f64>| v.map_or("-".to_owned(), |v| format!("{v:.1}"));
             vec![
@@ -297,6 +299,21 @@ fn candidates_table(sel: &Selection) -> String {
     {
         let _ = writeln!(out, "  {line}");
     }
+    // Skipped candidates on one line per reason.
+    let mut reasons: Vec<(&str, usize)> = Vec::new();
+    for e in entries.iter().filter(|e| !e.fitted) {
+        match reasons.iter_mut().find(|(r, _)| *r == e.reason) {
+            Some((_, n)) => *n += 1,
+            None => reasons.push((&e.reason, 1)),
+        }
+    }
+    for (reason, n) in reasons {
+        let _ = writeln!(
+            out,
+            "  {n} candidate{} {reason}",
+            if n == 1 { "" } else { "s" }
+        );
+    }
     out
 }
 
@@ -324,6 +341,16 @@ fn fitted_csv(s: &Spectrum, r: &FitResult) -> String {
         );
     }
     out
+}
+
+/// A relative error in percent, `> 1000 %` above ten (a parameter collapsing to 1e-261 would print
+/// hundreds of digits).
+fn relative_percent(r: f64) -> String {
+    if r > 10.0 || !r.is_finite() {
+        "> 1000 %".to_owned()
+    } else {
+        format!("{:.2} %", 100.0 * r)
+    }
 }
 
 /// The readable report.
@@ -357,7 +384,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
                     with_error(p.value, p.stderr)
                 },
                 p.relative_error
-                    .map(|r| format!("{:.2} %", 100.0 * r))
+                    .map(relative_percent)
                     .unwrap_or_else(|| "-".into()),
                 p.unit.clone(),
                 if p.at_bound {
@@ -389,6 +416,14 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
             row.unit_ascii,
         );
     }
+    for t in &d.diffusion_tails {
+        push(
+            &format!("diffusion resistance of {}, at least", t.element),
+            t.resistance_at_least_ohm,
+            t.resistance_at_least_ohm_stderr,
+            "Ohm",
+        );
+    }
     if let Some(sc) = &doc.short_circuit {
         push(
             "short-circuit current (estimate)",
@@ -412,6 +447,40 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
     if doc.derived.value(QuantityKey::Dc).is_none() {
         out.push_str("  (no finite DC resistance: the model blocks direct current)\n");
     }
+    for t in &d.diffusion_tails {
+        let _ = writeln!(
+            out,
+            "  ({} still rises at the lowest frequency: its resistance and time constant are not \
+             determined, only its Warburg coefficient and a lower bound)",
+            t.element
+        );
+    }
+    if !d.beyond_data.is_empty() {
+        let names: Vec<String> = d
+            .beyond_data
+            .iter()
+            .map(|b| {
+                let side = if b.placement == "below-window" {
+                    "below"
+                } else {
+                    "above"
+                };
+                match b.frequency_hz {
+                    Some(f) => format!(
+                        "{} ({}, {side} the window)",
+                        b.process,
+                        quantity(f, 3, "Hz")
+                    ),
+                    None => format!("{} ({side} the window)", b.process),
+                }
+            })
+            .collect();
+        let _ = writeln!(
+            out,
+            "  beyond the data, summed into no resistance above: {}",
+            names.join(", ")
+        );
+    }
     if !d.arcs.is_empty() {
         out.push_str("\narcs\n");
         let rows: Vec<Vec<String>> = d
@@ -425,7 +494,9 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
                     with_error(a.time_constant_s, a.time_constant_s_stderr),
                     with_error(a.peak_frequency_hz, a.peak_frequency_hz_stderr),
                     with_error(a.capacitance_f, a.capacitance_f_stderr),
-                    if a.determined {
+                    if a.beyond_data {
+                        "beyond the data".into()
+                    } else if a.determined {
                         String::new()
                     } else {
                         "NOT DETERMINED by the data".into()

@@ -62,6 +62,9 @@ pub enum Role {
     ChargeTransfer,
     /// A contact between active material and current collector (`contact`).
     Contact,
+    /// Diffusion or chemical storage seen as an arc (`diffusion`): its resistance counts as diffusion
+    /// resistance, not as charge transfer.
+    Diffusion,
     /// Any other process (`other`).
     Other,
 }
@@ -73,6 +76,7 @@ impl Role {
             Role::Film => "film",
             Role::ChargeTransfer => "charge-transfer",
             Role::Contact => "contact",
+            Role::Diffusion => "diffusion",
             Role::Other => "other",
         }
     }
@@ -83,6 +87,7 @@ impl Role {
             "film" => Role::Film,
             "charge-transfer" => Role::ChargeTransfer,
             "contact" => Role::Contact,
+            "diffusion" => Role::Diffusion,
             "other" => Role::Other,
             _ => return None,
         })

@@ -636,7 +636,9 @@ fn parse_role_line(
     match Role::from_word(word) {
         Some(r) => Ok((name.to_owned(), r)),
         None => bad(
-            format!("unknown role `{word}`; expected film, charge-transfer, contact or other"),
+            format!(
+                "unknown role `{word}`; expected film, charge-transfer, contact, diffusion or other"
+            ),
             word_span,
         ),
     }

@@ -298,6 +298,9 @@ pub struct FitResult {
     pub systematic_residuals: bool,
     /// Warnings, typed; their `Display` gives the words.
     pub warnings: Vec<FitWarning>,
+    /// The measured frequency window (lowest, highest) in Hz: what the data can tell about a process
+    /// depends on where its characteristic frequency lies against it.
+    pub window_hz: (f64, f64),
 }
 
 impl FitResult {

@@ -173,8 +173,8 @@ impl std::fmt::Display for FitWarning {
                 relative_error,
             } => write!(
                 f,
-                "{parameter} is not determined by these data (relative error {:.0} %)",
-                100.0 * relative_error
+                "{parameter} is not determined by these data (relative error {})",
+                percent_capped(*relative_error)
             ),
             FitWarning::SingularCovariance { parameters } => write!(
                 f,
@@ -207,8 +207,8 @@ impl std::fmt::Display for FitWarning {
                 relative_error,
             } => write!(
                 f,
-                "{parameter} is not determined by the chain (relative error {:.0} %)",
-                100.0 * relative_error
+                "{parameter} is not determined by the chain (relative error {})",
+                percent_capped(*relative_error)
             ),
             FitWarning::SingularJointCovariance => write!(
                 f,
@@ -354,6 +354,28 @@ fn eigen_inverse(ata: DMatrix<f64>) -> (DMatrix<f64>, Vec<bool>) {
     (inv, undetermined)
 }
 
+/// A relative error as a percentage, `> 1000 %` above ten: a parameter collapsing towards zero can
+/// have a relative error of 1e250, which printed in full is 250 digits.
+fn percent_capped(rel: f64) -> String {
+    if rel > 10.0 || !rel.is_finite() {
+        "> 1000 %".to_owned()
+    } else {
+        format!("{:.0} %", 100.0 * rel)
+    }
+}
+
+/// The (lowest, highest) frequency in Hz of a grid of angular frequencies; NaN when it is empty.
+fn window_hz(omega: &[f64]) -> (f64, f64) {
+    let to_hz = |w: f64| w / (2.0 * std::f64::consts::PI);
+    let lo = omega.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = omega.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if omega.is_empty() {
+        (f64::NAN, f64::NAN)
+    } else {
+        (to_hz(lo), to_hz(hi))
+    }
+}
+
 pub(super) fn summarise(s: Summary<'_>) -> FitResult {
     let c = s.circuit;
     let p = s.problem;
@@ -497,6 +519,7 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         weighting: s.weighting,
         systematic_residuals: systematic,
         warnings,
+        window_hz: window_hz(p.grid.omega()),
     }
 }
 
