@@ -452,7 +452,7 @@ fn the_drt_does_not_depend_on_the_scale_of_z() {
             let o = DrtOptions::default().with_weighting(weighting);
             let r = drt(&s, o).unwrap();
             let r0 = drt(&base, o).unwrap();
-            let what = "× {scale:e}, {weighting:?}";
+            let what = format!("× {scale:e}, {weighting:?}");
             crate::assert_close!(r.lambda, r0.lambda, 1e-9, "λ {what}");
             crate::assert_close!(r.r_inf_ohm / scale, r0.r_inf_ohm, 1e-6, "R∞ {what}");
             crate::assert_close!(r.r_pol_ohm / scale, r0.r_pol_ohm, 1e-6, "Rpol {what}");
@@ -691,7 +691,7 @@ fn physics_model_spectra_report_no_edge_peak_and_keep_the_interfacial_peaks() {
         }
         let r = &s["reference"];
         for electrode in ["negative", "positive"] {
-            let tau_dl = r["{electrode}_double_layer_time_constant_s"]
+            let tau_dl = r[format!("{electrode}_double_layer_time_constant_s")]
                 .as_f64()
                 .unwrap();
             assert!(
