@@ -27,7 +27,7 @@
 //! exact limit function (a rational function of the resistances).
 
 use crate::circuit::{Circuit, Node, Role};
-use crate::element::circuit_limit;
+use crate::element::{Class, circuit_limit};
 use crate::fit::FitResult;
 use crate::roles::{ArcFacts, BeyondData, DiffusionTail, Placement, classify, tail_values};
 use crate::trend::FlagKind;
@@ -341,12 +341,14 @@ fn find_arcs(c: &Circuit, node: &Node, out: &mut Vec<ArcShape>) {
                 let resistors: Vec<usize> = parts
                     .iter()
                     .filter_map(|n| match n {
-                        Node::Element(i) if c.elements[*i].kind.symbol == "R" => Some(*i),
+                        Node::Element(i) if c.elements[*i].kind.class == Class::Resistive => {
+                            Some(*i)
+                        }
                         _ => None,
                     })
                     .collect();
                 let with_diffusion = parts.iter().any(|n| {
-                    matches!(n, Node::Element(i) if matches!(c.elements[*i].kind.symbol, "W" | "Wt" | "Wr" | "G"))
+                    matches!(n, Node::Element(i) if c.elements[*i].kind.class == Class::Diffusive)
                 });
                 if resistors.len() == 1 {
                     out.push(ArcShape {
@@ -396,7 +398,8 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
                 stderr: delta(r, &[(ri, 1.0)]),
             };
             let (tau, tau_grad, cap, cap_grad): (f64, Gradient, f64, Gradient) =
-                if ce.kind.symbol == "C" {
+                // A capacitive element of one parameter is an ideal capacitor; a CPE has two (Q, n).
+                if ce.kind.params.len() == 1 {
                     let cv = p[ci];
                     (rv * cv, vec![(ri, cv), (ci, rv)], cv, vec![(ci, 1.0)])
                 } else {

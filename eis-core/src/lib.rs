@@ -70,7 +70,7 @@ pub mod element;
 pub mod eval;
 pub mod fit;
 pub mod import;
-pub mod nnls;
+pub(crate) mod nnls;
 pub mod number;
 pub mod output;
 pub mod report;

@@ -24,18 +24,11 @@
 //! (O(p²)); returning variables to the active set refactors (O(p³), rare). All scratch memory lives in
 //! [`NnlsWorkspace`], so repeated solves do not allocate.
 //!
-//! ```
-//! use eis_core::nnls::nnls;
-//! use nalgebra::{DMatrix, DVector};
-//! // Unconstrained, x = (2, −1); with x ≥ 0 the second variable sits at zero and the first takes
-//! // the least-squares value for the remaining column: x₁ = (a₁·b)/(a₁·a₁) = 3/2.
-//! let a = DMatrix::from_row_slice(3, 2, &[1.0, 0.0, 0.0, 1.0, 1.0, 1.0]);
-//! let b = DVector::from_column_slice(&[2.0, -1.0, 1.0]);
-//! let x = nnls(&a, &b).unwrap();
-//! assert!((x[0] - 1.5).abs() < 1e-12 && x[1] == 0.0);
-//! ```
+//! (A worked example is the test `worked_example_with_one_variable_at_zero`.)
 
-use nalgebra::{DMatrix, DVector};
+use nalgebra::DMatrix;
+#[cfg(test)]
+use nalgebra::DVector;
 use std::fmt;
 
 /// Why [`solve_normal`] stopped.
@@ -121,44 +114,6 @@ impl NnlsWorkspace {
             rhs: vec![0.0; n],
             order: Vec::with_capacity(n),
         }
-    }
-
-    /// Number of variables this workspace serves.
-    pub fn len(&self) -> usize {
-        self.n
-    }
-
-    /// Whether it serves no variables.
-    pub fn is_empty(&self) -> bool {
-        self.n == 0
-    }
-
-    /// The free variables after the last solve (those allowed above zero), in factor order.
-    pub fn free_set(&self) -> &[usize] {
-        &self.passive
-    }
-
-    /// tr(Q_PP⁻¹ G_PP) over the free set P of the last solve, using its Cholesky factor of Q_PP; with
-    /// Q = AᵀA + λM and G = AᵀA this is the trace of the influence ("hat") matrix of the solution
-    /// restricted to its free variables, as generalised cross-validation needs. Allocation-free.
-    ///
-    /// # Panics
-    ///
-    /// If `g` is not n×n.
-    pub fn trace_inverse_product(&mut self, g: &DMatrix<f64>) -> f64 {
-        assert_eq!(g.nrows(), self.n, "G rows");
-        assert_eq!(g.ncols(), self.n, "G columns");
-        let p = self.passive.len();
-        let mut trace = 0.0;
-        for k in 0..p {
-            // Column k of G_PP, solved through L Lᵀ; only the k-th entry of the solution is needed.
-            for (r, &i) in self.passive.iter().enumerate() {
-                self.rhs[r] = g[(i, self.passive[k])];
-            }
-            chol_solve(&self.chol, self.n, p, &mut self.rhs[..p]);
-            trace += self.rhs[k];
-        }
-        trace
     }
 
     /// Appends variable `j` to the free set, extending the Cholesky factor by one row. Returns false
@@ -391,6 +346,7 @@ fn report(termination: Termination, iterations: usize, ws: &NnlsWorkspace) -> Nn
     }
 }
 
+#[cfg(test)]
 /// NNLS for min ‖Ax − b‖², x ≥ 0 (forms AᵀA and Aᵀb and calls [`solve_normal`]; allocates).
 ///
 /// # Errors
@@ -414,6 +370,17 @@ pub fn nnls(a: &DMatrix<f64>, b: &DVector<f64>) -> Result<DVector<f64>, NnlsErro
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Unconstrained, x = (2, −1); with x ≥ 0 the second variable sits at zero and the first takes
+    /// the least-squares value for the remaining column: x₁ = (a₁·b)/(a₁·a₁) = 3/2 (Lawson & Hanson
+    /// 1974, *Solving Least Squares Problems*, ch. 23: the Kuhn–Tucker conditions of the solution).
+    #[test]
+    fn worked_example_with_one_variable_at_zero() {
+        let a = DMatrix::from_row_slice(3, 2, &[1.0, 0.0, 0.0, 1.0, 1.0, 1.0]);
+        let b = DVector::from_column_slice(&[2.0, -1.0, 1.0]);
+        let x = nnls(&a, &b).unwrap();
+        assert!((x[0] - 1.5).abs() < 1e-12 && x[1] == 0.0);
+    }
 
     fn solve(rows: usize, cols: usize, a: &[f64], b: &[f64]) -> DVector<f64> {
         nnls(

@@ -622,7 +622,7 @@ fn parse_role_line(
     let name_span = name_start..name_start + name.len().max(1);
     let word_span = word_start..word_start + word.len().max(1);
     match elements.iter().find(|e| e.name == name) {
-        Some(e) if e.kind.symbol == "R" => {}
+        Some(e) if e.kind.class == crate::element::Class::Resistive => {}
         Some(_) => {
             return bad(
                 format!("a role names the resistor of an arc; `{name}` is not a resistor"),

@@ -201,17 +201,8 @@ impl DrtSetup {
         })
     }
 
-    /// The options this setup was made with.
-    pub fn options(&self) -> DrtOptions {
-        self.options
-    }
-
-    /// The frequencies this setup was made for (Hz), in the given order.
-    pub fn frequency_hz(&self) -> &[f64] {
-        &self.frequency_hz
-    }
-
     /// The shape factor ε of the basis functions.
+    #[cfg(test)]
     pub fn epsilon(&self) -> f64 {
         self.epsilon
     }

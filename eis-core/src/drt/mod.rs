@@ -19,7 +19,7 @@
 //! min ‖W(Z − A x)‖² + λ·xᵀMx subject to x ≥ 0, over x = (R∞, L, 1/C, coefficients), real and
 //! imaginary parts stacked (or one part only, [`Part`]). M is the Gram matrix of the first or second
 //! derivatives of the basis functions ([`Penalty`]); it does not touch R∞, L or 1/C. The solver is the Lawson–Hanson
-//! active-set method on the normal equations ([`crate::nnls`]).
+//! active-set method on the normal equations (the crate's `nnls` module; Lawson & Hanson 1974).
 //!
 //! The problem is made scale-free before solving, so that one λ means the same for a 10 mΩ cell and a
 //! 10 kΩ coating: the residual of each point is divided by |Z_i| ([`Weighting::Modulus`], the default)
@@ -71,7 +71,9 @@ pub mod peaks;
 #[cfg(test)]
 mod tests;
 
-pub use basis::{DrtSetup, gaussian_gram};
+pub use basis::DrtSetup;
+#[cfg(test)]
+pub(crate) use basis::gaussian_gram;
 pub use options::{DrtOptions, LambdaMethod, Part, Penalty, Weighting};
 pub use peaks::{DEFAULT_PEAK_THRESHOLD, EDGE_MARGIN_DECADES, find_peaks, peak_indices};
 
