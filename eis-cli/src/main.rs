@@ -66,12 +66,6 @@ fn run(command: Command) -> io::Outcome {
     }
 }
 
-/// Runs a command line from inside the program (the demo chains commands this way).
-pub(crate) fn dispatch(args: &[String]) -> io::Outcome {
-    let cli = Cli::try_parse_from(args).map_err(|e| io::bad(anyhow::anyhow!("{e}")))?;
-    run(cli.command)
-}
-
 fn main() -> ExitCode {
     match run(Cli::parse().command) {
         Ok(code) => code,

@@ -469,3 +469,38 @@ fn batch_bad_usage_exits_2() {
     let run = eis(&dir, &["trend", "missing.csv"]).expect_code(2);
     assert!(run.stderr.contains("missing.csv"), "{}", run.stderr);
 }
+
+/// The demo fits the lead inductance once per cell (a property of the cell and its fixture, not of a
+/// state of charge; common practice) and reports identifiability grouped over the campaign instead
+/// of one warning row per fit (issue 16).
+#[test]
+fn demo_shares_the_lead_inductance_and_groups_its_advice() {
+    let dir = scratch("demo-shared");
+    let run = eis(&dir, &["demo", "--out", "d"]).expect_code(0);
+    assert!(
+        run.stdout.contains("Lead inductance, fitted jointly"),
+        "{}",
+        run.stdout
+    );
+    assert!(run.stdout.contains("strongly correlated in"), "{}", run.stdout);
+    let report = std::fs::read_to_string(dir.join("d/results/report.html")).unwrap();
+    assert!(report.contains("Parameters shared along chains"));
+    assert!(report.contains("<h2>Identifiability</h2>"));
+    assert!(!report.contains("Fits with warnings"), "no per-fit warning rows");
+    // One row per spectrum; within a cell, every row carries the same L0.
+    let mut rdr = csv::Reader::from_path(dir.join("d/results/results.csv")).unwrap();
+    let header = rdr.headers().unwrap().clone();
+    let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+    let (cell, l0, shared) = (col("cell"), col("L0"), col("shared"));
+    let mut per_cell: std::collections::BTreeMap<String, f64> = Default::default();
+    for row in rdr.records().map(Result::unwrap) {
+        if row[shared].is_empty() {
+            continue; // the unreadable file's row
+        }
+        assert_eq!(&row[shared], "L0");
+        let v: f64 = row[l0].parse().unwrap();
+        let first = *per_cell.entry(row[cell].to_owned()).or_insert(v);
+        assert_eq!(first, v, "cell {}: one L0", &row[cell]);
+    }
+    assert_eq!(per_cell.len(), 5);
+}

@@ -217,36 +217,16 @@ fn write_trend_plots(results: &Path, dir: &Path) -> Result<(), Failure> {
     Ok(())
 }
 
-/// Runs the command.
-pub fn run(args: Args) -> Outcome {
-    let circuit = load_model(&args.model)?;
-    let inputs = expand(&args.inputs)?;
-    let share = if args.share.is_empty() {
-        None
-    } else {
-        // Names checked here, so that a typo is a usage error before any work.
-        shared_indices(&circuit, &args.share).map_err(bad)?;
-        Some(Share {
-            names: args.share.iter().map(|n| n.trim().to_owned()).collect(),
-            by: match args.share_by {
-                ShareBy::CellSoc => ChainBy::CellAndSoc,
-                ShareBy::Cell => ChainBy::Cell,
-            },
-        })
-    };
-    let settings = BatchSettings {
-        fit: FitSettings::default().with_weighting(Weighting::from(args.weight)),
-        warm_start: !args.no_warm_start,
-        reader: args.reader.options()?,
-        share,
-        ..BatchSettings::default()
-    };
-    if let Some(j) = args.jobs {
-        // Only the first call in a process can set the global pool; a second one is harmless.
-        let _ = rayon::ThreadPoolBuilder::new()
-            .num_threads(j as usize)
-            .build_global();
-    }
+/// Checks and fits every spectrum of `inputs` into `out` with a progress line on a terminal, and
+/// prints the summary (what `eis batch` does before its trend plots and report; the demo calls it
+/// directly). A usage problem (output folder, settings of earlier results) is `Failure::BadInput`.
+pub fn execute(
+    inputs: &[PathBuf],
+    circuit: &eis_core::Circuit,
+    settings: &BatchSettings,
+    out: &Path,
+    resume: Resume,
+) -> Result<eis_core::campaign::Summary, Failure> {
     // A progress line on a terminal only: a log file or a pipe gets the summary alone.
     let bar = if std::io::stderr().is_terminal() {
         ProgressBar::new(0)
@@ -276,12 +256,7 @@ pub fn run(args: Args) -> Outcome {
         }
         bar.set_position(done as u64);
     };
-    let resume = match (args.resume, args.force) {
-        (false, _) => Resume::No,
-        (true, false) => Resume::Yes,
-        (true, true) => Resume::YesOrRestart,
-    };
-    let summary = run_batch(&inputs, &circuit, &settings, &args.out, resume, &progress);
+    let summary = run_batch(inputs, circuit, settings, out, resume, &progress);
     bar.finish_and_clear();
     let summary = summary.map_err(|e| match e {
         BatchError::OverwritesInput(_) | BatchError::NotAFolder(_) => bad(anyhow!("{e}")),
@@ -317,9 +292,48 @@ pub fn run(args: Args) -> Outcome {
     );
     eprintln!(
         "results: {} and {}",
-        args.out.join("results.csv").display(),
-        args.out.join("results.jsonl").display()
+        out.join("results.csv").display(),
+        out.join("results.jsonl").display()
     );
+    Ok(summary)
+}
+
+/// Runs the command.
+pub fn run(args: Args) -> Outcome {
+    let circuit = load_model(&args.model)?;
+    let inputs = expand(&args.inputs)?;
+    let share = if args.share.is_empty() {
+        None
+    } else {
+        // Names checked here, so that a typo is a usage error before any work.
+        shared_indices(&circuit, &args.share).map_err(bad)?;
+        Some(Share {
+            names: args.share.iter().map(|n| n.trim().to_owned()).collect(),
+            by: match args.share_by {
+                ShareBy::CellSoc => ChainBy::CellAndSoc,
+                ShareBy::Cell => ChainBy::Cell,
+            },
+        })
+    };
+    let settings = BatchSettings {
+        fit: FitSettings::default().with_weighting(Weighting::from(args.weight)),
+        warm_start: !args.no_warm_start,
+        reader: args.reader.options()?,
+        share,
+        ..BatchSettings::default()
+    };
+    if let Some(j) = args.jobs {
+        // Only the first call in a process can set the global pool; a second one is harmless.
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(j as usize)
+            .build_global();
+    }
+    let resume = match (args.resume, args.force) {
+        (false, _) => Resume::No,
+        (true, false) => Resume::Yes,
+        (true, true) => Resume::YesOrRestart,
+    };
+    let summary = execute(&inputs, &circuit, &settings, &args.out, resume)?;
     if let Some(dir) = &args.plot {
         let spinner = step("writing trend plots");
         let written = write_trend_plots(&args.out.join("results.csv"), dir);

@@ -57,7 +57,6 @@ pub fn run(args: Args) -> Outcome {
         raw.display(),
         model_path.display()
     );
-    let raw_s = raw.display().to_string();
     let model_s = model_path.display().to_string();
 
     step("2. converting every export to canonical CSV");
@@ -82,17 +81,31 @@ pub fn run(args: Args) -> Outcome {
     }
 
     step("3. checking (Kramers-Kronig) and fitting every spectrum");
-    crate::dispatch(&[
-        "eis".into(),
-        "batch".into(),
-        raw_s.clone(),
-        "--model".into(),
-        model_s.clone(),
-        "--out".into(),
-        results.display().to_string(),
-        "--name-pattern".into(),
-        scenario::NAME_PATTERN.into(),
-    ])?;
+    // The lead inductance belongs to the cell and its fixture, not to a state of charge or a cycle: it
+    // is fitted once per cell, jointly over all its spectra (`eis batch --share L0 --share-by cell`).
+    let settings = eis_core::campaign::BatchSettings {
+        reader: reader.clone(),
+        share: Some(eis_core::campaign::Share {
+            names: vec!["L0".to_owned()],
+            by: eis_core::campaign::ChainBy::Cell,
+        }),
+        ..eis_core::campaign::BatchSettings::default()
+    };
+    let summary = crate::commands::batch::execute(
+        &exports,
+        &load_model(&model_s)?,
+        &settings,
+        &results,
+        eis_core::campaign::Resume::No,
+    )?;
+    // One corrupt file and one drifting spectrum are planted; more failures are a fault of the tool.
+    if summary.failed > 1 {
+        return Err(Failure::Failed(anyhow!(
+            "the demo batch failed on {} spectra (one is planted); see {}",
+            summary.failed,
+            results.join("results.csv").display()
+        )));
+    }
 
     step("4. trends over cycles");
     let trend = crate::commands::trend::analyse_file(
@@ -285,6 +298,45 @@ pub fn run(args: Args) -> Outcome {
                 .map(eis_core::number::format_float)
                 .unwrap_or_else(|| "?".into())
         );
+    }
+    // The shared lead inductance, one value per cell (the same on every row of the cell).
+    let mut shared: Vec<(String, String)> = Vec::new();
+    for r in &docs {
+        let cell = r
+            .metadata
+            .get("cell")
+            .map(|v| v.to_string())
+            .unwrap_or_default();
+        let l0 = r
+            .fit
+            .as_ref()
+            .and_then(|f| f.parameters.iter().find(|p| p.name == "L0"));
+        if let (false, Some(p)) = (shared.iter().any(|(c, _)| *c == cell), l0) {
+            if r.shared.iter().any(|n| n == "L0") {
+                let nano = |x: f64| x * 1e9;
+                let v = crate::format::with_error_plain(nano(p.value), p.stderr.map(nano));
+                shared.push((cell, v + " nH"));
+            }
+        }
+    }
+    if !shared.is_empty() {
+        let _ = writeln!(
+            o,
+            "\nLead inductance, fitted jointly over each cell's spectra (--share L0 --share-by cell):"
+        );
+        for (cell, v) in &shared {
+            let _ = writeln!(o, "    {cell}: {v}");
+        }
+    }
+    let advice = eis_core::campaign::advice(&docs);
+    if !advice.is_empty() {
+        let _ = writeln!(
+            o,
+            "\nWhat the data can and cannot tell (grouped over the campaign):"
+        );
+        for a in &advice {
+            let _ = writeln!(o, "    {a}");
+        }
     }
     let _ = writeln!(o, "\nWhere everything is");
     let _ = writeln!(o, "  export files:        {}", raw.display());

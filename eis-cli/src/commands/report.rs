@@ -3,7 +3,7 @@
 //! warnings, failed files, trend plots, a table per cell and Nyquist overlays per cell.
 
 use crate::commands::trend::{analyse_file, default_quantities};
-use crate::format::quantity;
+use crate::format::{quantity, with_error};
 use crate::io::{Failure, Outcome, bad, write_atomic};
 use crate::plot::build::{quantity_label, trend as trend_plot};
 use crate::plot::{Format, OverlayPlot, OverlaySpectrum, Plot, render};
@@ -221,28 +221,51 @@ pub fn write_report(
         }
         h.push_str("</ul>\n");
     }
-    h.push_str("<h2>Fits with warnings</h2>\n");
-    let warned: Vec<(&SpectrumResult, &eis_core::report::FitDocument)> = results
+    // Parameters fitted jointly along chains (`eis batch --share`): one value per chain.
+    let mut shared: Vec<(String, String, String)> = Vec::new();
+    for r in results.iter().filter(|r| !r.shared.is_empty()) {
+        let Some(f) = &r.fit else { continue };
+        for name in &r.shared {
+            if let Some(p) = f.parameters.iter().find(|p| &p.name == name) {
+                let value = format!("{} {}", with_error(p.value, p.stderr), p.unit);
+                let row = (cell_of(r), name.clone(), value);
+                if !shared.contains(&row) {
+                    shared.push(row);
+                }
+            }
+        }
+    }
+    if !shared.is_empty() {
+        h.push_str("<h2>Parameters shared along chains</h2>\n<p>Fitted jointly over all spectra of a chain (<code>eis batch --share</code>): one value per chain, with its standard error from the joint covariance.</p>\n<table><tr><th>cell</th><th>parameter</th><th>value</th></tr>\n");
+        for (cell, name, value) in &shared {
+            let _ = writeln!(
+                h,
+                "<tr><td>{}</td><td>{}</td><td>{}</td></tr>",
+                esc(cell),
+                esc(name),
+                esc(value)
+            );
+        }
+        h.push_str("</table>\n");
+    }
+    // Warnings that make a fit suspect (a bound, a trend in the residuals, a forced jump of arcs) per
+    // fit; the others (correlations, undetermined parameters) are grouped above.
+    h.push_str("<h2>Suspect fits</h2>\n");
+    let suspect: Vec<&SpectrumResult> = results
         .iter()
-        .filter_map(|r| {
-            r.fit
-                .as_ref()
-                .filter(|f| !f.warnings.is_empty())
-                .map(|f| (r, f))
-        })
+        .filter(|r| r.status == Status::Suspect && r.kk.as_ref().is_none_or(|k| k.valid))
         .collect();
-    if warned.is_empty() {
+    if suspect.is_empty() {
         h.push_str("<p>None.</p>\n");
     } else {
-        h.push_str("<table><tr><th>file</th><th>warnings</th></tr>\n");
-        for (r, f) in &warned {
-            let w = f.warnings.join("; ");
+        h.push_str("<table><tr><th>file</th><th>why</th></tr>\n");
+        for r in &suspect {
             let _ = writeln!(
                 h,
                 "<tr><td>{} #{}</td><td>{}</td></tr>",
                 esc(&r.file),
                 r.spectrum,
-                esc(&w)
+                esc(&r.message)
             );
         }
         h.push_str("</table>\n");
