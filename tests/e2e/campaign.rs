@@ -482,11 +482,18 @@ fn demo_shares_the_lead_inductance_and_groups_its_advice() {
         "{}",
         run.stdout
     );
-    assert!(run.stdout.contains("strongly correlated in"), "{}", run.stdout);
+    assert!(
+        run.stdout.contains("strongly correlated in"),
+        "{}",
+        run.stdout
+    );
     let report = std::fs::read_to_string(dir.join("d/results/report.html")).unwrap();
     assert!(report.contains("Parameters shared along chains"));
     assert!(report.contains("<h2>Identifiability</h2>"));
-    assert!(!report.contains("Fits with warnings"), "no per-fit warning rows");
+    assert!(
+        !report.contains("Fits with warnings"),
+        "no per-fit warning rows"
+    );
     // One row per spectrum; within a cell, every row carries the same L0.
     let mut rdr = csv::Reader::from_path(dir.join("d/results/results.csv")).unwrap();
     let header = rdr.headers().unwrap().clone();

@@ -1,11 +1,10 @@
 //! `eis batch`: check and fit every spectrum of a campaign.
 
-use crate::commands::fit::WeightArg;
 use crate::io::{Failure, Outcome, bad, load_model, step};
 use anyhow::anyhow;
 use eis_core::campaign::{BatchError, BatchSettings, ChainBy, Resume, Share, Stage, run_batch};
 use eis_core::fit::joint::shared_indices;
-use eis_core::fit::{FitSettings, Weighting};
+
 use indicatif::{ProgressBar, ProgressStyle};
 use std::collections::HashSet;
 use std::io::IsTerminal;
@@ -43,9 +42,8 @@ pub struct Args {
     /// Fit every spectrum from automatic starting values (no warm start from its neighbour).
     #[arg(long)]
     no_warm_start: bool,
-    /// Residual weighting.
-    #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
-    weight: WeightArg,
+    #[command(flatten)]
+    fit: crate::args::FitArgs,
     /// Fit each chain at once with these parameters common to all its spectra (comma-separated names,
     /// e.g. Q1.n,Q2.n,Wt1.tau) and the others per spectrum. A chain is the spectra of one cell at one
     /// SOC level, ordered by cycle (see --share-by). Rows stay one per spectrum; the shared values are
@@ -316,7 +314,7 @@ pub fn run(args: Args) -> Outcome {
         })
     };
     let settings = BatchSettings {
-        fit: FitSettings::default().with_weighting(Weighting::from(args.weight)),
+        fit: args.fit.settings(),
         warm_start: !args.no_warm_start,
         reader: args.reader.options()?,
         share,

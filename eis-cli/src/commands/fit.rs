@@ -4,7 +4,7 @@ use crate::format::{quantity, short, table, with_error, with_error_plain};
 use crate::io::{Failure, Outcome, apply_overrides, bad, load_model, read_spectra, write_output};
 use anyhow::anyhow;
 use eis_core::derive::{QUANTITIES, QuantityKey, SHORT_CIRCUIT_CAUTION, derive, short_circuit};
-use eis_core::fit::{FitError, FitResult, FitSettings, Weighting, fit};
+use eis_core::fit::{FitError, FitResult, fit};
 use eis_core::number::format_float;
 use eis_core::report::{FitDocument, document};
 use eis_core::select::{
@@ -35,9 +35,8 @@ pub struct Args {
     /// Which spectrum of the file, from 1.
     #[arg(allow_negative_numbers = true, long, value_name = "N", default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..))]
     spectrum: u32,
-    /// Residual weighting.
-    #[arg(long, value_enum, default_value_t = WeightArg::Modulus)]
-    weight: WeightArg,
+    #[command(flatten)]
+    fit: crate::args::FitArgs,
     /// Starting value, NAME=VALUE (repeatable).
     #[arg(long = "set", value_name = "NAME=VALUE")]
     set: Vec<String>,
@@ -53,9 +52,6 @@ pub struct Args {
     /// Open-circuit voltage (V, positive): adds estimated short-circuit current and matched-load power.
     #[arg(allow_negative_numbers = true, long, value_parser = crate::args::positive)]
     ocv: Option<f64>,
-    /// Number of grid starting points.
-    #[arg(allow_negative_numbers = true, long, default_value_t = 16, value_parser = clap::value_parser!(u32).range(1..=200))]
-    starts: u32,
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]
     json: bool,
@@ -67,30 +63,6 @@ pub struct Args {
     plot: Option<PathBuf>,
     #[command(flatten)]
     reader: crate::reader_args::ReaderArgs,
-}
-
-/// Residual weighting on the command line (shared by `fit` and `batch`).
-#[derive(Clone, Copy, clap::ValueEnum)]
-pub enum WeightArg {
-    /// 1/|Z| on both parts (default).
-    Modulus,
-    /// 1/|Z'| and 1/|Z''| separately.
-    Proportional,
-    /// No weighting.
-    Unit,
-    /// 1/sigma from the data's standard deviations.
-    Sigma,
-}
-
-impl From<WeightArg> for Weighting {
-    fn from(w: WeightArg) -> Weighting {
-        match w {
-            WeightArg::Modulus => Weighting::Modulus,
-            WeightArg::Proportional => Weighting::Proportional,
-            WeightArg::Unit => Weighting::Unit,
-            WeightArg::Sigma => Weighting::Sigma,
-        }
-    }
 }
 
 /// Builds the circuit with all command-line overrides applied.
@@ -141,9 +113,7 @@ pub fn run(args: Args) -> Outcome {
         }
         None => None,
     };
-    let settings = FitSettings::default()
-        .with_weighting(args.weight.into())
-        .with_starts(args.starts as usize);
+    let settings = args.fit.settings();
     let spinner = crate::io::step_for(spectrum.len(), "fitting");
     let result = fit(&circuit, &spectrum, &settings, warm.as_deref());
     spinner.finish_and_clear();
@@ -168,7 +138,7 @@ fn run_auto(args: Args) -> Outcome {
     }
     let spectrum = pick_spectrum(&args)?;
     let options = SelectOptions::default();
-    let options = options.with_fit(options.fit.with_weighting(args.weight.into()));
+    let options = options.with_fit(options.fit.with_weighting(args.fit.weight.into()));
     // Up to 18 candidate circuits are fitted: seconds on long spectra.
     let spinner = crate::io::step("choosing a model");
     let selection = select(&spectrum, &options);
