@@ -49,15 +49,16 @@
 //!
 //!    A lumped candidate with an arc of CPE exponent n ≤ [`DISTRIBUTED_EXPONENT`] draws a porous
 //!    electrode (45° branch, pore and interface together) as one arc, and its resistance mixes pore
-//!    resistance into the charge transfer: it is rejected the same way when a plausible porous
-//!    candidate reaches at most 20 times its χ².
+//!    resistance into the charge transfer: it is rejected the same way when a plausible converged
+//!    porous candidate reaches at most 20 times its χ².
 //!
 //!    "Its χ²" is at least the χ² of a fit off by [`MEASUREMENT_ACCURACY`] (0.5 %) at every point:
 //!    misfits below what a measurement resolves do not make a decomposition more credible (on
 //!    noise-free data a wrong decomposition can fit to 0.1 % and a right one to 1 %).
 //!
-//!    Porous members are fitted from the usual starts and from [`POROUS_STARTS`] starts; the plausible,
-//!    then converged, then lower-χ² of the two results is kept.
+//!    A porous member whose fit from the usual starts is implausible or did not converge is fitted
+//!    again from [`POROUS_STARTS`] starts; the plausible, then converged, then lower-χ² of the two
+//!    results is kept.
 //!
 //!    The first candidate is the winner; each candidate carries the reason for its place.
 //!
@@ -452,10 +453,9 @@ const COMPARABLE_CHI_SQUARE: f64 = 20.0;
 /// of about 0.1–1 % over most of their range, common practice). On noise-free or very clean data, χ²
 /// ratios between two fits both well below this level measure round-off-sized misfits, not physics.
 pub const MEASUREMENT_ACCURACY: f64 = 0.005;
-/// Grid starts of the porous members (the fit's default), whatever [`SelectOptions::fit`] says: a
-/// transmission line's rail and interface resistances both shape its one arc, so its χ² surface has a
-/// long shallow valley that three starts often miss (on the physics-model spectra of the tests, three
-/// starts leave χ² up to ten times above the sixteen-start optimum).
+/// Grid starts of a porous member's second fit (the fit's default), when its fit from the usual starts
+/// is implausible or did not converge: a transmission line's rail and interface resistances both
+/// shape its one arc, so its χ² surface has long shallow valleys that three starts can miss.
 pub const POROUS_STARTS: usize = 16;
 /// CPE exponent at or below which a lumped arc `Rk|Qk` draws a distributed response. A double layer
 /// on a real electrode has n ≈ 0.8–1 (common practice); the arc of a porous electrode, ionic rail and
@@ -531,23 +531,28 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
     let porous_fit = options
         .fit
         .with_starts(options.fit.starts.max(POROUS_STARTS));
-    // A porous member is fitted from the usual starts and from POROUS_STARTS; of the two results the
-    // plausible one, then the converged one, then the lower χ² is kept (more starts can reach a lower
-    // χ² by turning an interface into the solid diffusion below the window).
+    // A porous member whose fit from the usual starts is implausible or did not converge is fitted
+    // again from POROUS_STARTS starts; of the two results the plausible one, then the converged one,
+    // then the lower χ² is kept (more starts can also reach a lower χ² by turning an interface into
+    // the solid diffusion below the window, hence the comparison).
     let fit_one = |i: usize| {
         let c = &candidates[i];
         let run = |s: &FitSettings| fit_seeded(&c.circuit, spectrum, s, None, seed.as_ref());
+        let first = run(&options.fit);
         if !c.member.porous {
-            return run(&options.fit);
+            return first;
         }
-        match (run(&options.fit), run(&porous_fit)) {
+        let key = |r: &FitResult| {
+            (
+                crate::roles::implausible(&c.circuit, r).is_some(),
+                !r.converged,
+            )
+        };
+        if first.as_ref().is_ok_and(|a| key(a) == (false, false)) {
+            return first;
+        }
+        match (first, run(&porous_fit)) {
             (Ok(a), Ok(b)) => {
-                let key = |r: &FitResult| {
-                    (
-                        crate::roles::implausible(&c.circuit, r).is_some(),
-                        !r.converged,
-                    )
-                };
                 let b_first = key(&b)
                     .cmp(&key(&a))
                     .then(b.chi_square.total_cmp(&a.chi_square))
@@ -660,6 +665,7 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
             .iter()
             .zip(&flaws)
             .filter(|(o, f)| o.member.porous && f.is_none())
+            .filter(|(o, _)| o.result.as_ref().is_some_and(|or| or.converged))
             .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
             .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
             .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
