@@ -2,7 +2,7 @@
 //! diffusion, 0.3 % noise, seed 5): the winner, the candidates list in the JSON, the readable table, and
 //! bad input; and on a spectrum of a physics-based cell model written as CSV.
 
-use eis_tests::{eis, root, scratch};
+use eis_tests::{eis, physics_spectra, scratch, write_physics_csv};
 use serde_json::Value;
 
 const MODEL: &str = "R0 + R1|Q1 + (R2 + Wtd)|Q2";
@@ -125,26 +125,12 @@ fn auto_with_parameter_overrides_is_bad_input() {
 #[test]
 fn auto_reads_a_physics_model_spectrum_with_a_contact_resistance() {
     let dir = scratch("fit_auto_physics");
-    let text =
-        std::fs::read_to_string(root().join("tests/reference/physics_impedance_fixture.json"))
-            .unwrap();
-    let fixture: Value = serde_json::from_str(&text).unwrap();
-    let s = fixture["spectra"]
-        .as_array()
-        .unwrap()
+    let spectra = physics_spectra();
+    let s = spectra
         .iter()
         .find(|s| s["name"] == "dfn-chen2020-soc50-contact5m")
         .unwrap();
-    let mut csv = String::from("frequency_hz,z_real_ohm,z_imag_ohm\n");
-    let col = |k: &str| s[k].as_array().unwrap().clone();
-    for ((f, re), im) in col("frequency_hz")
-        .iter()
-        .zip(col("z_real_ohm"))
-        .zip(col("z_imag_ohm"))
-    {
-        csv.push_str(&format!("{f},{re},{im}\n"));
-    }
-    std::fs::write(dir.join("cell.csv"), csv).unwrap();
+    write_physics_csv(s, &dir, "cell.csv");
     let run = eis(&dir, &["fit", "cell.csv", "--model", "auto", "--json"]).expect_code(0);
     let doc: Value = serde_json::from_str(&run.stdout).unwrap();
     let model = s["reference"]["charge_transfer_resistance_ohm"]
