@@ -47,6 +47,19 @@
 //!    element, a diffusion pseudo-capacitance in a Randles arc) is **rejected**, ranked after every
 //!    other candidate, when a plausible converged candidate reaches at most 20 times its χ².
 //!
+//!    A lumped candidate with an arc of CPE exponent n ≤ [`DISTRIBUTED_EXPONENT`] draws a porous
+//!    electrode (45° branch, pore and interface together) as one arc, and its resistance mixes pore
+//!    resistance into the charge transfer: it is rejected the same way when a plausible converged
+//!    porous candidate reaches at most 20 times its χ².
+//!
+//!    "Its χ²" is at least the χ² of a fit off by [`MEASUREMENT_ACCURACY`] (0.5 %) at every point:
+//!    misfits below what a measurement resolves do not make a decomposition more credible (on
+//!    noise-free data a wrong decomposition can fit to 0.1 % and a right one to 1 %).
+//!
+//!    A porous member whose fit from the usual starts is implausible or did not converge is fitted
+//!    again from [`POROUS_STARTS`] starts; the plausible, then converged, then lower-χ² of the two
+//!    results is kept.
+//!
 //!    The first candidate is the winner; each candidate carries the reason for its place.
 //!
 //! ```
@@ -435,6 +448,21 @@ const UNDETERMINED: f64 = 1.0;
 /// times its own: a physically wrong reading is not worth less than a √20 ≈ 4.5-fold gain in rms
 /// residual (a judgement, not a statistical test).
 const COMPARABLE_CHI_SQUARE: f64 = 20.0;
+/// Relative accuracy of a measured impedance below which misfits are not told apart when candidates
+/// are compared for plausibility: 0.5 % of |Z| (impedance analysers and potentiostats state accuracies
+/// of about 0.1–1 % over most of their range, common practice). On noise-free or very clean data, χ²
+/// ratios between two fits both well below this level measure round-off-sized misfits, not physics.
+pub const MEASUREMENT_ACCURACY: f64 = 0.005;
+/// Grid starts of a porous member's second fit (the fit's default), when its fit from the usual starts
+/// is implausible or did not converge: a transmission line's rail and interface resistances both
+/// shape its one arc, so its χ² surface has long shallow valleys that three starts can miss.
+pub const POROUS_STARTS: usize = 16;
+/// CPE exponent at or below which a lumped arc `Rk|Qk` draws a distributed response. A double layer
+/// on a real electrode has n ≈ 0.8–1 (common practice); the arc of a porous electrode, ionic rail and
+/// interface together, has a 45° high-frequency branch (de Levie 1963, Electrochim. Acta 8, 751) that a
+/// single CPE can only follow with n near 0.5. Such an arc's resistance mixes the pore resistance
+/// (R_ion/3 at low frequency) into the charge transfer.
+pub const DISTRIBUTED_EXPONENT: f64 = 0.7;
 /// Z″/|Z| above which a point is clearly inductive.
 const CLEARLY_INDUCTIVE: f64 = 0.05;
 
@@ -500,14 +528,40 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
     let todo: Vec<usize> = (0..candidates.len())
         .filter(|&i| candidates[i].reason.is_empty())
         .collect();
+    let porous_fit = options
+        .fit
+        .with_starts(options.fit.starts.max(POROUS_STARTS));
+    // A porous member whose fit from the usual starts is implausible or did not converge is fitted
+    // again from POROUS_STARTS starts; of the two results the plausible one, then the converged one,
+    // then the lower χ² is kept (more starts can also reach a lower χ² by turning an interface into
+    // the solid diffusion below the window, hence the comparison).
     let fit_one = |i: usize| {
-        fit_seeded(
-            &candidates[i].circuit,
-            spectrum,
-            &options.fit,
-            None,
-            seed.as_ref(),
-        )
+        let c = &candidates[i];
+        let run = |s: &FitSettings| fit_seeded(&c.circuit, spectrum, s, None, seed.as_ref());
+        let first = run(&options.fit);
+        if !c.member.porous {
+            return first;
+        }
+        let key = |r: &FitResult| {
+            (
+                crate::roles::implausible(&c.circuit, r).is_some(),
+                !r.converged,
+            )
+        };
+        if first.as_ref().is_ok_and(|a| key(a) == (false, false)) {
+            return first;
+        }
+        match (first, run(&porous_fit)) {
+            (Ok(a), Ok(b)) => {
+                let b_first = key(&b)
+                    .cmp(&key(&a))
+                    .then(b.chi_square.total_cmp(&a.chi_square))
+                    .is_lt();
+                Ok(if b_first { b } else { a })
+            }
+            (Ok(a), Err(_)) => Ok(a),
+            (Err(_), b) => b,
+        }
     };
     let outcomes: Vec<(usize, Result<FitResult, FitError>)> = if options.parallel {
         let threads = std::thread::available_parallelism()
@@ -572,6 +626,12 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
                 .and_then(|r| crate::roles::implausible(&c.circuit, r))
         })
         .collect();
+    // χ² below what a measurement resolves cannot rank candidates: compare against at least the
+    // χ² of a fit off by MEASUREMENT_ACCURACY at every point.
+    let floor = |r: &FitResult| {
+        r.chi_square
+            .max(2.0 * spectrum.z.len() as f64 * MEASUREMENT_ACCURACY.powi(2))
+    };
     let mut rejected: Vec<Option<String>> = vec![None; candidates.len()];
     for (i, c) in candidates.iter().enumerate() {
         let (Some(flaw), Some(r)) = (&flaws[i], &c.result) else {
@@ -582,11 +642,36 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
             .zip(&flaws)
             .filter(|(o, f)| f.is_none() && o.result.as_ref().is_some_and(|o| o.converged))
             .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
-            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * r.chi_square)
+            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
             .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
         if let Some((o, _)) = better {
             rejected[i] = Some(format!(
                 "rejected: {flaw}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
+                o.member.label()
+            ));
+        }
+    }
+    // Lumped arcs drawing a distributed (porous-electrode) response, when a porous candidate that
+    // draws it as such fits comparably.
+    for (i, c) in candidates.iter().enumerate() {
+        if rejected[i].is_some() || c.member.porous {
+            continue;
+        }
+        let Some(r) = &c.result else { continue };
+        let Some(arc) = distributed_arc(&c.circuit, r) else {
+            continue;
+        };
+        let better = candidates
+            .iter()
+            .zip(&flaws)
+            .filter(|(o, f)| o.member.porous && f.is_none())
+            .filter(|(o, _)| o.result.as_ref().is_some_and(|or| or.converged))
+            .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
+            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
+            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
+        if let Some((o, _)) = better {
+            rejected[i] = Some(format!(
+                "rejected: {arc}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
                 o.member.label()
             ));
         }
@@ -629,6 +714,23 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         drt_peaks: peaks,
         candidates,
     })
+}
+
+/// The first lumped arc of `c` (fitted as `r`) whose CPE exponent is at most
+/// [`DISTRIBUTED_EXPONENT`], in words: a porous electrode read as one arc.
+fn distributed_arc(c: &Circuit, r: &FitResult) -> Option<String> {
+    c.elements
+        .iter()
+        .filter(|e| e.kind.symbol == "Q")
+        .find_map(|e| {
+            let n = *r.values.get(e.first_param + 1)?;
+            (n <= DISTRIBUTED_EXPONENT).then(|| {
+                format!(
+                    "its arc {} has n = {n:.2}, a distributed (porous-electrode) response read as one arc",
+                    e.name
+                )
+            })
+        })
 }
 
 /// Whether −Z″ rises towards the lowest frequencies (over the three lowest points): a diffusion tail
@@ -694,7 +796,7 @@ pub struct AutoDocument {
 }
 
 /// The rule of [`select`] in one sentence, as reported in [`AutoDocument::selection_rule`].
-pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and determined parameters, 2 some parameter undetermined or at a bound, 3 residuals with a trend, 4 not converged), then lowest BIC within a tier; implausible decompositions (a kinetic process beyond the data or in a diffusion element) after the rest when a plausible candidate fits within 20x chi-square";
+pub const SELECTION_RULE: &str = "tiers (1 converged with random residuals and determined parameters, 2 some parameter undetermined or at a bound, 3 residuals with a trend, 4 not converged), then lowest BIC within a tier; implausible decompositions (a kinetic process beyond the data or in a diffusion element; an arc with CPE exponent at most 0.7, a porous electrode read as one arc, when a porous candidate is plausible) after the rest when a plausible candidate fits within 20x chi-square, chi-square counted as at least that of a 0.5 % misfit at every point";
 
 /// Builds the document of a model choice from the winner's fit document.
 pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> AutoDocument {
@@ -755,6 +857,26 @@ mod tests {
             .next(),
             Some("L0 + R0 + R1|Q1 + (R2 + Wtd)|Q2")
         );
+    }
+
+    /// An arc drawn with n = 0.6 counts as distributed, one with n = 0.9 as lumped (the threshold
+    /// 0.7 between a double layer's n ≈ 0.8–1, common practice, and a porous electrode's 45° branch,
+    /// de Levie 1963, Electrochim. Acta 8, 751).
+    #[test]
+    fn an_arc_with_a_low_exponent_reads_as_distributed() {
+        use crate::eval::{Plan, log_frequencies};
+        use crate::simulate::simulate;
+        let c = parse("R0 + R1|Q1\nQ1.n = 0.5..1").unwrap();
+        for (n, distributed) in [(0.6, true), (0.9, false)] {
+            let data = simulate(
+                &Plan::compile(&c),
+                &[1.0, 10.0, 1e-3, n],
+                &log_frequencies(1e5, 1e-2, 8),
+                None,
+            );
+            let r = crate::fit::fit(&c, &data, &FitSettings::default(), None).unwrap();
+            assert_eq!(distributed_arc(&c, &r).is_some(), distributed, "n = {n}");
+        }
     }
 
     #[test]

@@ -163,26 +163,18 @@ fn two_porous_electrodes_read_every_spectrum() {
     }
 }
 
-/// Spectra on which auto still misreads the charge transfer (a kinetic arc fitted by the diffusion
-/// element of a Randles arc with no plausible candidate close enough, or the porous-branch arcs summed
-/// high): listed, not hidden; `pending_every_spectrum_within_20_percent` checks them.
-const MISREAD: [&str; 2] = [
-    "dfn-chen2020-soc50-contact5m",
-    "dfn-chen2020-soc50-kappax0.5",
-];
-
 fn within(r: &Reading, tol: f64) -> bool {
     (r.ct / r.reference_ct - 1.0).abs() <= tol
 }
 
 /// Reported charge-transfer resistance within 20 % of RT/(F·i0·a·L·A) summed over both electrodes
-/// (PyBaMM, Sulzer et al. 2021; DFN, Doyle, Fuller & Newman 1993; parameters of Chen et al. 2020 and
-/// Marquis et al. 2019), on every spectrum but the two listed in [`MISREAD`].
+/// (PyBaMM, Sulzer et al. 2021; DFN, Doyle, Fuller & Newman 1993; SPMe, Marquis et al. 2019;
+/// parameters of Chen et al. 2020 and Marquis et al. 2019), on every spectrum of the fixture.
 #[test]
 fn charge_transfer_within_20_percent_of_the_model() {
     let bad: Vec<String> = readings()
         .iter()
-        .filter(|r| !MISREAD.contains(&r.name.as_str()) && !within(r, 0.2))
+        .filter(|r| !within(r, 0.2))
         .map(|r| {
             format!(
                 "{} {:.2} vs {:.2} mOhm",
@@ -193,13 +185,6 @@ fn charge_transfer_within_20_percent_of_the_model() {
         })
         .collect();
     assert!(bad.is_empty(), "{bad:?}");
-}
-
-/// The same on every spectrum, the misread ones included: fails today (see [`MISREAD`]).
-#[test]
-#[ignore = "two Chen 2020 DFN variants are still misread by --model auto"]
-fn pending_every_spectrum_within_20_percent() {
-    assert!(readings().iter().all(|r| within(r, 0.2)));
 }
 
 /// An exchange current density scaled by 0.25 raises R_ct = RT/(F·i0·a·L·A) four-fold (Butler–Volmer

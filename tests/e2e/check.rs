@@ -1,7 +1,7 @@
 //! `eis check` (Kramers–Kronig, linear Voigt-series test of Schönleber, Klotz & Ivers-Tiffée 2014,
 //! Electrochim. Acta 131, 20–27) on spectra simulated here (issue 4).
 
-use eis_tests::{eis, read_canonical, root, scratch};
+use eis_tests::{eis, physics_spectra, read_canonical, root, scratch, write_physics_csv};
 
 fn simulate(dir: &std::path::Path, name: &str, circuit: &str, noise: &str) {
     let model = root().join("circuits").join(circuit);
@@ -181,12 +181,8 @@ fn a_very_long_spectrum_gets_a_note_on_its_cost() {
 #[test]
 fn issue_15_check_passes_physics_model_spectra() {
     let dir = scratch("check-physics");
-    let text =
-        std::fs::read_to_string(root().join("tests/reference/physics_impedance_fixture.json"))
-            .unwrap();
-    let doc: serde_json::Value = serde_json::from_str(&text).unwrap();
     let mut names = Vec::new();
-    for s in doc["spectra"].as_array().unwrap() {
+    for s in &physics_spectra() {
         let name = s["name"].as_str().unwrap();
         if ![
             "dfn-chen2020-soc20",
@@ -198,17 +194,8 @@ fn issue_15_check_passes_physics_model_spectra() {
         {
             continue;
         }
-        let mut csv = String::from("frequency_hz,z_real_ohm,z_imag_ohm\n");
-        let col = |k: &str| s[k].as_array().unwrap().clone();
-        for ((f, re), im) in col("frequency_hz")
-            .iter()
-            .zip(col("z_real_ohm"))
-            .zip(col("z_imag_ohm"))
-        {
-            csv.push_str(&format!("{f},{re},{im}\n"));
-        }
         let file = format!("{name}.csv");
-        std::fs::write(dir.join(&file), csv).unwrap();
+        write_physics_csv(s, &dir, &file);
         names.push(file);
     }
     assert_eq!(names.len(), 4);

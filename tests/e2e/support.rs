@@ -27,6 +27,29 @@ pub fn scratch(name: &str) -> PathBuf {
     dir
 }
 
+/// The spectra of the physics-model fixture (`tests/reference/physics_impedance_fixture.json`).
+pub fn physics_spectra() -> Vec<serde_json::Value> {
+    let text =
+        std::fs::read_to_string(root().join("tests/reference/physics_impedance_fixture.json"))
+            .expect("the physics fixture is committed");
+    let doc: serde_json::Value = serde_json::from_str(&text).expect("the physics fixture is JSON");
+    doc["spectra"].as_array().cloned().unwrap_or_default()
+}
+
+/// Writes spectrum `s` of the physics-model fixture to `dir/file` as a three-column CSV.
+pub fn write_physics_csv(s: &serde_json::Value, dir: &Path, file: &str) {
+    let mut csv = String::from("frequency_hz,z_real_ohm,z_imag_ohm\n");
+    let col = |k: &str| s[k].as_array().cloned().unwrap_or_default();
+    for ((f, re), im) in col("frequency_hz")
+        .iter()
+        .zip(col("z_real_ohm"))
+        .zip(col("z_imag_ohm"))
+    {
+        csv.push_str(&format!("{f},{re},{im}\n"));
+    }
+    std::fs::write(dir.join(file), csv).expect("write the CSV");
+}
+
 /// The result of one run of `eis`.
 #[derive(Debug)]
 pub struct Run {
