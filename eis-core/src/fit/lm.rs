@@ -22,6 +22,7 @@
 //! 8 parameters). The tests below run both from the same starts and require the same result.
 
 use super::reduce::{Core, norm};
+use crate::dense::dot;
 
 /// Why a run stopped.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -302,12 +303,6 @@ impl Solver {
             }
         }
     }
-}
-
-/// Σ aᵢbᵢ over equal-length slices.
-#[inline]
-fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(x, y)| x * y).sum()
 }
 
 /// ‖D·x‖.

@@ -649,17 +649,7 @@ fn fit_impl(
         )
     };
 
-    let mut evaluations = 0;
-    let mut tried = 0;
-    let mut best: Option<Run> = None;
-    let consider =
-        |run: Run, best: &mut Option<Run>, evaluations: &mut usize, tried: &mut usize| {
-            *evaluations += run.evaluations;
-            *tried += 1;
-            if best.as_ref().is_none_or(|b| run.chi_square < b.chi_square) {
-                *best = Some(run);
-            }
-        };
+    let mut search = start::Search::default();
 
     // A warm-started result is taken as it is unless it sits on a bound, its residuals trend, or its
     // reduced χ² is well above that of the fit it came from.
@@ -685,11 +675,13 @@ fn fit_impl(
                 s[i] = base[i];
             }
         }
-        let run = lm(&s);
-        consider(run, &mut best, &mut evaluations, &mut tried);
-        let b = best.as_ref().expect("just set");
-        if single || b.termination.was_successful() {
-            let result = conclude(b, evaluations, tried);
+        search.consider(lm(&s));
+        if let Some(b) = search
+            .best
+            .as_ref()
+            .filter(|b| single || b.termination.was_successful())
+        {
+            let result = conclude(b, search.evaluations, search.tried);
             if single || acceptable(&result) {
                 return Ok(result);
             }
@@ -700,18 +692,21 @@ fn fit_impl(
         // confirm it: that χ² is what this spectrum gives (a noisier spectrum), not the mark of a wrong
         // basin. Further above the reference only the full search is trusted.
         if let Some(t) = start::recognise(circuit) {
-            let warm_chi = best.as_ref().map_or(f64::INFINITY, |b| b.chi_square);
-            let warm_ok = best
+            let warm_chi = search.chi_square();
+            let warm_ok = search
+                .best
                 .as_ref()
                 .is_some_and(|b| b.termination.was_successful());
             for s in start::grid_starts(&ctx, &t, 3) {
-                consider(lm(&s), &mut best, &mut evaluations, &mut tried);
+                search.consider(lm(&s));
             }
-            let mut b = best.take().expect("runs were made");
+            let Some(mut b) = search.best.take() else {
+                return Err(FitError::NoFiniteStart);
+            };
             start::order_identical_arcs(&ctx, &t, &mut b.params);
             let confirmed = warm_ok && b.chi_square >= warm_chi * (1.0 - CONFIRM);
             if b.termination.was_successful() {
-                let result = conclude(&b, evaluations, tried);
+                let result = conclude(&b, search.evaluations, search.tried);
                 let near = settings
                     .warm_reference
                     .is_none_or(|reference| result.reduced_chi_square <= CONFIRM_RATIO * reference);
@@ -719,7 +714,7 @@ fn fit_impl(
                     return Ok(result);
                 }
             }
-            best = Some(b);
+            search.best = Some(b);
         }
     }
 
@@ -728,7 +723,7 @@ fn fit_impl(
         .iter()
         .all(|p| p.fixed || p.initial.is_some())
     {
-        consider(lm(&base), &mut best, &mut evaluations, &mut tried);
+        search.consider(lm(&base));
     }
     let terms = start::recognise(circuit);
     let starts = match &terms {
@@ -736,7 +731,7 @@ fn fit_impl(
         None => start::spread_starts(&ctx, 2 * settings.starts),
     };
     for s in &starts {
-        consider(screen(s), &mut best, &mut evaluations, &mut tried);
+        search.consider(screen(s));
     }
     if settings.drt_starts {
         if let Some(t) = &terms {
@@ -756,34 +751,36 @@ fn fit_impl(
             let template = starts.first().cloned().unwrap_or_else(|| base.clone());
             if let Some(d) = seed {
                 for s in &start::drt_starts(&ctx, t, d, &template, DRT_STARTS) {
-                    consider(screen(s), &mut best, &mut evaluations, &mut tried);
+                    search.consider(screen(s));
                 }
             }
         }
     }
     if settings.arc_moves {
-        if let (Some(t), Some(b)) = (&terms, &best) {
+        if let (Some(t), Some(b)) = (&terms, &search.best) {
             let before = b.chi_square;
             let moves = start::arc_moves(&ctx, t, &b.params);
             for s in &moves {
-                consider(screen(s), &mut best, &mut evaluations, &mut tried);
+                search.consider(screen(s));
             }
             // A move may have reached a new basin whose arcs are misassigned: swap once more.
-            if let Some(b) = best.as_ref().filter(|b| b.chi_square < before) {
+            if let Some(b) = search.best.as_ref().filter(|b| b.chi_square < before) {
                 let swaps = start::arc_swaps(&ctx, t, &b.params);
                 for s in &swaps {
-                    consider(screen(s), &mut best, &mut evaluations, &mut tried);
+                    search.consider(screen(s));
                 }
             }
         }
     }
-    let mut b = best.expect("at least one start was tried");
+    let Some(mut b) = search.best.take() else {
+        return Err(FitError::NoFiniteStart);
+    };
     if let Some(t) = &terms {
         start::order_identical_arcs(&ctx, t, &mut b.params);
     }
     // Polish the winner with tight tolerances so that noise-free data are met to round-off.
     let polish = run(&b.params, POLISH_TOLERANCE);
-    evaluations += polish.evaluations;
+    search.evaluations += polish.evaluations;
     if polish.chi_square <= b.chi_square {
         let iterations = b.iterations + polish.iterations;
         b = Run {
@@ -791,7 +788,7 @@ fn fit_impl(
             ..polish
         };
     }
-    Ok(conclude(&b, evaluations, tried))
+    Ok(conclude(&b, search.evaluations, search.tried))
 }
 
 #[allow(clippy::too_many_arguments)]
