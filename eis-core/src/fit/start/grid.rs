@@ -64,6 +64,10 @@ struct SlotInfo {
     before: Option<usize>,
     /// A plain arc (resistor and capacitive element only).
     plain: bool,
+    /// A semi-infinite Warburg element in the arc's resistive branch: a second column of the slot.
+    warburg: Option<usize>,
+    /// For a diffusion element in an arc's resistive branch, that arc's slot.
+    host: Option<usize>,
 }
 
 #[derive(Debug, Clone, Copy)]
@@ -71,6 +75,18 @@ enum Target {
     Arc { r: usize, cap: Cap },
     Diffusion { r: usize, tau: usize },
 }
+
+/// A column of the surrogate at one grid point: in the precomputed Gram matrix, or in the pair table
+/// of a hosted slot.
+#[derive(Debug, Clone, Copy)]
+enum Col {
+    Gram(usize),
+    Pair(usize, usize),
+}
+
+/// Coarse grid points refined per start asked for: the neighbourhoods of the best
+/// `REFINED_PER_START × count` coarse points are searched at half a decade.
+const REFINED_PER_START: usize = 4;
 
 /// Starting points for a recognised circuit, best first.
 pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Vec<Vec<f64>> {
@@ -111,6 +127,8 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
                 grid: diff_grid.clone(),
                 before: None,
                 plain: false,
+                warburg: None,
+                host: None,
             }),
             Term::Arc { .. } => unreachable!("arcs handled by the caller"),
         }
@@ -129,15 +147,31 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
                 } else {
                     None
                 };
+                // A Warburg element in the branch is shunted by the arc's capacitance: its column
+                // belongs to the arc's τ (below).
+                let warburg = inner.iter().find_map(|it| match it {
+                    Term::Warburg(w) => Some(*w),
+                    _ => None,
+                });
                 slots.push(SlotInfo {
                     slot,
                     target: Target::Arc { r: *r, cap: *cap },
                     grid: arc_grid.clone(),
                     before,
                     plain,
+                    warburg,
+                    host: None,
                 });
+                let arc_slot = slots.len() - 1;
                 for it in inner {
+                    if warburg.is_some() && matches!(it, Term::Warburg(w) if Some(*w) == warburg) {
+                        continue;
+                    }
+                    let before = slots.len();
                     push_term(it, &mut fixed_cols, &mut slots);
+                    for hosted in &mut slots[before..] {
+                        hosted.host = Some(arc_slot);
+                    }
                 }
             }
             other => push_term(other, &mut fixed_cols, &mut slots),
@@ -170,16 +204,65 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
         })
         .collect();
 
-    // All candidate columns, weighted: fixed columns first, then each slot's fine grid.
+    // All candidate columns, weighted: fixed columns first, then each slot's fine grid, `width` columns
+    // per grid point (the arc, and its shunted Warburg element when it has one).
+    //
+    // The shunted Warburg column: for an arc (R + W)|Y with (jωτ)ⁿ = R·Y, Z = (R + W)/(1 + RY + WY),
+    // whose derivative in W at W = 0 is 1/(1 + (jωτ)ⁿ)². So W/(1 + (jωτ)ⁿ)² is the Warburg element's
+    // share of the arc to first order: all of it below the apex, none well above it, where the
+    // capacitance shunts the branch (a Warburg column in series would put a 45° tail at high
+    // frequencies that the circuit does not have).
+    //
+    // A diffusion element in an arc's branch is shunted the same way, Z_d/(1 + (jωτ)ⁿ)², which
+    // depends on both time constants: its columns are tabulated over pairs (arc τ, diffusion τ) and
+    // their products with the other columns computed at each grid point.
+    let width: Vec<usize> = slots.iter().map(|s| 1 + usize::from(s.warburg.is_some())).collect();
     let mut cols: Vec<Vec<f64>> = fixed_cols.iter().map(|(_, c)| weigh(c)).collect();
     let mut slot_offset = Vec::with_capacity(slots.len());
-    for (s, f) in slots.iter().zip(&fine) {
+    let raw: Vec<Vec<Vec<Complex64>>> = slots
+        .iter()
+        .zip(&fine)
+        .map(|(s, f)| f.iter().map(|&tau| column(s.slot, tau, ctx.grid)).collect())
+        .collect();
+    for ((s, c), &wd) in slots.iter().zip(&raw).zip(&width) {
         slot_offset.push(cols.len());
-        for &tau in f {
-            let c = column(s.slot, tau, ctx.grid);
-            cols.push(weigh(&c));
+        if s.host.is_some() {
+            continue;
+        }
+        for c in c {
+            cols.push(weigh(c));
+            if wd == 2 {
+                let shunted: Vec<Complex64> = c
+                    .iter()
+                    .zip(ctx.omegas)
+                    .map(|(&a, &w)| a * a * Complex64::new(1.0, -1.0) / w.sqrt())
+                    .collect();
+                cols.push(weigh(&shunted));
+            }
         }
     }
+    // Pair tables of hosted slots: column, its product with the data and with itself, at index
+    // (arc grid index) × (slot's fine length) + (slot's grid index).
+    let pairs: Vec<Vec<(Vec<f64>, f64, f64)>> = slots
+        .iter()
+        .enumerate()
+        .map(|(s, info)| {
+            let Some(h) = info.host else {
+                return Vec::new();
+            };
+            let mut table = Vec::with_capacity(raw[h].len() * raw[s].len());
+            for arc in &raw[h] {
+                for d in &raw[s] {
+                    let z: Vec<Complex64> =
+                        d.iter().zip(arc).map(|(&d, &a)| d * a * a).collect();
+                    let v = weigh(&z);
+                    let (r, q) = (dot(&v, &y), dot(&v, &v));
+                    table.push((v, r, q));
+                }
+            }
+            table
+        })
+        .collect();
     let m = cols.len();
     let mut gram = vec![0.0; m * m];
     let mut rhs = vec![0.0; m];
@@ -192,89 +275,133 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
         }
     }
     let nf = fixed_cols.len();
-    let k = nf + slots.len();
+    let k = nf + width.iter().sum::<usize>();
     let mut solver = Surrogate::new(k);
+    // Column of the surrogate matrix behind each coefficient, for one assignment (no allocation per
+    // grid point).
+    let mut idx = vec![Col::Gram(0); k];
+    for (i, v) in idx.iter_mut().enumerate().take(nf) {
+        *v = Col::Gram(i);
+    }
+    let vector = |c: Col| -> &[f64] {
+        match c {
+            Col::Gram(a) => &cols[a],
+            Col::Pair(s, i) => &pairs[s][i].0,
+        }
+    };
 
-    // Evaluate one assignment of fine-grid indices to slots.
-    let evaluate = |assign: &[usize], solver: &mut Surrogate| -> (f64, Vec<f64>) {
-        let idx = (0..nf).chain(assign.iter().enumerate().map(|(s, &g)| slot_offset[s] + g));
-        for (i, a) in idx.enumerate() {
-            solver.b[i] = rhs[a];
-            let from = (0..nf).chain(assign.iter().enumerate().map(|(s, &g)| slot_offset[s] + g));
-            for (j, b) in from.enumerate() {
-                solver.g[(i, j)] = gram[a * m + b];
+    // Solves one assignment of fine-grid indices to slots; the sum of squares, with the coefficients
+    // left in `solver.x`.
+    let mut evaluate = |assign: &[usize], solver: &mut Surrogate| -> f64 {
+        let mut i = nf;
+        for (s, &g) in assign.iter().enumerate() {
+            match slots[s].host {
+                Some(h) => {
+                    idx[i] = Col::Pair(s, assign[h] * fine[s].len() + g);
+                    i += 1;
+                }
+                None => {
+                    for j in 0..width[s] {
+                        idx[i] = Col::Gram(slot_offset[s] + g * width[s] + j);
+                        i += 1;
+                    }
+                }
+            }
+        }
+        for (i, &a) in idx.iter().enumerate() {
+            solver.b[i] = match a {
+                Col::Gram(a) => rhs[a],
+                Col::Pair(s, p) => pairs[s][p].1,
+            };
+            for (j, &b) in idx.iter().enumerate().skip(i) {
+                let g = match (a, b) {
+                    (Col::Gram(a), Col::Gram(b)) => gram[a * m + b],
+                    (Col::Pair(s, p), Col::Pair(t, q)) if s == t && p == q => pairs[s][p].2,
+                    (a, b) => dot(vector(a), vector(b)),
+                };
+                solver.g[(i, j)] = g;
+                solver.g[(j, i)] = g;
             }
         }
         solver.solve(yy)
     };
+    let ordered = |a: &[usize]| {
+        !slots
+            .iter()
+            .enumerate()
+            .any(|(s, info)| info.before.is_some_and(|b| a[s] <= a[b]))
+    };
 
-    // Coarse search: every slot on its coarse points (even fine indices), respecting arc order.
+    // Coarse search: every slot on its coarse points (even fine indices), respecting arc order. The
+    // assignments live in one flat arena, `ns` indices each.
+    let ns = slots.len();
     let coarse_len: Vec<usize> = slots.iter().map(|s| s.grid.len()).collect();
-    let mut results: Vec<(f64, Vec<usize>, Vec<f64>)> = Vec::new();
-    let mut assign = vec![0usize; slots.len()];
     let total: usize = coarse_len.iter().product::<usize>().max(1);
+    let mut arena: Vec<usize> = Vec::with_capacity(total * ns);
+    let mut results: Vec<(f64, usize)> = Vec::with_capacity(total);
+    let mut assign = vec![0usize; ns];
     for combo in 0..total {
         let mut rem = combo;
         for (s, &len) in coarse_len.iter().enumerate() {
             assign[s] = 2 * (rem % len);
             rem /= len;
         }
-        if slots
-            .iter()
-            .enumerate()
-            .any(|(s, info)| info.before.is_some_and(|b| assign[s] <= assign[b]))
-        {
+        if !ordered(&assign) {
             continue;
         }
-        let (sse, x) = evaluate(&assign, &mut solver);
-        results.push((sse, assign.clone(), x));
+        let sse = evaluate(&assign, &mut solver);
+        results.push((sse, arena.len()));
+        arena.extend_from_slice(&assign);
     }
     results.sort_by(|a, b| a.0.total_cmp(&b.0));
-    results.truncate(4 * count.max(1));
+    results.truncate(REFINED_PER_START * count.max(1));
 
-    // Refinement: move each slot by one half decade around the best coarse points.
+    // Refinement: move each slot by one half decade around the best coarse points (each neighbour
+    // once).
     let mut refined = results.clone();
-    for (_, base_assign, _) in &results {
-        let neighbours = 3usize.pow(slots.len() as u32);
+    let mut seen: std::collections::HashSet<Vec<usize>> = results
+        .iter()
+        .map(|&(_, at)| arena[at..at + ns].to_vec())
+        .collect();
+    let neighbours = 3usize.pow(ns as u32);
+    for &(_, at) in &results {
         for code in 0..neighbours {
             let mut rem = code;
-            let mut a = base_assign.clone();
             let mut ok = true;
             for (s, f) in fine.iter().enumerate() {
                 let step = (rem % 3) as isize - 1;
                 rem /= 3;
-                let v = a[s] as isize + step;
+                let v = arena[at + s] as isize + step;
                 if v < 0 || v >= f.len() as isize {
                     ok = false;
                     break;
                 }
-                a[s] = v as usize;
+                assign[s] = v as usize;
             }
-            if !ok
-                || slots
-                    .iter()
-                    .enumerate()
-                    .any(|(s, info)| info.before.is_some_and(|b| a[s] <= a[b]))
-            {
+            if !ok || !ordered(&assign) || seen.contains(&assign) {
                 continue;
             }
-            let (sse, x) = evaluate(&a, &mut solver);
-            refined.push((sse, a, x));
+            seen.insert(assign.clone());
+            let sse = evaluate(&assign, &mut solver);
+            refined.push((sse, arena.len()));
+            arena.extend_from_slice(&assign);
         }
     }
     refined.sort_by(|a, b| a.0.total_cmp(&b.0));
 
     // Keep the best distinct points: at least one slot a whole decade (two fine steps) away.
     let mut chosen: Vec<(Vec<usize>, Vec<f64>)> = Vec::new();
-    for (_, a, x) in refined {
+    for &(_, at) in &refined {
         if chosen.len() >= count {
             break;
         }
+        let a = &arena[at..at + ns];
         let distinct = chosen
             .iter()
-            .all(|(c, _)| c.iter().zip(&a).any(|(u, v)| u.abs_diff(*v) >= 2));
+            .all(|(c, _)| c.iter().zip(a).any(|(u, v)| u.abs_diff(*v) >= 2));
         if distinct {
-            chosen.push((a, x));
+            evaluate(a, &mut solver);
+            chosen.push((a.to_vec(), solver.x.clone()));
         }
     }
 
@@ -322,10 +449,24 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
                     ),
                 }
             }
+            let mut at = nf;
             for (s, info) in slots.iter().enumerate() {
                 let tau = fine[s][a[s]];
-                let v = x[nf + s];
+                let v = x[at];
                 let r = if v > 0.0 { v } else { 1e-3 * scale };
+                if let Some(w) = info.warburg {
+                    let v = x[at + 1];
+                    ctx.put(
+                        &mut p,
+                        w,
+                        if v > 0.0 {
+                            v
+                        } else {
+                            1e-3 * scale * wmin.sqrt()
+                        },
+                    );
+                }
+                at += width[s];
                 match info.target {
                     Target::Arc { r: ri, cap } => {
                         ctx.put(&mut p, ri, r);
@@ -350,6 +491,8 @@ struct Surrogate {
     b: Vec<f64>,
     x: Vec<f64>,
     workspace: NnlsWorkspace,
+    /// Scratch for the Cholesky factor of the unconstrained fast path, row-major k × k.
+    l: Vec<f64>,
 }
 
 impl Surrogate {
@@ -359,14 +502,58 @@ impl Surrogate {
             b: vec![0.0; k],
             x: vec![0.0; k],
             workspace: NnlsWorkspace::new(k),
+            l: vec![0.0; k * k],
         }
     }
 
-    /// Solves for the coefficients and returns the weighted sum of squares ‖Ax − y‖² = yᵀy − 2xᵀb +
+    /// The unconstrained least-squares solution by Cholesky of G, into `x`, when G is safely
+    /// positive definite (pivots above 1e-12 of their diagonal) and every coefficient is positive:
+    /// then it is also the non-negative solution (it satisfies the Karush–Kuhn–Tucker conditions with
+    /// no active constraint), found without the active-set iterations. False otherwise.
+    fn solve_unconstrained(&mut self) -> bool {
+        let k = self.b.len();
+        let l = &mut self.l;
+        for i in 0..k {
+            for j in 0..=i {
+                let mut v = self.g[(i, j)];
+                for t in 0..j {
+                    v -= l[i * k + t] * l[j * k + t];
+                }
+                if i == j {
+                    if !(v > 1e-12 * self.g[(i, i)]) {
+                        return false;
+                    }
+                    l[i * k + i] = v.sqrt();
+                } else {
+                    l[i * k + j] = v / l[j * k + j];
+                }
+            }
+        }
+        let x = &mut self.x;
+        for i in 0..k {
+            let mut v = self.b[i];
+            for t in 0..i {
+                v -= l[i * k + t] * x[t];
+            }
+            x[i] = v / l[i * k + i];
+        }
+        for i in (0..k).rev() {
+            let mut v = x[i];
+            for t in i + 1..k {
+                v -= l[t * k + i] * x[t];
+            }
+            x[i] = v / l[i * k + i];
+        }
+        x.iter().all(|v| *v > 0.0 && v.is_finite())
+    }
+
+    /// Solves for the coefficients (left in `x`) and returns the weighted sum of squares ‖Ax − y‖² = yᵀy − 2xᵀb +
     /// xᵀGx (`yy` = yᵀy) with them. Non-finite input gives zero coefficients and the sum of squares
     /// of the data.
-    fn solve(&mut self, yy: f64) -> (f64, Vec<f64>) {
-        if solve_normal(&self.g, &self.b, &mut self.x, &mut self.workspace, false).is_err() {
+    fn solve(&mut self, yy: f64) -> f64 {
+        if !self.solve_unconstrained()
+            && solve_normal(&self.g, &self.b, &mut self.x, &mut self.workspace, false).is_err()
+        {
             self.x.fill(0.0);
         }
         let x = &self.x;
@@ -378,6 +565,6 @@ impl Surrogate {
                 sse += x[i] * self.g[(i, j)] * x[j];
             }
         }
-        (sse.max(0.0), x.clone())
+        sse.max(0.0)
     }
 }
