@@ -362,9 +362,14 @@ def check_jacobians(cases, per_family=4):
 
 def fixture(cases, results, count, path):
     """Writes the regression subset: `count` spectra, the families in turn, those where the automatic
-    search of the run found the highest chi-square relative to the best first, with SciPy's optimum."""
+    search of the run (or of the --prior run) found the highest chi-square relative to the best first,
+    with SciPy's optimum."""
     fams = list(FAMILIES)
-    per = {f: sorted((c for c in cases if c["family"] == f), key=lambda c: -c["eis auto"]["chi_square"] / c["best"]) for f in fams}
+
+    def hardness(c):
+        return -max(c[m]["chi_square"] / c["best"] for m in ("eis auto", "prior auto") if m in c)
+
+    per = {f: sorted((c for c in cases if c["family"] == f), key=hardness) for f in fams}
     chosen = []
     while len(chosen) < count and any(per.values()):
         for f in fams:

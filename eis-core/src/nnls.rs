@@ -221,7 +221,7 @@ impl NnlsWorkspace {
 }
 
 /// Solves L Lᵀ y = b in place for the leading p×p block of a row-major factor with stride n.
-fn chol_solve(l: &[f64], n: usize, p: usize, b: &mut [f64]) {
+pub(crate) fn chol_solve(l: &[f64], n: usize, p: usize, b: &mut [f64]) {
     for r in 0..p {
         let mut v = b[r];
         for s in 0..r {

@@ -4,7 +4,7 @@
 use super::{Cap, Context, N0, Term, log_grid, set_arc_tau};
 use crate::dense::dot;
 use crate::element::ElementKind;
-use crate::nnls::{NnlsWorkspace, solve_normal};
+use crate::nnls::{NnlsWorkspace, chol_solve, solve_normal};
 use nalgebra::DMatrix;
 use num_complex::Complex64;
 
@@ -216,7 +216,10 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
     // A diffusion element in an arc's branch is shunted the same way, Z_d/(1 + (jωτ)ⁿ)², which
     // depends on both time constants: its columns are tabulated over pairs (arc τ, diffusion τ) and
     // their products with the other columns computed at each grid point.
-    let width: Vec<usize> = slots.iter().map(|s| 1 + usize::from(s.warburg.is_some())).collect();
+    let width: Vec<usize> = slots
+        .iter()
+        .map(|s| 1 + usize::from(s.warburg.is_some()))
+        .collect();
     let mut cols: Vec<Vec<f64>> = fixed_cols.iter().map(|(_, c)| weigh(c)).collect();
     let mut slot_offset = Vec::with_capacity(slots.len());
     let raw: Vec<Vec<Vec<Complex64>>> = slots
@@ -253,8 +256,7 @@ pub(crate) fn grid_starts(ctx: &Context<'_>, terms: &[Term], count: usize) -> Ve
             let mut table = Vec::with_capacity(raw[h].len() * raw[s].len());
             for arc in &raw[h] {
                 for d in &raw[s] {
-                    let z: Vec<Complex64> =
-                        d.iter().zip(arc).map(|(&d, &a)| d * a * a).collect();
+                    let z: Vec<Complex64> = d.iter().zip(arc).map(|(&d, &a)| d * a * a).collect();
                     let v = weigh(&z);
                     let (r, q) = (dot(&v, &y), dot(&v, &v));
                     table.push((v, r, q));
@@ -529,22 +531,9 @@ impl Surrogate {
                 }
             }
         }
-        let x = &mut self.x;
-        for i in 0..k {
-            let mut v = self.b[i];
-            for t in 0..i {
-                v -= l[i * k + t] * x[t];
-            }
-            x[i] = v / l[i * k + i];
-        }
-        for i in (0..k).rev() {
-            let mut v = x[i];
-            for t in i + 1..k {
-                v -= l[t * k + i] * x[t];
-            }
-            x[i] = v / l[i * k + i];
-        }
-        x.iter().all(|v| *v > 0.0 && v.is_finite())
+        self.x.copy_from_slice(&self.b);
+        chol_solve(l, k, k, &mut self.x);
+        self.x.iter().all(|v| *v > 0.0 && v.is_finite())
     }
 
     /// Solves for the coefficients (left in `x`) and returns the weighted sum of squares ‖Ax − y‖² = yᵀy − 2xᵀb +
