@@ -557,3 +557,70 @@ impl Surrogate {
         sse.max(0.0)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The fast path (unconstrained Cholesky, taken when every coefficient is positive) and the
+    /// active-set route give the same non-negative least-squares solution; the active-set route alone
+    /// is taken when the unconstrained solution has a negative entry. Reference: Lawson & Hanson 1974,
+    /// Solving Least Squares Problems, ch. 23 (the KKT conditions of NNLS).
+    #[test]
+    fn fast_path_agrees_with_the_active_set_solution() {
+        // A = [[1, 0.5], [0.2, 1], [0.3, 0.1]]; y chosen so that x = (2, 1) fits exactly (positive).
+        let a = [[1.0, 0.5], [0.2, 1.0], [0.3, 0.1]];
+        for (y, positive) in [([2.5, 1.4, 0.7], true), ([-1.0, 2.0, 0.1], false)] {
+            let mut s = Surrogate::new(2);
+            for i in 0..2 {
+                s.b[i] = (0..3).map(|r| a[r][i] * y[r]).sum();
+                for j in 0..2 {
+                    s.g[(i, j)] = (0..3).map(|r| a[r][i] * a[r][j]).sum();
+                }
+            }
+            assert_eq!(s.solve_unconstrained(), positive);
+            let yy: f64 = y.iter().map(|v| v * v).sum();
+            let sse = s.solve(yy);
+            let fast = s.x.clone();
+            let mut reference = vec![0.0; 2];
+            let mut ws = NnlsWorkspace::new(2);
+            solve_normal(&s.g, &s.b, &mut reference, &mut ws, false).unwrap();
+            for (f, r) in fast.iter().zip(&reference) {
+                assert!(
+                    (f - r).abs() <= 1e-12 * (1.0 + r.abs()),
+                    "{fast:?} vs {reference:?}"
+                );
+            }
+            let direct: f64 = (0..3)
+                .map(|r| (a[r][0] * fast[0] + a[r][1] * fast[1] - y[r]).powi(2))
+                .sum();
+            assert!(
+                (sse - direct).abs() <= 1e-12 * (1.0 + direct),
+                "{sse} vs {direct}"
+            );
+        }
+    }
+
+    /// The shunted column of a branch element is the derivative of (R + W)|Y in W at W = 0: checked
+    /// against a central difference of the exact impedance (common practice).
+    #[test]
+    fn shunted_column_is_the_first_order_share_of_the_branch_element() {
+        let (r, q, n): (f64, f64, f64) = (2.0, 1e-3, 0.85);
+        let tau = (r * q).powf(1.0 / n);
+        for w in [0.1f64, 3.0, 100.0, 1e4] {
+            let y = Complex64::from_polar(q * w.powf(n), n * std::f64::consts::FRAC_PI_2);
+            let arc = Complex64::new(1.0, 0.0)
+                / (Complex64::new(1.0, 0.0)
+                    + Complex64::from_polar((w * tau).powf(n), n * std::f64::consts::FRAC_PI_2));
+            let z = |x: Complex64| (r + x) / (Complex64::new(1.0, 0.0) + (r + x) * y);
+            let unit = Complex64::new(1.0, -1.0) / w.sqrt();
+            let h = 1e-6;
+            let numeric = (z(unit * h) - z(-unit * h)) / (2.0 * h);
+            let column = arc * arc * unit;
+            assert!(
+                (numeric - column).norm() <= 1e-6 * column.norm().max(1e-12),
+                "ω = {w}: {numeric} vs {column}"
+            );
+        }
+    }
+}
