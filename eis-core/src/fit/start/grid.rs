@@ -522,7 +522,9 @@ impl Surrogate {
                     v -= l[i * k + t] * l[j * k + t];
                 }
                 if i == j {
-                    if !(v > 1e-12 * self.g[(i, i)]) {
+                    // NaN fails too.
+                    if v.partial_cmp(&(1e-12 * self.g[(i, i)])) != Some(std::cmp::Ordering::Greater)
+                    {
                         return false;
                     }
                     l[i * k + i] = v.sqrt();
