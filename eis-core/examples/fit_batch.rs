@@ -13,6 +13,7 @@
 //! {"tolerance": 1e-10,                       // optional, solver tolerance (default: FitSettings's)
 //!  "repeat": 3,                              // optional, runs per fit; the shortest time is reported
 //!  "auto": false,                            // optional, skip the fits from automatic starts
+//!  "starts": 16, "arc_moves": true, "drt_starts": true,   // optional FitSettings of the automatic fit
 //!  "cases": [{"model": "R0 + Rct|Qdl",        // circuit text; initial values in it are ignored
 //!             "frequency_hz": [...], "z_real_ohm": [...], "z_imag_ohm": [...],
 //!             "starts": {"name": [p0, p1, ...], ...}}]}   // optional named starts
@@ -79,6 +80,15 @@ fn main() {
     let mut settings = FitSettings::default();
     if let Some(t) = doc["tolerance"].as_f64() {
         settings = settings.with_tolerance(t);
+    }
+    if let Some(n) = doc["starts"].as_u64() {
+        settings = settings.with_starts(n as usize);
+    }
+    if let Some(on) = doc["arc_moves"].as_bool() {
+        settings = settings.with_arc_moves(on);
+    }
+    if let Some(on) = doc["drt_starts"].as_bool() {
+        settings = settings.with_drt_starts(on);
     }
     let repeat = doc["repeat"].as_u64().unwrap_or(1).max(1) as usize;
     let mut out = Vec::new();

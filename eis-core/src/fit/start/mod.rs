@@ -8,6 +8,11 @@
 //! Z(ω) ≈ R₀ + jωL + Σ_k R_k/(1 + (jωτ_k)^n₀) + Σ_d R_d·f_d(ωτ_d) + σ(1−j)/√ω + ...
 //! ```
 //!
+//! A diffusion or Warburg element inside an arc's resistive branch enters shunted by that arc,
+//! f_d(ωτ_d)/(1 + (jωτ_k)^n₀)² (the first-order share of the branch element in (R + Z_d)|Y): a series
+//! column would give it a 45° tail at high frequencies that the circuit does not have, which ranked the
+//! grid points of such circuits poorly.
+//!
 //! A grid of time constants (one per decade over the measured window, then a local refinement at half
 //! decades around the best points) is searched; for each grid point the resistances are solved by
 //! non-negative least squares on the same weights as the fit, from a Gram matrix computed once. The best
@@ -27,12 +32,12 @@ mod recognise;
 
 pub(crate) use drt::drt_starts;
 pub(crate) use grid::grid_starts;
-pub(crate) use moves::{arc_moves, arc_swaps, order_identical_arcs};
+pub(crate) use moves::{arc_relocations, arc_swaps, order_identical_arcs};
 pub(crate) use recognise::recognise;
 
 use super::problem::Transform;
 use crate::circuit::Circuit;
-use crate::element::{Class, Domain, ElementKind, Seed, SeedOne};
+use crate::element::{Domain, ElementKind, Seed, SeedOne};
 use num_complex::Complex64;
 use rand::rngs::Xoshiro256PlusPlus;
 use rand::{RngExt, SeedableRng};
@@ -87,21 +92,6 @@ pub(crate) enum Slot {
         kind: &'static ElementKind,
         first: usize,
     },
-}
-
-impl Term {
-    /// The class of a single-element block (None for arcs).
-    fn class(&self) -> Option<Class> {
-        match self {
-            Term::Linear { kind, .. } | Term::Feature { kind, .. } => Some(kind.class),
-            Term::Arc { .. } => None,
-        }
-    }
-}
-
-/// Whether the recognised circuit has an inductive element in series.
-pub(crate) fn has_inductance(terms: &[Term]) -> bool {
-    terms.iter().any(|t| t.class() == Some(Class::Inductive))
 }
 
 /// What the start search needs to know about the data and the parameters.
@@ -362,13 +352,25 @@ pub(super) struct Search {
     pub evaluations: usize,
     /// Number of runs considered.
     pub tried: usize,
+    /// Runs that ended at the best χ² so far (within [`AGREE`] relative): independent starts that
+    /// agree on the optimum.
+    pub agreeing: usize,
 }
+
+/// Relative χ² difference within which two runs are taken to have reached the same optimum.
+pub(super) const AGREE: f64 = 1e-6;
 
 impl Search {
     /// Counts `run` and keeps it if its χ² is below the best so far (a NaN χ² never is).
     pub fn consider(&mut self, run: super::Run) {
         self.evaluations += run.evaluations;
         self.tried += 1;
+        let best = self.chi_square();
+        if run.chi_square < best * (1.0 - AGREE) || (best.is_infinite() && run.chi_square < best) {
+            self.agreeing = 1;
+        } else if run.chi_square <= best * (1.0 + AGREE) {
+            self.agreeing += 1;
+        }
         if self
             .best
             .as_ref()
@@ -387,7 +389,7 @@ impl Search {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::element::{Limit, ParamInfo};
+    use crate::element::{Class, Limit, ParamInfo};
     use crate::eval::{Plan, log_frequencies};
     use crate::simulate::simulate;
 

@@ -73,11 +73,11 @@ fn order_group(ctx: &Context<'_>, group: &[&Term], p: &mut [f64]) {
     }
 }
 
-/// Variants of a fitted point: every pair of arcs swapped (resistance and time constant exchanged), then
-/// each arc moved to other time constants (one per decade across the window), with its resistance raised
-/// to a tenth of the arcs' total if it had shrunk: this lets a small arc hidden beside a large one be
-/// found, and an arc that merged into its neighbour be re-inserted.
-pub(crate) fn arc_moves(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<Vec<f64>> {
+/// Variants of a fitted point in which one arc is moved to other time constants (one per decade across
+/// the window), with its resistance raised to a tenth of the arcs' total if it had shrunk: this lets a
+/// small arc hidden beside a large one be found, and an arc that merged into its neighbour be
+/// re-inserted. None for fewer than two arcs.
+pub(crate) fn arc_relocations(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<Vec<f64>> {
     let arcs = arcs(terms);
     if arcs.len() < 2 {
         return Vec::new();
@@ -86,7 +86,6 @@ pub(crate) fn arc_moves(ctx: &Context<'_>, terms: &[Term], best: &[f64]) -> Vec<
     let total: f64 = arcs.iter().map(|(r, _)| best[*r]).sum();
     let grid = log_grid(0.3 / wmax, 3.0 / wmin, 1.0);
     let mut out = Vec::new();
-    out.extend(arc_swaps(ctx, terms, best));
     for &(r, cap) in &arcs {
         let current = arc_tau(best, r, cap);
         for &tau in &grid {
