@@ -34,8 +34,8 @@ fn spectrum(circuit: &str, params: &[f64], noise: Option<Noise>) -> Spectrum {
     simulate(&plan, params, &log_frequencies(1e5, 0.1, 10), noise)
 }
 
-/// Cole & Cole 1941 (J. Chem. Phys. 9, 341) distribution of a ZARC R/(1 + (jωτ₀)^φ), as written in
-/// REFERENCES.md §5.
+/// Cole & Cole 1941 (J. Chem. Phys. 9, 341) distribution of a ZARC R/(1 + (jωτ₀)^φ), in ln τ (the
+/// DRT convention of Wan, Saccoccio, Chen & Ciucci 2015, Electrochim. Acta 184, 483).
 fn cole_cole(r: f64, tau0: f64, phi: f64, tau: f64) -> f64 {
     let y = (tau / tau0).ln();
     r / (2.0 * PI) * ((1.0 - phi) * PI).sin() / ((phi * y).cosh() - ((1.0 - phi) * PI).cos())
@@ -162,7 +162,7 @@ fn drt_regularised_nnls_matches_scipy() {
 
 #[test]
 fn drt_zarc_matches_cole_cole_distribution() {
-    // ZARC R/(1 + (jωτ₀)^φ) written as R1|Q1 with Q = τ₀^φ/R, n = φ (REFERENCES.md §1); its DRT is
+    // ZARC R/(1 + (jωτ₀)^φ) written as R1|Q1 with Q = τ₀^φ/R, n = φ (Cole & Cole 1941); its DRT is
     // the Cole–Cole distribution (Cole & Cole 1941), peaked at τ₀ with area R and height
     // (R/2π)·tan(φπ/2).
     let (r0, r, tau0, phi): (f64, f64, f64, f64) = (10.0, 100.0, 1e-3, 0.8);
@@ -198,7 +198,8 @@ fn drt_zarc_matches_cole_cole_distribution() {
 
 #[test]
 fn drt_single_rc_gives_one_peak_at_rc() {
-    // An RC element's DRT is R·δ(ln τ − ln RC) (REFERENCES.md §5): one peak at τ = RC with area R.
+    // An RC element's DRT is R·δ(ln τ − ln RC) (Wan et al. 2015, the model Z = R∞ + ∫γ/(1+jωτ) d ln τ):
+    // one peak at τ = RC with area R.
     let (r, c) = (50.0, 20e-6);
     for noise in [
         None,
@@ -224,7 +225,7 @@ fn drt_single_rc_gives_one_peak_at_rc() {
 
 #[test]
 fn drt_two_arcs_a_decade_apart_give_two_peaks() {
-    // Two RC arcs: two δ functions, at R1·C1 and R2·C2 (REFERENCES.md §5).
+    // Two RC arcs: two δ functions, at R1·C1 and R2·C2 (Wan et al. 2015).
     for (c2, noise) in [
         (5e-6, None), // one decade apart
         (

