@@ -17,6 +17,16 @@ pub fn relative_error(got: impl Into<Complex64>, want: impl Into<Complex64>) -> 
     if d == 0.0 { 0.0 } else { d / w.norm() }
 }
 
+/// The numbers of a JSON array of a reference fixture (panics with the offending entry otherwise: for
+/// tests only).
+pub fn floats(v: &serde_json::Value) -> Vec<f64> {
+    v.as_array()
+        .unwrap_or_else(|| panic!("not an array: {v}"))
+        .iter()
+        .map(|x| x.as_f64().unwrap_or_else(|| panic!("not a number: {x}")))
+        .collect()
+}
+
 /// Asserts that `got` agrees with `want` (real or complex) to relative tolerance `rel`, naming both and
 /// the relative error when it does not; an optional message (format arguments) says what is checked.
 ///

@@ -26,13 +26,7 @@ const PARAM_REL: f64 = 1e-5;
 /// Standard errors agree to this relative difference.
 const SE_REL: f64 = 0.01;
 
-fn floats(v: &Value) -> Vec<f64> {
-    v.as_array()
-        .unwrap()
-        .iter()
-        .map(|x| x.as_f64().unwrap())
-        .collect()
-}
+use eis_core::testing::floats;
 
 #[test]
 fn fixture_names_its_generator_and_versions() {

@@ -24,13 +24,7 @@ const FIXTURE: &str = include_str!(concat!(
 /// higher on this benchmark).
 const CHI_FACTOR: f64 = 1.5;
 
-fn floats(v: &Value) -> Vec<f64> {
-    v.as_array()
-        .unwrap()
-        .iter()
-        .map(|x| x.as_f64().unwrap())
-        .collect()
-}
+use eis_core::testing::floats;
 
 #[test]
 fn fixture_names_its_generator_and_versions() {

@@ -16,13 +16,7 @@ const FIXTURE: &str = include_str!(concat!(
     "/../tests/reference/joint_fixture.json"
 ));
 
-fn floats(v: &Value) -> Vec<f64> {
-    v.as_array()
-        .unwrap()
-        .iter()
-        .map(|x| x.as_f64().unwrap())
-        .collect()
-}
+use eis_core::testing::floats;
 
 #[test]
 fn joint_optimum_and_standard_errors_agree_with_scipy() {
