@@ -338,6 +338,8 @@ struct Prepared {
     w_im: Vec<f64>,
     /// The same weights in the order of the solver's residuals: `w_re[i]`, `w_im[i]` side by side.
     w_rows: Vec<f64>,
+    /// Point indices in increasing frequency, for tests that look at neighbouring residuals.
+    by_frequency: Vec<usize>,
 }
 
 /// Moduli of the impedances the fit accepts, Ω. Within it a spectrum scaled by any factor is fitted
@@ -427,7 +429,10 @@ fn prepare(spectrum: &Spectrum, weighting: Weighting) -> Result<Prepared, FitErr
             frequency: spectrum.frequency_hz[i],
         });
     }
+    let mut by_frequency: Vec<usize> = (0..n).collect();
+    by_frequency.sort_by(|&a, &b| omegas[a].total_cmp(&omegas[b]));
     Ok(Prepared {
+        by_frequency,
         grid: Grid::new(&omegas),
         omegas,
         data: spectrum.z.clone(),
@@ -468,6 +473,35 @@ const CONFIRM: f64 = 1e-6;
 /// optimum up to 2× the chain's median, and runs 3× to 10× above it were local minima.
 const CONFIRM_RATIO: f64 = 2.5;
 
+/// Von Neumann ratio below which residuals do not look like noise. The ratio of the mean squared
+/// successive difference to the mean square, η = Σ(r_{k+1} − r_k)² / Σ r_k² over the real and the
+/// imaginary residuals in frequency order, is about 2 for independent noise (its standard deviation
+/// about 2/√m for m residuals) and far below 1 where a model misses a feature, whose residuals are
+/// smooth in frequency (von Neumann, 1941, Annals of Mathematical Statistics 12, 367).
+const NOISE_LIKE: f64 = 1.5;
+
+/// The von Neumann ratio of interleaved residuals (`r[2i]` real, `r[2i + 1]` imaginary part of point
+/// `i`), taken along `order` for each part; 0 for fewer than two points or zero residuals.
+fn von_neumann_ratio(r: &[f64], order: &[usize]) -> f64 {
+    let (mut diff, mut sum) = (0.0, 0.0);
+    for part in 0..2 {
+        let mut prev: Option<f64> = None;
+        for &i in order {
+            let v = r[2 * i + part];
+            sum += v * v;
+            if let Some(p) = prev {
+                diff += (v - p) * (v - p);
+            }
+            prev = Some(v);
+        }
+    }
+    if sum > 0.0 && diff.is_finite() {
+        diff / sum
+    } else {
+        0.0
+    }
+}
+
 /// One Levenberg–Marquardt run from `start`.
 struct Run {
     params: Vec<f64>,
@@ -477,6 +511,8 @@ struct Run {
     termination: Termination,
     /// The problem's state at `params` when the run ended there (not after `params` were reordered).
     point: Option<problem::Evaluated>,
+    /// Whether its residuals look like noise ([`NOISE_LIKE`]).
+    noise_like: bool,
 }
 
 fn run_lm(
@@ -508,7 +544,9 @@ fn run_lm(
     } else {
         f64::INFINITY
     };
+    let noise_like = von_neumann_ratio(problem.residuals(), &prep.by_frequency) >= NOISE_LIKE;
     Run {
+        noise_like,
         chi_square: chi,
         iterations: problem.jacobian_calls.get().max(1),
         evaluations: report.evaluations,
@@ -770,10 +808,15 @@ fn fit_impl(
         )
     };
     // Every start briefly; a run that converges within its brief budget is done, and of the others the
-    // `keep` lowest in χ² are carried on to convergence (from where they stopped).
+    // `keep` lowest in χ² are carried on to convergence (from where they stopped). Starts are taken
+    // best first, and the rest are skipped once the search has settled: the first runs all agreed on
+    // one optimum whose residuals look like noise.
     let staged = |search: &mut start::Search, starts: &[Vec<f64>], patience: usize, keep: usize| {
         let mut pending = Vec::new();
         for s in starts {
+            if search.settled(pending.len()) {
+                break;
+            }
             let r = brief(s, patience);
             if r.termination.was_successful() {
                 search.consider(r);
@@ -813,7 +856,7 @@ fn fit_impl(
                     let b = search.best.as_ref().expect("a run was considered");
                     // Independent starts that agree on the optimum make moving arcs elsewhere
                     // pointless.
-                    if search.agreeing < AGREEING {
+                    if search.agreeing < AGREEING && !search.settled(0) {
                         let moves = start::arc_relocations(&ctx, t, &b.params);
                         staged(&mut search, &moves, MOVE_PATIENCE, CARRIED_ON);
                     }
@@ -890,4 +933,61 @@ fn finish(
         termination: &run.termination,
         weighting: settings.weighting,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::von_neumann_ratio;
+    use rand::rngs::Xoshiro256PlusPlus;
+    use rand::{RngExt, SeedableRng};
+    use rand_distr::StandardNormal;
+
+    /// Interleaved residuals (real, imaginary) from two series.
+    fn interleave(re: &[f64], im: &[f64]) -> Vec<f64> {
+        re.iter().zip(im).flat_map(|(&a, &b)| [a, b]).collect()
+    }
+
+    /// Von Neumann (1941, "Distribution of the ratio of the mean square successive difference to the
+    /// variance", Annals of Mathematical Statistics 12, 367): for m independent N(0, σ²) values the
+    /// successive differences have E Σ(x_{k+1} − x_k)² = 2(m − 1)σ² against E Σ x² = mσ², so the ratio
+    /// is near 2(m − 1)/m, with a standard deviation near 2/√m; a smooth trend gives nearly 0.
+    #[test]
+    fn von_neumann_ratio_tells_noise_from_a_trend() {
+        let m = 2000;
+        let mut rng = Xoshiro256PlusPlus::seed_from_u64(7);
+        let mut normal = || -> f64 { rng.sample(StandardNormal) };
+        let re: Vec<f64> = (0..m).map(|_| normal()).collect();
+        let im: Vec<f64> = (0..m).map(|_| normal()).collect();
+        let order: Vec<usize> = (0..m).collect();
+        let eta = von_neumann_ratio(&interleave(&re, &im), &order);
+        let expected = 2.0 * (m as f64 - 1.0) / m as f64;
+        assert!(
+            (eta - expected).abs() < 4.0 * 2.0 / (2.0 * m as f64).sqrt(),
+            "{eta}"
+        );
+
+        // A residual that follows a trend over the spectrum: far below 1.
+        let x = |k: usize| k as f64 / m as f64 * std::f64::consts::PI;
+        let trend_re: Vec<f64> = (0..m).map(|k| (3.0 * x(k)).sin()).collect();
+        let trend_im: Vec<f64> = (0..m).map(|k| (2.0 * x(k)).cos()).collect();
+        let smooth = von_neumann_ratio(&interleave(&trend_re, &trend_im), &order);
+        assert!(smooth < 0.01, "{smooth}");
+
+        // The points are taken in frequency order, not storage order: a trend stored with every
+        // other point swapped is still a trend.
+        let mut shuffled_re = trend_re.clone();
+        let mut shuffled_im = trend_im.clone();
+        let mut by_frequency = order.clone();
+        for k in (0..m - 1).step_by(2) {
+            shuffled_re.swap(k, k + 1);
+            shuffled_im.swap(k, k + 1);
+            by_frequency.swap(k, k + 1);
+        }
+        let reordered = von_neumann_ratio(&interleave(&shuffled_re, &shuffled_im), &by_frequency);
+        assert!(
+            (reordered - smooth).abs() < 1e-12,
+            "{reordered} vs {smooth}"
+        );
+        assert_eq!(von_neumann_ratio(&[0.0, 0.0, 0.0, 0.0], &[0, 1]), 0.0);
+    }
 }

@@ -243,6 +243,11 @@ impl<'a> Problem<'a> {
         self.chi_square
     }
 
+    /// Weighted residuals at the current point: real and imaginary part of each point side by side.
+    pub(crate) fn residuals(&self) -> &[f64] {
+        &self.residuals
+    }
+
     /// The model impedance at the current point.
     pub(crate) fn model(&self) -> &[Complex64] {
         &self.z

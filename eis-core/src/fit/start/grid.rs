@@ -172,7 +172,7 @@ enum Col {
 
 /// Coarse grid points refined per start asked for: the neighbourhoods of the best
 /// `REFINED_PER_START × count` coarse points are searched at half a decade.
-const REFINED_PER_START: usize = 4;
+const REFINED_PER_START: usize = 2;
 
 /// The weighted columns of the surrogate over every slot's fine grid, as a Gram matrix computed once,
 /// and the pair tables of hosted slots.

@@ -357,6 +357,12 @@ pub(super) struct Search {
     pub agreeing: usize,
 }
 
+/// Agreeing runs after which a search whose best residuals look like noise stops.
+pub(super) const SETTLED: usize = 3;
+
+/// Runs ending elsewhere than the best χ² that a settled search allows.
+pub(super) const STRAYS: usize = 0;
+
 /// Relative χ² difference within which two runs are taken to have reached the same optimum.
 pub(super) const AGREE: f64 = 1e-6;
 
@@ -378,6 +384,15 @@ impl Search {
         {
             self.best = Some(run);
         }
+    }
+
+    /// Whether the search may stop: at least [`SETTLED`] runs reached the best χ², at most
+    /// [`STRAYS`] of the runs so far (and of `pending`, runs still to be considered) ended elsewhere,
+    /// and the best run's residuals look like noise (a wrong basin leaves smooth residuals).
+    pub fn settled(&self, pending: usize) -> bool {
+        self.agreeing >= SETTLED
+            && self.tried - self.agreeing + pending <= STRAYS
+            && self.best.as_ref().is_some_and(|b| b.noise_like)
     }
 
     /// χ² of the best run so far (infinite before any).
