@@ -856,7 +856,7 @@ fn fit_impl(
                     let b = search.best.as_ref().expect("a run was considered");
                     // Independent starts that agree on the optimum make moving arcs elsewhere
                     // pointless.
-                    if search.agreeing < AGREEING && !search.settled(0) {
+                    if search.agreeing < AGREEING && !search.noise_like_consensus() {
                         let moves = start::arc_relocations(&ctx, t, &b.params);
                         staged(&mut search, &moves, MOVE_PATIENCE, CARRIED_ON);
                     }

@@ -390,9 +390,13 @@ impl Search {
     /// [`STRAYS`] of the runs so far (and of `pending`, runs still to be considered) ended elsewhere,
     /// and the best run's residuals look like noise (a wrong basin leaves smooth residuals).
     pub fn settled(&self, pending: usize) -> bool {
-        self.agreeing >= SETTLED
-            && self.tried - self.agreeing + pending <= STRAYS
-            && self.best.as_ref().is_some_and(|b| b.noise_like)
+        self.noise_like_consensus() && self.tried - self.agreeing + pending <= STRAYS
+    }
+
+    /// Whether [`SETTLED`] runs reached the best χ² and its residuals look like noise, whatever other
+    /// runs found: after the whole grid, the mark of an optimum that moving arcs does not improve.
+    pub fn noise_like_consensus(&self) -> bool {
+        self.agreeing >= SETTLED && self.best.as_ref().is_some_and(|b| b.noise_like)
     }
 
     /// χ² of the best run so far (infinite before any).
