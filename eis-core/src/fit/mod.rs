@@ -511,7 +511,9 @@ struct Run {
     termination: Termination,
     /// The problem's state at `params` when the run ended there (not after `params` were reordered).
     point: Option<problem::Evaluated>,
-    /// Whether its residuals look like noise ([`NOISE_LIKE`]).
+    /// Whether its residuals look like noise ([`NOISE_LIKE`]) and the data determine every free
+    /// parameter: a basin in which an element shrank out of the model can fit almost as well as the
+    /// optimum, with noise-like residuals.
     noise_like: bool,
 }
 
@@ -544,7 +546,9 @@ fn run_lm(
     } else {
         f64::INFINITY
     };
-    let noise_like = von_neumann_ratio(problem.residuals(), &prep.by_frequency) >= NOISE_LIKE;
+    // A run whose residuals look like noise and whose every parameter the data determine.
+    let noise_like = von_neumann_ratio(problem.residuals(), &prep.by_frequency) >= NOISE_LIKE
+        && problem.determines_every_parameter();
     Run {
         noise_like,
         chi_square: chi,

@@ -248,6 +248,25 @@ impl<'a> Problem<'a> {
         &self.residuals
     }
 
+    /// Whether the data determine every free parameter at the current point: the covariance of the
+    /// internal coordinates (logarithms of positive parameters) has no null direction and no standard
+    /// error above 1, an e-fold change. An element that shrank out of the model (a finite diffusion
+    /// whose R and τ went to zero together, leaving only their ratio) fails it.
+    pub(crate) fn determines_every_parameter(&self) -> bool {
+        let n = self.grid.len();
+        let nf = self.free.len();
+        if !self.ok || 2 * n <= nf {
+            return false;
+        }
+        let j = nalgebra::DMatrix::from_fn(2 * n, nf, |row, c| {
+            let k = self.free[c];
+            let d: &[f64] = bytemuck::cast_slice(&self.jac[k * n..(k + 1) * n]);
+            d[row] * self.w_rows[row] * self.transforms[c].derivative(self.x[c])
+        });
+        let cov = super::stats::covariance(&j, self.chi_square, 2 * n - nf);
+        !cov.undetermined.iter().any(|&u| u) && (0..nf).all(|c| cov.matrix[c * nf + c] <= 1.0)
+    }
+
     /// The model impedance at the current point.
     pub(crate) fn model(&self) -> &[Complex64] {
         &self.z

@@ -172,7 +172,7 @@ enum Col {
 
 /// Coarse grid points refined per start asked for: the neighbourhoods of the best
 /// `REFINED_PER_START × count` coarse points are searched at half a decade.
-const REFINED_PER_START: usize = 2;
+const REFINED_PER_START: usize = 4;
 
 /// The weighted columns of the surrogate over every slot's fine grid, as a Gram matrix computed once,
 /// and the pair tables of hosted slots.
@@ -193,6 +193,9 @@ struct Tables {
     /// Per hosted slot: the weighted column shunted by its host at (host grid index) × (slot's fine
     /// length) + (slot's grid index), with its products with the data and with itself.
     pairs: Vec<Vec<(Vec<f64>, f64, f64)>>,
+    /// Per hosted slot: products of each pair column with each Gram column, filled on first use
+    /// (NaN until then; the grid search meets the same products many times).
+    pair_gram: Vec<Vec<f64>>,
     /// Weighted sum of squares of the data.
     yy: f64,
     m: usize,
@@ -293,7 +296,9 @@ impl Tables {
         for (i, v) in idx.iter_mut().enumerate().take(nf) {
             *v = Col::Gram(i);
         }
+        let pair_gram = pairs.iter().map(|p| vec![f64::NAN; p.len() * m]).collect();
         Tables {
+            pair_gram,
             fine,
             slot_offset,
             width,
@@ -350,6 +355,16 @@ impl Tables {
                 let g = match (a, b) {
                     (Col::Gram(a), Col::Gram(b)) => self.gram[a * m + b],
                     (Col::Pair(s, p), Col::Pair(t, q)) if s == t && p == q => self.pairs[s][p].2,
+                    (Col::Pair(s, p), Col::Gram(c)) | (Col::Gram(c), Col::Pair(s, p)) => {
+                        let cached = self.pair_gram[s][p * m + c];
+                        if cached.is_nan() {
+                            let v = dot(&self.pairs[s][p].0, &self.cols[c]);
+                            self.pair_gram[s][p * m + c] = v;
+                            v
+                        } else {
+                            cached
+                        }
+                    }
                     (a, b) => dot(self.vector(a), self.vector(b)),
                 };
                 solver.g[(i, j)] = g;
@@ -399,9 +414,16 @@ fn search(tables: &mut Tables, slots: &[SlotInfo], count: usize) -> Vec<(Vec<usi
     // Refinement: move each slot by one half decade around the best coarse points (each neighbour
     // once).
     let mut refined = results.clone();
-    let mut seen: std::collections::HashSet<Vec<usize>> = results
+    // Assignments seen, packed into one integer each (fine indices in base `radix`; exact up to 24
+    // slots, beyond which a rare collision only skips one refinement point).
+    let radix = fine_len.iter().copied().max().unwrap_or(1) as u128 + 1;
+    let key = |a: &[usize]| {
+        a.iter()
+            .fold(0u128, |k, &v| k.wrapping_mul(radix).wrapping_add(v as u128))
+    };
+    let mut seen: std::collections::HashSet<u128> = results
         .iter()
-        .map(|&(_, at)| arena[at..at + ns].to_vec())
+        .map(|&(_, at)| key(&arena[at..at + ns]))
         .collect();
     let neighbours = 3usize.pow(ns as u32);
     for &(_, at) in &results {
@@ -418,10 +440,9 @@ fn search(tables: &mut Tables, slots: &[SlotInfo], count: usize) -> Vec<(Vec<usi
                 }
                 assign[s] = v as usize;
             }
-            if !ok || !ordered(&assign) || seen.contains(&assign) {
+            if !ok || !ordered(&assign) || !seen.insert(key(&assign)) {
                 continue;
             }
-            seen.insert(assign.clone());
             let sse = tables.evaluate(&assign, &mut solver);
             refined.push((sse, arena.len()));
             arena.extend_from_slice(&assign);

@@ -360,9 +360,6 @@ pub(super) struct Search {
 /// Agreeing runs after which a search whose best residuals look like noise stops.
 pub(super) const SETTLED: usize = 3;
 
-/// Runs ending elsewhere than the best χ² that a settled search allows.
-pub(super) const STRAYS: usize = 0;
-
 /// Relative χ² difference within which two runs are taken to have reached the same optimum.
 pub(super) const AGREE: f64 = 1e-6;
 
@@ -386,11 +383,13 @@ impl Search {
         }
     }
 
-    /// Whether the search may stop: at least [`SETTLED`] runs reached the best χ², at most
-    /// [`STRAYS`] of the runs so far (and of `pending`, runs still to be considered) ended elsewhere,
-    /// and the best run's residuals look like noise (a wrong basin leaves smooth residuals).
+    /// Whether the search may stop: at least [`SETTLED`] runs reached the best χ², every run so far
+    /// did (and none is `pending`, still to be considered), and the best run's residuals look like
+    /// noise with every parameter determined (a wrong basin leaves smooth residuals or a vanished
+    /// element). Near-optimal wrong basins attract some starts too, so a single stray run is enough
+    /// to keep searching.
     pub fn settled(&self, pending: usize) -> bool {
-        self.noise_like_consensus() && self.tried - self.agreeing + pending <= STRAYS
+        self.noise_like_consensus() && self.tried == self.agreeing && pending == 0
     }
 
     /// Whether [`SETTLED`] runs reached the best χ² and its residuals look like noise, whatever other
