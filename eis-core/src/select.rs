@@ -721,9 +721,9 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
 fn distributed_arc(c: &Circuit, r: &FitResult) -> Option<String> {
     c.elements
         .iter()
-        .filter(|e| e.kind.symbol == "Q")
+        .filter(|e| e.kind.is_capacitive())
         .find_map(|e| {
-            let n = *r.values.get(e.first_param + 1)?;
+            let n = *r.values.get(e.first_param + e.kind.exponent()?)?;
             (n <= DISTRIBUTED_EXPONENT).then(|| {
                 format!(
                     "its arc {} has n = {n:.2}, a distributed (porous-electrode) response read as one arc",
