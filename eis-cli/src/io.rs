@@ -111,7 +111,7 @@ pub fn write_output(path: Option<&Path>, text: &str, inputs: &[PathBuf]) -> Resu
 /// # Errors
 ///
 /// The first error of the file (unreadable, no table, a bad spectrum) as a [`Failure::BadInput`]
-/// (exit status 2); batch commands use [`read_many`] to keep the good spectra of a partly bad file.
+/// (exit status 2).
 pub fn read_spectra(
     path: &Path,
     options: &eis_core::import::ReaderOptions,
@@ -126,10 +126,7 @@ pub fn read_spectra(
 /// The outcome of reading one input: the spectra read and the errors met (an unreadable file gives
 /// one error and no spectra; a bad spectrum gives one error and the others are kept).
 #[derive(Debug)]
-#[allow(dead_code)] // read by the batch commands
 pub struct FileSpectra {
-    /// The input.
-    pub path: PathBuf,
     /// Spectra read, in file order.
     pub spectra: Vec<eis_core::Spectrum>,
     /// Errors, in file order.
@@ -177,7 +174,6 @@ pub fn note_size(file: &str, spectrum: usize, points: usize) {
 /// Reads one input, keeping the good spectra of a partly bad file; warnings go to stderr.
 pub fn read_one(path: &Path, options: &eis_core::import::ReaderOptions) -> FileSpectra {
     let mut out = FileSpectra {
-        path: path.to_path_buf(),
         spectra: Vec::new(),
         errors: Vec::new(),
     };
@@ -208,10 +204,4 @@ pub fn read_one(path: &Path, options: &eis_core::import::ReaderOptions) -> FileS
         }
     }
     out
-}
-
-/// Reads several inputs; one bad file does not stop the others.
-#[allow(dead_code)] // for the batch commands
-pub fn read_many(paths: &[PathBuf], options: &eis_core::import::ReaderOptions) -> Vec<FileSpectra> {
-    paths.iter().map(|p| read_one(p, options)).collect()
 }
