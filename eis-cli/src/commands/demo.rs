@@ -251,36 +251,29 @@ pub fn run(args: Args) -> Outcome {
     // Written in one piece, so that a failed standard output is one error (not a panic).
     let mut o = String::new();
     let _ = writeln!(o, "What the demo found");
-    let _ = writeln!(
-        o,
-        "  contact or electrolyte problem (ohmic resistance growing): {}",
-        list(cells_with(FlagKind::OhmicGrowth))
-    );
-    let _ = writeln!(
-        o,
-        "  interface film or passivation (arc resistance growing):    {}",
-        list(cells_with(FlagKind::InterfaceGrowth))
-    );
-    let _ = writeln!(
-        o,
-        "  transport limitation (diffusion resistance growing):       {}",
-        list(cells_with(FlagKind::TransportGrowth))
-    );
-    let _ = writeln!(
-        o,
-        "  possible soft short (total resistance collapsing):         {}",
-        list(cells_with(FlagKind::PossibleSoftShort))
-    );
-    let _ = writeln!(
-        o,
-        "  spectra failing the Kramers-Kronig check (drift):          {}",
-        list(kk)
-    );
-    let _ = writeln!(
-        o,
-        "  files that could not be read:                              {}",
-        list(failed)
-    );
+    let found = [
+        (
+            "contact or electrolyte problem (ohmic resistance growing):",
+            cells_with(FlagKind::OhmicGrowth),
+        ),
+        (
+            "interface film or passivation (arc resistance growing):",
+            cells_with(FlagKind::InterfaceGrowth),
+        ),
+        (
+            "transport limitation (diffusion resistance growing):",
+            cells_with(FlagKind::TransportGrowth),
+        ),
+        (
+            "possible soft short (total resistance collapsing):",
+            cells_with(FlagKind::PossibleSoftShort),
+        ),
+        ("spectra failing the Kramers-Kronig check (drift):", kk),
+        ("files that could not be read:", failed),
+    ];
+    for (what, who) in found {
+        let _ = writeln!(o, "  {what:<59}{}", list(who));
+    }
     for f in trend
         .flags
         .iter()

@@ -384,13 +384,7 @@ impl Workspace {
             let s = v[i] - dot(&l[i * p..i * p + i], &v[..i]);
             v[i] = s / l[i * p + i];
         }
-        for i in (0..p).rev() {
-            let mut s = v[i];
-            for k in i + 1..p {
-                s -= l[k * p + i] * v[k];
-            }
-            v[i] = s / l[i * p + i];
-        }
+        crate::nnls::back_substitute(l, p, p, v);
     }
 
     /// r = A x − b for the first `p` columns.
