@@ -17,6 +17,15 @@ pub fn relative_error(got: impl Into<Complex64>, want: impl Into<Complex64>) -> 
     if d == 0.0 { 0.0 } else { d / w.norm() }
 }
 
+/// Least-squares slope of `y` against `x` (ordinary least squares through the means).
+pub fn slope(x: &[f64], y: &[f64]) -> f64 {
+    let n = x.len() as f64;
+    let (mx, my) = (x.iter().sum::<f64>() / n, y.iter().sum::<f64>() / n);
+    let sxy: f64 = x.iter().zip(y).map(|(a, b)| (a - mx) * (b - my)).sum();
+    let sxx: f64 = x.iter().map(|a| (a - mx).powi(2)).sum();
+    sxy / sxx
+}
+
 /// The numbers of a JSON array of a reference fixture (panics with the offending entry otherwise: for
 /// tests only).
 pub fn floats(v: &serde_json::Value) -> Vec<f64> {

@@ -5,21 +5,13 @@ use eis_tests::{eis, physics_spectra, read_canonical, root, scratch, write_physi
 
 fn simulate(dir: &std::path::Path, name: &str, circuit: &str, noise: &str) {
     let model = root().join("circuits").join(circuit);
-    eis(
+    eis_tests::simulate(
         dir,
-        &[
-            "simulate",
-            "--model",
-            model.to_str().unwrap(),
-            "--noise",
-            noise,
-            "--seed",
-            "3",
-            "-o",
-            name,
-        ],
-    )
-    .expect_code(0);
+        model.to_str().unwrap(),
+        &[],
+        &["--noise", noise, "--seed", "3"],
+        name,
+    );
 }
 
 #[test]

@@ -1,24 +1,12 @@
 //! `eis convert` on exports generated here from simulated spectra (issue 4).
 
-use eis_tests::{eis, read_canonical, root, scratch};
+use eis_tests::{eis, read_canonical, root, scratch, simulate};
 use std::path::Path;
 
 /// Simulates a spectrum with `eis simulate` and returns its rows.
 fn simulated(dir: &Path, name: &str, circuit: &str) -> Vec<(f64, f64, f64)> {
     let model = root().join("circuits").join(circuit);
-    eis(
-        dir,
-        &[
-            "simulate",
-            "--model",
-            model.to_str().unwrap(),
-            "--ppd",
-            "5",
-            "-o",
-            name,
-        ],
-    )
-    .expect_code(0);
+    simulate(dir, model.to_str().unwrap(), &[], &["--ppd", "5"], name);
     read_canonical(&std::fs::read_to_string(dir.join(name)).unwrap())
 }
 

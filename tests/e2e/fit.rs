@@ -3,40 +3,29 @@
 use eis_tests::{eis, scratch};
 use serde_json::Value;
 
+/// Simulates `model` with `sets` at 0.2 % noise (seed 3) into `out`.
 fn simulate(dir: &std::path::Path, model: &str, sets: &[&str], out: &str) {
-    let mut args = vec![
-        "simulate", "--model", model, "--noise", "0.002", "--seed", "3", "-o", out,
-    ];
-    for s in sets {
-        args.push("--set");
-        args.push(s);
-    }
-    eis(dir, &args).expect_code(0);
+    eis_tests::simulate(dir, model, sets, &["--noise", "0.002", "--seed", "3"], out);
+}
+
+/// Simulates the one-arc spectrum `R0 + Rct|Qdl` (R0 = 2 Ω, Rct = 40 Ω, Qdl = 50 µF·s^(n−1),
+/// n = 0.85) in a fresh folder `name`, fits it with `--json` and `extra`, and returns the exit status
+/// and the JSON document.
+fn fit_arc_json(name: &str, extra: &[&str]) -> (i32, Value) {
+    let dir = scratch(name);
+    let model = "R0 + Rct|Qdl";
+    let sets = ["R0=2", "Rct=40", "Qdl.Q=50u", "Qdl.n=0.85"];
+    simulate(&dir, model, &sets, "s.csv");
+    let mut args = vec!["fit", "s.csv", "--model", model, "--json"];
+    args.extend_from_slice(extra);
+    let run = eis(&dir, &args);
+    (run.code, serde_json::from_str(&run.stdout).unwrap())
 }
 
 #[test]
 fn json_document_has_the_documented_keys() {
-    let dir = scratch("fit_json");
-    simulate(
-        &dir,
-        "R0 + Rct|Qdl",
-        &["R0=2", "Rct=40", "Qdl.Q=50u", "Qdl.n=0.85"],
-        "s.csv",
-    );
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "s.csv",
-            "--model",
-            "R0 + Rct|Qdl",
-            "--json",
-            "--ocv",
-            "1.5",
-        ],
-    )
-    .expect_code(0);
-    let doc: Value = serde_json::from_str(&run.stdout).unwrap();
+    let (code, doc) = fit_arc_json("fit_json", &["--ocv", "1.5"]);
+    assert_eq!(code, 0);
     assert_eq!(doc["model"], "R0 + Rct|Qdl");
     let params = doc["parameters"].as_array().unwrap();
     assert_eq!(params.len(), 4);
@@ -191,28 +180,7 @@ fn table_fitted_csv_and_warm_start() {
 
 #[test]
 fn fixed_and_bounded_parameters_are_respected() {
-    let dir = scratch("fit_fix");
-    simulate(
-        &dir,
-        "R0 + Rct|Qdl",
-        &["R0=2", "Rct=40", "Qdl.Q=50u", "Qdl.n=0.85"],
-        "s.csv",
-    );
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "s.csv",
-            "--model",
-            "R0 + Rct|Qdl",
-            "--fix",
-            "Qdl.n=0.8",
-            "--bound",
-            "Rct=1..30",
-            "--json",
-        ],
-    );
-    let doc: Value = serde_json::from_str(&run.stdout).unwrap();
+    let (_, doc) = fit_arc_json("fit_fix", &["--fix", "Qdl.n=0.8", "--bound", "Rct=1..30"]);
     let p = |n: &str| {
         doc["parameters"]
             .as_array()

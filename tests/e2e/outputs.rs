@@ -20,6 +20,28 @@ fn write_arc(path: &Path) {
     std::fs::write(path, text).unwrap();
 }
 
+/// Which standard stream of a run goes to `/dev/full`.
+#[cfg(target_os = "linux")]
+enum Stream {
+    Stdout,
+    Stderr,
+}
+
+/// Runs `eis args` in `dir` with `stream` going to `/dev/full` (every write fails: the disk is full).
+#[cfg(target_os = "linux")]
+fn on_full_device(dir: &std::path::Path, args: &[&str], stream: Stream) -> std::process::Output {
+    let full = std::fs::OpenOptions::new()
+        .write(true)
+        .open("/dev/full")
+        .unwrap();
+    let mut command = Command::new(eis_bin());
+    command.args(args).current_dir(dir);
+    match stream {
+        Stream::Stdout => command.stdout(full),
+        Stream::Stderr => command.stderr(full),
+    };
+    command.output().unwrap()
+}
 #[track_caller]
 fn no_panic(run: &eis_tests::Run) {
     assert!(
@@ -122,16 +144,7 @@ fn stdout_to_dev_full_is_an_error_not_a_panic() {
         &["drt", "in.csv"],
     ];
     for args in commands {
-        let full = std::fs::OpenOptions::new()
-            .write(true)
-            .open("/dev/full")
-            .unwrap();
-        let out = Command::new(eis_bin())
-            .args(args)
-            .current_dir(&dir)
-            .stdout(full)
-            .output()
-            .unwrap();
+        let out = on_full_device(&dir, args, Stream::Stdout);
         let stderr = String::from_utf8_lossy(&out.stderr);
         assert_eq!(out.status.code(), Some(1), "{args:?}: {stderr}");
         assert!(!stderr.contains("panicked"), "{args:?}: {stderr}");
@@ -309,16 +322,7 @@ fn stderr_to_dev_full_does_not_panic() {
         (&["simulate", "--model", "R0"][..], 0),
         (&["fit", "missing.csv", "--model", "R0"][..], 2),
     ] {
-        let full = std::fs::OpenOptions::new()
-            .write(true)
-            .open("/dev/full")
-            .unwrap();
-        let out = Command::new(eis_bin())
-            .args(args)
-            .current_dir(&dir)
-            .stderr(full)
-            .output()
-            .unwrap();
+        let out = on_full_device(&dir, args, Stream::Stderr);
         assert_eq!(out.status.code(), Some(code), "{args:?}");
     }
 }

@@ -1,6 +1,7 @@
 //! `eis plot`: valid SVG and PNG, equal Nyquist scaling read back from the drawn SVG, colour bars on
 //! overlays, JSON inputs, odd data and exit codes. Inputs come from `eis simulate`.
 
+use eis_core::testing::slope;
 use eis_tests::{eis, read_canonical, scratch};
 use std::path::Path;
 
@@ -54,15 +55,6 @@ fn texts(svg: &str) -> Vec<SvgText> {
 /// A tick label as a number (true minus signs allowed).
 fn number(text: &str) -> Option<f64> {
     text.replace('\u{2212}', "-").parse().ok()
-}
-
-/// Least-squares slope of `y` against `x`.
-fn slope(x: &[f64], y: &[f64]) -> f64 {
-    let n = x.len() as f64;
-    let (mx, my) = (x.iter().sum::<f64>() / n, y.iter().sum::<f64>() / n);
-    let sxy: f64 = x.iter().zip(y).map(|(a, b)| (a - mx) * (b - my)).sum();
-    let sxx: f64 = x.iter().map(|a| (a - mx).powi(2)).sum();
-    sxy / sxx
 }
 
 /// Ω (in the displayed unit) per pixel along x and y, from the tick labels' positions and values.

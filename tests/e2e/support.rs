@@ -82,6 +82,18 @@ impl Run {
     }
 }
 
+/// Runs `eis simulate --model model` in `dir` with a `--set` for each of `sets`, then `options`,
+/// writing `out`; the run must succeed.
+pub fn simulate(dir: &Path, model: &str, sets: &[&str], options: &[&str], out: &str) {
+    let mut args = vec!["simulate", "--model", model];
+    for s in sets {
+        args.extend(["--set", s]);
+    }
+    args.extend_from_slice(options);
+    args.extend(["-o", out]);
+    eis(dir, &args).expect_code(0);
+}
+
 /// Runs `eis` with `args` in `dir`.
 pub fn eis(dir: &Path, args: &[&str]) -> Run {
     let out = Command::new(eis_bin())
