@@ -237,6 +237,16 @@ const LINE_Q: ParamInfo = positive(
     "double-layer CPE coefficient of the whole surface",
 );
 
+/// The limit of an ideal capacitor or inductor: no real part, |Z| unbounded at high frequency for an
+/// inductor (`open_high`), at direct current for a capacitor.
+const fn reactive_limit(open_high: bool, high: bool) -> Limit {
+    if open_high == high {
+        Limit::open(0.0)
+    } else {
+        Limit::finite(0.0)
+    }
+}
+
 /// Every element kind of the language. Symbols are matched longest first by the parser.
 pub static KINDS: &[ElementKind] = &[
     ElementKind {
@@ -256,13 +266,7 @@ pub static KINDS: &[ElementKind] = &[
         formula: "1/(jwC)",
         params: &[positive("C", "F", 1e-5, "capacitance")],
         impedance: capacitor,
-        limit: |_, high| {
-            if high {
-                Limit::finite(0.0)
-            } else {
-                Limit::open(0.0)
-            }
-        },
+        limit: |_, high| reactive_limit(false, high),
         class: Class::Capacitive,
         seed: Seed::Capacitive {
             series: seed::inverse,
@@ -277,13 +281,7 @@ pub static KINDS: &[ElementKind] = &[
         formula: "jwL",
         params: &[positive("L", "H", 1e-6, "inductance")],
         impedance: inductor,
-        limit: |_, high| {
-            if high {
-                Limit::open(0.0)
-            } else {
-                Limit::finite(0.0)
-            }
-        },
+        limit: |_, high| reactive_limit(true, high),
         class: Class::Inductive,
         seed: Seed::Linear { of: seed::scale },
         physics: Physics::Plain,

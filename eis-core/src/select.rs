@@ -376,18 +376,10 @@ pub struct CandidateEntry {
     pub model: String,
     /// Short label (`2 arcs + transmissive diffusion`).
     pub label: String,
-    /// Number of arcs.
-    pub arcs: usize,
-    /// Diffusion: `none`, `transmissive` or `reflective`.
-    pub diffusion: Diffusion,
-    /// Series inductance.
-    pub inductance: bool,
-    /// Diffusion tail in series: `none`, `warburg` or `reflective`.
-    #[serde(default)]
-    pub tail: Tail,
-    /// Whether the arcs are porous electrodes.
-    #[serde(default)]
-    pub porous: bool,
+    /// Which member of the family: its keys (`arcs`, `diffusion`, `inductance`, `tail`, `porous`)
+    /// stand in the entry itself.
+    #[serde(flatten)]
+    pub member: Member,
     /// Whether the decomposition was rejected as implausible.
     #[serde(default)]
     pub rejected: bool,
@@ -421,11 +413,7 @@ impl From<&Candidate> for CandidateEntry {
         CandidateEntry {
             model: crate::circuit::print_expression(&c.circuit),
             label: c.member.label(),
-            arcs: c.member.arcs,
-            diffusion: c.member.diffusion,
-            inductance: c.member.inductance,
-            tail: c.member.tail,
-            porous: c.member.porous,
+            member: c.member,
             rejected: c.rejected,
             fitted: r.is_some(),
             parameters: c.circuit.params.iter().filter(|p| !p.fixed).count(),

@@ -83,32 +83,29 @@ fn drt_summary_and_options() {
 #[test]
 fn drt_bad_input_exits_with_2() {
     let dir = scratch("drt-bad");
-    let run = eis(&dir, &["drt", "missing.csv"]).expect_code(2);
-    assert!(
-        run.stderr.contains("missing.csv: cannot read"),
-        "{}",
-        run.stderr
-    );
-    std::fs::write(
-        dir.join("short.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n1,3,-0.5\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["drt", "short.csv"]).expect_code(2);
-    assert!(run.stderr.contains("needs at least 5"), "{}", run.stderr);
-    std::fs::write(
-        dir.join("zero.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
-    )
-    .unwrap();
-    // The reader drops the zero point with a warning naming its line; four points are then too few.
-    let run = eis(&dir, &["drt", "zero.csv"]).expect_code(2);
-    assert!(
-        run.stderr
-            .contains("zero.csv: warning: dropped 1 row: line 4: impedance is zero"),
-        "{}",
-        run.stderr
-    );
+    let head = "frequency_hz,z_real_ohm,z_imag_ohm\n";
+    for (file, rows) in [
+        ("short.csv", "100,1,-1\n10,2,-1\n1,3,-0.5\n"),
+        (
+            "zero.csv",
+            "1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
+        ),
+    ] {
+        std::fs::write(dir.join(file), format!("{head}{rows}")).unwrap();
+    }
+    for (file, message) in [
+        ("missing.csv", "missing.csv: cannot read"),
+        ("short.csv", "needs at least 5"),
+        // The reader drops the zero point with a warning naming its line; four points are then too
+        // few.
+        (
+            "zero.csv",
+            "zero.csv: warning: dropped 1 row: line 4: impedance is zero",
+        ),
+    ] {
+        let run = eis(&dir, &["drt", file]).expect_code(2);
+        assert!(run.stderr.contains(message), "{file}: {}", run.stderr);
+    }
     eis(&dir, &["drt", "zero.csv", "--penalty", "3"]).expect_code(2);
     eis(&dir, &["drt", "zero.csv", "--lambda", "-1"]).expect_code(2);
     let run = eis(&dir, &["drt", "zero.csv", "--json", "-o", "-"]).expect_code(2);

@@ -207,87 +207,66 @@ fn fixed_and_bounded_parameters_are_respected() {
 #[test]
 fn bad_input_exits_2_with_a_clear_message() {
     let dir = scratch("fit_bad");
-    std::fs::write(
-        dir.join("empty.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "empty.csv", "--model", "R0 + R1|C1"]).expect_code(2);
-    assert!(run.stderr.contains("empty"), "{}", run.stderr);
-    std::fs::write(
-        dir.join("two.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "two.csv", "--model", "R0 + R1|Q1"]).expect_code(2);
-    assert!(
-        run.stderr.contains("fewer than the minimum"),
-        "{}",
-        run.stderr
-    );
-    std::fs::write(
-        dir.join("three.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n1,3,-1\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "three.csv", "--model", "R0 + R1|Q1 + R2|Q2"]).expect_code(2);
-    assert!(
-        run.stderr.contains("too few for 7 free parameters"),
-        "{}",
-        run.stderr
-    );
-    std::fs::write(
-        dir.join("nan.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,NaN,-1\n10,2,-1\n1,3,-1\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "nan.csv", "--model", "R0"]);
-    assert_eq!(run.code, 2, "{}", run.stderr);
+    let head = "frequency_hz,z_real_ohm,z_imag_ohm\n";
+    for (file, rows) in [
+        ("empty.csv", ""),
+        ("two.csv", "100,1,-1\n10,2,-1\n"),
+        ("three.csv", "100,1,-1\n10,2,-1\n1,3,-1\n"),
+        ("nan.csv", "100,NaN,-1\n10,2,-1\n1,3,-1\n"),
+    ] {
+        std::fs::write(dir.join(file), format!("{head}{rows}")).unwrap();
+    }
     simulate(&dir, "R0 + R1|C1", &[], "ok.csv");
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "ok.csv",
-            "--model",
-            "R0 + R1|C1",
-            "--fix",
-            "R0",
-            "--fix",
-            "R1",
-            "--fix",
-            "C1",
-        ],
-    )
-    .expect_code(2);
-    assert!(
-        run.stderr.contains("every parameter is fixed"),
-        "{}",
-        run.stderr
-    );
-    let run = eis(&dir, &["fit", "ok.csv", "--model", "R0{50 1..10} + R1|C1"]).expect_code(2);
-    assert!(run.stderr.contains("outside its bounds"), "{}", run.stderr);
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "ok.csv",
-            "--model",
-            "R0 + R1|C1",
-            "--bound",
-            "R1=5..1",
-        ],
-    )
-    .expect_code(2);
-    assert!(run.stderr.contains("not below"), "{}", run.stderr);
-    let run = eis(&dir, &["fit", "missing.csv", "--model", "R0"]).expect_code(2);
-    assert!(run.stderr.contains("missing.csv"), "{}", run.stderr);
-    let run = eis(
-        &dir,
-        &["fit", "ok.csv", "--model", "R0 + R1|C1", "-o", "ok.csv"],
-    )
-    .expect_code(2);
-    assert!(run.stderr.contains("input file"), "{}", run.stderr);
+    let fixed_all = [
+        "fit",
+        "ok.csv",
+        "--model",
+        "R0 + R1|C1",
+        "--fix",
+        "R0",
+        "--fix",
+        "R1",
+        "--fix",
+        "C1",
+    ];
+    // (arguments, what the message on stderr says; empty: only the exit status is checked)
+    let cases: [(&[&str], &str); 9] = [
+        (&["fit", "empty.csv", "--model", "R0 + R1|C1"], "empty"),
+        (
+            &["fit", "two.csv", "--model", "R0 + R1|Q1"],
+            "fewer than the minimum",
+        ),
+        (
+            &["fit", "three.csv", "--model", "R0 + R1|Q1 + R2|Q2"],
+            "too few for 7 free parameters",
+        ),
+        (&["fit", "nan.csv", "--model", "R0"], ""),
+        (&fixed_all, "every parameter is fixed"),
+        (
+            &["fit", "ok.csv", "--model", "R0{50 1..10} + R1|C1"],
+            "outside its bounds",
+        ),
+        (
+            &[
+                "fit",
+                "ok.csv",
+                "--model",
+                "R0 + R1|C1",
+                "--bound",
+                "R1=5..1",
+            ],
+            "not below",
+        ),
+        (&["fit", "missing.csv", "--model", "R0"], "missing.csv"),
+        (
+            &["fit", "ok.csv", "--model", "R0 + R1|C1", "-o", "ok.csv"],
+            "input file",
+        ),
+    ];
+    for (args, message) in cases {
+        let run = eis(&dir, args).expect_code(2);
+        assert!(run.stderr.contains(message), "{args:?}: {}", run.stderr);
+    }
     let run = eis(&dir, &["fit", "--help"]).expect_code(0);
     assert!(run.stdout.contains("Example"));
 }

@@ -332,24 +332,17 @@ pub fn run(args: Args) -> Outcome {
         }
     }
     let _ = writeln!(o, "\nWhere everything is");
-    let _ = writeln!(o, "  export files:        {}", raw.display());
-    let _ = writeln!(o, "  canonical spectra:   {}", converted.display());
-    let _ = writeln!(
-        o,
-        "  fit results:         {}",
-        results.join("results.csv").display()
-    );
-    let _ = writeln!(
-        o,
-        "  trends:              {}",
-        results.join("trends.csv").display()
-    );
-    let _ = writeln!(o, "  plots:               {}", plots.display());
-    let _ = writeln!(
-        o,
-        "  report:              {}",
-        results.join("report.html").display()
-    );
+    let places = [
+        ("export files:", raw.to_path_buf()),
+        ("canonical spectra:", converted.to_path_buf()),
+        ("fit results:", results.join("results.csv")),
+        ("trends:", results.join("trends.csv")),
+        ("plots:", plots.to_path_buf()),
+        ("report:", results.join("report.html")),
+    ];
+    for (what, path) in places {
+        let _ = writeln!(o, "  {what:<21}{}", path.display());
+    }
     let _ = writeln!(
         o,
         "\nDone in {:.1} s. The data are invented; flags are engineering hints, not safety verdicts — handle real cells by your lab's rules.",
