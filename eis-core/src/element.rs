@@ -237,6 +237,29 @@ const LINE_Q: ParamInfo = positive(
     "double-layer CPE coefficient of the whole surface",
 );
 
+/// Parameters of the finite diffusion elements.
+const DIFFUSION: [ParamInfo; 2] = [
+    positive("R", "Ohm", 10.0, "diffusion resistance"),
+    positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
+];
+
+/// What the roles read from a finite diffusion element ([`DIFFUSION`]'s resistance and time constant).
+const FINITE_DIFFUSION: Physics = Physics::FiniteDiffusion {
+    resistance: 0,
+    tau: 1,
+};
+
+/// The seed of a transport element of resistance and time constant (parameters 0 and 1) whose time
+/// constant may lie beyond the data, with the largest peak of its distribution at `peak`.
+const fn diffusion_seed(peak: (f64, f64)) -> Seed {
+    Seed::Feature {
+        of: seed::resistance_time,
+        tau: seed::second,
+        window: seed::DIFFUSION_WINDOW,
+        peak,
+    }
+}
+
 /// The limit of an ideal capacitor or inductor: no real part, |Z| unbounded at high frequency for an
 /// inductor (`open_high`), at direct current for a capacitor.
 const fn reactive_limit(open_high: bool, high: bool) -> Limit {
@@ -325,32 +348,18 @@ pub static KINDS: &[ElementKind] = &[
         symbol: "Wt",
         name: "finite-length diffusion, transmissive boundary",
         formula: "R tanh(sqrt(jw tau))/sqrt(jw tau)",
-        params: &[
-            positive("R", "Ohm", 10.0, "diffusion resistance"),
-            positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
-        ],
+        params: &DIFFUSION,
         impedance: diffusion_transmissive,
         limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
         class: Class::Diffusive,
-        seed: Seed::Feature {
-            of: seed::resistance_time,
-            tau: seed::second,
-            window: seed::DIFFUSION_WINDOW,
-            peak: seed::TRANSMISSIVE_PEAK,
-        },
-        physics: Physics::FiniteDiffusion {
-            resistance: 0,
-            tau: 1,
-        },
+        seed: diffusion_seed(seed::TRANSMISSIVE_PEAK),
+        physics: FINITE_DIFFUSION,
     },
     ElementKind {
         symbol: "Wr",
         name: "finite-space diffusion, reflective boundary",
         formula: "R coth(sqrt(jw tau))/sqrt(jw tau)",
-        params: &[
-            positive("R", "Ohm", 10.0, "diffusion resistance"),
-            positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
-        ],
+        params: &DIFFUSION,
         impedance: diffusion_reflective,
         limit: |p, high| {
             if high {
@@ -360,16 +369,8 @@ pub static KINDS: &[ElementKind] = &[
             }
         },
         class: Class::Diffusive,
-        seed: Seed::Feature {
-            of: seed::resistance_time,
-            tau: seed::second,
-            window: seed::DIFFUSION_WINDOW,
-            peak: seed::REFLECTIVE_PEAK,
-        },
-        physics: Physics::FiniteDiffusion {
-            resistance: 0,
-            tau: 1,
-        },
+        seed: diffusion_seed(seed::REFLECTIVE_PEAK),
+        physics: FINITE_DIFFUSION,
     },
     ElementKind {
         symbol: "G",
@@ -382,12 +383,7 @@ pub static KINDS: &[ElementKind] = &[
         impedance: gerischer,
         limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
         class: Class::Diffusive,
-        seed: Seed::Feature {
-            of: seed::resistance_time,
-            tau: seed::second,
-            window: seed::DIFFUSION_WINDOW,
-            peak: (1.0, 1.0),
-        },
+        seed: diffusion_seed((1.0, 1.0)),
         physics: Physics::Plain,
     },
     ElementKind {
