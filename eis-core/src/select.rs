@@ -620,23 +620,35 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         r.chi_square
             .max(2.0 * spectrum.z.len() as f64 * MEASUREMENT_ACCURACY.powi(2))
     };
+    // The plausible, converged candidate `admit` lets in with the lowest BIC among those that fit
+    // within COMPARABLE_CHI_SQUARE times the χ² of `r`, in words.
+    let better = |r: &FitResult, admit: fn(&Candidate) -> bool| {
+        candidates
+            .iter()
+            .zip(&flaws)
+            .filter(|(o, f)| admit(o) && f.is_none())
+            .filter_map(|(o, _)| {
+                o.result
+                    .as_ref()
+                    .filter(|or| or.converged)
+                    .map(|or| (o, or))
+            })
+            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
+            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic))
+            .map(|(o, _)| {
+                format!(
+                    "while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
+                    o.member.label()
+                )
+            })
+    };
     let mut rejected: Vec<Option<String>> = vec![None; candidates.len()];
     for (i, c) in candidates.iter().enumerate() {
         let (Some(flaw), Some(r)) = (&flaws[i], &c.result) else {
             continue;
         };
-        let better = candidates
-            .iter()
-            .zip(&flaws)
-            .filter(|(o, f)| f.is_none() && o.result.as_ref().is_some_and(|o| o.converged))
-            .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
-            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
-            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
-        if let Some((o, _)) = better {
-            rejected[i] = Some(format!(
-                "rejected: {flaw}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
-                o.member.label()
-            ));
+        if let Some(o) = better(r, |_| true) {
+            rejected[i] = Some(format!("rejected: {flaw}, {o}"));
         }
     }
     // Lumped arcs drawing a distributed (porous-electrode) response, when a porous candidate that
@@ -649,19 +661,8 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         let Some(arc) = distributed_arc(&c.circuit, r) else {
             continue;
         };
-        let better = candidates
-            .iter()
-            .zip(&flaws)
-            .filter(|(o, f)| o.member.porous && f.is_none())
-            .filter(|(o, _)| o.result.as_ref().is_some_and(|or| or.converged))
-            .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
-            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
-            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
-        if let Some((o, _)) = better {
-            rejected[i] = Some(format!(
-                "rejected: {arc}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
-                o.member.label()
-            ));
+        if let Some(o) = better(r, |o| o.member.porous) {
+            rejected[i] = Some(format!("rejected: {arc}, {o}"));
         }
     }
     for (c, why) in candidates.iter_mut().zip(rejected) {

@@ -109,7 +109,7 @@ fn drt_bad_input_exits_with_2() {
     eis(&dir, &["drt", "zero.csv", "--penalty", "3"]).expect_code(2);
     eis(&dir, &["drt", "zero.csv", "--lambda", "-1"]).expect_code(2);
     let run = eis(&dir, &["drt", "zero.csv", "--json", "-o", "-"]).expect_code(2);
-    assert!(run.stderr.contains("stdout"), "{}", run.stderr);
+    run.expect_stderr("stdout");
     let help = eis(&dir, &["drt", "--help"]).expect_code(0);
     assert!(help.stdout.contains("Examples:") && help.stdout.contains("eis drt"));
 }

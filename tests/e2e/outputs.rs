@@ -80,7 +80,7 @@ fn output_to_a_symlink_writes_its_target_and_keeps_the_link() {
         &["fit", "in.csv", "--model", "R0+R1|C1", "-o", "in-link.csv"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("it is an input file"), "{}", run.stderr);
+    run.expect_stderr("it is an input file");
     assert!(
         std::fs::read_to_string(dir.join("in.csv"))
             .unwrap()
@@ -231,7 +231,7 @@ fn batch_walks_a_folder_loop_once() {
         &["batch", "data", "--model", "R0+R1|C1", "--out", "out"],
     );
     no_panic(&run);
-    assert!(run.stderr.contains("3 spectra:"), "{}", run.stderr);
+    run.expect_stderr("3 spectra:");
 }
 
 /// `--resume` with another model reused the old results under the new model's columns.
@@ -252,12 +252,12 @@ fn batch_resume_refuses_other_settings_unless_forced() {
         "{}",
         run.stderr
     );
-    assert!(run.stderr.contains("--force"), "{}", run.stderr);
+    run.expect_stderr("--force");
     let run = batch("R0+R1|C1", &["--resume", "--weight", "unit"]).expect_code(2);
-    assert!(run.stderr.contains("another weighting"), "{}", run.stderr);
+    run.expect_stderr("another weighting");
     // Same settings: everything is already done.
     let run = batch("R0+R1|C1", &["--resume"]).expect_code(0);
-    assert!(run.stderr.contains("1 already done"), "{}", run.stderr);
+    run.expect_stderr("1 already done");
     // Forced: the old results are discarded and the new model fitted.
     batch("R0+R1|Q1", &["--resume", "--force"]).expect_code(0);
     let csv = std::fs::read_to_string(dir.join("out/results.csv")).unwrap();

@@ -321,11 +321,7 @@ fn colour_by_a_missing_field_falls_back_to_file_order() {
         ],
     )
     .expect_code(0);
-    assert!(
-        run.stderr.contains("colouring by file order"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("colouring by file order");
     eis(&dir, &["plot", "a.csv", "--color-by", "soc", "-o", "n.svg"]).expect_code(2);
 }
 
@@ -599,11 +595,7 @@ fn bad_input_exits_2_and_never_overwrites_an_input() {
     )
     .unwrap();
     let run = eis(&dir, &["plot", "bad.json", "--kind", "drt", "-o", "x.svg"]).expect_code(2);
-    assert!(
-        run.stderr.contains("`gamma_ohm` has 1 values"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("`gamma_ohm` has 1 values");
     eis(
         &dir,
         &[
@@ -666,7 +658,7 @@ fn plot_reads_what_drt_and_trend_write() {
         &["plot", "trend.json", "--kind", "trend", "-o", "t.svg"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("--quantity"), "{}", run.stderr);
+    run.expect_stderr("--quantity");
     eis(
         &dir,
         &[

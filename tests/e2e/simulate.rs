@@ -93,7 +93,7 @@ fn simulate_sets_values_and_reports_defaults() {
         ],
     )
     .expect_code(0);
-    assert!(run.stderr.contains("Cdl = 10u F"), "{}", run.stderr);
+    run.expect_stderr("Cdl = 10u F");
     let rows = read_canonical(&run.stdout);
     assert_eq!(rows.len(), 4);
     // Capacitive: imaginary part negative.
@@ -155,42 +155,31 @@ fn frequency_file_is_used_in_its_order() {
         &["simulate", "--model", "R0", "--freq-file", "bad.txt"],
     )
     .expect_code(2);
-    assert!(
-        run.stderr.contains("bad.txt, line 2, column 1"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("bad.txt, line 2, column 1");
 }
 
 #[test]
 fn bad_input_exits_2_with_a_clear_message() {
     let dir = scratch("simulate_bad");
     let run = eis(&dir, &["simulate", "--model", "R0 + (R1|C1"]).expect_code(2);
-    assert!(
-        run.stderr.contains("never closed") && run.stderr.contains('^'),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("never closed");
+    run.expect_stderr("^");
     let run = eis(&dir, &["simulate", "--model", "R0", "--set", "R1=5"]).expect_code(2);
-    assert!(run.stderr.contains("no parameter `R1`"), "{}", run.stderr);
+    run.expect_stderr("no parameter `R1`");
     let run = eis(
         &dir,
         &["simulate", "--model", "R0", "--fmin", "10", "--fmax", "1"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("--fmin"), "{}", run.stderr);
+    run.expect_stderr("--fmin");
     let run = eis(&dir, &["simulate", "--model", "missing.circ"]).expect_code(2);
-    assert!(run.stderr.contains("missing.circ"), "{}", run.stderr);
+    run.expect_stderr("missing.circ");
     let run = eis(&dir, &["inspect", "--model", "R0 + X1"]).expect_code(2);
-    assert!(
-        run.stderr.contains("unknown element kind"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("unknown element kind");
     // An input is never written over.
     std::fs::write(dir.join("m.circ"), "R0 + R1|C1\n").unwrap();
     let run = eis(&dir, &["simulate", "--model", "m.circ", "-o", "m.circ"]).expect_code(2);
-    assert!(run.stderr.contains("input file"), "{}", run.stderr);
+    run.expect_stderr("input file");
     assert_eq!(
         std::fs::read_to_string(dir.join("m.circ")).unwrap(),
         "R0 + R1|C1\n"

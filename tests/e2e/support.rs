@@ -70,6 +70,12 @@ impl Run {
         }
     }
 
+    /// Asserts that standard error contains `part`, showing it when it does not.
+    #[track_caller]
+    pub fn expect_stderr(&self, part: &str) {
+        assert!(self.stderr.contains(part), "{}", self.stderr);
+    }
+
     /// Asserts the exit status, showing both streams when it differs.
     #[track_caller]
     pub fn expect_code(self, code: i32) -> Run {

@@ -34,6 +34,11 @@ fn spectrum(circuit: &str, params: &[f64], noise: Option<Noise>) -> Spectrum {
     simulate(&plan, params, &log_frequencies(1e5, 0.1, 10), noise)
 }
 
+/// The RC arc of the tests, R0 + R1|C1 with R0 = 5 Ω, R1 = 50 Ω, C1 = 20 µF (τ = 1 ms).
+fn rc(noise: Option<Noise>) -> Spectrum {
+    spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], noise)
+}
+
 /// Cole & Cole 1941 (J. Chem. Phys. 9, 341) distribution of a ZARC R/(1 + (jωτ₀)^φ), in ln τ (the
 /// DRT convention of Wan, Saccoccio, Chen & Ciucci 2015, Electrochim. Acta 184, 483).
 fn cole_cole(r: f64, tau0: f64, phi: f64, tau: f64) -> f64 {
@@ -251,14 +256,10 @@ fn drt_two_arcs_a_decade_apart_give_two_peaks() {
 
 #[test]
 fn drt_options_all_run_and_agree_on_an_rc() {
-    let s = spectrum(
-        "R0 + R1|C1",
-        &[5.0, 50.0, 20e-6],
-        Some(Noise {
-            relative: 0.002,
-            seed: 2,
-        }),
-    );
+    let s = rc(Some(Noise {
+        relative: 0.002,
+        seed: 2,
+    }));
     let variants = [
         DrtOptions::default().with_lambda(LambdaMethod::LCurve),
         DrtOptions::default().with_lambda(LambdaMethod::Fixed(1e-4)),
@@ -313,14 +314,10 @@ fn drt_recovers_a_series_inductance() {
 
 #[test]
 fn drt_setup_reuse_gives_the_same_result() {
-    let s = spectrum(
-        "R0 + R1|C1",
-        &[5.0, 50.0, 20e-6],
-        Some(Noise {
-            relative: 0.002,
-            seed: 9,
-        }),
-    );
+    let s = rc(Some(Noise {
+        relative: 0.002,
+        seed: 9,
+    }));
     let setup = DrtSetup::new(&s.frequency_hz, DrtOptions::default()).unwrap();
     let a = setup.solve(&s.z).unwrap();
     let b = setup.solve(&s.z).unwrap();
@@ -330,7 +327,7 @@ fn drt_setup_reuse_gives_the_same_result() {
 
 #[test]
 fn drt_rejects_bad_input() {
-    let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let good = rc(None);
     let kind = |s: &Spectrum| drt(s, DrtOptions::default()).unwrap_err().kind().clone();
     assert_eq!(kind(&Spectrum::default()), DrtErrorKind::Empty);
     let mut few = good.clone();
@@ -467,7 +464,7 @@ fn the_drt_does_not_depend_on_the_scale_of_z() {
 /// Issue 13: degenerate spectra give a result or a typed error, never a panic.
 #[test]
 fn degenerate_spectra_give_results_or_typed_errors() {
-    let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let good = rc(None);
     // All impedances equal: a pure resistance, no polarisation.
     let flat = Spectrum::new(
         good.frequency_hz.clone(),
@@ -623,7 +620,7 @@ fn an_open_capacitive_tail_is_taken_by_the_series_capacitance() {
         without.edge_peaks
     );
     // No tail: the capacitance is not reported.
-    let rc = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let rc = rc(None);
     assert_eq!(drt(&rc, DrtOptions::default()).unwrap().capacitance_f, None);
 }
 
