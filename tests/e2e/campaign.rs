@@ -3,7 +3,7 @@
 //! cycle 150), an interface film in Z3 (from cycle 100), a soft short in Z4 (from cycle 250), a corrupt
 //! file and a drifting spectrum; Z1 and Z5 are healthy.
 
-use eis_tests::{eis, scratch};
+use eis_tests::{eis, scratch, write_file};
 use serde_json::Value;
 use std::path::Path;
 use std::process::Command;
@@ -13,7 +13,7 @@ fn write_campaign(dir: &Path) {
     for f in eis_core::scenario::files() {
         std::fs::write(dir.join("raw").join(&f.name), &f.bytes).unwrap();
     }
-    std::fs::write(dir.join("model.circ"), eis_core::scenario::MODEL_FILE).unwrap();
+    write_file(dir, "model.circ", eis_core::scenario::MODEL_FILE);
 }
 
 fn batch_args(out: &str) -> Vec<String> {
@@ -441,11 +441,11 @@ fn shared_parameters_are_fitted_per_chain() {
 #[test]
 fn batch_bad_usage_exits_2() {
     let dir = scratch("campaign_bad");
-    std::fs::write(
-        dir.join("a.csv"),
+    write_file(
+        &dir,
+        "a.csv",
         "frequency_hz,z_real_ohm,z_imag_ohm\n1,1,-1\n",
-    )
-    .unwrap();
+    );
     let run = eis(
         &dir,
         &["batch", "nothing*.csv", "--model", "R0", "--out", "o"],

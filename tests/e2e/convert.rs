@@ -1,6 +1,6 @@
 //! `eis convert` on exports generated here from simulated spectra (issue 4).
 
-use eis_tests::{eis, read_canonical, root, scratch, simulate};
+use eis_tests::{eis, read_canonical, root, scratch, simulate, write_file};
 use std::path::Path;
 
 /// Simulates a spectrum with `eis simulate` and returns its rows.
@@ -26,7 +26,7 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
             &format!("{:e};{:e};{:e}\r\n", f / 1e3, re * 1e3, -im * 1e3).replace('.', ","),
         );
     }
-    std::fs::write(dir.join("lab.txt"), &text).unwrap();
+    write_file(&dir, "lab.txt", &text);
     // Two cycles in one tab-separated file, with a temperature column.
     let mut multi = String::from("f (Hz)\tRe (Ohm)\tIm (Ohm)\tcycle\ttemperature\n");
     for cycle in [3, 4] {
@@ -34,8 +34,8 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
             multi.push_str(&format!("{f}\t{re}\t{im}\t{cycle}\t25\n"));
         }
     }
-    std::fs::write(dir.join("cellB_c7.tsv"), &multi).unwrap();
-    std::fs::write(dir.join("broken.csv"), "f,re,im\n1,2,3\n2,x,3\n3,2,3\n").unwrap();
+    write_file(&dir, "cellB_c7.tsv", &multi);
+    write_file(&dir, "broken.csv", "f,re,im\n1,2,3\n2,x,3\n3,2,3\n");
     let run = eis(
         &dir,
         &[
@@ -99,7 +99,7 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
 fn issue_4_convert_never_writes_over_an_input() {
     let dir = scratch("convert-guard");
     simulated(&dir, "x.csv", "single-interface.circ");
-    std::fs::write(dir.join("x_1.csv"), "f,re,im\n3,1,-1\n2,1,-2\n1,1,-3\n").unwrap();
+    write_file(&dir, "x_1.csv", "f,re,im\n3,1,-1\n2,1,-2\n1,1,-3\n");
     let before = std::fs::read(dir.join("x_1.csv")).unwrap();
     let run = eis(&dir, &["convert", "x_1.csv", "x.csv", "--out", "."]).expect_code(1);
     assert!(

@@ -1,6 +1,6 @@
 //! `eis drt` on spectra that `eis simulate` writes.
 
-use eis_tests::{eis, scratch, simulate};
+use eis_tests::{eis, scratch, simulate, write_file};
 
 /// An RC element's DRT is R·δ(ln τ − ln RC): one peak at τ = RC holding R (by the definition of the DRT,
 /// Z = R∞ + ∫ γ(ln τ)/(1 + jωτ) d ln τ; common practice).
@@ -91,7 +91,7 @@ fn drt_bad_input_exits_with_2() {
             "1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
         ),
     ] {
-        std::fs::write(dir.join(file), format!("{head}{rows}")).unwrap();
+        write_file(&dir, file, format!("{head}{rows}"));
     }
     for (file, message) in [
         ("missing.csv", "missing.csv: cannot read"),

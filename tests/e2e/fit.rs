@@ -1,6 +1,6 @@
 //! `eis fit` end to end: readable report, JSON keys, fitted CSV, warm start, bad input.
 
-use eis_tests::{eis, scratch};
+use eis_tests::{eis, scratch, write_file};
 use serde_json::Value;
 
 /// Simulates `model` with `sets` at 0.2 % noise (seed 3) into `out`.
@@ -149,7 +149,7 @@ fn table_fitted_csv_and_warm_start() {
     );
     // A saved result warm-starts the next fit, which then needs fewer evaluations.
     let cold = eis(&dir, &["fit", "s.csv", "--model", model, "--json"]).expect_code(0);
-    std::fs::write(dir.join("prev.json"), &cold.stdout).unwrap();
+    write_file(&dir, "prev.json", &cold.stdout);
     let warm = eis(
         &dir,
         &[
@@ -214,7 +214,7 @@ fn bad_input_exits_2_with_a_clear_message() {
         ("three.csv", "100,1,-1\n10,2,-1\n1,3,-1\n"),
         ("nan.csv", "100,NaN,-1\n10,2,-1\n1,3,-1\n"),
     ] {
-        std::fs::write(dir.join(file), format!("{head}{rows}")).unwrap();
+        write_file(&dir, file, format!("{head}{rows}"));
     }
     simulate(&dir, "R0 + R1|C1", &[], "ok.csv");
     let fixed_all = [

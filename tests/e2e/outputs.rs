@@ -2,7 +2,7 @@
 //! standard output, `--columns` in every reading command, folder loops, resuming with other settings,
 //! and the progress line.
 
-use eis_tests::{eis, eis_bin, scratch};
+use eis_tests::{eis, eis_bin, scratch, write_file};
 use std::path::Path;
 use std::process::{Command, Stdio};
 
@@ -56,7 +56,7 @@ fn no_panic(run: &eis_tests::Run) {
 fn output_to_a_symlink_writes_its_target_and_keeps_the_link() {
     let dir = scratch("out_symlink");
     std::fs::create_dir_all(dir.join("real")).unwrap();
-    std::fs::write(dir.join("real/target.csv"), "old").unwrap();
+    write_file(&dir, "real/target.csv", "old");
     std::os::unix::fs::symlink("real/target.csv", dir.join("link.csv")).unwrap();
     eis(&dir, &["simulate", "--model", "R0", "-o", "link.csv"]).expect_code(0);
     let link = std::fs::symlink_metadata(dir.join("link.csv")).unwrap();
@@ -296,7 +296,7 @@ fn batch_prints_no_progress_when_stderr_is_not_a_terminal() {
 fn index_and_results_end_with_a_newline() {
     let dir = scratch("final_newline");
     write_arc(&dir.join("a.csv"));
-    std::fs::write(dir.join("bad.csv"), "no table here\n").unwrap();
+    write_file(&dir, "bad.csv", "no table here\n");
     eis(&dir, &["convert", "a.csv", "bad.csv", "--out", "conv"]);
     let index = std::fs::read_to_string(dir.join("conv/index.csv")).unwrap();
     assert_eq!(index.lines().count(), 3, "{index}");

@@ -100,6 +100,11 @@ pub fn simulate(dir: &Path, model: &str, sets: &[&str], options: &[&str], out: &
     eis(dir, &args).expect_code(0);
 }
 
+/// Writes `text` to the file `name` in `dir`.
+pub fn write_file(dir: &Path, name: &str, text: impl AsRef<[u8]>) {
+    std::fs::write(dir.join(name), text).unwrap();
+}
+
 /// Runs `eis` with `args` in `dir`.
 pub fn eis(dir: &Path, args: &[&str]) -> Run {
     let out = Command::new(eis_bin())

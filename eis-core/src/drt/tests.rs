@@ -14,16 +14,13 @@ fn fixture() -> Value {
     serde_json::from_str(FIXTURE).unwrap()
 }
 
-fn vector(v: &Value) -> Vec<f64> {
-    v.as_array()
+fn matrix(v: &Value) -> DMatrix<f64> {
+    let rows: Vec<Vec<f64>> = v
+        .as_array()
         .unwrap()
         .iter()
-        .map(|x| x.as_f64().unwrap())
-        .collect()
-}
-
-fn matrix(v: &Value) -> DMatrix<f64> {
-    let rows: Vec<Vec<f64>> = v.as_array().unwrap().iter().map(vector).collect();
+        .map(crate::testing::floats)
+        .collect();
     DMatrix::from_fn(rows.len(), rows[0].len(), |r, c| rows[r][c])
 }
 
@@ -50,7 +47,7 @@ fn cole_cole(r: f64, tau0: f64, phi: f64, tau: f64) -> f64 {
 fn drt_kernel_matches_scipy_quadrature() {
     // Reference: scipy.integrate.quad through tests/reference/drt_reference.py.
     let fx = fixture();
-    let f = vector(&fx["frequency_hz"]);
+    let f = crate::testing::floats(&fx["frequency_hz"]);
     let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
     crate::assert_close!(
         setup.epsilon(),
@@ -58,7 +55,10 @@ fn drt_kernel_matches_scipy_quadrature() {
         1e-14,
         "epsilon"
     );
-    for (k, c) in vector(&fx["centres_ln_tau"]).iter().enumerate() {
+    for (k, c) in crate::testing::floats(&fx["centres_ln_tau"])
+        .iter()
+        .enumerate()
+    {
         assert!((setup.centres[k] - c).abs() < 1e-12, "centre {k}");
     }
     let (re, im) = (matrix(&fx["kernel_re"]), matrix(&fx["kernel_im"]));
@@ -80,7 +80,7 @@ fn drt_gram_matches_quadrature() {
     // 184, 483), order 2 the one derived in `gaussian_gram`.
     let fx = fixture();
     let eps = fx["epsilon"].as_f64().unwrap();
-    let y = vector(&fx["centres_ln_tau"]);
+    let y = crate::testing::floats(&fx["centres_ln_tau"]);
     for (order, key) in [(1u8, "gram1_quad"), (2, "gram2_quad")] {
         let q = matrix(&fx[key]);
         let scale = q.amax();
@@ -113,18 +113,14 @@ fn drt_gram_matches_quadrature() {
 #[test]
 fn drt_design_matches_reference_recipe() {
     let fx = fixture();
-    let f = vector(&fx["frequency_hz"]);
-    let z: Vec<Complex64> = vector(&fx["z_re"])
-        .into_iter()
-        .zip(vector(&fx["z_im"]))
-        .map(|(re, im)| Complex64::new(re, im))
-        .collect();
+    let f = crate::testing::floats(&fx["frequency_hz"]);
+    let z = crate::testing::impedances(&fx["z_re"], &fx["z_im"]);
     let setup = DrtSetup::new(&f, DrtOptions::default().with_capacitance(false)).unwrap();
     let w: Vec<f64> = z.iter().map(|v| 1.0 / v.norm()).collect();
     let r_ref = z.iter().fold(0.0f64, |a, v| a.max(v.norm()));
     let (a, b) = setup.design(&z, &w, r_ref);
     assert!((&a - matrix(&fx["design"])).amax() < 1e-11);
-    assert!((&b - DVector::from_vec(vector(&fx["data"]))).amax() < 1e-14);
+    assert!((&b - DVector::from_vec(crate::testing::floats(&fx["data"]))).amax() < 1e-14);
     assert!((&setup.penalty - matrix(&fx["penalty"])).amax() < 1e-9);
 }
 
@@ -133,12 +129,12 @@ fn drt_regularised_nnls_matches_scipy() {
     // Reference: scipy.optimize.nnls on the augmented system of the same problem (drt_reference.py).
     let fx = fixture();
     let c_mat = matrix(&fx["design"]);
-    let b = DVector::from_vec(vector(&fx["data"]));
+    let b = DVector::from_vec(crate::testing::floats(&fx["data"]));
     let pen = matrix(&fx["penalty"]);
     let mut problem = Problem::new(&c_mat, &b, &pen);
     for case in fx["cases"].as_array().unwrap() {
         let lambda = case["lambda"].as_f64().unwrap();
-        let want = DVector::from_vec(vector(&case["x"]));
+        let want = DVector::from_vec(crate::testing::floats(&case["x"]));
         problem.warm = false;
         problem.eval(lambda).unwrap();
         let dev = (&problem.x - &want).amax() / want.amax();
@@ -662,12 +658,8 @@ fn physics_model_spectra_report_no_edge_peak_and_keep_the_interfacial_peaks() {
     let mut with_edge = 0;
     for s in spectra {
         let name = s["name"].as_str().unwrap();
-        let f = vector(&s["frequency_hz"]);
-        let z: Vec<Complex64> = vector(&s["z_real_ohm"])
-            .into_iter()
-            .zip(vector(&s["z_imag_ohm"]))
-            .map(|(re, im)| Complex64::new(re, im))
-            .collect();
+        let f = crate::testing::floats(&s["frequency_hz"]);
+        let z = crate::testing::impedances(&s["z_real_ohm"], &s["z_imag_ohm"]);
         let res = drt(&Spectrum::new(f.clone(), z), DrtOptions::default()).unwrap();
         let f_min = f.iter().copied().fold(f64::INFINITY, f64::min);
         let f_max = f.iter().copied().fold(0.0, f64::max);
