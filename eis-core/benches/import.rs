@@ -60,6 +60,11 @@ fn reader(bytes: &[u8]) -> SpectrumReader<&[u8]> {
     SpectrumReader::new("bench.csv", black_box(bytes), ReaderOptions::default())
 }
 
+/// The number of points read from `bytes`.
+fn points(bytes: &[u8]) -> usize {
+    reader(bytes).map(|r| r.unwrap().spectrum.len()).sum()
+}
+
 fn bench(c: &mut Criterion) {
     let bytes = export(SPECTRA);
     let mut g = c.benchmark_group("import");
@@ -67,9 +72,7 @@ fn bench(c: &mut Criterion) {
     g.throughput(Throughput::Elements(SPECTRA as u64));
     g.bench_function("read_1000_spectra", |b| {
         b.iter(|| {
-            let n = reader(&bytes)
-                .map(|r| r.unwrap().spectrum.len())
-                .sum::<usize>();
+            let n = points(&bytes);
             assert_eq!(n, SPECTRA * 71);
         })
     });
@@ -92,9 +95,7 @@ fn bench(c: &mut Criterion) {
     g.throughput(Throughput::Elements(ROWS as u64));
     g.bench_function("read_100k_rows_94k_dropped", |b| {
         b.iter(|| {
-            let n = reader(&zeros)
-                .map(|r| r.unwrap().spectrum.len())
-                .sum::<usize>();
+            let n = points(&zeros);
             assert_eq!(n, ROWS / 100 * (100 - ZERO_PER_HUNDRED));
         })
     });

@@ -25,14 +25,20 @@ fn close(got: &[f64], want: &[f64], rel: f64) -> bool {
         .all(|(g, w)| ((g - w) / w).abs() <= rel)
 }
 
+/// Two arcs, R0 + R1|Q1 + R2|Q2, their true parameters and the noise-free spectrum of these.
+fn two_arcs() -> (Circuit, [f64; 7], Spectrum) {
+    let c = parse("R0 + R1|Q1 + R2|Q2").unwrap();
+    let truth = [0.02, 0.03, 2e-3, 0.9, 0.08, 2.0, 0.85];
+    let s = spectrum(&c, &truth, None);
+    (c, truth, s)
+}
+
 /// Two well separated arcs; the warm start puts both on the fast one. Its single run ends in a local
 /// minimum far above the optimum; the screening of fresh candidates shows that, and the full search
 /// finds the truth of the noise-free data.
 #[test]
 fn a_warm_start_in_a_worse_basin_is_replaced_by_the_full_search() {
-    let c = parse("R0 + R1|Q1 + R2|Q2").unwrap();
-    let truth = [0.02, 0.03, 2e-3, 0.9, 0.08, 2.0, 0.85];
-    let s = spectrum(&c, &truth, None);
+    let (c, truth, s) = two_arcs();
     let trap = [0.02, 0.10, 1e-3, 0.7, 1e-4, 1e-3, 0.9];
     let settings = FitSettings::default();
     let single = fit_from(&c, &s, &settings, &trap).unwrap();
@@ -52,9 +58,7 @@ fn a_warm_start_in_a_worse_basin_is_replaced_by_the_full_search() {
 /// noise-free data.
 #[test]
 fn a_warm_start_in_the_right_basin_is_accepted() {
-    let c = parse("R0 + R1|Q1 + R2|Q2").unwrap();
-    let truth = [0.02, 0.03, 2e-3, 0.9, 0.08, 2.0, 0.85];
-    let s = spectrum(&c, &truth, None);
+    let (c, truth, s) = two_arcs();
     let warm: Vec<f64> = truth.iter().map(|v| v * 1.05).collect();
     let f = fit_in_chain(&c, &s, &FitSettings::default(), Some(&warm), None).unwrap();
     assert_eq!(f.warm, WarmVerdict::Accepted);

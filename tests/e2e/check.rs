@@ -155,12 +155,7 @@ fn a_very_long_spectrum_gets_a_note_on_its_cost() {
     }
     write_file(&dir, "long.csv", text);
     let run = eis(&dir, &["check", "long.csv"]);
-    assert!(
-        run.stderr
-            .contains("long.csv, spectrum 1: note: 25000 points"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("long.csv, spectrum 1: note: 25000 points");
     assert!(
         run.stdout.starts_with("long.csv #1: valid"),
         "{}",

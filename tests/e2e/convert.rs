@@ -51,12 +51,7 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
         ],
     )
     .expect_code(1);
-    assert!(
-        run.stderr
-            .contains("broken.csv, line 3, column 2: `x` is not a number"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("broken.csv, line 3, column 2: `x` is not a number");
     for name in ["lab_1.csv", "cellB_c7_1.csv", "cellB_c7_2.csv"] {
         let got = read_canonical(&std::fs::read_to_string(dir.join("out").join(name)).unwrap());
         assert_eq!(got.len(), rows.len(), "{name}");
@@ -102,12 +97,7 @@ fn issue_4_convert_never_writes_over_an_input() {
     write_file(&dir, "x_1.csv", "f,re,im\n3,1,-1\n2,1,-2\n1,1,-3\n");
     let before = std::fs::read(dir.join("x_1.csv")).unwrap();
     let run = eis(&dir, &["convert", "x_1.csv", "x.csv", "--out", "."]).expect_code(1);
-    assert!(
-        run.stderr
-            .contains("refusing to write ./x_1.csv: it is an input file"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("refusing to write ./x_1.csv: it is an input file");
     assert_eq!(std::fs::read(dir.join("x_1.csv")).unwrap(), before);
     assert!(dir.join("x_1_1.csv").is_file());
 }

@@ -1,6 +1,6 @@
 //! `eis drt` on spectra that `eis simulate` writes.
 
-use eis_tests::{eis, scratch, simulate, write_file};
+use eis_tests::{eis, scratch, simulate, write_spectra};
 
 /// An RC element's DRT is R·δ(ln τ − ln RC): one peak at τ = RC holding R (by the definition of the DRT,
 /// Z = R∞ + ∫ γ(ln τ)/(1 + jωτ) d ln τ; common practice).
@@ -83,16 +83,16 @@ fn drt_summary_and_options() {
 #[test]
 fn drt_bad_input_exits_with_2() {
     let dir = scratch("drt-bad");
-    let head = "frequency_hz,z_real_ohm,z_imag_ohm\n";
-    for (file, rows) in [
-        ("short.csv", "100,1,-1\n10,2,-1\n1,3,-0.5\n"),
-        (
-            "zero.csv",
-            "1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
-        ),
-    ] {
-        write_file(&dir, file, format!("{head}{rows}"));
-    }
+    write_spectra(
+        &dir,
+        &[
+            ("short.csv", "100,1,-1\n10,2,-1\n1,3,-0.5\n"),
+            (
+                "zero.csv",
+                "1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
+            ),
+        ],
+    );
     for (file, message) in [
         ("missing.csv", "missing.csv: cannot read"),
         ("short.csv", "needs at least 5"),

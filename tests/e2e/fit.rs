@@ -1,6 +1,6 @@
 //! `eis fit` end to end: readable report, JSON keys, fitted CSV, warm start, bad input.
 
-use eis_tests::{eis, scratch, write_file};
+use eis_tests::{eis, scratch, write_file, write_spectra};
 use serde_json::Value;
 
 /// Simulates `model` with `sets` at 0.2 % noise (seed 3) into `out`.
@@ -207,15 +207,15 @@ fn fixed_and_bounded_parameters_are_respected() {
 #[test]
 fn bad_input_exits_2_with_a_clear_message() {
     let dir = scratch("fit_bad");
-    let head = "frequency_hz,z_real_ohm,z_imag_ohm\n";
-    for (file, rows) in [
-        ("empty.csv", ""),
-        ("two.csv", "100,1,-1\n10,2,-1\n"),
-        ("three.csv", "100,1,-1\n10,2,-1\n1,3,-1\n"),
-        ("nan.csv", "100,NaN,-1\n10,2,-1\n1,3,-1\n"),
-    ] {
-        write_file(&dir, file, format!("{head}{rows}"));
-    }
+    write_spectra(
+        &dir,
+        &[
+            ("empty.csv", ""),
+            ("two.csv", "100,1,-1\n10,2,-1\n"),
+            ("three.csv", "100,1,-1\n10,2,-1\n1,3,-1\n"),
+            ("nan.csv", "100,NaN,-1\n10,2,-1\n1,3,-1\n"),
+        ],
+    );
     simulate(&dir, "R0 + R1|C1", &[], "ok.csv");
     let fixed_all = [
         "fit",

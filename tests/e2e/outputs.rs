@@ -246,12 +246,7 @@ fn batch_resume_refuses_other_settings_unless_forced() {
     };
     batch("R0+R1|C1", &[]).expect_code(0);
     let run = batch("R0+R1|Q1", &["--resume"]).expect_code(2);
-    assert!(
-        run.stderr
-            .contains("made with another model (was `R0 + R1|C1`, now `R0 + R1|Q1`)"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("made with another model (was `R0 + R1|C1`, now `R0 + R1|Q1`)");
     run.expect_stderr("--force");
     let run = batch("R0+R1|C1", &["--resume", "--weight", "unit"]).expect_code(2);
     run.expect_stderr("another weighting");

@@ -121,6 +121,14 @@ fn read(dir: &Path, name: &str) -> String {
     std::fs::read_to_string(dir.join(name)).unwrap()
 }
 
+/// The texts of the SVG `name` in `dir`, in document order.
+fn words(dir: &Path, name: &str) -> Vec<String> {
+    texts(&read(dir, name))
+        .into_iter()
+        .map(|t| t.text)
+        .collect()
+}
+
 fn assert_png(path: &Path, width: u32, height: u32) {
     let b = std::fs::read(path).unwrap();
     assert_eq!(&b[..8], b"\x89PNG\r\n\x1a\n", "png signature");
@@ -206,9 +214,8 @@ fn nyquist_marks_characteristic_frequencies() {
     let dir = scratch("plot-marks");
     simulate_cell(&dir, "cell.csv", "30m");
     eis(&dir, &["plot", "cell.csv", "-o", "n.svg"]).expect_code(0);
-    let marks: Vec<String> = texts(&read(&dir, "n.svg"))
+    let marks: Vec<String> = words(&dir, "n.svg")
         .into_iter()
-        .map(|t| t.text)
         .filter(|t| t.ends_with("Hz"))
         .collect();
     assert_eq!(marks.len(), 2, "{marks:?}");
@@ -242,10 +249,7 @@ fn bode_has_both_panels_with_units() {
     let dir = scratch("plot-bode");
     simulate_cell(&dir, "cell.csv", "30m");
     eis(&dir, &["plot", "cell.csv", "--kind", "bode", "-o", "b.svg"]).expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "b.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "b.svg");
     for want in [
         "|Z| / mΩ",
         "−φ / °",
@@ -367,10 +371,7 @@ fn residuals_against_a_fit_curve() {
         ],
     )
     .expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "r.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "r.svg");
     assert!(t.iter().any(|x| x == "relative residual / %"), "{t:?}");
     // The fit as a line over the data, with a legend below the axes.
     eis(
@@ -436,10 +437,7 @@ fn drt_and_trend_from_json() {
         serde_json::json!({"tau_s": tau, "gamma_ohm": gamma}).to_string(),
     );
     eis(&dir, &["plot", "drt.json", "--kind", "drt", "-o", "d.svg"]).expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "d.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "d.svg");
     assert!(
         t.iter().any(|x| x == "γ / mΩ") && t.iter().any(|x| x == "τ / s"),
         "{t:?}"
@@ -463,10 +461,7 @@ fn drt_and_trend_from_json() {
         &["plot", "trend.json", "--kind", "trend", "-o", "t.svg"],
     )
     .expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "t.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "t.svg");
     for want in [
         "charge transfer resistance / mΩ",
         "cycle",

@@ -100,6 +100,18 @@ pub fn simulate(dir: &Path, model: &str, sets: &[&str], options: &[&str], out: &
     eis(dir, &args).expect_code(0);
 }
 
+/// Writes canonical spectrum files in `dir`: each `(name, rows)` as the header line
+/// `frequency_hz,z_real_ohm,z_imag_ohm` followed by `rows`.
+pub fn write_spectra(dir: &Path, files: &[(&str, &str)]) {
+    for (name, rows) in files {
+        write_file(
+            dir,
+            name,
+            format!("frequency_hz,z_real_ohm,z_imag_ohm\n{rows}"),
+        );
+    }
+}
+
 /// Writes `text` to the file `name` in `dir`.
 pub fn write_file(dir: &Path, name: &str, text: impl AsRef<[u8]>) {
     std::fs::write(dir.join(name), text).unwrap();
