@@ -801,13 +801,19 @@ pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> 
 mod tests {
     use super::*;
 
+    /// The circuit texts of `members`, after checking that there are `n` members with `n` distinct texts.
+    fn distinct_texts(members: &[Member], n: usize) -> std::collections::BTreeSet<String> {
+        assert_eq!(members.len(), n);
+        let texts: std::collections::BTreeSet<String> =
+            members.iter().map(|m| m.circuit_text()).collect();
+        assert_eq!(texts.len(), n);
+        texts
+    }
+
     #[test]
     fn the_physics_family_has_eight_distinct_parseable_members() {
         let f = physics_family();
-        assert_eq!(f.len(), 8);
-        let texts: std::collections::BTreeSet<String> =
-            f.iter().map(|m| m.circuit_text()).collect();
-        assert_eq!(texts.len(), 8);
+        let texts = distinct_texts(&f, 8);
         assert!(family().iter().all(|m| !texts.contains(&m.circuit_text())));
         for m in &f {
             let c = m.circuit();
@@ -823,10 +829,7 @@ mod tests {
     #[test]
     fn the_family_has_eighteen_distinct_parseable_members() {
         let f = family();
-        assert_eq!(f.len(), 18);
-        let texts: std::collections::BTreeSet<String> =
-            f.iter().map(|m| m.circuit_text()).collect();
-        assert_eq!(texts.len(), 18);
+        distinct_texts(&f, 18);
         for m in &f {
             let c = m.circuit();
             assert!(crate::fit::start::recognise(&c).is_some(), "{}", m.label());

@@ -27,20 +27,24 @@ const SE_REL: f64 = 0.01;
 
 use eis_core::testing::{floats, impedances};
 
-#[test]
-fn fixture_names_its_generator_and_versions() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
-    eis_core::testing::assert_provenance(
-        &doc,
+/// The fixture, its provenance checked.
+fn fixture() -> Value {
+    eis_core::testing::reference_fixture(
+        FIXTURE,
         "tests/reference/fit_reference.py",
         &["numpy", "scipy"],
-    );
+    )
+}
+
+#[test]
+fn fixture_names_its_generator_and_versions() {
+    let doc = fixture();
     assert!(doc["cases"].as_array().unwrap().len() >= 5);
 }
 
 #[test]
 fn optima_and_standard_errors_agree_with_scipy() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
+    let doc = fixture();
     let mut failures = Vec::new();
     // Largest disagreements, printed for the record (`--nocapture`).
     let (mut worst_chi, mut worst_se_frac, mut worst_rel, mut worst_se) =

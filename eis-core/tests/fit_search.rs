@@ -25,16 +25,20 @@ const CHI_FACTOR: f64 = 1.5;
 
 use eis_core::testing::{floats, impedances};
 
+/// The fixture, its provenance checked.
+fn fixture() -> Value {
+    eis_core::testing::reference_fixture(FIXTURE, "bench/compare_scipy.py", &["numpy", "scipy"])
+}
+
 #[test]
 fn fixture_names_its_generator_and_versions() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
-    eis_core::testing::assert_provenance(&doc, "bench/compare_scipy.py", &["numpy", "scipy"]);
+    let doc = fixture();
     assert!(doc["cases"].as_array().unwrap().len() >= 30);
 }
 
 #[test]
 fn automatic_search_reaches_scipys_optimum_on_the_hardest_spectra() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
+    let doc = fixture();
     let mut failures = Vec::new();
     let mut worst = 0.0f64;
     for (k, case) in doc["cases"].as_array().unwrap().iter().enumerate() {

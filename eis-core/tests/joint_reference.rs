@@ -17,14 +17,18 @@ const FIXTURE: &str = include_str!(concat!(
 
 use eis_core::testing::{floats, impedances};
 
-#[test]
-fn joint_optimum_and_standard_errors_agree_with_scipy() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
-    eis_core::testing::assert_provenance(
-        &doc,
+/// The fixture, its provenance checked.
+fn fixture() -> Value {
+    eis_core::testing::reference_fixture(
+        FIXTURE,
         "tests/reference/joint_reference.py",
         &["numpy", "scipy"],
-    );
+    )
+}
+
+#[test]
+fn joint_optimum_and_standard_errors_agree_with_scipy() {
+    let doc = fixture();
     let circuit = parse(doc["circuit"].as_str().unwrap()).unwrap();
     let names: Vec<&str> = doc["shared"]
         .as_array()
