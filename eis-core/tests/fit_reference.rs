@@ -8,7 +8,6 @@
 use eis_core::circuit::parse;
 use eis_core::fit::{FitSettings, fit};
 use eis_core::spectrum::Spectrum;
-use serde_json::Value;
 
 const FIXTURE: &str = include_str!(concat!(
     env!("CARGO_MANIFEST_DIR"),
@@ -25,26 +24,16 @@ const PARAM_REL: f64 = 1e-5;
 /// Standard errors agree to this relative difference.
 const SE_REL: f64 = 0.01;
 
-use eis_core::testing::{floats, impedances};
-
-/// The fixture, its provenance checked.
-fn fixture() -> Value {
-    eis_core::testing::reference_fixture(
-        FIXTURE,
-        "tests/reference/fit_reference.py",
-        &["numpy", "scipy"],
-    )
-}
-
-#[test]
-fn fixture_names_its_generator_and_versions() {
-    let doc = fixture();
-    assert!(doc["cases"].as_array().unwrap().len() >= 5);
-}
+use eis_core::testing::{floats, impedances, reference_fixture};
 
 #[test]
 fn optima_and_standard_errors_agree_with_scipy() {
-    let doc = fixture();
+    let doc = reference_fixture(
+        FIXTURE,
+        "tests/reference/fit_reference.py",
+        &["numpy", "scipy"],
+    );
+    assert!(doc["cases"].as_array().unwrap().len() >= 5);
     let mut failures = Vec::new();
     // Largest disagreements, printed for the record (`--nocapture`).
     let (mut worst_chi, mut worst_se_frac, mut worst_rel, mut worst_se) =

@@ -11,7 +11,6 @@
 use eis_core::circuit::parse;
 use eis_core::fit::{FitSettings, fit};
 use eis_core::spectrum::Spectrum;
-use serde_json::Value;
 
 const FIXTURE: &str = include_str!(concat!(
     env!("CARGO_MANIFEST_DIR"),
@@ -23,22 +22,12 @@ const FIXTURE: &str = include_str!(concat!(
 /// higher on this benchmark).
 const CHI_FACTOR: f64 = 1.5;
 
-use eis_core::testing::{floats, impedances};
-
-/// The fixture, its provenance checked.
-fn fixture() -> Value {
-    eis_core::testing::reference_fixture(FIXTURE, "bench/compare_scipy.py", &["numpy", "scipy"])
-}
-
-#[test]
-fn fixture_names_its_generator_and_versions() {
-    let doc = fixture();
-    assert!(doc["cases"].as_array().unwrap().len() >= 30);
-}
+use eis_core::testing::{floats, impedances, reference_fixture};
 
 #[test]
 fn automatic_search_reaches_scipys_optimum_on_the_hardest_spectra() {
-    let doc = fixture();
+    let doc = reference_fixture(FIXTURE, "bench/compare_scipy.py", &["numpy", "scipy"]);
+    assert!(doc["cases"].as_array().unwrap().len() >= 30);
     let mut failures = Vec::new();
     let mut worst = 0.0f64;
     for (k, case) in doc["cases"].as_array().unwrap().iter().enumerate() {

@@ -8,27 +8,21 @@
 use eis_core::circuit::parse;
 use eis_core::fit::joint::{JointSettings, fit_joint, shared_indices};
 use eis_core::spectrum::Spectrum;
-use serde_json::Value;
 
 const FIXTURE: &str = include_str!(concat!(
     env!("CARGO_MANIFEST_DIR"),
     "/../tests/reference/joint_fixture.json"
 ));
 
-use eis_core::testing::{floats, impedances};
-
-/// The fixture, its provenance checked.
-fn fixture() -> Value {
-    eis_core::testing::reference_fixture(
-        FIXTURE,
-        "tests/reference/joint_reference.py",
-        &["numpy", "scipy"],
-    )
-}
+use eis_core::testing::{floats, impedances, reference_fixture};
 
 #[test]
 fn joint_optimum_and_standard_errors_agree_with_scipy() {
-    let doc = fixture();
+    let doc = reference_fixture(
+        FIXTURE,
+        "tests/reference/joint_reference.py",
+        &["numpy", "scipy"],
+    );
     let circuit = parse(doc["circuit"].as_str().unwrap()).unwrap();
     let names: Vec<&str> = doc["shared"]
         .as_array()
