@@ -44,7 +44,7 @@ use crate::spectrum::Spectrum;
 mod covariance;
 mod solve;
 use covariance::JointCovariance;
-use solve::{Layout, Member, State};
+use solve::{Layout, Member};
 
 /// Settings of a joint fit.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -285,7 +285,6 @@ fn set_up(
     weighting: Weighting,
 ) -> Result<(Vec<Member>, Vec<f64>, usize), JointError> {
     let (nl, ns) = (split.locals.len(), split.shared.len());
-    let np = circuit.params.len();
     let base = circuit.default_values();
     let inside = |i: usize, v: f64| {
         let (lo, hi) = circuit.bounds(i);
@@ -330,26 +329,7 @@ fn set_up(
             .zip(&split.t_local)
             .map(|(&i, t)| t.to_internal(params[i]))
             .collect();
-        let state = State::new(params, n, np);
-        members.push(Member {
-            ws: plan.workspace(),
-            cur: state.clone(),
-            trial: state,
-            xl_trial: xl.clone(),
-            xl,
-            cols: vec![0.0; 2 * n * (nl + ns)],
-            u: vec![0.0; nl * nl],
-            w: vec![0.0; nl * ns],
-            v: vec![0.0; ns * ns],
-            g: vec![0.0; nl],
-            h: vec![0.0; ns],
-            d: vec![0.0; nl],
-            m: vec![0.0; nl * nl],
-            y: vec![0.0; nl * ns],
-            yg: vec![0.0; nl],
-            step: vec![0.0; nl],
-            prep,
-        });
+        members.push(Member::new(plan, prep, params, xl, (nl, ns)));
     }
     Ok((members, xs0, residuals))
 }

@@ -11,41 +11,41 @@ use num_complex::Complex64;
 /// One spectrum of the chain: data, its state and its blocks of the normal equations.
 pub(super) struct Member {
     pub(super) prep: Prepared,
-    pub(super) ws: Workspace,
+    ws: Workspace,
     /// Parameters, residuals, model and derivatives at the current point, and at the trial point.
     pub(super) cur: State,
-    pub(super) trial: State,
+    trial: State,
     /// Internal coordinates of the local parameters (current and trial).
     pub(super) xl: Vec<f64>,
-    pub(super) xl_trial: Vec<f64>,
+    xl_trial: Vec<f64>,
     /// Weighted Jacobian columns in x: local ones, then shared ones (2N rows each).
-    pub(super) cols: Vec<f64>,
+    cols: Vec<f64>,
     /// U (nl × nl), W (nl × ns), V_k (ns × ns), g (nl), h_k (ns), row-major.
     pub(super) u: Vec<f64>,
     pub(super) w: Vec<f64>,
     pub(super) v: Vec<f64>,
-    pub(super) g: Vec<f64>,
-    pub(super) h: Vec<f64>,
+    g: Vec<f64>,
+    h: Vec<f64>,
     /// Running maximum of diag(U): the damping scale.
-    pub(super) d: Vec<f64>,
+    d: Vec<f64>,
     /// Scratch of a step: the factor of U + μD, (U + μD)⁻¹W, (U + μD)⁻¹g, δ.
-    pub(super) m: Vec<f64>,
-    pub(super) y: Vec<f64>,
-    pub(super) yg: Vec<f64>,
-    pub(super) step: Vec<f64>,
+    m: Vec<f64>,
+    y: Vec<f64>,
+    yg: Vec<f64>,
+    step: Vec<f64>,
 }
 
 #[derive(Clone)]
 pub(super) struct State {
     pub(super) params: Vec<f64>,
-    pub(super) z: Vec<Complex64>,
-    pub(super) jac: Vec<Complex64>,
-    pub(super) residuals: Vec<f64>,
-    pub(super) chi_square: f64,
+    z: Vec<Complex64>,
+    jac: Vec<Complex64>,
+    residuals: Vec<f64>,
+    chi_square: f64,
 }
 
 impl State {
-    pub(super) fn new(params: Vec<f64>, n: usize, np: usize) -> State {
+    fn new(params: Vec<f64>, n: usize, np: usize) -> State {
         State {
             params,
             z: vec![Complex64::new(0.0, 0.0); n],
@@ -98,6 +98,38 @@ impl Layout<'_> {
 }
 
 impl Member {
+    /// The member of spectrum `prep` at parameters `params` (local internal coordinates `xl`), with
+    /// room for `nl` local and `ns` shared unknowns.
+    pub(super) fn new(
+        plan: &Plan,
+        prep: Prepared,
+        params: Vec<f64>,
+        xl: Vec<f64>,
+        (nl, ns): (usize, usize),
+    ) -> Member {
+        let n = prep.grid.len();
+        let state = State::new(params, n, plan.n_params());
+        Member {
+            ws: plan.workspace(),
+            cur: state.clone(),
+            trial: state,
+            xl_trial: xl.clone(),
+            xl,
+            cols: vec![0.0; 2 * n * (nl + ns)],
+            u: vec![0.0; nl * nl],
+            w: vec![0.0; nl * ns],
+            v: vec![0.0; ns * ns],
+            g: vec![0.0; nl],
+            h: vec![0.0; ns],
+            d: vec![0.0; nl],
+            m: vec![0.0; nl * nl],
+            y: vec![0.0; nl * ns],
+            yg: vec![0.0; nl],
+            step: vec![0.0; nl],
+            prep,
+        }
+    }
+
     /// Writes the parameters of the trial state from local and shared internal coordinates.
     fn set_trial(&mut self, lay: &Layout<'_>, xs: &[f64]) {
         for ((&i, t), &x) in lay.locals.iter().zip(lay.t_local).zip(&self.xl_trial) {
