@@ -2,13 +2,8 @@
 # Campaign throughput: N simulated spectra (default 10,000) of the demo cells, checked and fitted by
 # `eis batch` on all cores. Prints spectra per second and peak memory (from /usr/bin/time).
 # Usage: bench/batch.sh [N]
-set -euo pipefail
-cd "$(dirname "$0")/.."
+source "$(dirname "$0")/../bench/preamble.sh"
 n="${1:-10000}"
-work="$(mktemp -d)"
-trap 'rm -rf "$work"' EXIT
-cargo build --release -q -p eis-cli
-eis=target/release/eis
 # One demo cell per 13 cycles x 3 SOC = 39 spectra; replicate the demo's files under new cell names.
 "$eis" demo --out "$work/demo" >/dev/null 2>&1 || true
 mkdir -p "$work/in"

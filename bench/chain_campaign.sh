@@ -5,14 +5,9 @@
 # default, with --no-warm-start, with --share (CPE exponents and diffusion time constant), and for
 # fits started at the true values (the per-spectrum ceiling); prints wall and CPU times on JOBS threads.
 # Usage: bench/chain_campaign.sh [JOBS]   (default 2)
-set -euo pipefail
-cd "$(dirname "$0")/.."
+source "$(dirname "$0")/../bench/preamble.sh"
 jobs="${1:-2}"
-work="$(mktemp -d)"
-trap 'rm -rf "$work"' EXIT
-cargo build --release -q -p eis-cli
 cargo build --release -q -p eis-core --example chain_campaign
-eis=target/release/eis
 gen=target/release/examples/chain_campaign
 "$gen" gen "$work" >/dev/null
 "$gen" ceiling

@@ -5,12 +5,9 @@
 # Usage: tests/compare-outputs.sh BASE_REF   (e.g. main~3); exit 0 when everything is identical.
 #        tests/compare-outputs.sh DIR        compares with the outputs a previous run kept in DIR.
 # Outputs that differ on purpose are listed and explained in the commit that changes them.
-set -euo pipefail
-cd "$(dirname "$0")/.."
 base="${1:?usage: tests/compare-outputs.sh BASE_REF}"
-work="$(mktemp -d)"
+source "$(dirname "$0")/../bench/preamble.sh"
 trap 'git worktree remove --force "$work/base-src" >/dev/null 2>&1 || true; rm -rf "$work"' EXIT
-cargo build --release -q -p eis-cli
 run() { # binary, folder
   mkdir -p "$2" && (cd "$2" && "$1" demo >stdout.txt 2>stderr.txt; echo "exit $?" >status.txt)
   # The one line that holds a wall time.
@@ -24,7 +21,7 @@ else
     --manifest-path "$work/base-src/Cargo.toml"
   run "$PWD/target/compare-base/release/eis" "$work/before"
 fi
-run "$PWD/target/release/eis" "$work/after"
+run "$PWD/$eis" "$work/after"
 if diff -r -q "$work/before" "$work/after"; then
   echo "identical: $(find "$work/after" -type f | wc -l) files"
 else

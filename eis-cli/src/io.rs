@@ -111,7 +111,7 @@ pub fn write_output(path: Option<&Path>, text: &str, inputs: &[PathBuf]) -> Resu
 /// # Errors
 ///
 /// The first error of the file (unreadable, no table, a bad spectrum) as a [`Failure::BadInput`]
-/// (exit status 2); batch commands use [`read_many`] to keep the good spectra of a partly bad file.
+/// (exit status 2).
 pub fn read_spectra(
     path: &Path,
     options: &eis_core::import::ReaderOptions,
@@ -126,10 +126,7 @@ pub fn read_spectra(
 /// The outcome of reading one input: the spectra read and the errors met (an unreadable file gives
 /// one error and no spectra; a bad spectrum gives one error and the others are kept).
 #[derive(Debug)]
-#[allow(dead_code)] // read by the batch commands
 pub struct FileSpectra {
-    /// The input.
-    pub path: PathBuf,
     /// Spectra read, in file order.
     pub spectra: Vec<eis_core::Spectrum>,
     /// Errors, in file order.
@@ -177,41 +174,53 @@ pub fn note_size(file: &str, spectrum: usize, points: usize) {
 /// Reads one input, keeping the good spectra of a partly bad file; warnings go to stderr.
 pub fn read_one(path: &Path, options: &eis_core::import::ReaderOptions) -> FileSpectra {
     let mut out = FileSpectra {
-        path: path.to_path_buf(),
         spectra: Vec::new(),
         errors: Vec::new(),
     };
-    match eis_core::import::SpectrumReader::open(path, options.clone()) {
-        Err(e) => out.errors.push(e),
-        Ok(reader) => {
-            // Rows dropped anywhere in the file make one summary, after its other warnings.
-            let mut gathered = eis_core::import::FileWarnings::new(reader.file());
-            for item in reader {
-                match item {
-                    Ok(imported) => {
-                        for w in gathered.pass(&imported.warnings) {
-                            eprintln!("{w}");
-                        }
-                        note_size(
-                            &path.display().to_string(),
-                            out.spectra.len() + 1,
-                            imported.spectrum.len(),
-                        );
-                        out.spectra.push(imported.spectrum);
-                    }
-                    Err(e) => out.errors.push(e),
-                }
+    let file = path.display().to_string();
+    let read = each_spectrum(path, options, |item| {
+        match item {
+            Ok(s) => {
+                note_size(&file, out.spectra.len() + 1, s.len());
+                out.spectra.push(s);
             }
-            if let Some(w) = gathered.finish() {
-                eprintln!("{w}");
-            }
+            Err(e) => out.errors.push(e),
         }
+        Ok::<(), std::convert::Infallible>(())
+    });
+    if let Err(never) = read {
+        match never {}
     }
     out
 }
 
-/// Reads several inputs; one bad file does not stop the others.
-#[allow(dead_code)] // for the batch commands
-pub fn read_many(paths: &[PathBuf], options: &eis_core::import::ReaderOptions) -> Vec<FileSpectra> {
-    paths.iter().map(|p| read_one(p, options)).collect()
+/// Reads the spectra of `path` one at a time with the generic reader and hands each to `each`, in file
+/// order, as a spectrum or as the error of that spectrum (or of the whole file, which then gives only
+/// that error). Warnings go to stderr, the rows dropped anywhere in the file as one summary after its
+/// other messages. Stops at the first error `each` returns.
+pub fn each_spectrum<E>(
+    path: &Path,
+    options: &eis_core::import::ReaderOptions,
+    mut each: impl FnMut(Result<eis_core::Spectrum, eis_core::import::DataError>) -> Result<(), E>,
+) -> Result<(), E> {
+    let reader = match eis_core::import::SpectrumReader::open(path, options.clone()) {
+        Ok(reader) => reader,
+        Err(e) => return each(Err(e)),
+    };
+    let mut gathered = eis_core::import::FileWarnings::new(reader.file());
+    for item in reader {
+        match item {
+            Ok(imported) => {
+                for w in gathered.pass(&imported.warnings) {
+                    eprintln!("{w}");
+                }
+                each(Ok(imported.spectrum))?;
+            }
+            Err(e) => each(Err(e))?,
+        }
+    }
+    if let Some(w) = gathered.finish() {
+        eprintln!("{w}");
+    }
+    Ok(())
 }

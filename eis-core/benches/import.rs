@@ -55,6 +55,16 @@ fn export(spectra: usize) -> Vec<u8> {
     text.into_bytes()
 }
 
+/// A reader with the default options over `bytes` (hidden from the optimiser).
+fn reader(bytes: &[u8]) -> SpectrumReader<&[u8]> {
+    SpectrumReader::new("bench.csv", black_box(bytes), ReaderOptions::default())
+}
+
+/// The number of points read from `bytes`.
+fn points(bytes: &[u8]) -> usize {
+    reader(bytes).map(|r| r.unwrap().spectrum.len()).sum()
+}
+
 fn bench(c: &mut Criterion) {
     let bytes = export(SPECTRA);
     let mut g = c.benchmark_group("import");
@@ -62,13 +72,7 @@ fn bench(c: &mut Criterion) {
     g.throughput(Throughput::Elements(SPECTRA as u64));
     g.bench_function("read_1000_spectra", |b| {
         b.iter(|| {
-            let n = SpectrumReader::new(
-                "bench.csv",
-                black_box(bytes.as_slice()),
-                ReaderOptions::default(),
-            )
-            .map(|r| r.unwrap().spectrum.len())
-            .sum::<usize>();
+            let n = points(&bytes);
             assert_eq!(n, SPECTRA * 71);
         })
     });
@@ -76,18 +80,14 @@ fn bench(c: &mut Criterion) {
     g.throughput(Throughput::Elements(CHECKED as u64));
     g.bench_function("read_and_check_50_spectra", |b| {
         b.iter(|| {
-            let valid = SpectrumReader::new(
-                "bench.csv",
-                black_box(small.as_slice()),
-                ReaderOptions::default(),
-            )
-            .map(|r| {
-                kramers_kronig(&r.unwrap().spectrum, &KkOptions::default())
-                    .unwrap()
-                    .valid
-            })
-            .filter(|v| *v)
-            .count();
+            let valid = reader(&small)
+                .map(|r| {
+                    kramers_kronig(&r.unwrap().spectrum, &KkOptions::default())
+                        .unwrap()
+                        .valid
+                })
+                .filter(|v| *v)
+                .count();
             assert_eq!(valid, CHECKED);
         })
     });
@@ -95,13 +95,7 @@ fn bench(c: &mut Criterion) {
     g.throughput(Throughput::Elements(ROWS as u64));
     g.bench_function("read_100k_rows_94k_dropped", |b| {
         b.iter(|| {
-            let n = SpectrumReader::new(
-                "bench.csv",
-                black_box(zeros.as_slice()),
-                ReaderOptions::default(),
-            )
-            .map(|r| r.unwrap().spectrum.len())
-            .sum::<usize>();
+            let n = points(&zeros);
             assert_eq!(n, ROWS / 100 * (100 - ZERO_PER_HUNDRED));
         })
     });

@@ -498,7 +498,9 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
     let mut sigma_value: f64 = classes.sigma.iter().map(|&i| p[i]).sum();
     let mut sigma_grad: Vec<(usize, f64)> = classes.sigma.iter().map(|&i| (i, 1.0)).collect();
     for &k in &classes.tails {
-        let ((sigma, gs), (at_least, gl)) = tail_values(c, r, k);
+        let Some(((sigma, gs), (at_least, gl))) = tail_values(c, r, k) else {
+            continue;
+        };
         sigma_value += sigma;
         sigma_grad.extend(gs.iter().copied());
         diffusion_tails.push(DiffusionTail {

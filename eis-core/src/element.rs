@@ -6,8 +6,9 @@
 //! Write one [`ImpedanceFn`], `fn(params, grid, z, dz)`, that writes Z(ωᵢ) into `z[i]` and
 //! ∂Z(ωᵢ)/∂params`[k]` into `dz[k * grid.len() + i]` for every frequency of the [`Grid`], then add one
 //! [`ElementKind`] entry to [`KINDS`] with its symbol, parameter table and that function, its limits
-//! at direct current and infinite frequency ([`LimitFn`]), its [`Class`] and its [`Seed`] (how the
-//! automatic starts build its values from a resistance and a time constant, or from one coefficient).
+//! at direct current and infinite frequency ([`LimitFn`]), its [`Class`], its [`Seed`] (how the
+//! automatic starts build its values from a resistance and a time constant, or from one coefficient)
+//! and its [`Physics`] (what the roles of charge transfer, diffusion and pore resistance read from it).
 //! Work that does not depend on the frequency (a phase, a logarithm of a parameter) belongs before the
 //! loop over the grid; ln ω and √ω come precomputed with the grid. The parser, the printer, the
 //! compiled evaluator, the fitter (its starts read only the class and seed), the circuit limits
@@ -150,12 +151,19 @@ pub struct ElementKind {
     pub class: Class,
     /// How automatic starting values are built for it from the data.
     pub seed: Seed,
+    /// What the roles of a cell's physics read from it (diffusion, porous lines).
+    pub physics: Physics,
 }
 
 impl ElementKind {
     /// Whether the element forms an arc with a resistor in parallel (its class is capacitive).
     pub fn is_capacitive(&self) -> bool {
         self.class == Class::Capacitive
+    }
+
+    /// Index of the CPE exponent among the parameters, if the kind has one.
+    pub fn exponent(&self) -> Option<usize> {
+        self.params.iter().position(|p| *p == EXPONENT)
     }
 
     /// Z and ∂Z/∂params at one angular frequency (allocates; for tests and one-off use — evaluate a
@@ -229,6 +237,39 @@ const LINE_Q: ParamInfo = positive(
     "double-layer CPE coefficient of the whole surface",
 );
 
+/// Parameters of the finite diffusion elements.
+const DIFFUSION: [ParamInfo; 2] = [
+    positive("R", "Ohm", 10.0, "diffusion resistance"),
+    positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
+];
+
+/// What the roles read from a finite diffusion element ([`DIFFUSION`]'s resistance and time constant).
+const FINITE_DIFFUSION: Physics = Physics::FiniteDiffusion {
+    resistance: 0,
+    tau: 1,
+};
+
+/// The seed of a transport element of resistance and time constant (parameters 0 and 1) whose time
+/// constant may lie beyond the data, with the largest peak of its distribution at `peak`.
+const fn diffusion_seed(peak: (f64, f64)) -> Seed {
+    Seed::Feature {
+        of: seed::resistance_time,
+        tau: seed::second,
+        window: seed::DIFFUSION_WINDOW,
+        peak,
+    }
+}
+
+/// The limit of an ideal capacitor or inductor: no real part, |Z| unbounded at high frequency for an
+/// inductor (`open_high`), at direct current for a capacitor.
+const fn reactive_limit(open_high: bool, high: bool) -> Limit {
+    if open_high == high {
+        Limit::open(0.0)
+    } else {
+        Limit::finite(0.0)
+    }
+}
+
 /// Every element kind of the language. Symbols are matched longest first by the parser.
 pub static KINDS: &[ElementKind] = &[
     ElementKind {
@@ -240,6 +281,7 @@ pub static KINDS: &[ElementKind] = &[
         limit: |p, _| Limit::finite(p[0]),
         class: Class::Resistive,
         seed: Seed::Linear { of: seed::scale },
+        physics: Physics::Plain,
     },
     ElementKind {
         symbol: "C",
@@ -247,19 +289,14 @@ pub static KINDS: &[ElementKind] = &[
         formula: "1/(jwC)",
         params: &[positive("C", "F", 1e-5, "capacitance")],
         impedance: capacitor,
-        limit: |_, high| {
-            if high {
-                Limit::finite(0.0)
-            } else {
-                Limit::open(0.0)
-            }
-        },
+        limit: |_, high| reactive_limit(false, high),
         class: Class::Capacitive,
         seed: Seed::Capacitive {
             series: seed::inverse,
             parallel: seed::capacitor_parallel,
             tau: seed::capacitor_tau,
         },
+        physics: Physics::Plain,
     },
     ElementKind {
         symbol: "L",
@@ -267,15 +304,10 @@ pub static KINDS: &[ElementKind] = &[
         formula: "jwL",
         params: &[positive("L", "H", 1e-6, "inductance")],
         impedance: inductor,
-        limit: |_, high| {
-            if high {
-                Limit::open(0.0)
-            } else {
-                Limit::finite(0.0)
-            }
-        },
+        limit: |_, high| reactive_limit(true, high),
         class: Class::Inductive,
         seed: Seed::Linear { of: seed::scale },
+        physics: Physics::Plain,
     },
     ElementKind {
         symbol: "Q",
@@ -293,6 +325,7 @@ pub static KINDS: &[ElementKind] = &[
             parallel: seed::cpe_parallel,
             tau: seed::cpe_tau,
         },
+        physics: Physics::Plain,
     },
     ElementKind {
         symbol: "W",
@@ -309,33 +342,24 @@ pub static KINDS: &[ElementKind] = &[
         },
         class: Class::Diffusive,
         seed: Seed::Linear { of: seed::scale },
+        physics: Physics::SemiInfiniteDiffusion { sigma: 0 },
     },
     ElementKind {
         symbol: "Wt",
         name: "finite-length diffusion, transmissive boundary",
         formula: "R tanh(sqrt(jw tau))/sqrt(jw tau)",
-        params: &[
-            positive("R", "Ohm", 10.0, "diffusion resistance"),
-            positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
-        ],
+        params: &DIFFUSION,
         impedance: diffusion_transmissive,
         limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
         class: Class::Diffusive,
-        seed: Seed::Feature {
-            of: seed::resistance_time,
-            tau: seed::second,
-            window: seed::DIFFUSION_WINDOW,
-            peak: seed::TRANSMISSIVE_PEAK,
-        },
+        seed: diffusion_seed(seed::TRANSMISSIVE_PEAK),
+        physics: FINITE_DIFFUSION,
     },
     ElementKind {
         symbol: "Wr",
         name: "finite-space diffusion, reflective boundary",
         formula: "R coth(sqrt(jw tau))/sqrt(jw tau)",
-        params: &[
-            positive("R", "Ohm", 10.0, "diffusion resistance"),
-            positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
-        ],
+        params: &DIFFUSION,
         impedance: diffusion_reflective,
         limit: |p, high| {
             if high {
@@ -345,12 +369,8 @@ pub static KINDS: &[ElementKind] = &[
             }
         },
         class: Class::Diffusive,
-        seed: Seed::Feature {
-            of: seed::resistance_time,
-            tau: seed::second,
-            window: seed::DIFFUSION_WINDOW,
-            peak: seed::REFLECTIVE_PEAK,
-        },
+        seed: diffusion_seed(seed::REFLECTIVE_PEAK),
+        physics: FINITE_DIFFUSION,
     },
     ElementKind {
         symbol: "G",
@@ -363,12 +383,8 @@ pub static KINDS: &[ElementKind] = &[
         impedance: gerischer,
         limit: |p, high| Limit::finite(if high { 0.0 } else { p[0] }),
         class: Class::Diffusive,
-        seed: Seed::Feature {
-            of: seed::resistance_time,
-            tau: seed::second,
-            window: seed::DIFFUSION_WINDOW,
-            peak: (1.0, 1.0),
-        },
+        seed: diffusion_seed((1.0, 1.0)),
+        physics: Physics::Plain,
     },
     ElementKind {
         symbol: "Pe",
@@ -383,6 +399,10 @@ pub static KINDS: &[ElementKind] = &[
             tau: seed::one_rail_tau,
             window: seed::ARC_WINDOW,
             peak: (1.0, 1.0),
+        },
+        physics: Physics::PorousLine {
+            rail: 0,
+            interface: 1,
         },
     },
     ElementKind {
@@ -411,6 +431,10 @@ pub static KINDS: &[ElementKind] = &[
             window: seed::ARC_WINDOW,
             peak: (1.0, 1.0),
         },
+        physics: Physics::PorousLine {
+            rail: 0,
+            interface: 2,
+        },
     },
 ];
 
@@ -434,8 +458,8 @@ mod seed;
 pub use limit::circuit_limit;
 
 pub use seed::{
-    ARC_WINDOW, Class, DIFFUSION_WINDOW, PORE_FRACTION, SEED_EXPONENT, SOLID_FRACTION, Seed,
-    SeedOne, SeedTwo, set,
+    ARC_WINDOW, Class, DIFFUSION_WINDOW, PORE_FRACTION, Physics, SEED_EXPONENT, SOLID_FRACTION,
+    Seed, SeedOne, SeedTwo, set,
 };
 
 const J: Complex64 = Complex64::new(0.0, 1.0);
@@ -726,6 +750,35 @@ mod tests {
                 Domain::Interval(..) => 0.7,
             })
             .collect()
+    }
+
+    /// The physics column points at parameters of the right meaning: resistances in Ohm, time
+    /// constants in s, a porous interface as [Rct, Q, n]; and it agrees with the class.
+    #[test]
+    fn every_kind_physics_points_at_its_parameters() {
+        let unit = |kind: &ElementKind, k: usize| kind.params.get(k).map(|p| p.unit);
+        for kind in KINDS {
+            let s = kind.symbol;
+            match kind.physics {
+                Physics::Plain => {}
+                Physics::SemiInfiniteDiffusion { sigma } => {
+                    assert_eq!(kind.class, Class::Diffusive, "{s}");
+                    assert_eq!(unit(kind, sigma), Some("Ohm s^-1/2"), "{s}");
+                }
+                Physics::FiniteDiffusion { resistance, tau } => {
+                    assert_eq!(kind.class, Class::Diffusive, "{s}");
+                    assert_eq!(unit(kind, resistance), Some("Ohm"), "{s}");
+                    assert_eq!(unit(kind, tau), Some("s"), "{s}");
+                }
+                Physics::PorousLine { rail, interface } => {
+                    assert_eq!(kind.class, Class::Porous, "{s}");
+                    assert_eq!(unit(kind, rail), Some("Ohm"), "{s}");
+                    assert_eq!(kind.params.get(interface), Some(&LINE_RCT), "{s}");
+                    assert_eq!(kind.params.get(interface + 1), Some(&LINE_Q), "{s}");
+                    assert_eq!(kind.exponent(), Some(interface + 2), "{s}");
+                }
+            }
+        }
     }
 
     /// Evaluating a whole grid at once gives, point by point, exactly what one-point grids give

@@ -184,6 +184,12 @@ pub(crate) fn chol_solve(l: &[f64], n: usize, p: usize, b: &mut [f64]) {
         }
         b[r] = v / l[r * n + r];
     }
+    back_substitute(l, n, p, b);
+}
+
+/// Solves Lᵀ y = b in place (the second half of a Cholesky solve) for the leading p×p block of a
+/// row-major lower factor with stride n.
+pub(crate) fn back_substitute(l: &[f64], n: usize, p: usize, b: &mut [f64]) {
     for r in (0..p).rev() {
         let mut v = b[r];
         for s in r + 1..p {

@@ -380,6 +380,14 @@ mod tests {
         d
     }
 
+    /// A scratch folder `name` holding the file `file` with `text`: (folder, file path).
+    fn existing(name: &str, file: &str, text: &str) -> (PathBuf, PathBuf) {
+        let dir = scratch(name);
+        let p = dir.join(file);
+        std::fs::write(&p, text).unwrap();
+        (dir, p)
+    }
+
     /// No temporary file is left beside the target, after success or failure.
     fn no_leftovers(dir: &Path) {
         let left: Vec<_> = std::fs::read_dir(dir)
@@ -392,9 +400,7 @@ mod tests {
 
     #[test]
     fn output_replaces_a_regular_file_and_keeps_its_permissions() {
-        let dir = scratch("regular");
-        let p = dir.join("a.csv");
-        std::fs::write(&p, "old").unwrap();
+        let (dir, p) = existing("regular", "a.csv", "old");
         #[cfg(unix)]
         {
             use std::os::unix::fs::PermissionsExt;
@@ -413,9 +419,7 @@ mod tests {
 
     #[test]
     fn output_dropped_without_commit_leaves_the_target() {
-        let dir = scratch("drop");
-        let p = dir.join("a.csv");
-        std::fs::write(&p, "old").unwrap();
+        let (dir, p) = existing("drop", "a.csv", "old");
         let mut f = OutputFile::create(&p, &[]).unwrap();
         f.write_all(b"half").unwrap();
         drop(f);
@@ -425,9 +429,7 @@ mod tests {
 
     #[test]
     fn output_refuses_inputs_and_folders() {
-        let dir = scratch("refuse");
-        let p = dir.join("in.csv");
-        std::fs::write(&p, "data").unwrap();
+        let (dir, p) = existing("refuse", "in.csv", "data");
         let e = write(&p, b"x", std::slice::from_ref(&p)).unwrap_err();
         assert!(matches!(e, OutputError::OverwritesInput(_)), "{e}");
         let e = write(&dir, b"x", &[]).unwrap_err();

@@ -16,7 +16,7 @@
 //!    run off together, e.g. to τ = 1e25 s). A semi-infinite Warburg `W` is reported by σ as before.
 //! 3. **Role lines win.** A `role` line of the circuit file sets an arc's role; the window test of
 //!    rule 1 still applies (it is about what the data show, not about physics).
-//! 4. **Class from the element table.** A porous line (`Pe`, `Pm`) is kinetic through its interface
+//! 4. **Physics from the element table** ([`crate::element::Physics`]). A porous line (`Pe`, `Pm`) is kinetic through its interface
 //!    (its `Rct` is charge transfer, unless rule 5 finds its interface capacitance storage-sized) and
 //!    ionic through its rail (`Rion` is pore resistance). An arc
 //!    whose resistive branch holds a diffusion element (a Randles arc) is read like any other arc by
@@ -36,7 +36,7 @@
 //! in-window arcs of role diffusion and storage-sized porous `Rct`s. Pore resistance = the porous `Rion`s.
 
 use crate::circuit::{Circuit, Role};
-use crate::element::Grid;
+use crate::element::{Class, ElementKind, Grid, Physics};
 use crate::fit::FitResult;
 use num_complex::Complex64;
 use std::f64::consts::PI;
@@ -152,11 +152,10 @@ fn hz(tau: f64) -> f64 {
     1.0 / (2.0 * PI * tau)
 }
 
-/// Interface time constant and effective capacitance of a porous line's parameters
-/// (`[Rion, (Rel,) Rct, Q, n]`): τ = (Rct·Q)^(1/n), C = Q^(1/n)·Rct^((1−n)/n).
+/// Interface time constant and effective capacitance of a porous line's interface parameters
+/// `[Rct, Q, n]`: τ = (Rct·Q)^(1/n), C = Q^(1/n)·Rct^((1−n)/n).
 fn line_interface(q: &[f64]) -> (f64, f64) {
-    let k = q.len() - 3;
-    let (rct, cq, n) = (q[k], q[k + 1], q[k + 2]);
+    let (rct, cq, n) = (q[0], q[1], q[2]);
     (
         (rct * cq).powf(1.0 / n),
         cq.powf(1.0 / n) * rct.powf((1.0 - n) / n),
@@ -172,12 +171,12 @@ pub fn classify(c: &Circuit, r: &FitResult, arcs: &[ArcFacts]) -> Classified {
     // Rule 4: porous lines and finite diffusion elements, by their kind.
     let mut lines: Vec<(usize, f64, f64)> = Vec::new(); // (Rct parameter, τ, C) of in-window lines
     for (index, e) in c.elements.iter().enumerate() {
-        let q = &p[e.first_param..e.first_param + e.kind.params.len()];
-        match e.kind.symbol {
-            "Pe" | "Pm" => {
-                let rct = e.first_param + e.kind.params.len() - 3;
-                let (tau, cap) = line_interface(q);
-                out.pore.push(e.first_param);
+        let at = |k: usize| e.first_param + k;
+        match e.kind.physics {
+            Physics::PorousLine { rail, interface } => {
+                let rct = at(interface);
+                let (tau, cap) = line_interface(&p[rct..rct + 3]);
+                out.pore.push(at(rail));
                 match Placement::of(hz(tau), window) {
                     Placement::InWindow => lines.push((rct, tau, cap)),
                     placement => {
@@ -190,22 +189,25 @@ pub fn classify(c: &Circuit, r: &FitResult, arcs: &[ArcFacts]) -> Classified {
                     }
                 }
             }
-            "Wt" | "Wr" => match Placement::of(hz(q[1]), window) {
-                Placement::InWindow => out.diffusion.push(e.first_param),
-                placement => {
-                    out.left_out_of_dc.push(e.first_param);
-                    if placement == Placement::BelowWindow {
-                        out.tails.push(index);
+            Physics::FiniteDiffusion { resistance, tau } => {
+                let f = hz(p[at(tau)]);
+                match Placement::of(f, window) {
+                    Placement::InWindow => out.diffusion.push(at(resistance)),
+                    placement => {
+                        out.left_out_of_dc.push(at(resistance));
+                        if placement == Placement::BelowWindow {
+                            out.tails.push(index);
+                        }
+                        out.beyond.push(BeyondData {
+                            process: e.name.clone(),
+                            frequency_hz: f,
+                            placement,
+                        });
                     }
-                    out.beyond.push(BeyondData {
-                        process: e.name.clone(),
-                        frequency_hz: hz(q[1]),
-                        placement,
-                    });
                 }
-            },
-            "W" => out.sigma.push(e.first_param),
-            _ => {}
+            }
+            Physics::SemiInfiniteDiffusion { sigma } => out.sigma.push(at(sigma)),
+            Physics::Plain => {}
         }
     }
 
@@ -271,24 +273,30 @@ pub fn classify(c: &Circuit, r: &FitResult, arcs: &[ArcFacts]) -> Classified {
 }
 
 /// σ = R/√(2τ) and Re Z(ω_lo) with their gradients, for the finite diffusion element `element` of `c`.
-/// Returns ((σ, ∇σ), (Re Z(ω_lo), ∇Re Z)) as (value, [(parameter, ∂/∂p)]).
+/// Returns ((σ, ∇σ), (Re Z(ω_lo), ∇Re Z)) as (value, [(parameter, ∂/∂p)]), or `None` when the element
+/// is not a finite diffusion element.
 #[allow(clippy::type_complexity)]
 pub fn tail_values(
     c: &Circuit,
     r: &FitResult,
     element: usize,
-) -> ((f64, Vec<(usize, f64)>), (f64, Vec<(usize, f64)>)) {
-    let e = &c.elements[element];
-    let (ri, ti) = (e.first_param, e.first_param + 1);
-    let (rv, tau) = (r.values[ri], r.values[ti]);
-    let sigma = rv / (2.0 * tau).sqrt();
-    let grad_sigma = vec![(ri, 1.0 / (2.0 * tau).sqrt()), (ti, -0.5 * sigma / tau)];
+) -> Option<((f64, Vec<(usize, f64)>), (f64, Vec<(usize, f64)>))> {
+    let e = c.elements.get(element)?;
+    let Physics::FiniteDiffusion { resistance, tau } = e.kind.physics else {
+        return None;
+    };
+    let (ri, ti) = (e.first_param + resistance, e.first_param + tau);
+    let (rv, tau_v) = (r.values[ri], r.values[ti]);
+    let sigma = rv / (2.0 * tau_v).sqrt();
+    let grad_sigma = vec![(ri, 1.0 / (2.0 * tau_v).sqrt()), (ti, -0.5 * sigma / tau_v)];
     let grid = Grid::new(&[2.0 * PI * r.window_hz.0]);
+    let count = e.kind.params.len();
     let mut z = [Complex64::new(0.0, 0.0)];
-    let mut dz = [Complex64::new(0.0, 0.0); 2];
-    (e.kind.impedance)(&r.values[ri..ri + 2], &grid, &mut z, &mut dz);
-    let at_least = (z[0].re, vec![(ri, dz[0].re), (ti, dz[1].re)]);
-    ((sigma, grad_sigma), at_least)
+    let mut dz = vec![Complex64::new(0.0, 0.0); count];
+    let q = &r.values[e.first_param..e.first_param + count];
+    (e.kind.impedance)(q, &grid, &mut z, &mut dz);
+    let at_least = (z[0].re, vec![(ri, dz[resistance].re), (ti, dz[tau].re)]);
+    Some(((sigma, grad_sigma), at_least))
 }
 
 /// Why a fitted decomposition is physically implausible, if it is: an arc or porous electrode whose
@@ -305,7 +313,7 @@ pub fn implausible(c: &Circuit, r: &FitResult) -> Option<String> {
     if let Some(b) = d.beyond_data.iter().find(|b| {
         !tails.contains(&b.process.as_str())
             && c.element_index(&b.process)
-                .is_none_or(|i| !matches!(c.elements[i].kind.symbol, "Wt" | "Wr"))
+                .is_none_or(|i| !finite_diffusion(c.elements[i].kind))
     }) {
         return Some(format!(
             "it puts {} beyond the data ({:.3e} Hz)",
@@ -319,14 +327,13 @@ pub fn implausible(c: &Circuit, r: &FitResult) -> Option<String> {
         .filter(|a| a.placement == Placement::InWindow && a.role == Role::ChargeTransfer)
         .map(|a| (a.resistance.value, a.capacitance.value))
         .max_by(|x, y| x.0.total_cmp(&y.0));
-    for e in c
-        .elements
-        .iter()
-        .filter(|e| matches!(e.kind.symbol, "Pe" | "Pm"))
-    {
-        let q = &r.values[e.first_param..e.first_param + e.kind.params.len()];
-        let (_, cap) = line_interface(q);
-        let rct = q[q.len() - 3];
+    for e in &c.elements {
+        let Physics::PorousLine { interface, .. } = e.kind.physics else {
+            continue;
+        };
+        let at = e.first_param + interface;
+        let (_, cap) = line_interface(&r.values[at..at + 3]);
+        let rct = r.values[at];
         if reference.is_none_or(|(rr, _)| rct > rr) {
             reference = Some((rct, cap));
         }
@@ -342,12 +349,14 @@ pub fn implausible(c: &Circuit, r: &FitResult) -> Option<String> {
         ));
     }
     let (_, c_dl) = reference?;
-    for e in c
-        .elements
-        .iter()
-        .filter(|e| matches!(e.kind.symbol, "Wt" | "Wr"))
-    {
-        let (rd, tau) = (r.values[e.first_param], r.values[e.first_param + 1]);
+    for e in &c.elements {
+        let Physics::FiniteDiffusion { resistance, tau } = e.kind.physics else {
+            continue;
+        };
+        let (rd, tau) = (
+            r.values[e.first_param + resistance],
+            r.values[e.first_param + tau],
+        );
         if Placement::of(hz(tau), r.window_hz) == Placement::InWindow
             && tau / rd < FILM_RATIO * c_dl
         {
@@ -361,6 +370,11 @@ pub fn implausible(c: &Circuit, r: &FitResult) -> Option<String> {
     None
 }
 
+/// Whether `kind` is a finite diffusion element (one that a fit can push below the window as a tail).
+fn finite_diffusion(kind: &ElementKind) -> bool {
+    matches!(kind.physics, Physics::FiniteDiffusion { .. })
+}
+
 /// Whether the arc of resistor `name` has a diffusion element beside the resistor in its branch.
 fn randles(c: &Circuit, name: &str) -> bool {
     fn walk(c: &Circuit, node: &crate::circuit::Node, name: &str) -> bool {
@@ -372,7 +386,7 @@ fn randles(c: &Circuit, name: &str) -> bool {
                     .iter()
                     .any(|n| matches!(n, Node::Element(i) if c.elements[*i].name == name));
                 let has_d = ch.iter().any(|n| {
-                    matches!(n, Node::Element(i) if matches!(c.elements[*i].kind.symbol, "W" | "Wt" | "Wr" | "G"))
+                    matches!(n, Node::Element(i) if c.elements[*i].kind.class == Class::Diffusive)
                 });
                 (has_r && has_d) || ch.iter().any(|n| walk(c, n, name))
             }

@@ -376,18 +376,10 @@ pub struct CandidateEntry {
     pub model: String,
     /// Short label (`2 arcs + transmissive diffusion`).
     pub label: String,
-    /// Number of arcs.
-    pub arcs: usize,
-    /// Diffusion: `none`, `transmissive` or `reflective`.
-    pub diffusion: Diffusion,
-    /// Series inductance.
-    pub inductance: bool,
-    /// Diffusion tail in series: `none`, `warburg` or `reflective`.
-    #[serde(default)]
-    pub tail: Tail,
-    /// Whether the arcs are porous electrodes.
-    #[serde(default)]
-    pub porous: bool,
+    /// Which member of the family: its keys (`arcs`, `diffusion`, `inductance`, `tail`, `porous`)
+    /// stand in the entry itself.
+    #[serde(flatten)]
+    pub member: Member,
     /// Whether the decomposition was rejected as implausible.
     #[serde(default)]
     pub rejected: bool,
@@ -421,11 +413,7 @@ impl From<&Candidate> for CandidateEntry {
         CandidateEntry {
             model: crate::circuit::print_expression(&c.circuit),
             label: c.member.label(),
-            arcs: c.member.arcs,
-            diffusion: c.member.diffusion,
-            inductance: c.member.inductance,
-            tail: c.member.tail,
-            porous: c.member.porous,
+            member: c.member,
             rejected: c.rejected,
             fitted: r.is_some(),
             parameters: c.circuit.params.iter().filter(|p| !p.fixed).count(),
@@ -632,23 +620,35 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         r.chi_square
             .max(2.0 * spectrum.z.len() as f64 * MEASUREMENT_ACCURACY.powi(2))
     };
+    // The plausible, converged candidate `admit` lets in with the lowest BIC among those that fit
+    // within COMPARABLE_CHI_SQUARE times the χ² of `r`, in words.
+    let better = |r: &FitResult, admit: fn(&Candidate) -> bool| {
+        candidates
+            .iter()
+            .zip(&flaws)
+            .filter(|(o, f)| admit(o) && f.is_none())
+            .filter_map(|(o, _)| {
+                o.result
+                    .as_ref()
+                    .filter(|or| or.converged)
+                    .map(|or| (o, or))
+            })
+            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
+            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic))
+            .map(|(o, _)| {
+                format!(
+                    "while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
+                    o.member.label()
+                )
+            })
+    };
     let mut rejected: Vec<Option<String>> = vec![None; candidates.len()];
     for (i, c) in candidates.iter().enumerate() {
         let (Some(flaw), Some(r)) = (&flaws[i], &c.result) else {
             continue;
         };
-        let better = candidates
-            .iter()
-            .zip(&flaws)
-            .filter(|(o, f)| f.is_none() && o.result.as_ref().is_some_and(|o| o.converged))
-            .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
-            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
-            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
-        if let Some((o, _)) = better {
-            rejected[i] = Some(format!(
-                "rejected: {flaw}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
-                o.member.label()
-            ));
+        if let Some(o) = better(r, |_| true) {
+            rejected[i] = Some(format!("rejected: {flaw}, {o}"));
         }
     }
     // Lumped arcs drawing a distributed (porous-electrode) response, when a porous candidate that
@@ -661,19 +661,8 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         let Some(arc) = distributed_arc(&c.circuit, r) else {
             continue;
         };
-        let better = candidates
-            .iter()
-            .zip(&flaws)
-            .filter(|(o, f)| o.member.porous && f.is_none())
-            .filter(|(o, _)| o.result.as_ref().is_some_and(|or| or.converged))
-            .filter_map(|(o, _)| o.result.as_ref().map(|or| (o, or)))
-            .filter(|(_, or)| or.chi_square <= COMPARABLE_CHI_SQUARE * floor(r))
-            .min_by(|x, y| x.1.bic.total_cmp(&y.1.bic));
-        if let Some((o, _)) = better {
-            rejected[i] = Some(format!(
-                "rejected: {arc}, while {} fits within {COMPARABLE_CHI_SQUARE}x its chi-square",
-                o.member.label()
-            ));
+        if let Some(o) = better(r, |o| o.member.porous) {
+            rejected[i] = Some(format!("rejected: {arc}, {o}"));
         }
     }
     for (c, why) in candidates.iter_mut().zip(rejected) {
@@ -721,9 +710,9 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
 fn distributed_arc(c: &Circuit, r: &FitResult) -> Option<String> {
     c.elements
         .iter()
-        .filter(|e| e.kind.symbol == "Q")
+        .filter(|e| e.kind.is_capacitive())
         .find_map(|e| {
-            let n = *r.values.get(e.first_param + 1)?;
+            let n = *r.values.get(e.first_param + e.kind.exponent()?)?;
             (n <= DISTRIBUTED_EXPONENT).then(|| {
                 format!(
                     "its arc {} has n = {n:.2}, a distributed (porous-electrode) response read as one arc",
@@ -812,13 +801,19 @@ pub fn auto_document(selection: &Selection, fit: crate::report::FitDocument) -> 
 mod tests {
     use super::*;
 
+    /// The circuit texts of `members`, after checking that there are `n` members with `n` distinct texts.
+    fn distinct_texts(members: &[Member], n: usize) -> std::collections::BTreeSet<String> {
+        assert_eq!(members.len(), n);
+        let texts: std::collections::BTreeSet<String> =
+            members.iter().map(|m| m.circuit_text()).collect();
+        assert_eq!(texts.len(), n);
+        texts
+    }
+
     #[test]
     fn the_physics_family_has_eight_distinct_parseable_members() {
         let f = physics_family();
-        assert_eq!(f.len(), 8);
-        let texts: std::collections::BTreeSet<String> =
-            f.iter().map(|m| m.circuit_text()).collect();
-        assert_eq!(texts.len(), 8);
+        let texts = distinct_texts(&f, 8);
         assert!(family().iter().all(|m| !texts.contains(&m.circuit_text())));
         for m in &f {
             let c = m.circuit();
@@ -834,10 +829,7 @@ mod tests {
     #[test]
     fn the_family_has_eighteen_distinct_parseable_members() {
         let f = family();
-        assert_eq!(f.len(), 18);
-        let texts: std::collections::BTreeSet<String> =
-            f.iter().map(|m| m.circuit_text()).collect();
-        assert_eq!(texts.len(), 18);
+        distinct_texts(&f, 18);
         for m in &f {
             let c = m.circuit();
             assert!(crate::fit::start::recognise(&c).is_some(), "{}", m.label());

@@ -106,6 +106,22 @@ pub struct Spectrum {
 /// The header of canonical spectrum files.
 pub const CANONICAL_HEADER: &str = "frequency_hz,z_real_ohm,z_imag_ohm";
 
+/// Applies the generic function `apply` with argument `arg` to every per-point array of spectrum
+/// `s` (frequencies, impedances, and the uncertainties and source lines where present), so that a
+/// new per-point array is kept in step in one place.
+macro_rules! per_point {
+    ($s:expr, $apply:ident, $arg:expr) => {
+        $apply(&mut $s.frequency_hz, $arg);
+        $apply(&mut $s.z, $arg);
+        if let Some(v) = &mut $s.sigma {
+            $apply(v, $arg);
+        }
+        if let Some(v) = &mut $s.source_lines {
+            $apply(v, $arg);
+        }
+    };
+}
+
 impl Spectrum {
     /// A spectrum from frequencies and impedances.
     pub fn new(frequency_hz: Vec<f64>, z: Vec<Complex64>) -> Spectrum {
@@ -182,14 +198,7 @@ impl Spectrum {
         fn apply<T: Clone>(v: &mut Vec<T>, order: &[usize]) {
             *v = order.iter().filter_map(|&i| v.get(i).cloned()).collect();
         }
-        apply(&mut self.frequency_hz, order);
-        apply(&mut self.z, order);
-        if let Some(s) = &mut self.sigma {
-            apply(s, order);
-        }
-        if let Some(l) = &mut self.source_lines {
-            apply(l, order);
-        }
+        per_point!(self, apply, order);
     }
 
     /// Keeps the points `i` with `keep[i]` true (points beyond `keep` are kept), in one pass over
@@ -199,14 +208,7 @@ impl Spectrum {
             let mut k = keep.iter();
             v.retain(|_| k.next().copied().unwrap_or(true));
         }
-        apply(&mut self.frequency_hz, keep);
-        apply(&mut self.z, keep);
-        if let Some(s) = &mut self.sigma {
-            apply(s, keep);
-        }
-        if let Some(l) = &mut self.source_lines {
-            apply(l, keep);
-        }
+        per_point!(self, apply, keep);
     }
 }
 

@@ -25,14 +25,26 @@ fn close(got: &[f64], want: &[f64], rel: f64) -> bool {
         .all(|(g, w)| ((g - w) / w).abs() <= rel)
 }
 
+/// Asserts that fitted `values` meet `truth` to 1e-5 relative (noise-free data: the optimum is the
+/// truth, common practice).
+fn assert_at(values: &[f64], truth: &[f64]) {
+    assert!(close(values, truth, 1e-5), "{values:?}");
+}
+
+/// Two arcs, R0 + R1|Q1 + R2|Q2, their true parameters and the noise-free spectrum of these.
+fn two_arcs() -> (Circuit, [f64; 7], Spectrum) {
+    let c = parse("R0 + R1|Q1 + R2|Q2").unwrap();
+    let truth = [0.02, 0.03, 2e-3, 0.9, 0.08, 2.0, 0.85];
+    let s = spectrum(&c, &truth, None);
+    (c, truth, s)
+}
+
 /// Two well separated arcs; the warm start puts both on the fast one. Its single run ends in a local
 /// minimum far above the optimum; the screening of fresh candidates shows that, and the full search
 /// finds the truth of the noise-free data.
 #[test]
 fn a_warm_start_in_a_worse_basin_is_replaced_by_the_full_search() {
-    let c = parse("R0 + R1|Q1 + R2|Q2").unwrap();
-    let truth = [0.02, 0.03, 2e-3, 0.9, 0.08, 2.0, 0.85];
-    let s = spectrum(&c, &truth, None);
+    let (c, truth, s) = two_arcs();
     let trap = [0.02, 0.10, 1e-3, 0.7, 1e-4, 1e-3, 0.9];
     let settings = FitSettings::default();
     let single = fit_from(&c, &s, &settings, &trap).unwrap();
@@ -41,28 +53,18 @@ fn a_warm_start_in_a_worse_basin_is_replaced_by_the_full_search() {
     let f = fit_in_chain(&c, &s, &settings, Some(&trap), None).unwrap();
     assert!(matches!(f.warm, WarmVerdict::Replaced { .. }), "{}", f.warm);
     // Noise-free data: the optimum is the truth (common practice).
-    assert!(
-        close(&f.result.values, &truth, 1e-5),
-        "{:?}",
-        f.result.values
-    );
+    assert_at(&f.result.values, &truth);
 }
 
 /// A warm start in the right basin is taken without the full search, and ends at the truth of the
 /// noise-free data.
 #[test]
 fn a_warm_start_in_the_right_basin_is_accepted() {
-    let c = parse("R0 + R1|Q1 + R2|Q2").unwrap();
-    let truth = [0.02, 0.03, 2e-3, 0.9, 0.08, 2.0, 0.85];
-    let s = spectrum(&c, &truth, None);
+    let (c, truth, s) = two_arcs();
     let warm: Vec<f64> = truth.iter().map(|v| v * 1.05).collect();
     let f = fit_in_chain(&c, &s, &FitSettings::default(), Some(&warm), None).unwrap();
     assert_eq!(f.warm, WarmVerdict::Accepted);
-    assert!(
-        close(&f.result.values, &truth, 1e-5),
-        "{:?}",
-        f.result.values
-    );
+    assert_at(&f.result.values, &truth);
 }
 
 /// A planted near-degenerate chain: a film arc and a charge-transfer arc with finite diffusion a

@@ -8,8 +8,6 @@
 use eis_core::circuit::parse;
 use eis_core::fit::{FitSettings, fit};
 use eis_core::spectrum::Spectrum;
-use num_complex::Complex64;
-use serde_json::Value;
 
 const FIXTURE: &str = include_str!(concat!(
     env!("CARGO_MANIFEST_DIR"),
@@ -26,21 +24,16 @@ const PARAM_REL: f64 = 1e-5;
 /// Standard errors agree to this relative difference.
 const SE_REL: f64 = 0.01;
 
-use eis_core::testing::floats;
-
-#[test]
-fn fixture_names_its_generator_and_versions() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
-    assert_eq!(doc["generated_by"], "tests/reference/fit_reference.py");
-    for key in ["python", "numpy", "scipy"] {
-        assert!(doc[key].is_string(), "missing {key}");
-    }
-    assert!(doc["cases"].as_array().unwrap().len() >= 5);
-}
+use eis_core::testing::{floats, impedances, reference_fixture};
 
 #[test]
 fn optima_and_standard_errors_agree_with_scipy() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
+    let doc = reference_fixture(
+        FIXTURE,
+        "tests/reference/fit_reference.py",
+        &["numpy", "scipy"],
+    );
+    assert!(doc["cases"].as_array().unwrap().len() >= 5);
     let mut failures = Vec::new();
     // Largest disagreements, printed for the record (`--nocapture`).
     let (mut worst_chi, mut worst_se_frac, mut worst_rel, mut worst_se) =
@@ -50,11 +43,7 @@ fn optima_and_standard_errors_agree_with_scipy() {
         let circuit = parse(model).unwrap();
         assert!(circuit.params.iter().all(|p| p.initial.is_none()));
         let f = floats(&case["frequency_hz"]);
-        let z: Vec<Complex64> = floats(&case["z_real_ohm"])
-            .into_iter()
-            .zip(floats(&case["z_imag_ohm"]))
-            .map(|(re, im)| Complex64::new(re, im))
-            .collect();
+        let z = impedances(&case["z_real_ohm"], &case["z_imag_ohm"]);
         let want = floats(&case["params"]);
         let want_se = floats(&case["stderr"]);
         let want_chi = case["chi_square"].as_f64().unwrap();

@@ -11,8 +11,6 @@
 use eis_core::circuit::parse;
 use eis_core::fit::{FitSettings, fit};
 use eis_core::spectrum::Spectrum;
-use num_complex::Complex64;
-use serde_json::Value;
 
 const FIXTURE: &str = include_str!(concat!(
     env!("CARGO_MANIFEST_DIR"),
@@ -24,36 +22,18 @@ const FIXTURE: &str = include_str!(concat!(
 /// higher on this benchmark).
 const CHI_FACTOR: f64 = 1.5;
 
-use eis_core::testing::floats;
-
-#[test]
-fn fixture_names_its_generator_and_versions() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
-    assert!(
-        doc["generated_by"]
-            .as_str()
-            .unwrap()
-            .starts_with("bench/compare_scipy.py")
-    );
-    for key in ["python", "numpy", "scipy"] {
-        assert!(doc[key].is_string(), "missing {key}");
-    }
-    assert!(doc["cases"].as_array().unwrap().len() >= 30);
-}
+use eis_core::testing::{floats, impedances, reference_fixture};
 
 #[test]
 fn automatic_search_reaches_scipys_optimum_on_the_hardest_spectra() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
+    let doc = reference_fixture(FIXTURE, "bench/compare_scipy.py", &["numpy", "scipy"]);
+    assert!(doc["cases"].as_array().unwrap().len() >= 30);
     let mut failures = Vec::new();
     let mut worst = 0.0f64;
     for (k, case) in doc["cases"].as_array().unwrap().iter().enumerate() {
         let circuit = parse(case["model"].as_str().unwrap()).unwrap();
         assert!(circuit.params.iter().all(|p| p.initial.is_none()));
-        let z: Vec<Complex64> = floats(&case["z_real_ohm"])
-            .into_iter()
-            .zip(floats(&case["z_imag_ohm"]))
-            .map(|(re, im)| Complex64::new(re, im))
-            .collect();
+        let z = impedances(&case["z_real_ohm"], &case["z_imag_ohm"]);
         let spectrum = Spectrum::new(floats(&case["frequency_hz"]), z);
         let reference = case["chi_square"].as_f64().unwrap();
         let r = fit(&circuit, &spectrum, &FitSettings::default(), None).unwrap();

@@ -8,23 +8,21 @@
 use eis_core::circuit::parse;
 use eis_core::fit::joint::{JointSettings, fit_joint, shared_indices};
 use eis_core::spectrum::Spectrum;
-use num_complex::Complex64;
-use serde_json::Value;
 
 const FIXTURE: &str = include_str!(concat!(
     env!("CARGO_MANIFEST_DIR"),
     "/../tests/reference/joint_fixture.json"
 ));
 
-use eis_core::testing::floats;
+use eis_core::testing::{floats, impedances, reference_fixture};
 
 #[test]
 fn joint_optimum_and_standard_errors_agree_with_scipy() {
-    let doc: Value = serde_json::from_str(FIXTURE).unwrap();
-    assert_eq!(doc["generated_by"], "tests/reference/joint_reference.py");
-    for key in ["python", "numpy", "scipy"] {
-        assert!(doc[key].is_string(), "missing {key}");
-    }
+    let doc = reference_fixture(
+        FIXTURE,
+        "tests/reference/joint_reference.py",
+        &["numpy", "scipy"],
+    );
     let circuit = parse(doc["circuit"].as_str().unwrap()).unwrap();
     let names: Vec<&str> = doc["shared"]
         .as_array()
@@ -38,11 +36,7 @@ fn joint_optimum_and_standard_errors_agree_with_scipy() {
     let spectra: Vec<Spectrum> = cases
         .iter()
         .map(|c| {
-            let z: Vec<Complex64> = floats(&c["z_real_ohm"])
-                .into_iter()
-                .zip(floats(&c["z_imag_ohm"]))
-                .map(|(re, im)| Complex64::new(re, im))
-                .collect();
+            let z = impedances(&c["z_real_ohm"], &c["z_imag_ohm"]);
             Spectrum::new(f.clone(), z)
         })
         .collect();

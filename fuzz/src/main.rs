@@ -33,6 +33,21 @@ struct Args {
     save: PathBuf,
 }
 
+/// The value `v` of option `name` as a whole number.
+fn whole<T: std::str::FromStr>(name: &str, v: &str) -> Result<T, String> {
+    v.parse()
+        .map_err(|_| format!("{name}: `{v}` is not a whole number"))
+}
+
+/// The value `v` of option `name` as a positive, finite number of seconds.
+fn seconds(name: &str, v: &str) -> Result<Duration, String> {
+    v.parse()
+        .ok()
+        .filter(|s: &f64| s.is_finite() && *s > 0.0)
+        .map(Duration::from_secs_f64)
+        .ok_or_else(|| format!("{name}: `{v}` is not a positive number"))
+}
+
 fn parse_args(args: &[String]) -> Result<Args, String> {
     let mut targets = Vec::new();
     let mut config = Config::new().with_progress(Duration::from_secs(30));
@@ -46,54 +61,12 @@ fn parse_args(args: &[String]) -> Result<Args, String> {
                 .ok_or_else(|| format!("{name} needs a value"))
         };
         match a.as_str() {
-            "--seconds" => {
-                let v = value(a)?;
-                let s: f64 = v
-                    .parse()
-                    .ok()
-                    .filter(|s: &f64| s.is_finite() && *s > 0.0)
-                    .ok_or_else(|| format!("--seconds: `{v}` is not a positive number"))?;
-                config = config.with_duration(Duration::from_secs_f64(s));
-            }
-            "--iterations" => {
-                let v = value(a)?;
-                let n = v
-                    .parse()
-                    .map_err(|_| format!("--iterations: `{v}` is not a whole number"))?;
-                config = config.with_iterations(n);
-            }
-            "--seed" => {
-                let v = value(a)?;
-                let n = v
-                    .parse()
-                    .map_err(|_| format!("--seed: `{v}` is not a whole number"))?;
-                config = config.with_seed(n);
-            }
-            "--max-failures" => {
-                let v = value(a)?;
-                let n = v
-                    .parse()
-                    .map_err(|_| format!("--max-failures: `{v}` is not a whole number"))?;
-                config = config.with_max_failures(n);
-            }
-            "--slow" => {
-                let v = value(a)?;
-                let s: f64 = v
-                    .parse()
-                    .ok()
-                    .filter(|s: &f64| s.is_finite() && *s > 0.0)
-                    .ok_or_else(|| format!("--slow: `{v}` is not a positive number"))?;
-                config = config.with_slow(Duration::from_secs_f64(s));
-            }
-            "--hang" => {
-                let v = value(a)?;
-                let s: f64 = v
-                    .parse()
-                    .ok()
-                    .filter(|s: &f64| s.is_finite() && *s > 0.0)
-                    .ok_or_else(|| format!("--hang: `{v}` is not a positive number"))?;
-                hang = Duration::from_secs_f64(s);
-            }
+            "--seconds" => config = config.with_duration(seconds(a, &value(a)?)?),
+            "--iterations" => config = config.with_iterations(whole(a, &value(a)?)?),
+            "--seed" => config = config.with_seed(whole(a, &value(a)?)?),
+            "--max-failures" => config = config.with_max_failures(whole(a, &value(a)?)?),
+            "--slow" => config = config.with_slow(seconds(a, &value(a)?)?),
+            "--hang" => hang = seconds(a, &value(a)?)?,
             "--save" => save = PathBuf::from(value(a)?),
             "--quiet" => config.progress = None,
             "-h" | "--help" => return Err(String::new()),

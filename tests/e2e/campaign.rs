@@ -3,7 +3,7 @@
 //! cycle 150), an interface film in Z3 (from cycle 100), a soft short in Z4 (from cycle 250), a corrupt
 //! file and a drifting spectrum; Z1 and Z5 are healthy.
 
-use eis_tests::{eis, scratch};
+use eis_tests::{eis, scratch, write_file};
 use serde_json::Value;
 use std::path::Path;
 use std::process::Command;
@@ -13,7 +13,7 @@ fn write_campaign(dir: &Path) {
     for f in eis_core::scenario::files() {
         std::fs::write(dir.join("raw").join(&f.name), &f.bytes).unwrap();
     }
-    std::fs::write(dir.join("model.circ"), eis_core::scenario::MODEL_FILE).unwrap();
+    write_file(dir, "model.circ", eis_core::scenario::MODEL_FILE);
 }
 
 fn batch_args(out: &str) -> Vec<String> {
@@ -44,7 +44,7 @@ fn batch_trend_and_report_find_the_planted_faults() {
     write_campaign(&dir);
     // The corrupt file makes the exit status 1; everything else is fitted.
     let run = run_batch(&dir, "out", &[]).expect_code(1);
-    assert!(run.stderr.contains("195 spectra"), "{}", run.stderr);
+    run.expect_stderr("195 spectra");
 
     // results.csv opens with a standard CSV reader and has the documented columns.
     let mut rdr = csv::Reader::from_path(dir.join("out/results.csv")).unwrap();
@@ -435,39 +435,31 @@ fn shared_parameters_are_fitted_per_chain() {
         assert!(v.len() >= 38 && v.iter().all(|x| x == &v[0]), "{k}: {v:?}");
     }
     let run = run_batch(&dir, "bad", &["--share", "Qx.n"]).expect_code(2);
-    assert!(
-        run.stderr.contains("`Qx.n` is not a parameter"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("`Qx.n` is not a parameter");
 }
 
 #[test]
 fn batch_bad_usage_exits_2() {
     let dir = scratch("campaign_bad");
-    std::fs::write(
-        dir.join("a.csv"),
+    write_file(
+        &dir,
+        "a.csv",
         "frequency_hz,z_real_ohm,z_imag_ohm\n1,1,-1\n",
-    )
-    .unwrap();
+    );
     let run = eis(
         &dir,
         &["batch", "nothing*.csv", "--model", "R0", "--out", "o"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("no file matches"), "{}", run.stderr);
+    run.expect_stderr("no file matches");
     let run = eis(
         &dir,
         &["batch", "a.csv", "--model", "R0 + X1", "--out", "o"],
     )
     .expect_code(2);
-    assert!(
-        run.stderr.contains("unknown element kind"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("unknown element kind");
     let run = eis(&dir, &["trend", "missing.csv"]).expect_code(2);
-    assert!(run.stderr.contains("missing.csv"), "{}", run.stderr);
+    run.expect_stderr("missing.csv");
 }
 
 /// The demo fits the lead inductance once per cell (a property of the cell and its fixture, not of a

@@ -1,25 +1,19 @@
 //! `eis check` (Kramers–Kronig, linear Voigt-series test of Schönleber, Klotz & Ivers-Tiffée 2014,
 //! Electrochim. Acta 131, 20–27) on spectra simulated here (issue 4).
 
-use eis_tests::{eis, physics_spectra, read_canonical, root, scratch, write_physics_csv};
+use eis_tests::{
+    eis, physics_spectra, read_canonical, root, scratch, write_file, write_physics_csv,
+};
 
 fn simulate(dir: &std::path::Path, name: &str, circuit: &str, noise: &str) {
     let model = root().join("circuits").join(circuit);
-    eis(
+    eis_tests::simulate(
         dir,
-        &[
-            "simulate",
-            "--model",
-            model.to_str().unwrap(),
-            "--noise",
-            noise,
-            "--seed",
-            "3",
-            "-o",
-            name,
-        ],
-    )
-    .expect_code(0);
+        model.to_str().unwrap(),
+        &[],
+        &["--noise", noise, "--seed", "3"],
+        name,
+    );
 }
 
 #[test]
@@ -55,8 +49,8 @@ fn issue_4_check_flags_corrupted_points_and_unreadable_files() {
         let k = if (7.0..14.0).contains(f) { 1.05 } else { 1.0 };
         text.push_str(&format!("{f},{},{im}\n", re * k));
     }
-    std::fs::write(dir.join("bad.csv"), text).unwrap();
-    std::fs::write(dir.join("empty.csv"), "").unwrap();
+    write_file(&dir, "bad.csv", text);
+    write_file(&dir, "empty.csv", "");
     let run = eis(&dir, &["check", "ok.csv", "bad.csv", "empty.csv", "--json"]).expect_code(1);
     let docs: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
     let docs = docs.as_array().expect("an array for several spectra");
@@ -159,14 +153,9 @@ fn a_very_long_spectrum_gets_a_note_on_its_cost() {
         let d = 1.0 + wt * wt;
         text.push_str(&format!("{f},{},{}\n", 1.0 + 10.0 / d, -10.0 * wt / d));
     }
-    std::fs::write(dir.join("long.csv"), text).unwrap();
+    write_file(&dir, "long.csv", text);
     let run = eis(&dir, &["check", "long.csv"]);
-    assert!(
-        run.stderr
-            .contains("long.csv, spectrum 1: note: 25000 points"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("long.csv, spectrum 1: note: 25000 points");
     assert!(
         run.stdout.starts_with("long.csv #1: valid"),
         "{}",

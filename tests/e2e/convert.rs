@@ -1,24 +1,12 @@
 //! `eis convert` on exports generated here from simulated spectra (issue 4).
 
-use eis_tests::{eis, read_canonical, root, scratch};
+use eis_tests::{eis, read_canonical, root, scratch, simulate, write_file};
 use std::path::Path;
 
 /// Simulates a spectrum with `eis simulate` and returns its rows.
 fn simulated(dir: &Path, name: &str, circuit: &str) -> Vec<(f64, f64, f64)> {
     let model = root().join("circuits").join(circuit);
-    eis(
-        dir,
-        &[
-            "simulate",
-            "--model",
-            model.to_str().unwrap(),
-            "--ppd",
-            "5",
-            "-o",
-            name,
-        ],
-    )
-    .expect_code(0);
+    simulate(dir, model.to_str().unwrap(), &[], &["--ppd", "5"], name);
     read_canonical(&std::fs::read_to_string(dir.join(name)).unwrap())
 }
 
@@ -38,7 +26,7 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
             &format!("{:e};{:e};{:e}\r\n", f / 1e3, re * 1e3, -im * 1e3).replace('.', ","),
         );
     }
-    std::fs::write(dir.join("lab.txt"), &text).unwrap();
+    write_file(&dir, "lab.txt", &text);
     // Two cycles in one tab-separated file, with a temperature column.
     let mut multi = String::from("f (Hz)\tRe (Ohm)\tIm (Ohm)\tcycle\ttemperature\n");
     for cycle in [3, 4] {
@@ -46,8 +34,8 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
             multi.push_str(&format!("{f}\t{re}\t{im}\t{cycle}\t25\n"));
         }
     }
-    std::fs::write(dir.join("cellB_c7.tsv"), &multi).unwrap();
-    std::fs::write(dir.join("broken.csv"), "f,re,im\n1,2,3\n2,x,3\n3,2,3\n").unwrap();
+    write_file(&dir, "cellB_c7.tsv", &multi);
+    write_file(&dir, "broken.csv", "f,re,im\n1,2,3\n2,x,3\n3,2,3\n");
     let run = eis(
         &dir,
         &[
@@ -63,12 +51,7 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
         ],
     )
     .expect_code(1);
-    assert!(
-        run.stderr
-            .contains("broken.csv, line 3, column 2: `x` is not a number"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("broken.csv, line 3, column 2: `x` is not a number");
     for name in ["lab_1.csv", "cellB_c7_1.csv", "cellB_c7_2.csv"] {
         let got = read_canonical(&std::fs::read_to_string(dir.join("out").join(name)).unwrap());
         assert_eq!(got.len(), rows.len(), "{name}");
@@ -111,15 +94,10 @@ fn issue_4_convert_writes_canonical_files_and_an_index_and_lists_failures() {
 fn issue_4_convert_never_writes_over_an_input() {
     let dir = scratch("convert-guard");
     simulated(&dir, "x.csv", "single-interface.circ");
-    std::fs::write(dir.join("x_1.csv"), "f,re,im\n3,1,-1\n2,1,-2\n1,1,-3\n").unwrap();
+    write_file(&dir, "x_1.csv", "f,re,im\n3,1,-1\n2,1,-2\n1,1,-3\n");
     let before = std::fs::read(dir.join("x_1.csv")).unwrap();
     let run = eis(&dir, &["convert", "x_1.csv", "x.csv", "--out", "."]).expect_code(1);
-    assert!(
-        run.stderr
-            .contains("refusing to write ./x_1.csv: it is an input file"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("refusing to write ./x_1.csv: it is an input file");
     assert_eq!(std::fs::read(dir.join("x_1.csv")).unwrap(), before);
     assert!(dir.join("x_1_1.csv").is_file());
 }

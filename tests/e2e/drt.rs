@@ -1,37 +1,21 @@
 //! `eis drt` on spectra that `eis simulate` writes.
 
-use eis_tests::{eis, scratch};
+use eis_tests::{eis, scratch, simulate, write_spectra};
 
 /// An RC element's DRT is R·δ(ln τ − ln RC): one peak at τ = RC holding R (by the definition of the DRT,
 /// Z = R∞ + ∫ γ(ln τ)/(1 + jωτ) d ln τ; common practice).
 #[test]
 fn drt_of_an_rc_reports_one_peak_as_json_and_csv() {
     let dir = scratch("drt-rc");
-    eis(
+    simulate(
         &dir,
+        "R0 + R1|C1",
+        &["R0=5", "R1=50", "C1=20u"],
         &[
-            "simulate",
-            "--model",
-            "R0 + R1|C1",
-            "--set",
-            "R0=5",
-            "--set",
-            "R1=50",
-            "--set",
-            "C1=20u",
-            "--fmin",
-            "0.1",
-            "--fmax",
-            "100k",
-            "--noise",
-            "0.002",
-            "--seed",
-            "3",
-            "-o",
-            "rc.csv",
+            "--fmin", "0.1", "--fmax", "100k", "--noise", "0.002", "--seed", "3",
         ],
-    )
-    .expect_code(0);
+        "rc.csv",
+    );
     let run = eis(&dir, &["drt", "rc.csv", "--json", "-o", "rc-drt.csv"]).expect_code(0);
     let v: serde_json::Value = serde_json::from_str(&run.stdout).expect("JSON on stdout");
     for key in [
@@ -72,31 +56,13 @@ fn drt_of_an_rc_reports_one_peak_as_json_and_csv() {
 #[test]
 fn drt_summary_and_options() {
     let dir = scratch("drt-options");
-    eis(
+    simulate(
         &dir,
-        &[
-            "simulate",
-            "--model",
-            "R0 + R1|C1 + R2|C2",
-            "--set",
-            "R0=2",
-            "--set",
-            "R1=40",
-            "--set",
-            "C1=250n",
-            "--set",
-            "R2=20",
-            "--set",
-            "C2=50u",
-            "--fmin",
-            "0.1",
-            "--fmax",
-            "100k",
-            "-o",
-            "two.csv",
-        ],
-    )
-    .expect_code(0);
+        "R0 + R1|C1 + R2|C2",
+        &["R0=2", "R1=40", "C1=250n", "R2=20", "C2=50u"],
+        &["--fmin", "0.1", "--fmax", "100k"],
+        "two.csv",
+    );
     let run = eis(&dir, &["drt", "two.csv"]).expect_code(0);
     assert!(run.stdout.contains("peaks        2"), "{}", run.stdout);
     for extra in [
@@ -117,36 +83,33 @@ fn drt_summary_and_options() {
 #[test]
 fn drt_bad_input_exits_with_2() {
     let dir = scratch("drt-bad");
-    let run = eis(&dir, &["drt", "missing.csv"]).expect_code(2);
-    assert!(
-        run.stderr.contains("missing.csv: cannot read"),
-        "{}",
-        run.stderr
+    write_spectra(
+        &dir,
+        &[
+            ("short.csv", "100,1,-1\n10,2,-1\n1,3,-0.5\n"),
+            (
+                "zero.csv",
+                "1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
+            ),
+        ],
     );
-    std::fs::write(
-        dir.join("short.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n1,3,-0.5\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["drt", "short.csv"]).expect_code(2);
-    assert!(run.stderr.contains("needs at least 5"), "{}", run.stderr);
-    std::fs::write(
-        dir.join("zero.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n1000,1,-1\n100,1,-1\n10,0,0\n1,3,-0.5\n0.1,3,-0.1\n",
-    )
-    .unwrap();
-    // The reader drops the zero point with a warning naming its line; four points are then too few.
-    let run = eis(&dir, &["drt", "zero.csv"]).expect_code(2);
-    assert!(
-        run.stderr
-            .contains("zero.csv: warning: dropped 1 row: line 4: impedance is zero"),
-        "{}",
-        run.stderr
-    );
+    for (file, message) in [
+        ("missing.csv", "missing.csv: cannot read"),
+        ("short.csv", "needs at least 5"),
+        // The reader drops the zero point with a warning naming its line; four points are then too
+        // few.
+        (
+            "zero.csv",
+            "zero.csv: warning: dropped 1 row: line 4: impedance is zero",
+        ),
+    ] {
+        let run = eis(&dir, &["drt", file]).expect_code(2);
+        assert!(run.stderr.contains(message), "{file}: {}", run.stderr);
+    }
     eis(&dir, &["drt", "zero.csv", "--penalty", "3"]).expect_code(2);
     eis(&dir, &["drt", "zero.csv", "--lambda", "-1"]).expect_code(2);
     let run = eis(&dir, &["drt", "zero.csv", "--json", "-o", "-"]).expect_code(2);
-    assert!(run.stderr.contains("stdout"), "{}", run.stderr);
+    run.expect_stderr("stdout");
     let help = eis(&dir, &["drt", "--help"]).expect_code(0);
     assert!(help.stdout.contains("Examples:") && help.stdout.contains("eis drt"));
 }
@@ -154,21 +117,7 @@ fn drt_bad_input_exits_with_2() {
 #[test]
 fn drt_writes_a_plot_when_asked() {
     let dir = scratch("drt-plot");
-    eis(
-        &dir,
-        &[
-            "simulate",
-            "--model",
-            "R0 + R1|C1",
-            "--set",
-            "R1=50",
-            "--set",
-            "C1=2u",
-            "-o",
-            "s.csv",
-        ],
-    )
-    .expect_code(0);
+    simulate(&dir, "R0 + R1|C1", &["R1=50", "C1=2u"], &[], "s.csv");
     eis(&dir, &["drt", "s.csv", "--plot", "drt.svg"]).expect_code(0);
     let svg = std::fs::read_to_string(dir.join("drt.svg")).unwrap();
     assert!(svg.starts_with("<svg") || svg.starts_with("<?xml"));
@@ -196,35 +145,15 @@ fn ohms(label: &str) -> Option<f64> {
 #[test]
 fn drt_plot_marks_exactly_the_reported_peaks() {
     let dir = scratch("drt-plot-peaks");
-    eis(
+    simulate(
         &dir,
+        "R0 + R1|C1 + R2|C2 + R3|C3",
         &[
-            "simulate",
-            "--model",
-            "R0 + R1|C1 + R2|C2 + R3|C3",
-            "--set",
-            "R0=5",
-            "--set",
-            "R1=20",
-            "--set",
-            "C1=0.5u",
-            "--set",
-            "R2=50",
-            "--set",
-            "C2=20u",
-            "--set",
-            "R3=40",
-            "--set",
-            "C3=75m",
-            "--fmin",
-            "0.1",
-            "--fmax",
-            "100k",
-            "-o",
-            "s.csv",
+            "R0=5", "R1=20", "C1=0.5u", "R2=50", "C2=20u", "R3=40", "C3=75m",
         ],
-    )
-    .expect_code(0);
+        &["--fmin", "0.1", "--fmax", "100k"],
+        "s.csv",
+    );
     let run = eis(&dir, &["drt", "s.csv", "--json", "--plot", "drt.svg"]).expect_code(0);
     let v: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
     let table: Vec<f64> = v["peaks"]

@@ -1,42 +1,31 @@
 //! `eis fit` end to end: readable report, JSON keys, fitted CSV, warm start, bad input.
 
-use eis_tests::{eis, scratch};
+use eis_tests::{eis, scratch, write_file, write_spectra};
 use serde_json::Value;
 
+/// Simulates `model` with `sets` at 0.2 % noise (seed 3) into `out`.
 fn simulate(dir: &std::path::Path, model: &str, sets: &[&str], out: &str) {
-    let mut args = vec![
-        "simulate", "--model", model, "--noise", "0.002", "--seed", "3", "-o", out,
-    ];
-    for s in sets {
-        args.push("--set");
-        args.push(s);
-    }
-    eis(dir, &args).expect_code(0);
+    eis_tests::simulate(dir, model, sets, &["--noise", "0.002", "--seed", "3"], out);
+}
+
+/// Simulates the one-arc spectrum `R0 + Rct|Qdl` (R0 = 2 Ω, Rct = 40 Ω, Qdl = 50 µF·s^(n−1),
+/// n = 0.85) in a fresh folder `name`, fits it with `--json` and `extra`, and returns the exit status
+/// and the JSON document.
+fn fit_arc_json(name: &str, extra: &[&str]) -> (i32, Value) {
+    let dir = scratch(name);
+    let model = "R0 + Rct|Qdl";
+    let sets = ["R0=2", "Rct=40", "Qdl.Q=50u", "Qdl.n=0.85"];
+    simulate(&dir, model, &sets, "s.csv");
+    let mut args = vec!["fit", "s.csv", "--model", model, "--json"];
+    args.extend_from_slice(extra);
+    let run = eis(&dir, &args);
+    (run.code, serde_json::from_str(&run.stdout).unwrap())
 }
 
 #[test]
 fn json_document_has_the_documented_keys() {
-    let dir = scratch("fit_json");
-    simulate(
-        &dir,
-        "R0 + Rct|Qdl",
-        &["R0=2", "Rct=40", "Qdl.Q=50u", "Qdl.n=0.85"],
-        "s.csv",
-    );
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "s.csv",
-            "--model",
-            "R0 + Rct|Qdl",
-            "--json",
-            "--ocv",
-            "1.5",
-        ],
-    )
-    .expect_code(0);
-    let doc: Value = serde_json::from_str(&run.stdout).unwrap();
+    let (code, doc) = fit_arc_json("fit_json", &["--ocv", "1.5"]);
+    assert_eq!(code, 0);
     assert_eq!(doc["model"], "R0 + Rct|Qdl");
     let params = doc["parameters"].as_array().unwrap();
     assert_eq!(params.len(), 4);
@@ -160,7 +149,7 @@ fn table_fitted_csv_and_warm_start() {
     );
     // A saved result warm-starts the next fit, which then needs fewer evaluations.
     let cold = eis(&dir, &["fit", "s.csv", "--model", model, "--json"]).expect_code(0);
-    std::fs::write(dir.join("prev.json"), &cold.stdout).unwrap();
+    write_file(&dir, "prev.json", &cold.stdout);
     let warm = eis(
         &dir,
         &[
@@ -191,28 +180,7 @@ fn table_fitted_csv_and_warm_start() {
 
 #[test]
 fn fixed_and_bounded_parameters_are_respected() {
-    let dir = scratch("fit_fix");
-    simulate(
-        &dir,
-        "R0 + Rct|Qdl",
-        &["R0=2", "Rct=40", "Qdl.Q=50u", "Qdl.n=0.85"],
-        "s.csv",
-    );
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "s.csv",
-            "--model",
-            "R0 + Rct|Qdl",
-            "--fix",
-            "Qdl.n=0.8",
-            "--bound",
-            "Rct=1..30",
-            "--json",
-        ],
-    );
-    let doc: Value = serde_json::from_str(&run.stdout).unwrap();
+    let (_, doc) = fit_arc_json("fit_fix", &["--fix", "Qdl.n=0.8", "--bound", "Rct=1..30"]);
     let p = |n: &str| {
         doc["parameters"]
             .as_array()
@@ -239,87 +207,66 @@ fn fixed_and_bounded_parameters_are_respected() {
 #[test]
 fn bad_input_exits_2_with_a_clear_message() {
     let dir = scratch("fit_bad");
-    std::fs::write(
-        dir.join("empty.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "empty.csv", "--model", "R0 + R1|C1"]).expect_code(2);
-    assert!(run.stderr.contains("empty"), "{}", run.stderr);
-    std::fs::write(
-        dir.join("two.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "two.csv", "--model", "R0 + R1|Q1"]).expect_code(2);
-    assert!(
-        run.stderr.contains("fewer than the minimum"),
-        "{}",
-        run.stderr
+    write_spectra(
+        &dir,
+        &[
+            ("empty.csv", ""),
+            ("two.csv", "100,1,-1\n10,2,-1\n"),
+            ("three.csv", "100,1,-1\n10,2,-1\n1,3,-1\n"),
+            ("nan.csv", "100,NaN,-1\n10,2,-1\n1,3,-1\n"),
+        ],
     );
-    std::fs::write(
-        dir.join("three.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,1,-1\n10,2,-1\n1,3,-1\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "three.csv", "--model", "R0 + R1|Q1 + R2|Q2"]).expect_code(2);
-    assert!(
-        run.stderr.contains("too few for 7 free parameters"),
-        "{}",
-        run.stderr
-    );
-    std::fs::write(
-        dir.join("nan.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n100,NaN,-1\n10,2,-1\n1,3,-1\n",
-    )
-    .unwrap();
-    let run = eis(&dir, &["fit", "nan.csv", "--model", "R0"]);
-    assert_eq!(run.code, 2, "{}", run.stderr);
     simulate(&dir, "R0 + R1|C1", &[], "ok.csv");
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "ok.csv",
-            "--model",
-            "R0 + R1|C1",
-            "--fix",
-            "R0",
-            "--fix",
-            "R1",
-            "--fix",
-            "C1",
-        ],
-    )
-    .expect_code(2);
-    assert!(
-        run.stderr.contains("every parameter is fixed"),
-        "{}",
-        run.stderr
-    );
-    let run = eis(&dir, &["fit", "ok.csv", "--model", "R0{50 1..10} + R1|C1"]).expect_code(2);
-    assert!(run.stderr.contains("outside its bounds"), "{}", run.stderr);
-    let run = eis(
-        &dir,
-        &[
-            "fit",
-            "ok.csv",
-            "--model",
-            "R0 + R1|C1",
-            "--bound",
-            "R1=5..1",
-        ],
-    )
-    .expect_code(2);
-    assert!(run.stderr.contains("not below"), "{}", run.stderr);
-    let run = eis(&dir, &["fit", "missing.csv", "--model", "R0"]).expect_code(2);
-    assert!(run.stderr.contains("missing.csv"), "{}", run.stderr);
-    let run = eis(
-        &dir,
-        &["fit", "ok.csv", "--model", "R0 + R1|C1", "-o", "ok.csv"],
-    )
-    .expect_code(2);
-    assert!(run.stderr.contains("input file"), "{}", run.stderr);
+    let fixed_all = [
+        "fit",
+        "ok.csv",
+        "--model",
+        "R0 + R1|C1",
+        "--fix",
+        "R0",
+        "--fix",
+        "R1",
+        "--fix",
+        "C1",
+    ];
+    // (arguments, what the message on stderr says; empty: only the exit status is checked)
+    let cases: [(&[&str], &str); 9] = [
+        (&["fit", "empty.csv", "--model", "R0 + R1|C1"], "empty"),
+        (
+            &["fit", "two.csv", "--model", "R0 + R1|Q1"],
+            "fewer than the minimum",
+        ),
+        (
+            &["fit", "three.csv", "--model", "R0 + R1|Q1 + R2|Q2"],
+            "too few for 7 free parameters",
+        ),
+        (&["fit", "nan.csv", "--model", "R0"], ""),
+        (&fixed_all, "every parameter is fixed"),
+        (
+            &["fit", "ok.csv", "--model", "R0{50 1..10} + R1|C1"],
+            "outside its bounds",
+        ),
+        (
+            &[
+                "fit",
+                "ok.csv",
+                "--model",
+                "R0 + R1|C1",
+                "--bound",
+                "R1=5..1",
+            ],
+            "not below",
+        ),
+        (&["fit", "missing.csv", "--model", "R0"], "missing.csv"),
+        (
+            &["fit", "ok.csv", "--model", "R0 + R1|C1", "-o", "ok.csv"],
+            "input file",
+        ),
+    ];
+    for (args, message) in cases {
+        let run = eis(&dir, args).expect_code(2);
+        assert!(run.stderr.contains(message), "{args:?}: {}", run.stderr);
+    }
     let run = eis(&dir, &["fit", "--help"]).expect_code(0);
     assert!(run.stdout.contains("Example"));
 }

@@ -113,7 +113,7 @@ fn readable_report_shows_the_candidates_table() {
 fn auto_with_parameter_overrides_is_bad_input() {
     let dir = simulated("fit_auto_bad");
     let run = eis(&dir, &["fit", "s.csv", "--model", "auto", "--fix", "R0=1"]).expect_code(2);
-    assert!(run.stderr.contains("--model auto"), "{}", run.stderr);
+    run.expect_stderr("--model auto");
 }
 
 /// Issue 15: on the Doyle–Fuller–Newman spectrum of the Chen et al. 2020 cell (J. Electrochem. Soc.

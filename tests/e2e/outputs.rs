@@ -2,7 +2,7 @@
 //! standard output, `--columns` in every reading command, folder loops, resuming with other settings,
 //! and the progress line.
 
-use eis_tests::{eis, eis_bin, scratch};
+use eis_tests::{eis, eis_bin, scratch, write_file};
 use std::path::Path;
 use std::process::{Command, Stdio};
 
@@ -20,6 +20,28 @@ fn write_arc(path: &Path) {
     std::fs::write(path, text).unwrap();
 }
 
+/// Which standard stream of a run goes to `/dev/full`.
+#[cfg(target_os = "linux")]
+enum Stream {
+    Stdout,
+    Stderr,
+}
+
+/// Runs `eis args` in `dir` with `stream` going to `/dev/full` (every write fails: the disk is full).
+#[cfg(target_os = "linux")]
+fn on_full_device(dir: &std::path::Path, args: &[&str], stream: Stream) -> std::process::Output {
+    let full = std::fs::OpenOptions::new()
+        .write(true)
+        .open("/dev/full")
+        .unwrap();
+    let mut command = Command::new(eis_bin());
+    command.args(args).current_dir(dir);
+    match stream {
+        Stream::Stdout => command.stdout(full),
+        Stream::Stderr => command.stderr(full),
+    };
+    command.output().unwrap()
+}
 #[track_caller]
 fn no_panic(run: &eis_tests::Run) {
     assert!(
@@ -34,7 +56,7 @@ fn no_panic(run: &eis_tests::Run) {
 fn output_to_a_symlink_writes_its_target_and_keeps_the_link() {
     let dir = scratch("out_symlink");
     std::fs::create_dir_all(dir.join("real")).unwrap();
-    std::fs::write(dir.join("real/target.csv"), "old").unwrap();
+    write_file(&dir, "real/target.csv", "old");
     std::os::unix::fs::symlink("real/target.csv", dir.join("link.csv")).unwrap();
     eis(&dir, &["simulate", "--model", "R0", "-o", "link.csv"]).expect_code(0);
     let link = std::fs::symlink_metadata(dir.join("link.csv")).unwrap();
@@ -58,7 +80,7 @@ fn output_to_a_symlink_writes_its_target_and_keeps_the_link() {
         &["fit", "in.csv", "--model", "R0+R1|C1", "-o", "in-link.csv"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("it is an input file"), "{}", run.stderr);
+    run.expect_stderr("it is an input file");
     assert!(
         std::fs::read_to_string(dir.join("in.csv"))
             .unwrap()
@@ -122,16 +144,7 @@ fn stdout_to_dev_full_is_an_error_not_a_panic() {
         &["drt", "in.csv"],
     ];
     for args in commands {
-        let full = std::fs::OpenOptions::new()
-            .write(true)
-            .open("/dev/full")
-            .unwrap();
-        let out = Command::new(eis_bin())
-            .args(args)
-            .current_dir(&dir)
-            .stdout(full)
-            .output()
-            .unwrap();
+        let out = on_full_device(&dir, args, Stream::Stdout);
         let stderr = String::from_utf8_lossy(&out.stderr);
         assert_eq!(out.status.code(), Some(1), "{args:?}: {stderr}");
         assert!(!stderr.contains("panicked"), "{args:?}: {stderr}");
@@ -218,7 +231,7 @@ fn batch_walks_a_folder_loop_once() {
         &["batch", "data", "--model", "R0+R1|C1", "--out", "out"],
     );
     no_panic(&run);
-    assert!(run.stderr.contains("3 spectra:"), "{}", run.stderr);
+    run.expect_stderr("3 spectra:");
 }
 
 /// `--resume` with another model reused the old results under the new model's columns.
@@ -233,18 +246,13 @@ fn batch_resume_refuses_other_settings_unless_forced() {
     };
     batch("R0+R1|C1", &[]).expect_code(0);
     let run = batch("R0+R1|Q1", &["--resume"]).expect_code(2);
-    assert!(
-        run.stderr
-            .contains("made with another model (was `R0 + R1|C1`, now `R0 + R1|Q1`)"),
-        "{}",
-        run.stderr
-    );
-    assert!(run.stderr.contains("--force"), "{}", run.stderr);
+    run.expect_stderr("made with another model (was `R0 + R1|C1`, now `R0 + R1|Q1`)");
+    run.expect_stderr("--force");
     let run = batch("R0+R1|C1", &["--resume", "--weight", "unit"]).expect_code(2);
-    assert!(run.stderr.contains("another weighting"), "{}", run.stderr);
+    run.expect_stderr("another weighting");
     // Same settings: everything is already done.
     let run = batch("R0+R1|C1", &["--resume"]).expect_code(0);
-    assert!(run.stderr.contains("1 already done"), "{}", run.stderr);
+    run.expect_stderr("1 already done");
     // Forced: the old results are discarded and the new model fitted.
     batch("R0+R1|Q1", &["--resume", "--force"]).expect_code(0);
     let csv = std::fs::read_to_string(dir.join("out/results.csv")).unwrap();
@@ -283,7 +291,7 @@ fn batch_prints_no_progress_when_stderr_is_not_a_terminal() {
 fn index_and_results_end_with_a_newline() {
     let dir = scratch("final_newline");
     write_arc(&dir.join("a.csv"));
-    std::fs::write(dir.join("bad.csv"), "no table here\n").unwrap();
+    write_file(&dir, "bad.csv", "no table here\n");
     eis(&dir, &["convert", "a.csv", "bad.csv", "--out", "conv"]);
     let index = std::fs::read_to_string(dir.join("conv/index.csv")).unwrap();
     assert_eq!(index.lines().count(), 3, "{index}");
@@ -309,16 +317,7 @@ fn stderr_to_dev_full_does_not_panic() {
         (&["simulate", "--model", "R0"][..], 0),
         (&["fit", "missing.csv", "--model", "R0"][..], 2),
     ] {
-        let full = std::fs::OpenOptions::new()
-            .write(true)
-            .open("/dev/full")
-            .unwrap();
-        let out = Command::new(eis_bin())
-            .args(args)
-            .current_dir(&dir)
-            .stderr(full)
-            .output()
-            .unwrap();
+        let out = on_full_device(&dir, args, Stream::Stderr);
         assert_eq!(out.status.code(), Some(code), "{args:?}");
     }
 }

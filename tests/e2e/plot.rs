@@ -1,7 +1,8 @@
 //! `eis plot`: valid SVG and PNG, equal Nyquist scaling read back from the drawn SVG, colour bars on
 //! overlays, JSON inputs, odd data and exit codes. Inputs come from `eis simulate`.
 
-use eis_tests::{eis, read_canonical, scratch};
+use eis_core::testing::slope;
+use eis_tests::{eis, read_canonical, scratch, write_file};
 use std::path::Path;
 
 /// A text element of the SVG: position, anchor, vertical shift and content.
@@ -54,15 +55,6 @@ fn texts(svg: &str) -> Vec<SvgText> {
 /// A tick label as a number (true minus signs allowed).
 fn number(text: &str) -> Option<f64> {
     text.replace('\u{2212}', "-").parse().ok()
-}
-
-/// Least-squares slope of `y` against `x`.
-fn slope(x: &[f64], y: &[f64]) -> f64 {
-    let n = x.len() as f64;
-    let (mx, my) = (x.iter().sum::<f64>() / n, y.iter().sum::<f64>() / n);
-    let sxy: f64 = x.iter().zip(y).map(|(a, b)| (a - mx) * (b - my)).sum();
-    let sxx: f64 = x.iter().map(|a| (a - mx).powi(2)).sum();
-    sxy / sxx
 }
 
 /// Ω (in the displayed unit) per pixel along x and y, from the tick labels' positions and values.
@@ -127,6 +119,14 @@ fn simulate_cell(dir: &Path, name: &str, rct: &str) {
 
 fn read(dir: &Path, name: &str) -> String {
     std::fs::read_to_string(dir.join(name)).unwrap()
+}
+
+/// The texts of the SVG `name` in `dir`, in document order.
+fn words(dir: &Path, name: &str) -> Vec<String> {
+    texts(&read(dir, name))
+        .into_iter()
+        .map(|t| t.text)
+        .collect()
 }
 
 fn assert_png(path: &Path, width: u32, height: u32) {
@@ -214,9 +214,8 @@ fn nyquist_marks_characteristic_frequencies() {
     let dir = scratch("plot-marks");
     simulate_cell(&dir, "cell.csv", "30m");
     eis(&dir, &["plot", "cell.csv", "-o", "n.svg"]).expect_code(0);
-    let marks: Vec<String> = texts(&read(&dir, "n.svg"))
+    let marks: Vec<String> = words(&dir, "n.svg")
         .into_iter()
-        .map(|t| t.text)
         .filter(|t| t.ends_with("Hz"))
         .collect();
     assert_eq!(marks.len(), 2, "{marks:?}");
@@ -250,10 +249,7 @@ fn bode_has_both_panels_with_units() {
     let dir = scratch("plot-bode");
     simulate_cell(&dir, "cell.csv", "30m");
     eis(&dir, &["plot", "cell.csv", "--kind", "bode", "-o", "b.svg"]).expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "b.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "b.svg");
     for want in [
         "|Z| / mΩ",
         "−φ / °",
@@ -329,11 +325,7 @@ fn colour_by_a_missing_field_falls_back_to_file_order() {
         ],
     )
     .expect_code(0);
-    assert!(
-        run.stderr.contains("colouring by file order"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("colouring by file order");
     eis(&dir, &["plot", "a.csv", "--color-by", "soc", "-o", "n.svg"]).expect_code(2);
 }
 
@@ -364,7 +356,7 @@ fn residuals_against_a_fit_curve() {
         "z_real_ohm": m.iter().map(|r| r.1).collect::<Vec<_>>(),
         "z_imag_ohm": m.iter().map(|r| r.2).collect::<Vec<_>>(),
     });
-    std::fs::write(dir.join("fit.json"), fit.to_string()).unwrap();
+    write_file(&dir, "fit.json", fit.to_string());
     eis(
         &dir,
         &[
@@ -379,10 +371,7 @@ fn residuals_against_a_fit_curve() {
         ],
     )
     .expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "r.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "r.svg");
     assert!(t.iter().any(|x| x == "relative residual / %"), "{t:?}");
     // The fit as a line over the data, with a legend below the axes.
     eis(
@@ -393,11 +382,11 @@ fn residuals_against_a_fit_curve() {
     let svg = read(&dir, "n.svg");
     assert!(texts(&svg).iter().any(|x| x.text == "fit: R0 + Rct|Qdl"));
     // Residuals written as JSON, with a band.
-    std::fs::write(
-        dir.join("res.json"),
+    write_file(
+        &dir,
+        "res.json",
         r#"{"frequency_hz": [1000, 100, 10, 1], "re_rel": [0.001, -0.002, null, 0.003], "im_rel": [0.0, 0.001, 0.002, -0.001], "band": 0.005}"#,
-    )
-    .unwrap();
+    );
     eis(
         &dir,
         &["plot", "res.json", "--kind", "residuals", "-o", "r2.png"],
@@ -410,11 +399,11 @@ fn residuals_against_a_fit_curve() {
     .expect_code(0);
     assert!(read(&dir, "r2.svg").contains("Kramers–Kronig band ±0.5 %"));
     // A curve at other frequencies cannot give residuals.
-    std::fs::write(
-        dir.join("short.json"),
+    write_file(
+        &dir,
+        "short.json",
         r#"{"frequency_hz": [1], "z_real_ohm": [1], "z_imag_ohm": [0]}"#,
-    )
-    .unwrap();
+    );
     eis(
         &dir,
         &[
@@ -442,16 +431,13 @@ fn drt_and_trend_from_json() {
                 + 0.012 * (-3.0 * (t.log10() + 1.0).powi(2)).exp()
         })
         .collect();
-    std::fs::write(
-        dir.join("drt.json"),
+    write_file(
+        &dir,
+        "drt.json",
         serde_json::json!({"tau_s": tau, "gamma_ohm": gamma}).to_string(),
-    )
-    .unwrap();
+    );
     eis(&dir, &["plot", "drt.json", "--kind", "drt", "-o", "d.svg"]).expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "d.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "d.svg");
     assert!(
         t.iter().any(|x| x == "γ / mΩ") && t.iter().any(|x| x == "τ / s"),
         "{t:?}"
@@ -475,10 +461,7 @@ fn drt_and_trend_from_json() {
         &["plot", "trend.json", "--kind", "trend", "-o", "t.svg"],
     )
     .expect_code(0);
-    let t: Vec<String> = texts(&read(&dir, "t.svg"))
-        .into_iter()
-        .map(|t| t.text)
-        .collect();
+    let t = words(&dir, "t.svg");
     for want in [
         "charge transfer resistance / mΩ",
         "cycle",
@@ -500,13 +483,13 @@ fn drt_and_trend_from_json() {
 fn odd_spectra_plot_without_panicking() {
     let dir = scratch("plot-odd");
     let head = "frequency_hz,z_real_ohm,z_imag_ohm\n";
-    std::fs::write(dir.join("one.csv"), format!("{head}1000,0.01,-0.002\n")).unwrap();
-    std::fs::write(
-        dir.join("nan.csv"),
+    write_file(&dir, "one.csv", format!("{head}1000,0.01,-0.002\n"));
+    write_file(
+        &dir,
+        "nan.csv",
         format!("{head}1000,NaN,-0.002\n100,0.02,inf\n10,0.03,-0.01\n-5,0.04,-0.02\n"),
-    )
-    .unwrap();
-    std::fs::write(dir.join("same.csv"), format!("{head}1000,1,0\n100,1,0\n")).unwrap();
+    );
+    write_file(&dir, "same.csv", format!("{head}1000,1,0\n100,1,0\n"));
     eis(
         &dir,
         &[
@@ -578,11 +561,7 @@ fn odd_spectra_plot_without_panicking() {
         ],
     )
     .expect_code(0);
-    std::fs::write(
-        dir.join("empty-drt.json"),
-        r#"{"tau_s": [], "gamma_ohm": []}"#,
-    )
-    .unwrap();
+    write_file(&dir, "empty-drt.json", r#"{"tau_s": [], "gamma_ohm": []}"#);
     eis(
         &dir,
         &["plot", "empty-drt.json", "--kind", "drt", "-o", "d.svg"],
@@ -594,24 +573,12 @@ fn odd_spectra_plot_without_panicking() {
 #[test]
 fn bad_input_exits_2_and_never_overwrites_an_input() {
     let dir = scratch("plot-bad");
-    std::fs::write(
-        dir.join("empty.csv"),
-        "frequency_hz,z_real_ohm,z_imag_ohm\n",
-    )
-    .unwrap();
+    write_file(&dir, "empty.csv", "frequency_hz,z_real_ohm,z_imag_ohm\n");
     eis(&dir, &["plot", "empty.csv", "-o", "x.svg"]).expect_code(2);
     eis(&dir, &["plot", "missing.csv", "-o", "x.svg"]).expect_code(2);
-    std::fs::write(
-        dir.join("bad.json"),
-        r#"{"tau_s": [1, 2], "gamma_ohm": [1]}"#,
-    )
-    .unwrap();
+    write_file(&dir, "bad.json", r#"{"tau_s": [1, 2], "gamma_ohm": [1]}"#);
     let run = eis(&dir, &["plot", "bad.json", "--kind", "drt", "-o", "x.svg"]).expect_code(2);
-    assert!(
-        run.stderr.contains("`gamma_ohm` has 1 values"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("`gamma_ohm` has 1 values");
     eis(
         &dir,
         &[
@@ -647,7 +614,7 @@ fn plot_reads_what_drt_and_trend_write() {
     eis(&dir, &["demo", "--out", "d"]).expect_code(0);
     let spectrum = "d/converted/Z1_c000_soc50_1.csv";
     let drt = eis(&dir, &["drt", spectrum, "--json"]).expect_code(0);
-    std::fs::write(dir.join("drt.json"), &drt.stdout).unwrap();
+    write_file(&dir, "drt.json", &drt.stdout);
     eis(
         &dir,
         &["plot", "drt.json", "--kind", "drt", "-o", "drt.svg"],
@@ -667,14 +634,14 @@ fn plot_reads_what_drt_and_trend_write() {
         &["trend", "d/results/results.csv", "--x", "cycle", "--json"],
     );
     assert!(trend.code == 0 || trend.code == 1, "{}", trend.stderr);
-    std::fs::write(dir.join("trend.json"), &trend.stdout).unwrap();
+    write_file(&dir, "trend.json", &trend.stdout);
     // More than one quantity: the plot asks which.
     let run = eis(
         &dir,
         &["plot", "trend.json", "--kind", "trend", "-o", "t.svg"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("--quantity"), "{}", run.stderr);
+    run.expect_stderr("--quantity");
     eis(
         &dir,
         &[

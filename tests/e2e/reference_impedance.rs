@@ -17,13 +17,7 @@ fn nested_circuits_match_mpmath() {
     );
     let circuits = doc["circuits"].as_array().unwrap();
     assert!(circuits.len() >= 7);
-    let nums = |v: &serde_json::Value| -> Vec<f64> {
-        v.as_array()
-            .unwrap()
-            .iter()
-            .map(|x| x.as_f64().unwrap())
-            .collect()
-    };
+    let nums = eis_core::testing::floats;
     let mut worst = 0.0f64;
     for c in circuits {
         let model = c["model"].as_str().unwrap();

@@ -2,7 +2,7 @@
 
 use eis_core::circuit::parse;
 use eis_core::eval::{Plan, angular};
-use eis_tests::{eis, read_canonical, root, scratch};
+use eis_tests::{eis, read_canonical, root, scratch, write_file};
 
 fn circuit_files() -> Vec<std::path::PathBuf> {
     let mut files: Vec<_> = std::fs::read_dir(root().join("circuits"))
@@ -93,7 +93,7 @@ fn simulate_sets_values_and_reports_defaults() {
         ],
     )
     .expect_code(0);
-    assert!(run.stderr.contains("Cdl = 10u F"), "{}", run.stderr);
+    run.expect_stderr("Cdl = 10u F");
     let rows = read_canonical(&run.stdout);
     assert_eq!(rows.len(), 4);
     // Capacitive: imaginary part negative.
@@ -141,56 +141,41 @@ fn noise_is_reproducible_from_the_seed() {
 #[test]
 fn frequency_file_is_used_in_its_order() {
     let dir = scratch("simulate_freqfile");
-    std::fs::write(
-        dir.join("f.txt"),
-        "frequency_hz\n1000\n# comment\n10\n0.1\n",
-    )
-    .unwrap();
+    write_file(&dir, "f.txt", "frequency_hz\n1000\n# comment\n10\n0.1\n");
     let run = eis(&dir, &["simulate", "--model", "R0", "--freq-file", "f.txt"]).expect_code(0);
     let f: Vec<f64> = read_canonical(&run.stdout).iter().map(|r| r.0).collect();
     assert_eq!(f, [1000.0, 10.0, 0.1]);
-    std::fs::write(dir.join("bad.txt"), "10\nten\n").unwrap();
+    write_file(&dir, "bad.txt", "10\nten\n");
     let run = eis(
         &dir,
         &["simulate", "--model", "R0", "--freq-file", "bad.txt"],
     )
     .expect_code(2);
-    assert!(
-        run.stderr.contains("bad.txt, line 2, column 1"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("bad.txt, line 2, column 1");
 }
 
 #[test]
 fn bad_input_exits_2_with_a_clear_message() {
     let dir = scratch("simulate_bad");
     let run = eis(&dir, &["simulate", "--model", "R0 + (R1|C1"]).expect_code(2);
-    assert!(
-        run.stderr.contains("never closed") && run.stderr.contains('^'),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("never closed");
+    run.expect_stderr("^");
     let run = eis(&dir, &["simulate", "--model", "R0", "--set", "R1=5"]).expect_code(2);
-    assert!(run.stderr.contains("no parameter `R1`"), "{}", run.stderr);
+    run.expect_stderr("no parameter `R1`");
     let run = eis(
         &dir,
         &["simulate", "--model", "R0", "--fmin", "10", "--fmax", "1"],
     )
     .expect_code(2);
-    assert!(run.stderr.contains("--fmin"), "{}", run.stderr);
+    run.expect_stderr("--fmin");
     let run = eis(&dir, &["simulate", "--model", "missing.circ"]).expect_code(2);
-    assert!(run.stderr.contains("missing.circ"), "{}", run.stderr);
+    run.expect_stderr("missing.circ");
     let run = eis(&dir, &["inspect", "--model", "R0 + X1"]).expect_code(2);
-    assert!(
-        run.stderr.contains("unknown element kind"),
-        "{}",
-        run.stderr
-    );
+    run.expect_stderr("unknown element kind");
     // An input is never written over.
-    std::fs::write(dir.join("m.circ"), "R0 + R1|C1\n").unwrap();
+    write_file(&dir, "m.circ", "R0 + R1|C1\n");
     let run = eis(&dir, &["simulate", "--model", "m.circ", "-o", "m.circ"]).expect_code(2);
-    assert!(run.stderr.contains("input file"), "{}", run.stderr);
+    run.expect_stderr("input file");
     assert_eq!(
         std::fs::read_to_string(dir.join("m.circ")).unwrap(),
         "R0 + R1|C1\n"

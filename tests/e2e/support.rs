@@ -70,6 +70,12 @@ impl Run {
         }
     }
 
+    /// Asserts that standard error contains `part`, showing it when it does not.
+    #[track_caller]
+    pub fn expect_stderr(&self, part: &str) {
+        assert!(self.stderr.contains(part), "{}", self.stderr);
+    }
+
     /// Asserts the exit status, showing both streams when it differs.
     #[track_caller]
     pub fn expect_code(self, code: i32) -> Run {
@@ -80,6 +86,35 @@ impl Run {
         );
         self
     }
+}
+
+/// Runs `eis simulate --model model` in `dir` with a `--set` for each of `sets`, then `options`,
+/// writing `out`; the run must succeed.
+pub fn simulate(dir: &Path, model: &str, sets: &[&str], options: &[&str], out: &str) {
+    let mut args = vec!["simulate", "--model", model];
+    for s in sets {
+        args.extend(["--set", s]);
+    }
+    args.extend_from_slice(options);
+    args.extend(["-o", out]);
+    eis(dir, &args).expect_code(0);
+}
+
+/// Writes canonical spectrum files in `dir`: each `(name, rows)` as the header line
+/// `frequency_hz,z_real_ohm,z_imag_ohm` followed by `rows`.
+pub fn write_spectra(dir: &Path, files: &[(&str, &str)]) {
+    for (name, rows) in files {
+        write_file(
+            dir,
+            name,
+            format!("frequency_hz,z_real_ohm,z_imag_ohm\n{rows}"),
+        );
+    }
+}
+
+/// Writes `text` to the file `name` in `dir`.
+pub fn write_file(dir: &Path, name: &str, text: impl AsRef<[u8]>) {
+    std::fs::write(dir.join(name), text).unwrap();
 }
 
 /// Runs `eis` with `args` in `dir`.

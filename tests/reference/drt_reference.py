@@ -26,16 +26,15 @@ Recipe (the Rust tests build the same quantities themselves and compare):
     ||C x - b||^2 + lambda x^T P x over x >= 0: the problem eis-core solves by its normal equations.
 """
 
-import json
 import math
-import platform
 
 import numpy as np
 import scipy
 from scipy.integrate import quad
 from scipy.optimize import nnls
 
-OUT = "tests/reference/drt_fixture.json"
+from fixture_io import provenance, write_fixture
+
 
 f = np.array([10 ** (3 - 0.25 * i) for i in range(17)])
 omega = 2 * math.pi * f
@@ -116,11 +115,8 @@ for lam in (1e-6, 1e-4, 1e-2, 1.0):
     cases.append(dict(**{"lambda": lam}, x=x.tolist(), objective=objective, free=int(np.sum(x > 0))))
     print(f"lambda {lam:g}: {int(np.sum(x > 0))} free variables, objective {objective:.12e}")
 
-fixture = {
-    "generated_by": "tests/reference/drt_reference.py",
-    "python": platform.python_version(),
-    "numpy": np.__version__,
-    "scipy": scipy.__version__,
+fixture = provenance("tests/reference/drt_reference.py", numpy=np.__version__, scipy=scipy.__version__)
+fixture |= {
     "frequency_hz": f.tolist(),
     "epsilon": eps,
     "centres_ln_tau": y.tolist(),
@@ -135,7 +131,4 @@ fixture = {
     "penalty": P.tolist(),
     "cases": cases,
 }
-with open(OUT, "w") as fh:
-    json.dump(fixture, fh, indent=1)
-    fh.write("\n")
-print("wrote", OUT)
+print("wrote", write_fixture("drt_fixture.json", fixture))

@@ -24,13 +24,12 @@ Parameter order of each case: the order in which `eis-core` numbers the paramete
 (elements left to right, each kind's parameters in table order: R; C; L; Q: Q, n; W: sigma;
 Wt/Wr/G: R, tau).
 """
-import json
-import os
-import sys
 
 import numpy as np
 import scipy
 from scipy.optimize import least_squares
+
+from fixture_io import LEAST_SQUARES, provenance, write_fixture
 
 
 # Element impedances; w is the angular frequency 2 pi f (rad/s), j^2 = -1, capacitive Im < 0.
@@ -135,7 +134,6 @@ CASES = [
     ),
 ]
 
-TOL = 1e-15
 
 
 def frequencies():
@@ -184,13 +182,8 @@ def fit_case(model, truth, exps, noise, seed, zfun):
             res,
             to_internal(start),
             bounds=(lower, upper),
-            method="trf",
             jac="3-point",
-            x_scale="jac",
-            xtol=TOL,
-            ftol=TOL,
-            gtol=TOL,
-            max_nfev=20000,
+            **LEAST_SQUARES,
         )
         chi2 = float(np.sum(sol.fun**2))
         if best is None or chi2 < best[0]:
@@ -234,20 +227,14 @@ def fit_case(model, truth, exps, noise, seed, zfun):
 
 
 def main():
-    out = {
-        "generated_by": "tests/reference/fit_reference.py",
-        "python": sys.version.split()[0],
-        "numpy": np.__version__,
-        "scipy": scipy.__version__,
+    out = provenance("tests/reference/fit_reference.py", numpy=np.__version__, scipy=scipy.__version__)
+    out |= {
         "method": "scipy.optimize.least_squares (trf), modulus weighting, log-transformed positive "
         "parameters, CPE exponents bounded to (0, 1], xtol = ftol = gtol = 1e-15; standard errors from "
         "s^2 (J^T J)^-1 in parameter space, s^2 = chi^2/(2N - P)",
         "cases": [fit_case(*c) for c in CASES],
     }
-    path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "fit_fixture.json")
-    with open(path, "w") as fh:
-        json.dump(out, fh, indent=1)
-        fh.write("\n")
+    path = write_fixture("fit_fixture.json", out)
     for c in out["cases"]:
         print(f"{c['model']:45s} chi2 {c['chi_square']:.6e} status {c['scipy_status']} nfev {c['scipy_nfev']}")
     print(f"wrote {path}")

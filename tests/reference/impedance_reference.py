@@ -10,11 +10,10 @@ Writes impedance_fixture.json beside this script. Regenerate with:
 The parameter order of each entry is the order in which `eis-core` numbers the parameters of the
 circuit text (elements left to right, each kind's parameters in table order).
 """
-import json
-import os
-import sys
 
 import mpmath as mp
+
+from fixture_io import provenance, write_fixture
 
 mp.mp.dps = 50
 J = mp.mpc(0, 1)
@@ -106,13 +105,8 @@ CIRCUITS = [
 
 def main():
     freqs = [mp.mpf(10) ** (mp.mpf(k) / 3 - 6) for k in range(0, 43)]  # 1 uHz .. 100 MHz
-    out = {
-        "generated_by": "tests/reference/impedance_reference.py",
-        "python": sys.version.split()[0],
-        "mpmath": mp.__version__,
-        "digits": mp.mp.dps,
-        "circuits": [],
-    }
+    out = provenance("tests/reference/impedance_reference.py", mpmath=mp.__version__)
+    out |= {"digits": mp.mp.dps, "circuits": []}
     for model, params, z in CIRCUITS:
         ps = [mp.mpf(repr(float(v))) for v in params]
         f_out, re_out, im_out = [], [], []
@@ -131,10 +125,7 @@ def main():
                 "z_imag_ohm": im_out,
             }
         )
-    path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "impedance_fixture.json")
-    with open(path, "w") as fh:
-        json.dump(out, fh, indent=1)
-        fh.write("\n")
+    path = write_fixture("impedance_fixture.json", out)
     print(f"wrote {path}")
 
 

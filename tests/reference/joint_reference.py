@@ -25,13 +25,12 @@ Writes joint_fixture.json beside this script. Regenerate with:
     pip install numpy scipy
     python3 tests/reference/joint_reference.py
 """
-import json
-import os
-import sys
 
 import numpy as np
 import scipy
 from scipy.optimize import least_squares
+
+from fixture_io import LEAST_SQUARES, provenance, write_fixture
 
 SEED = 2026
 NOISE = 0.005
@@ -40,7 +39,6 @@ LOCAL = ["R0", "Rf", "Qf", "Rct", "Qdl"]  # per spectrum
 SHARED = ["Qf.n", "Qdl.n"]
 # Parameter order of the circuit in eis-core: R0, Rf, Qf, Qf.n, Rct, Qdl, Qdl.n.
 CIRCUIT = "R0 + Rf|Qf + Rct|Qdl"
-TOL = 1e-15
 
 
 def frequencies():
@@ -154,12 +152,7 @@ def main():
         x0,
         jac=jacobian,
         bounds=(lower, upper),
-        method="trf",
-        x_scale="jac",
-        xtol=TOL,
-        ftol=TOL,
-        gtol=TOL,
-        max_nfev=20000,
+        **LEAST_SQUARES,
     )
     chi2 = float(np.sum(sol.fun**2))
     j = jacobian(sol.x)
@@ -169,11 +162,8 @@ def main():
     fitted = unpack(sol.x)
     se_full = unpack(se)
 
-    doc = {
-        "generated_by": "tests/reference/joint_reference.py",
-        "python": sys.version.split()[0],
-        "numpy": np.__version__,
-        "scipy": scipy.__version__,
+    doc = provenance("tests/reference/joint_reference.py", numpy=np.__version__, scipy=scipy.__version__)
+    doc |= {
         "method": "scipy.optimize.least_squares trf, analytic Jacobian, covariance (J^T J)^-1 s^2",
         "circuit": CIRCUIT,
         "shared": SHARED,
@@ -195,10 +185,7 @@ def main():
             for z, tp, s, p, e in zip(data, t, starts, fitted, se_full)
         ],
     }
-    out = os.path.join(os.path.dirname(os.path.abspath(__file__)), "joint_fixture.json")
-    with open(out, "w") as fh:
-        json.dump(doc, fh, indent=1)
-        fh.write("\n")
+    write_fixture("joint_fixture.json", doc)
     print(f"chi2 {chi2:.6e}, status {sol.status}, shared n = {sol.x[5 * M:]}, se {se[5 * M:]}")
 
 

@@ -37,12 +37,13 @@ Regenerate with (about ten minutes on one core):
     venv/bin/python tests/reference/physics_impedance.py
 """
 import json
-import os
 import sys
 import time
 
 import numpy as np
 import pybamm
+
+from fixture_io import provenance, write_fixture
 
 R_GAS = 8.314462618  # J/(mol K), CODATA 2018 exact value of N_A k
 FARADAY = 96485.33212  # C/mol, CODATA 2018 exact value of N_A e
@@ -195,7 +196,6 @@ CASES = [
 
 
 def main():
-    here = os.path.dirname(os.path.abspath(__file__))
     spectra = []
     cells = {}
     for name, model_name, parameter_set, soc, variant in CASES:
@@ -229,19 +229,14 @@ def main():
             f"R_ct {spectra[-1]['reference']['charge_transfer_resistance_ohm'] * 1e3:.2f} mOhm",
             file=sys.stderr,
         )
-    doc = {
-        "generated_by": "tests/reference/physics_impedance.py",
-        "python": sys.version.split()[0],
-        "pybamm": pybamm.__version__,
-        "numpy": np.__version__,
+    doc = provenance("tests/reference/physics_impedance.py", pybamm=pybamm.__version__, numpy=np.__version__)
+    doc |= {
         "method": "time-domain small-signal sine, fundamental by least squares over the last two periods, "
         "Richardson-extrapolated to zero amplitude from A and A/2",
         "sign": "z_imag_ohm carries its own sign (capacitive < 0); frequencies high to low",
         "spectra": spectra,
     }
-    with open(os.path.join(here, "physics_impedance_fixture.json"), "w") as fh:
-        json.dump(doc, fh, indent=1)
-        fh.write("\n")
+    write_fixture("physics_impedance_fixture.json", doc)
 
 
 if __name__ == "__main__":

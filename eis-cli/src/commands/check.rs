@@ -3,7 +3,6 @@
 use crate::io::{Failure, Outcome};
 use crate::reader_args::ReaderArgs;
 use anyhow::anyhow;
-use eis_core::import::{FileWarnings, SpectrumReader};
 use eis_core::spectrum::MetaValue;
 use eis_core::validate::{KkFailures, KkOptions, KkReport, Tail, kramers_kronig};
 use std::collections::BTreeMap;
@@ -256,29 +255,14 @@ pub fn run(args: Args) -> Outcome {
     };
     for input in &args.inputs {
         let file = input.display().to_string();
-        let reader = match SpectrumReader::open(input, reader_options.clone()) {
-            Ok(r) => r,
-            Err(e) => {
-                all_valid = false;
-                report_error(&mut docs, &file, None, e.to_string())?;
-                continue;
-            }
-        };
-        // Rows dropped anywhere in the file make one summary, after its other messages.
-        let mut gathered = FileWarnings::new(reader.file());
-        for item in reader {
-            let imported = match item {
-                Ok(i) => i,
+        crate::io::each_spectrum(input, &reader_options, |item| {
+            let s = match item {
+                Ok(s) => s,
                 Err(e) => {
                     all_valid = false;
-                    report_error(&mut docs, &file, e.spectrum, e.to_string())?;
-                    continue;
+                    return report_error(&mut docs, &file, e.spectrum, e.to_string());
                 }
             };
-            for w in gathered.pass(&imported.warnings) {
-                eprintln!("{w}");
-            }
-            let s = imported.spectrum;
             crate::io::note_size(&file, s.meta.spectrum, s.len());
             match kramers_kronig(&s, &kk) {
                 Err(e) => {
@@ -325,10 +309,8 @@ pub fn run(args: Args) -> Outcome {
                     }
                 }
             }
-        }
-        if let Some(w) = gathered.finish() {
-            eprintln!("{w}");
-        }
+            Ok(())
+        })?;
     }
     if json {
         docs.finish()?;

@@ -3,7 +3,7 @@
 use crate::io::{Failure, Outcome, write_atomic};
 use crate::reader_args::ReaderArgs;
 use anyhow::anyhow;
-use eis_core::import::{FileWarnings, ReaderOptions, SpectrumReader};
+use eis_core::import::ReaderOptions;
 use eis_core::number::format_float;
 use eis_core::spectrum::MetaValue;
 use std::collections::HashSet;
@@ -93,63 +93,53 @@ pub fn convert(
             .file_stem()
             .map(|s| s.to_string_lossy().into_owned())
             .unwrap_or_else(|| "spectrum".to_owned());
-        let reader = match SpectrumReader::open(input, options.clone()) {
-            Ok(r) => r,
-            Err(e) => {
-                eprintln!("error: {e}");
-                rows.push(Row::failed(file, None, e.to_string()));
-                continue;
-            }
-        };
-        // Rows dropped anywhere in the file make one summary, after its other messages.
-        let mut gathered = FileWarnings::new(reader.file());
-        for item in reader {
-            let imported = match item {
-                Ok(i) => i,
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    rows.push(Row::failed(file.clone(), e.spectrum, e.to_string()));
-                    continue;
-                }
-            };
-            for w in gathered.pass(&imported.warnings) {
-                eprintln!("{w}");
-            }
-            let s = imported.spectrum;
-            let n = s.meta.spectrum;
-            let name = format!("{stem}_{n}.csv");
-            if !written.insert(name.clone()) {
-                let msg = format!("{file}: output name {name} is already used by an earlier input");
-                eprintln!("error: {msg}");
-                rows.push(Row::failed(file.clone(), Some(n), msg));
-                continue;
-            }
-            if let Err(f) = write_atomic(&out.join(&name), s.to_canonical_csv().as_bytes(), inputs)
-            {
-                let msg = match f {
-                    Failure::BadInput(e) | Failure::Failed(e) => format!("{e:#}"),
-                    Failure::BrokenPipe => "standard output closed".to_owned(),
+        let read: Result<(), std::convert::Infallible> =
+            crate::io::each_spectrum(input, options, |item| {
+                let s = match item {
+                    Ok(s) => s,
+                    Err(e) => {
+                        eprintln!("error: {e}");
+                        rows.push(Row::failed(file.clone(), e.spectrum, e.to_string()));
+                        return Ok(());
+                    }
                 };
-                eprintln!("error: {msg}");
-                rows.push(Row::failed(file.clone(), Some(n), msg));
-                continue;
-            }
-            let (lo, hi) = s
-                .frequency_hz
-                .iter()
-                .fold((f64::INFINITY, 0.0f64), |(a, b), &f| (a.min(f), b.max(f)));
-            rows.push(Row {
-                file: file.clone(),
-                spectrum: Some(n),
-                points: Some(s.len()),
-                fmin: Some(lo),
-                fmax: Some(hi),
-                meta: s.meta.fields,
-                error: None,
+                let n = s.meta.spectrum;
+                let name = format!("{stem}_{n}.csv");
+                if !written.insert(name.clone()) {
+                    let msg =
+                        format!("{file}: output name {name} is already used by an earlier input");
+                    eprintln!("error: {msg}");
+                    rows.push(Row::failed(file.clone(), Some(n), msg));
+                    return Ok(());
+                }
+                if let Err(f) =
+                    write_atomic(&out.join(&name), s.to_canonical_csv().as_bytes(), inputs)
+                {
+                    let msg = match f {
+                        Failure::BadInput(e) | Failure::Failed(e) => format!("{e:#}"),
+                        Failure::BrokenPipe => "standard output closed".to_owned(),
+                    };
+                    eprintln!("error: {msg}");
+                    rows.push(Row::failed(file.clone(), Some(n), msg));
+                    return Ok(());
+                }
+                let (lo, hi) = s
+                    .frequency_hz
+                    .iter()
+                    .fold((f64::INFINITY, 0.0f64), |(a, b), &f| (a.min(f), b.max(f)));
+                rows.push(Row {
+                    file: file.clone(),
+                    spectrum: Some(n),
+                    points: Some(s.len()),
+                    fmin: Some(lo),
+                    fmax: Some(hi),
+                    meta: s.meta.fields,
+                    error: None,
+                });
+                Ok(())
             });
-        }
-        if let Some(w) = gathered.finish() {
-            eprintln!("{w}");
+        if let Err(never) = read {
+            match never {}
         }
     }
     let index = index_csv(&rows).map_err(|e| Failure::Failed(anyhow!("index: {e}")))?;

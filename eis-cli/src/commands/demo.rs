@@ -134,21 +134,23 @@ pub fn run(args: Args) -> Outcome {
     step("5. plots");
     let circuit = load_model(&model_s)?;
     let mut written = Vec::new();
+    let mut save = |plot: &Plot, name: &str, size| -> Result<(), Failure> {
+        let p = plots.join(name);
+        crate::commands::plot::write_plot(plot, &p, None, size, &[])?;
+        written.push(p);
+        Ok(())
+    };
     // A fit of a film-grown spectrum.
     let fit_file = raw.join("Z3_c300_soc50.csv");
     if let Some(s) = read_first(&fit_file, &reader) {
         if let Ok(r) =
             eis_core::fit::fit(&circuit, &s, &eis_core::fit::FitSettings::default(), None)
         {
-            let p = plots.join("Z3_c300_soc50_fit.png");
-            crate::commands::plot::write_plot(
+            save(
                 &crate::plot::build::fit(&circuit, &s, &r),
-                &p,
-                None,
+                "Z3_c300_soc50_fit.png",
                 (900, 650),
-                &[],
             )?;
-            written.push(p);
         }
     }
     // Overlay of cell Z3 at 50 % SOC coloured by cycle.
@@ -164,19 +166,15 @@ pub fn run(args: Args) -> Outcome {
             })
         })
         .collect();
-    let p = plots.join("Z3_overlay_soc50.png");
-    crate::commands::plot::write_plot(
+    save(
         &Plot::Overlay(OverlayPlot {
             title: "Cell Z3 at 50 % SOC: the film arc grows with cycling".into(),
             spectra,
             colorbar_label: "cycle".into(),
         }),
-        &p,
-        None,
+        "Z3_overlay_soc50.png",
         (900, 650),
-        &[],
     )?;
-    written.push(p);
     // Trends at 50 % SOC (one series per cell keeps the plots readable).
     let at50 = crate::commands::trend::analyse_file(
         &results.join("results.csv"),
@@ -191,30 +189,24 @@ pub fn run(args: Args) -> Outcome {
         "dc_resistance_ohm",
     ] {
         if at50.series.iter().any(|s| s.quantity == q) {
-            let p = plots.join(format!("trend_{q}.png"));
             let mut plot = crate::plot::build::trend(&at50, q);
             if let Plot::Trend(t) = &mut plot {
                 t.title.push_str(" at 50 % SOC");
             }
-            crate::commands::plot::write_plot(&plot, &p, None, (1000, 620), &[])?;
-            written.push(p);
+            save(&plot, &format!("trend_{q}.png"), (1000, 620))?;
         }
     }
     // DRT of a healthy spectrum.
     if let Some(s) = read_first(&raw.join("Z1_c000_soc50.csv"), &reader) {
         if let Ok(d) = eis_core::drt::drt(&s, eis_core::drt::DrtOptions::default()) {
-            let p = plots.join("Z1_c000_soc50_drt.png");
-            crate::commands::plot::write_plot(
+            save(
                 &crate::plot::build::drt(
                     &d,
                     "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
                 ),
-                &p,
-                None,
+                "Z1_c000_soc50_drt.png",
                 (900, 600),
-                &[],
             )?;
-            written.push(p);
         }
     }
     for p in &written {
@@ -251,36 +243,29 @@ pub fn run(args: Args) -> Outcome {
     // Written in one piece, so that a failed standard output is one error (not a panic).
     let mut o = String::new();
     let _ = writeln!(o, "What the demo found");
-    let _ = writeln!(
-        o,
-        "  contact or electrolyte problem (ohmic resistance growing): {}",
-        list(cells_with(FlagKind::OhmicGrowth))
-    );
-    let _ = writeln!(
-        o,
-        "  interface film or passivation (arc resistance growing):    {}",
-        list(cells_with(FlagKind::InterfaceGrowth))
-    );
-    let _ = writeln!(
-        o,
-        "  transport limitation (diffusion resistance growing):       {}",
-        list(cells_with(FlagKind::TransportGrowth))
-    );
-    let _ = writeln!(
-        o,
-        "  possible soft short (total resistance collapsing):         {}",
-        list(cells_with(FlagKind::PossibleSoftShort))
-    );
-    let _ = writeln!(
-        o,
-        "  spectra failing the Kramers-Kronig check (drift):          {}",
-        list(kk)
-    );
-    let _ = writeln!(
-        o,
-        "  files that could not be read:                              {}",
-        list(failed)
-    );
+    let found = [
+        (
+            "contact or electrolyte problem (ohmic resistance growing):",
+            cells_with(FlagKind::OhmicGrowth),
+        ),
+        (
+            "interface film or passivation (arc resistance growing):",
+            cells_with(FlagKind::InterfaceGrowth),
+        ),
+        (
+            "transport limitation (diffusion resistance growing):",
+            cells_with(FlagKind::TransportGrowth),
+        ),
+        (
+            "possible soft short (total resistance collapsing):",
+            cells_with(FlagKind::PossibleSoftShort),
+        ),
+        ("spectra failing the Kramers-Kronig check (drift):", kk),
+        ("files that could not be read:", failed),
+    ];
+    for (what, who) in found {
+        let _ = writeln!(o, "  {what:<59}{}", list(who));
+    }
     for f in trend
         .flags
         .iter()
@@ -339,24 +324,17 @@ pub fn run(args: Args) -> Outcome {
         }
     }
     let _ = writeln!(o, "\nWhere everything is");
-    let _ = writeln!(o, "  export files:        {}", raw.display());
-    let _ = writeln!(o, "  canonical spectra:   {}", converted.display());
-    let _ = writeln!(
-        o,
-        "  fit results:         {}",
-        results.join("results.csv").display()
-    );
-    let _ = writeln!(
-        o,
-        "  trends:              {}",
-        results.join("trends.csv").display()
-    );
-    let _ = writeln!(o, "  plots:               {}", plots.display());
-    let _ = writeln!(
-        o,
-        "  report:              {}",
-        results.join("report.html").display()
-    );
+    let places = [
+        ("export files:", raw.to_path_buf()),
+        ("canonical spectra:", converted.to_path_buf()),
+        ("fit results:", results.join("results.csv")),
+        ("trends:", results.join("trends.csv")),
+        ("plots:", plots.to_path_buf()),
+        ("report:", results.join("report.html")),
+    ];
+    for (what, path) in places {
+        let _ = writeln!(o, "  {what:<21}{}", path.display());
+    }
     let _ = writeln!(
         o,
         "\nDone in {:.1} s. The data are invented; flags are engineering hints, not safety verdicts — handle real cells by your lab's rules.",

@@ -198,21 +198,7 @@ pub fn write_report(
         .iter()
         .filter(|r| r.status == Status::Failed)
         .collect();
-    if failed.is_empty() {
-        h.push_str("<p>None.</p>\n");
-    } else {
-        h.push_str("<table><tr><th>file</th><th>reason</th></tr>\n");
-        for r in &failed {
-            let _ = writeln!(
-                h,
-                "<tr class=\"failed\"><td>{} #{}</td><td>{}</td></tr>",
-                esc(&r.file),
-                r.spectrum,
-                esc(&r.message)
-            );
-        }
-        h.push_str("</table>\n");
-    }
+    message_table(&mut h, &failed, "reason", " class=\"failed\"");
     let advice = eis_core::campaign::advice(&results);
     if !advice.is_empty() {
         h.push_str("<h2>Identifiability</h2>\n<ul>\n");
@@ -255,21 +241,7 @@ pub fn write_report(
         .iter()
         .filter(|r| r.status == Status::Suspect && r.kk.as_ref().is_none_or(|k| k.valid))
         .collect();
-    if suspect.is_empty() {
-        h.push_str("<p>None.</p>\n");
-    } else {
-        h.push_str("<table><tr><th>file</th><th>why</th></tr>\n");
-        for r in &suspect {
-            let _ = writeln!(
-                h,
-                "<tr><td>{} #{}</td><td>{}</td></tr>",
-                esc(&r.file),
-                r.spectrum,
-                esc(&r.message)
-            );
-        }
-        h.push_str("</table>\n");
-    }
+    message_table(&mut h, &suspect, "why", "");
 
     // Trend plots, at the SOC level nearest 50 % when there are several.
     let socs: Vec<f64> = results.iter().filter_map(|r| meta_num(r, "soc")).collect();
@@ -413,4 +385,24 @@ pub fn run(args: Args) -> Outcome {
     write_report(&args.dir, circuit.as_ref(), &args.reader.options()?)?;
     eprintln!("report: {}", args.dir.join("report.html").display());
     Ok(ExitCode::SUCCESS)
+}
+
+/// A table of spectra and their messages (`None.` when there are none): columns file and `what`, each
+/// row opened as `<tr{row_attrs}>`.
+fn message_table(h: &mut String, rows: &[&SpectrumResult], what: &str, row_attrs: &str) {
+    if rows.is_empty() {
+        h.push_str("<p>None.</p>\n");
+        return;
+    }
+    let _ = writeln!(h, "<table><tr><th>file</th><th>{what}</th></tr>");
+    for r in rows {
+        let _ = writeln!(
+            h,
+            "<tr{row_attrs}><td>{} #{}</td><td>{}</td></tr>",
+            esc(&r.file),
+            r.spectrum,
+            esc(&r.message)
+        );
+    }
+    h.push_str("</table>\n");
 }

@@ -6,6 +6,18 @@ use super::*;
 use eis_core::circuit::parse;
 use eis_core::eval::{Plan, log_frequencies};
 use eis_core::simulate::simulate;
+use eis_core::testing::slope;
+
+/// The texts of a scene, in drawing order.
+fn texts(sc: &scene::Scene) -> Vec<&str> {
+    sc.prims
+        .iter()
+        .filter_map(|p| match p {
+            Prim::Text { text, .. } => Some(text.as_str()),
+            _ => None,
+        })
+        .collect()
+}
 
 /// A two-arc spectrum in the milliohm range (a cell), high to low frequency.
 fn cell() -> (Vec<f64>, Vec<Complex64>) {
@@ -33,15 +45,6 @@ fn circles(sc: &scene::Scene) -> Vec<(f64, f64)> {
             _ => None,
         })
         .collect()
-}
-
-/// Least-squares slope of `y` against `x`.
-fn slope(x: &[f64], y: &[f64]) -> f64 {
-    let n = x.len() as f64;
-    let (mx, my) = (x.iter().sum::<f64>() / n, y.iter().sum::<f64>() / n);
-    let sxy: f64 = x.iter().zip(y).map(|(a, b)| (a - mx) * (b - my)).sum();
-    let sxx: f64 = x.iter().map(|a| (a - mx).powi(2)).sum();
-    sxy / sxx
 }
 
 #[test]
@@ -80,14 +83,7 @@ fn nyquist_marks_both_arcs_with_frequencies() {
 fn nyquist_uses_milliohms_for_a_cell() {
     let (f, z) = cell();
     let sc = kinds::scene(&nyquist_of(f, z), 900.0, 650.0);
-    let texts: Vec<&str> = sc
-        .prims
-        .iter()
-        .filter_map(|p| match p {
-            Prim::Text { text, .. } => Some(text.as_str()),
-            _ => None,
-        })
-        .collect();
+    let texts = texts(&sc);
     assert!(texts.contains(&"Z′ / mΩ"), "{texts:?}");
     assert!(texts.contains(&"−Z″ / mΩ"), "{texts:?}");
 }
@@ -223,14 +219,7 @@ fn overlay_draws_a_colour_bar() {
     assert!(swatches.len() > 50, "{} swatches", swatches.len());
     assert!(swatches.iter().all(|s| s.0 == swatches[0].0), "one column");
     assert!(swatches[0].0 > 700.0, "right of the axes");
-    let texts: Vec<&str> = sc
-        .prims
-        .iter()
-        .filter_map(|p| match p {
-            Prim::Text { text, .. } => Some(text.as_str()),
-            _ => None,
-        })
-        .collect();
+    let texts = texts(&sc);
     for t in ["SOC / %", "0", "80"] {
         assert!(texts.contains(&t), "{t} in {texts:?}");
     }

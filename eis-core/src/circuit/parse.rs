@@ -215,6 +215,9 @@ impl Tok {
     }
 }
 
+/// The operator just consumed before a part, with its span (`None` at the start of a level).
+type After = Option<(char, Span)>;
+
 struct Parser<'a> {
     /// The text with comments and non-expression lines blanked.
     src: &'a str,
@@ -288,16 +291,7 @@ impl<'a> Parser<'a> {
 
     /// `series := parallel ('+' parallel)*`. `open` is the span of the enclosing `(`, if any.
     fn parse_series(&mut self, open: Option<&Span>) -> Result<Node, CircuitError> {
-        let mut parts = vec![self.parse_parallel(None, open)?];
-        loop {
-            let (tok, span) = self.peek();
-            if tok != Tok::Plus {
-                break;
-            }
-            self.pos = span.end;
-            parts.push(self.parse_parallel(Some(('+', span)), open)?);
-        }
-        Ok(flatten(parts, true))
+        self.parse_joined(None, open, (Tok::Plus, '+'), Self::parse_parallel)
     }
 
     /// `parallel := primary ('|' primary)*`.
@@ -306,16 +300,28 @@ impl<'a> Parser<'a> {
         after: Option<(char, Span)>,
         open: Option<&Span>,
     ) -> Result<Node, CircuitError> {
-        let mut parts = vec![self.parse_primary(after, open)?];
+        self.parse_joined(after, open, (Tok::Bar, '|'), Self::parse_primary)
+    }
+
+    /// Parts of one level joined by `op` (`+` in series, `|` in parallel), each read by `part`, which
+    /// is given the operator before it (`after` for the first).
+    fn parse_joined(
+        &mut self,
+        after: Option<(char, Span)>,
+        open: Option<&Span>,
+        (joiner, op): (Tok, char),
+        part: fn(&mut Self, After, Option<&Span>) -> Result<Node, CircuitError>,
+    ) -> Result<Node, CircuitError> {
+        let mut parts = vec![part(self, after, open)?];
         loop {
             let (tok, span) = self.peek();
-            if tok != Tok::Bar {
+            if tok != joiner {
                 break;
             }
             self.pos = span.end;
-            parts.push(self.parse_primary(Some(('|', span)), open)?);
+            parts.push(part(self, Some((op, span)), open)?);
         }
-        Ok(flatten(parts, false))
+        Ok(flatten(parts, joiner == Tok::Plus))
     }
 
     /// `primary := element annotation? | '(' series ')'`. `after` is the operator just consumed.

@@ -17,16 +17,22 @@ impl DrtSetup {
             .collect()
     }
 
+    /// The scanned λ and the point `at` gives at each.
+    fn scan(
+        &self,
+        mut at: impl FnMut(f64) -> Result<LambdaPoint, DrtError>,
+    ) -> Result<(Vec<f64>, Vec<LambdaPoint>), DrtError> {
+        let lambdas = self.scan_lambdas();
+        let scan = lambdas.iter().map(|&l| at(l)).collect::<Result<_, _>>()?;
+        Ok((lambdas, scan))
+    }
+
     pub(super) fn choose_gcv(
         &self,
         problem: &mut Problem,
         warnings: &mut Vec<String>,
     ) -> Result<(f64, Vec<LambdaPoint>), DrtError> {
-        let lambdas = self.scan_lambdas();
-        let mut scan = Vec::with_capacity(lambdas.len());
-        for &l in &lambdas {
-            scan.push(problem.gcv(l));
-        }
+        let (lambdas, scan) = self.scan(|l| Ok(problem.gcv(l)))?;
         let best = argmin(scan.iter().map(|p| p.gcv));
         let last = lambdas.len() - 1;
         if best == 0 || best == last {
@@ -79,11 +85,7 @@ impl DrtSetup {
         problem: &mut Problem,
         warnings: &mut Vec<String>,
     ) -> Result<(f64, Vec<LambdaPoint>), DrtError> {
-        let lambdas = self.scan_lambdas();
-        let mut scan = Vec::with_capacity(lambdas.len());
-        for &l in &lambdas {
-            scan.push(problem.eval(l)?.point);
-        }
+        let (lambdas, scan) = self.scan(|l| Ok(problem.eval(l)?.point))?;
         let pts: Vec<(f64, f64)> = scan
             .iter()
             .map(|p| {

@@ -4,6 +4,24 @@
 use super::{DrtError, DrtErrorKind};
 use std::fmt;
 
+/// `Display` and `Serialize` of a choice by its short name (its `name()`, as in the text output; a
+/// fixed λ's value is reported beside its name).
+macro_rules! by_name {
+    ($t:ty) => {
+        impl fmt::Display for $t {
+            fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+                f.write_str(self.name())
+            }
+        }
+
+        impl serde::Serialize for $t {
+            fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+                serializer.serialize_str(self.name())
+            }
+        }
+    };
+}
+
 /// How λ is chosen.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum LambdaMethod {
@@ -26,19 +44,7 @@ impl LambdaMethod {
     }
 }
 
-impl fmt::Display for LambdaMethod {
-    /// The short name, as [`LambdaMethod::name`] (the value of a fixed λ is reported beside it).
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.name())
-    }
-}
-
-impl serde::Serialize for LambdaMethod {
-    /// The short name, as in the text output.
-    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        serializer.serialize_str(self.name())
-    }
-}
+by_name!(LambdaMethod);
 
 /// Which derivative of γ the penalty measures.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -81,19 +87,7 @@ impl Part {
     }
 }
 
-impl fmt::Display for Part {
-    /// The short name, as [`Part::name`].
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.name())
-    }
-}
-
-impl serde::Serialize for Part {
-    /// The short name, as in the text output.
-    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        serializer.serialize_str(self.name())
-    }
-}
+by_name!(Part);
 
 /// How the residual of each point is scaled.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

@@ -14,16 +14,13 @@ fn fixture() -> Value {
     serde_json::from_str(FIXTURE).unwrap()
 }
 
-fn vector(v: &Value) -> Vec<f64> {
-    v.as_array()
+fn matrix(v: &Value) -> DMatrix<f64> {
+    let rows: Vec<Vec<f64>> = v
+        .as_array()
         .unwrap()
         .iter()
-        .map(|x| x.as_f64().unwrap())
-        .collect()
-}
-
-fn matrix(v: &Value) -> DMatrix<f64> {
-    let rows: Vec<Vec<f64>> = v.as_array().unwrap().iter().map(vector).collect();
+        .map(crate::testing::floats)
+        .collect();
     DMatrix::from_fn(rows.len(), rows[0].len(), |r, c| rows[r][c])
 }
 
@@ -32,6 +29,11 @@ fn matrix(v: &Value) -> DMatrix<f64> {
 fn spectrum(circuit: &str, params: &[f64], noise: Option<Noise>) -> Spectrum {
     let plan = Plan::compile(&parse(circuit).unwrap());
     simulate(&plan, params, &log_frequencies(1e5, 0.1, 10), noise)
+}
+
+/// The RC arc of the tests, R0 + R1|C1 with R0 = 5 Ω, R1 = 50 Ω, C1 = 20 µF (τ = 1 ms).
+fn rc(noise: Option<Noise>) -> Spectrum {
+    spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], noise)
 }
 
 /// Cole & Cole 1941 (J. Chem. Phys. 9, 341) distribution of a ZARC R/(1 + (jωτ₀)^φ), in ln τ (the
@@ -45,7 +47,7 @@ fn cole_cole(r: f64, tau0: f64, phi: f64, tau: f64) -> f64 {
 fn drt_kernel_matches_scipy_quadrature() {
     // Reference: scipy.integrate.quad through tests/reference/drt_reference.py.
     let fx = fixture();
-    let f = vector(&fx["frequency_hz"]);
+    let f = crate::testing::floats(&fx["frequency_hz"]);
     let setup = DrtSetup::new(&f, DrtOptions::default()).unwrap();
     crate::assert_close!(
         setup.epsilon(),
@@ -53,7 +55,10 @@ fn drt_kernel_matches_scipy_quadrature() {
         1e-14,
         "epsilon"
     );
-    for (k, c) in vector(&fx["centres_ln_tau"]).iter().enumerate() {
+    for (k, c) in crate::testing::floats(&fx["centres_ln_tau"])
+        .iter()
+        .enumerate()
+    {
         assert!((setup.centres[k] - c).abs() < 1e-12, "centre {k}");
     }
     let (re, im) = (matrix(&fx["kernel_re"]), matrix(&fx["kernel_im"]));
@@ -75,7 +80,7 @@ fn drt_gram_matches_quadrature() {
     // 184, 483), order 2 the one derived in `gaussian_gram`.
     let fx = fixture();
     let eps = fx["epsilon"].as_f64().unwrap();
-    let y = vector(&fx["centres_ln_tau"]);
+    let y = crate::testing::floats(&fx["centres_ln_tau"]);
     for (order, key) in [(1u8, "gram1_quad"), (2, "gram2_quad")] {
         let q = matrix(&fx[key]);
         let scale = q.amax();
@@ -108,18 +113,14 @@ fn drt_gram_matches_quadrature() {
 #[test]
 fn drt_design_matches_reference_recipe() {
     let fx = fixture();
-    let f = vector(&fx["frequency_hz"]);
-    let z: Vec<Complex64> = vector(&fx["z_re"])
-        .into_iter()
-        .zip(vector(&fx["z_im"]))
-        .map(|(re, im)| Complex64::new(re, im))
-        .collect();
+    let f = crate::testing::floats(&fx["frequency_hz"]);
+    let z = crate::testing::impedances(&fx["z_re"], &fx["z_im"]);
     let setup = DrtSetup::new(&f, DrtOptions::default().with_capacitance(false)).unwrap();
     let w: Vec<f64> = z.iter().map(|v| 1.0 / v.norm()).collect();
     let r_ref = z.iter().fold(0.0f64, |a, v| a.max(v.norm()));
     let (a, b) = setup.design(&z, &w, r_ref);
     assert!((&a - matrix(&fx["design"])).amax() < 1e-11);
-    assert!((&b - DVector::from_vec(vector(&fx["data"]))).amax() < 1e-14);
+    assert!((&b - DVector::from_vec(crate::testing::floats(&fx["data"]))).amax() < 1e-14);
     assert!((&setup.penalty - matrix(&fx["penalty"])).amax() < 1e-9);
 }
 
@@ -128,12 +129,12 @@ fn drt_regularised_nnls_matches_scipy() {
     // Reference: scipy.optimize.nnls on the augmented system of the same problem (drt_reference.py).
     let fx = fixture();
     let c_mat = matrix(&fx["design"]);
-    let b = DVector::from_vec(vector(&fx["data"]));
+    let b = DVector::from_vec(crate::testing::floats(&fx["data"]));
     let pen = matrix(&fx["penalty"]);
     let mut problem = Problem::new(&c_mat, &b, &pen);
     for case in fx["cases"].as_array().unwrap() {
         let lambda = case["lambda"].as_f64().unwrap();
-        let want = DVector::from_vec(vector(&case["x"]));
+        let want = DVector::from_vec(crate::testing::floats(&case["x"]));
         problem.warm = false;
         problem.eval(lambda).unwrap();
         let dev = (&problem.x - &want).amax() / want.amax();
@@ -251,14 +252,10 @@ fn drt_two_arcs_a_decade_apart_give_two_peaks() {
 
 #[test]
 fn drt_options_all_run_and_agree_on_an_rc() {
-    let s = spectrum(
-        "R0 + R1|C1",
-        &[5.0, 50.0, 20e-6],
-        Some(Noise {
-            relative: 0.002,
-            seed: 2,
-        }),
-    );
+    let s = rc(Some(Noise {
+        relative: 0.002,
+        seed: 2,
+    }));
     let variants = [
         DrtOptions::default().with_lambda(LambdaMethod::LCurve),
         DrtOptions::default().with_lambda(LambdaMethod::Fixed(1e-4)),
@@ -313,14 +310,10 @@ fn drt_recovers_a_series_inductance() {
 
 #[test]
 fn drt_setup_reuse_gives_the_same_result() {
-    let s = spectrum(
-        "R0 + R1|C1",
-        &[5.0, 50.0, 20e-6],
-        Some(Noise {
-            relative: 0.002,
-            seed: 9,
-        }),
-    );
+    let s = rc(Some(Noise {
+        relative: 0.002,
+        seed: 9,
+    }));
     let setup = DrtSetup::new(&s.frequency_hz, DrtOptions::default()).unwrap();
     let a = setup.solve(&s.z).unwrap();
     let b = setup.solve(&s.z).unwrap();
@@ -330,7 +323,7 @@ fn drt_setup_reuse_gives_the_same_result() {
 
 #[test]
 fn drt_rejects_bad_input() {
-    let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let good = rc(None);
     let kind = |s: &Spectrum| drt(s, DrtOptions::default()).unwrap_err().kind().clone();
     assert_eq!(kind(&Spectrum::default()), DrtErrorKind::Empty);
     let mut few = good.clone();
@@ -467,7 +460,7 @@ fn the_drt_does_not_depend_on_the_scale_of_z() {
 /// Issue 13: degenerate spectra give a result or a typed error, never a panic.
 #[test]
 fn degenerate_spectra_give_results_or_typed_errors() {
-    let good = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let good = rc(None);
     // All impedances equal: a pure resistance, no polarisation.
     let flat = Spectrum::new(
         good.frequency_hz.clone(),
@@ -623,7 +616,7 @@ fn an_open_capacitive_tail_is_taken_by_the_series_capacitance() {
         without.edge_peaks
     );
     // No tail: the capacitance is not reported.
-    let rc = spectrum("R0 + R1|C1", &[5.0, 50.0, 20e-6], None);
+    let rc = rc(None);
     assert_eq!(drt(&rc, DrtOptions::default()).unwrap().capacitance_f, None);
 }
 
@@ -665,12 +658,8 @@ fn physics_model_spectra_report_no_edge_peak_and_keep_the_interfacial_peaks() {
     let mut with_edge = 0;
     for s in spectra {
         let name = s["name"].as_str().unwrap();
-        let f = vector(&s["frequency_hz"]);
-        let z: Vec<Complex64> = vector(&s["z_real_ohm"])
-            .into_iter()
-            .zip(vector(&s["z_imag_ohm"]))
-            .map(|(re, im)| Complex64::new(re, im))
-            .collect();
+        let f = crate::testing::floats(&s["frequency_hz"]);
+        let z = crate::testing::impedances(&s["z_real_ohm"], &s["z_imag_ohm"]);
         let res = drt(&Spectrum::new(f.clone(), z), DrtOptions::default()).unwrap();
         let f_min = f.iter().copied().fold(f64::INFINITY, f64::min);
         let f_max = f.iter().copied().fold(0.0, f64::max);

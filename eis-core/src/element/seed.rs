@@ -33,6 +33,37 @@ impl fmt::Display for Class {
     }
 }
 
+/// What a cell's physics reads from an element when resistances are sorted by role (charge transfer,
+/// diffusion, pore resistance: see [`crate::roles`]), with the places of the parameters it reads.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Physics {
+    /// Nothing of its own: a resistor, capacitor or CPE counts through the arcs it forms; an inductor
+    /// or a Gerischer element is summed into no role.
+    Plain,
+    /// Semi-infinite diffusion: it has no finite resistance and is reported by its Warburg coefficient
+    /// σ, parameter `sigma`.
+    SemiInfiniteDiffusion {
+        /// Index of σ among the element's parameters.
+        sigma: usize,
+    },
+    /// Finite diffusion (transmissive or reflective boundary): a diffusion resistance and a time
+    /// constant whose frequency 1/(2πτ) places it against the data.
+    FiniteDiffusion {
+        /// Index of the diffusion resistance among the element's parameters.
+        resistance: usize,
+        /// Index of the diffusion time constant.
+        tau: usize,
+    },
+    /// A porous line: the pore (ionic) resistance of its rail and an interface of charge-transfer
+    /// resistance, CPE coefficient and exponent (three consecutive parameters).
+    PorousLine {
+        /// Index of the ionic rail's resistance.
+        rail: usize,
+        /// Index of the interface's charge-transfer resistance; its CPE coefficient and exponent follow.
+        interface: usize,
+    },
+}
+
 /// A seed function for one coefficient `v`: `(v, fixed, out)`. `out` holds the element's current
 /// values on entry (fixed parameters at their fixed values) and receives the seeded ones; `fixed` says
 /// which parameters are fixed, whose values a seed keeps (see [`set`]).

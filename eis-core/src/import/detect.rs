@@ -86,53 +86,68 @@ pub(crate) fn split(line: &str, d: Delimiter, out: &mut Vec<String>) {
         Delimiter::Comma => ',',
         Delimiter::Whitespace => unreachable!("handled above"),
     };
-    let mut cur = String::new();
-    let mut quoted = false;
+    let mut q = Quoting::default();
     for c in line.chars() {
-        // A quote opens quoting only at the start of a field, so `Z"` (a double prime) stays text.
-        if quoted {
-            if c == '"' {
-                quoted = false;
-            } else {
-                cur.push(c);
-            }
-        } else if c == '"' && cur.trim().is_empty() {
-            quoted = true;
-        } else if c == sep {
-            out.push(cur.trim().to_owned());
-            cur.clear();
+        if q.take(c, |cur| cur.trim().is_empty()) {
+            continue;
+        }
+        if c == sep {
+            out.push(q.cur.trim().to_owned());
+            q.cur.clear();
         } else {
-            cur.push(c);
+            q.cur.push(c);
         }
     }
-    let last = cur.trim();
+    let last = q.cur.trim();
     if !last.is_empty() || out.is_empty() {
         out.push(last.to_owned());
     }
 }
 
-fn split_whitespace(line: &str, out: &mut Vec<String>) {
-    let mut cur = String::new();
-    let mut quoted = false;
-    for c in line.chars() {
-        if quoted {
+/// The field being read and whether it is inside quotes.
+#[derive(Default)]
+struct Quoting {
+    cur: String,
+    quoted: bool,
+}
+
+impl Quoting {
+    /// Takes `c` when quoting decides it: inside quotes (text, or the closing quote), or an opening
+    /// quote where `at_start` says the field has not begun, so `Z"` (a double prime) stays text.
+    /// False for a character the delimiter rules decide.
+    fn take(&mut self, c: char, at_start: fn(&str) -> bool) -> bool {
+        if self.quoted {
             if c == '"' {
-                quoted = false;
+                self.quoted = false;
             } else {
-                cur.push(c);
+                self.cur.push(c);
             }
-        } else if c == '"' && cur.is_empty() {
-            quoted = true;
-        } else if c == ' ' || c == '\t' {
-            if !cur.is_empty() {
-                out.push(std::mem::take(&mut cur));
-            }
+            true
+        } else if c == '"' && at_start(&self.cur) {
+            self.quoted = true;
+            true
         } else {
-            cur.push(c);
+            false
         }
     }
-    if !cur.is_empty() {
-        out.push(cur);
+}
+
+fn split_whitespace(line: &str, out: &mut Vec<String>) {
+    let mut q = Quoting::default();
+    for c in line.chars() {
+        if q.take(c, str::is_empty) {
+            continue;
+        }
+        if c == ' ' || c == '\t' {
+            if !q.cur.is_empty() {
+                out.push(std::mem::take(&mut q.cur));
+            }
+        } else {
+            q.cur.push(c);
+        }
+    }
+    if !q.cur.is_empty() {
+        out.push(q.cur);
     }
 }
 

@@ -231,6 +231,20 @@ struct Table {
     map: ColumnMap,
 }
 
+/// Where a data row stands against the spectrum being built.
+struct Boundary {
+    /// A splitting cell changed or the sweep restarted: the row starts a new spectrum.
+    new_spectrum: bool,
+    /// Whether that is known: a row without a readable frequency or splitting cell leaves it to the
+    /// next row.
+    decided: bool,
+}
+
+/// The columns that split spectra (cycle, step, sweep).
+fn splitting(map: &ColumnMap) -> impl Iterator<Item = usize> + '_ {
+    map.meta.iter().filter(|(r, _)| r.splits()).map(|(_, i)| *i)
+}
+
 #[derive(Default)]
 struct Builder {
     start_line: Option<usize>,
@@ -265,6 +279,65 @@ impl Builder {
         } else {
             f < prev && f * f <= first * prev
         }
+    }
+
+    /// Counts a readable row: the first one sets the spectrum's index (its splitting cells) and the
+    /// metadata accumulators; every one adds its metadata cells to the sums.
+    fn tally(&mut self, map: &ColumnMap, fields: &[String], comma: bool) {
+        if !self.begun {
+            self.begun = true;
+            self.index = splitting(map)
+                .map(|i| fields.get(i).cloned().unwrap_or_default())
+                .collect();
+            self.meta_first = map
+                .meta
+                .iter()
+                .map(|(_, i)| fields.get(*i).cloned().unwrap_or_default())
+                .collect();
+            self.meta_sum = vec![0.0; map.meta.len()];
+            self.meta_numeric = vec![true; map.meta.len()];
+        }
+        self.rows += 1;
+        for (k, (_, i)) in map.meta.iter().enumerate() {
+            let x = fields.get(*i).and_then(|c| parse_number(c, comma));
+            match (x, self.meta_sum.get_mut(k)) {
+                (Some(x), Some(sum)) if x.is_finite() => *sum += x,
+                _ => {
+                    if let Some(n) = self.meta_numeric.get_mut(k) {
+                        *n = false;
+                    }
+                }
+            }
+        }
+    }
+
+    /// Point hygiene: keeps the point `vals` (frequency, two impedance values) of line `line_no`, or
+    /// records why it is dropped (a value that is not finite, a frequency that is not positive).
+    fn push_point(&mut self, map: &ColumnMap, fields: &[String], vals: &[f64; 3], line_no: usize) {
+        for (v, i) in vals.iter().zip(value_columns(map)) {
+            if !v.is_finite() {
+                let cell = fields.get(i).cloned().unwrap_or_default();
+                self.dropped.push(DroppedRow {
+                    line: line_no,
+                    column: Some(i + 1),
+                    reason: DropReason::NonFinite(cell),
+                });
+                return;
+            }
+        }
+        let f = scaled(vals[0], map.freq.scale);
+        if f <= 0.0 {
+            self.dropped.push(DroppedRow {
+                line: line_no,
+                column: Some(map.freq.index + 1),
+                reason: DropReason::NonPositiveFrequency(f),
+            });
+            return;
+        }
+        self.f.push(f);
+        self.a.push(vals[1]);
+        self.b.push(vals[2]);
+        self.lines.push(line_no);
     }
 
     /// Records an error of the spectrum being built (the first one wins).
@@ -519,102 +592,62 @@ impl<R: BufRead> SpectrumReader<R> {
     /// unreadable too, whether it starts a new spectrum is decided by the next row (see
     /// [`Self::pending`]), so that a bad first row of one spectrum never fails the one before.
     fn row(&mut self, t: &Table, line_no: usize, fields: &[String]) {
-        let map = &t.map;
         let comma = t.layout.decimal_comma;
-        let split = self.options.split;
-        let by_column = matches!(split, Split::Auto | Split::Column);
-        let by_restart = matches!(split, Split::Auto | Split::Restart);
-        let splitting = || map.meta.iter().filter(|(r, _)| r.splits()).map(|(_, i)| *i);
-        // Boundary before this row: a splitting cell changed, or the sweep restarted.
-        let f = fields
-            .get(map.freq.index)
-            .and_then(|c| parse_number(c, comma))
-            .map(|x| scaled(x, map.freq.scale))
-            .filter(|x| x.is_finite());
-        let index_known = splitting().all(|i| i < fields.len());
-        let b = &self.builder;
-        let started = b.start_line.is_some();
-        let changed = by_column
-            && started
-            && b.begun
-            && splitting()
-                .zip(&b.index)
-                .any(|(i, old)| fields.get(i).is_some_and(|c| c != old));
-        let restart = by_restart && started && f.is_some_and(|f| b.is_restart(f));
-        let decided = changed
-            || restart
-            || ((!by_column || index_known || !b.begun) && (!by_restart || f.is_some()));
-        let values = read_values(map, fields, comma);
-        if let Err((i, kind)) = values {
-            let e = DataError::new(Location::at(&self.file, line_no, Some(i + 1)), kind);
-            if decided {
-                if changed || restart {
-                    self.finish_spectrum(t);
+        let at = self.boundary(t, fields);
+        let vals = match read_values(&t.map, fields, comma) {
+            Ok(vals) => vals,
+            Err((i, kind)) => {
+                let e = DataError::new(Location::at(&self.file, line_no, Some(i + 1)), kind);
+                if at.decided {
+                    if at.new_spectrum {
+                        self.finish_spectrum(t);
+                    }
+                    self.attach_pending();
+                    self.builder.error(e);
+                } else if self.pending.is_none() {
+                    self.pending = Some(e);
                 }
-                self.attach_pending();
-                self.builder.error(e);
-            } else if self.pending.is_none() {
-                self.pending = Some(e);
+                return;
             }
-            return;
-        }
-        let Ok(vals) = values else { return };
-        if changed || restart {
+        };
+        if at.new_spectrum {
             self.finish_spectrum(t);
         }
         self.attach_pending();
         let b = &mut self.builder;
         b.start_line.get_or_insert(line_no);
-        if !b.begun {
-            b.begun = true;
-            b.index = splitting()
-                .map(|i| fields.get(i).cloned().unwrap_or_default())
-                .collect();
-            b.meta_first = map
-                .meta
-                .iter()
-                .map(|(_, i)| fields.get(*i).cloned().unwrap_or_default())
-                .collect();
-            b.meta_sum = vec![0.0; map.meta.len()];
-            b.meta_numeric = vec![true; map.meta.len()];
+        b.tally(&t.map, fields, comma);
+        b.push_point(&t.map, fields, &vals, line_no);
+    }
+
+    /// Whether the data row `fields` starts a new spectrum: a splitting cell changed, or the sweep
+    /// restarted (as the split option allows).
+    fn boundary(&self, t: &Table, fields: &[String]) -> Boundary {
+        let map = &t.map;
+        let split = self.options.split;
+        let by_column = matches!(split, Split::Auto | Split::Column);
+        let by_restart = matches!(split, Split::Auto | Split::Restart);
+        let f = fields
+            .get(map.freq.index)
+            .and_then(|c| parse_number(c, t.layout.decimal_comma))
+            .map(|x| scaled(x, map.freq.scale))
+            .filter(|x| x.is_finite());
+        let index_known = splitting(map).all(|i| i < fields.len());
+        let b = &self.builder;
+        let started = b.start_line.is_some();
+        let changed = by_column
+            && started
+            && b.begun
+            && splitting(map)
+                .zip(&b.index)
+                .any(|(i, old)| fields.get(i).is_some_and(|c| c != old));
+        let restart = by_restart && started && f.is_some_and(|f| b.is_restart(f));
+        let new_spectrum = changed || restart;
+        Boundary {
+            new_spectrum,
+            decided: new_spectrum
+                || ((!by_column || index_known || !b.begun) && (!by_restart || f.is_some())),
         }
-        b.rows += 1;
-        for (k, (_, i)) in map.meta.iter().enumerate() {
-            let x = fields.get(*i).and_then(|c| parse_number(c, comma));
-            match (x, b.meta_sum.get_mut(k)) {
-                (Some(x), Some(sum)) if x.is_finite() => *sum += x,
-                _ => {
-                    if let Some(n) = b.meta_numeric.get_mut(k) {
-                        *n = false;
-                    }
-                }
-            }
-        }
-        // Point hygiene.
-        for (v, i) in vals.iter().zip(value_columns(map)) {
-            if !v.is_finite() {
-                let cell = fields.get(i).cloned().unwrap_or_default();
-                b.dropped.push(DroppedRow {
-                    line: line_no,
-                    column: Some(i + 1),
-                    reason: DropReason::NonFinite(cell),
-                });
-                return;
-            }
-        }
-        let f = scaled(vals[0], map.freq.scale);
-        if f <= 0.0 {
-            b.dropped.push(DroppedRow {
-                line: line_no,
-                column: Some(map.freq.index + 1),
-                reason: DropReason::NonPositiveFrequency(f),
-            });
-            return;
-        }
-        b.f.push(f);
-        b.a.push(vals[1]);
-        b.b.push(vals[2]);
-        b.lines.push(line_no);
     }
 
     /// Gives a pending row error to the spectrum being built.

@@ -34,21 +34,27 @@ fn circuit_spectrum(text: &str, noise: Option<f64>) -> Spectrum {
     simulate(&plan, &c.default_values(), &freqs(), noise)
 }
 
+/// The circuit files of the repository's `circuits/` folder: (file name, text).
+fn circuit_library() -> Vec<(String, String)> {
+    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../circuits");
+    std::fs::read_dir(&dir)
+        .unwrap()
+        .map(|entry| entry.unwrap().path())
+        .filter(|path| path.extension().is_some_and(|e| e == "circ"))
+        .map(|path| {
+            let name = path.file_name().unwrap().to_string_lossy().into_owned();
+            (name, std::fs::read_to_string(&path).unwrap())
+        })
+        .collect()
+}
+
 #[test]
 fn circuit_library_spectra_pass_at_the_noise_level() {
-    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../circuits");
-    let mut seen = 0;
-    for entry in std::fs::read_dir(&dir).unwrap() {
-        let path = entry.unwrap().path();
-        if path.extension().is_none_or(|e| e != "circ") {
-            continue;
-        }
-        seen += 1;
-        let text = std::fs::read_to_string(&path).unwrap();
+    let library = circuit_library();
+    for (name, text) in &library {
         // 0.2 % noise on each part: the rms residual should be about that, less the fitted share.
-        let s = circuit_spectrum(&text, Some(0.002));
+        let s = circuit_spectrum(text, Some(0.002));
         let r = kramers_kronig(&s, &KkOptions::default()).unwrap();
-        let name = path.file_name().unwrap().to_string_lossy();
         assert!(r.valid, "{name}: {r:#?}");
         assert!(
             (0.12..0.3).contains(&r.residual_rms_percent),
@@ -61,7 +67,7 @@ fn circuit_library_spectra_pass_at_the_noise_level() {
             r.elements
         );
         // Noise-free, the same spectra fit far below the noise level.
-        let clean = circuit_spectrum(&text, None);
+        let clean = circuit_spectrum(text, None);
         let r = kramers_kronig(&clean, &KkOptions::default()).unwrap();
         // A semi-infinite Warburg tail goes on below the lowest measured frequency, beyond the τ range
         // of the test, so it is only approximated (the paper's reason for optional series elements).
@@ -76,7 +82,7 @@ fn circuit_library_spectra_pass_at_the_noise_level() {
             r.residual_max_percent
         );
     }
-    assert!(seen >= 6, "circuit library found at {}", dir.display());
+    assert!(library.len() >= 6, "circuit library: {library:?}");
 }
 
 /// Σ R_k/(1 + jωτ_k) of the exact expansions (partial fractions of tanh/coth, Abramowitz & Stegun 1964,
@@ -719,12 +725,8 @@ const SEEDS: [u64; 3] = [SEED, SEED + 1, SEED + 2];
 fn library_spectra_pass_at_ordinary_noise_with_the_defaults() {
     // 0.1, 0.5 and 1 % of |Z| on each part: the largest of 142 residuals is about 3σ, i.e. up to 3 %
     // at 1 % noise, which the old fixed 1 % per-point limit called suspect.
-    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../circuits");
     let mut seen = 0;
-    for entry in std::fs::read_dir(&dir).unwrap() {
-        let path = entry.unwrap().path();
-        let text = std::fs::read_to_string(&path).unwrap();
-        let name = path.file_name().unwrap().to_string_lossy().into_owned();
+    for (name, text) in circuit_library() {
         let c = parse(&text).unwrap();
         let plan = Plan::compile(&c);
         for relative in [0.001, 0.005, 0.01] {

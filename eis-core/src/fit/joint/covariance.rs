@@ -2,6 +2,7 @@
 //! solver's step: per-spectrum blocks, their coupling to the shared parameters and the shared block,
 //! and the standard errors and warnings each spectrum's result gets from it.
 
+use super::solve::{cholesky, cholesky_solve_columns};
 use super::*;
 use crate::fit::FitWarning;
 

@@ -36,14 +36,15 @@
 
 pub use super::lm::Termination;
 use super::problem::{Point, Problem, Transform};
-use super::{FitError, FitResult, Prepared, Weighting, prepare, start, stats};
+use super::{FitError, FitResult, Weighting, prepare, start, stats};
 use crate::circuit::Circuit;
-use crate::eval::{Plan, Workspace};
+use crate::eval::Plan;
 use crate::spectrum::Spectrum;
-use num_complex::Complex64;
 
 mod covariance;
+mod solve;
 use covariance::JointCovariance;
+use solve::{Layout, Member};
 
 /// Settings of a joint fit.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -194,188 +195,143 @@ pub fn shared_indices<S: AsRef<str>>(
     Ok(out)
 }
 
-/// One spectrum of the chain: data, its state and its blocks of the normal equations.
-struct Member {
-    prep: Prepared,
-    ws: Workspace,
-    /// Parameters, residuals, model and derivatives at the current point, and at the trial point.
-    cur: State,
-    trial: State,
-    /// Internal coordinates of the local parameters (current and trial).
-    xl: Vec<f64>,
-    xl_trial: Vec<f64>,
-    /// Weighted Jacobian columns in x: local ones, then shared ones (2N rows each).
-    cols: Vec<f64>,
-    /// U (nl × nl), W (nl × ns), V_k (ns × ns), g (nl), h_k (ns), row-major.
-    u: Vec<f64>,
-    w: Vec<f64>,
-    v: Vec<f64>,
-    g: Vec<f64>,
-    h: Vec<f64>,
-    /// Running maximum of diag(U): the damping scale.
-    d: Vec<f64>,
-    /// Scratch of a step: the factor of U + μD, (U + μD)⁻¹W, (U + μD)⁻¹g, δ.
-    m: Vec<f64>,
-    y: Vec<f64>,
-    yg: Vec<f64>,
-    step: Vec<f64>,
+/// The parameters of a chain: the free ones, the shared ones, each spectrum's own (local), and the
+/// transforms to their internal coordinates.
+struct Split {
+    free: Vec<usize>,
+    shared: Vec<usize>,
+    locals: Vec<usize>,
+    t_free: Vec<Transform>,
+    t_local: Vec<Transform>,
+    t_shared: Vec<Transform>,
 }
 
-#[derive(Clone)]
-struct State {
-    params: Vec<f64>,
-    z: Vec<Complex64>,
-    jac: Vec<Complex64>,
-    residuals: Vec<f64>,
-    chi_square: f64,
-}
+impl Split {
+    /// Checks the inputs of [`fit_joint`] and splits the circuit's parameters.
+    fn new(
+        circuit: &Circuit,
+        spectra: &[&Spectrum],
+        shared: &[usize],
+        starts: &[Vec<f64>],
+    ) -> Result<Split, JointError> {
+        if spectra.is_empty() {
+            return Err(JointError::NoSpectra);
+        }
+        if starts.len() != spectra.len() {
+            return Err(JointError::StartCount {
+                spectra: spectra.len(),
+                starts: starts.len(),
+            });
+        }
+        let np = circuit.params.len();
+        for (k, s) in starts.iter().enumerate() {
+            if s.len() != np {
+                return Err(JointError::StartLength {
+                    index: k + 1,
+                    got: s.len(),
+                    want: np,
+                });
+            }
+        }
+        let mut shared: Vec<usize> = shared.iter().copied().filter(|&i| i < np).collect();
+        shared.sort_unstable();
+        shared.dedup();
+        if let Some(&i) = shared.iter().find(|&&i| circuit.params[i].fixed) {
+            return Err(JointError::FixedParameter {
+                name: circuit.params[i].name.clone(),
+            });
+        }
+        let free: Vec<usize> = (0..np).filter(|&i| !circuit.params[i].fixed).collect();
+        if free.is_empty() {
+            return Err(JointError::Spectrum {
+                index: 1,
+                error: FitError::NothingFree,
+            });
+        }
+        let locals: Vec<usize> = free
+            .iter()
+            .copied()
+            .filter(|i| !shared.contains(i))
+            .collect();
+        Ok(Split {
+            t_free: start::transforms(circuit, &free),
+            t_local: start::transforms(circuit, &locals),
+            t_shared: start::transforms(circuit, &shared),
+            free,
+            shared,
+            locals,
+        })
+    }
 
-impl State {
-    fn new(params: Vec<f64>, n: usize, np: usize) -> State {
-        State {
-            params,
-            z: vec![Complex64::new(0.0, 0.0); n],
-            jac: vec![Complex64::new(0.0, 0.0); n * np],
-            residuals: vec![0.0; 2 * n],
-            chi_square: f64::INFINITY,
+    fn layout(&self) -> Layout<'_> {
+        Layout {
+            locals: &self.locals,
+            shared: &self.shared,
+            t_local: &self.t_local,
+            t_shared: &self.t_shared,
         }
     }
-
-    /// Evaluates the model at `self.params`: residuals, χ² (infinite when not finite), derivatives.
-    fn evaluate(&mut self, plan: &Plan, prep: &Prepared, ws: &mut Workspace) {
-        plan.eval(
-            &self.params,
-            &prep.grid,
-            &mut self.z,
-            Some(&mut self.jac),
-            ws,
-        );
-        let mut chi = 0.0;
-        for (i, (r, w)) in self
-            .residuals
-            .chunks_exact_mut(2)
-            .zip(prep.w_rows.chunks_exact(2))
-            .enumerate()
-        {
-            let d = self.z[i] - prep.data[i];
-            r[0] = w[0] * d.re;
-            r[1] = w[1] * d.im;
-            chi += r[0] * r[0] + r[1] * r[1];
-        }
-        self.chi_square = if chi.is_finite() { chi } else { f64::INFINITY };
-    }
 }
 
-/// Parameter layout of the chain.
-struct Layout<'a> {
-    locals: &'a [usize],
-    shared: &'a [usize],
-    t_local: &'a [Transform],
-    t_shared: &'a [Transform],
-}
-
-impl Layout<'_> {
-    fn nl(&self) -> usize {
-        self.locals.len()
-    }
-    fn ns(&self) -> usize {
-        self.shared.len()
-    }
-}
-
-impl Member {
-    /// Writes the parameters of the trial state from local and shared internal coordinates.
-    fn set_trial(&mut self, lay: &Layout<'_>, xs: &[f64]) {
-        for ((&i, t), &x) in lay.locals.iter().zip(lay.t_local).zip(&self.xl_trial) {
-            self.trial.params[i] = t.to_param(x);
+/// The members of the chain at their starts (each spectrum's free parameters from its start, moved to
+/// the circuit's default where outside the bounds), the shared starting coordinates (the median over
+/// the chain) and the number of residuals.
+fn set_up(
+    circuit: &Circuit,
+    plan: &Plan,
+    spectra: &[&Spectrum],
+    starts: &[Vec<f64>],
+    split: &Split,
+    weighting: Weighting,
+) -> Result<(Vec<Member>, Vec<f64>, usize), JointError> {
+    let (nl, ns) = (split.locals.len(), split.shared.len());
+    let base = circuit.default_values();
+    let inside = |i: usize, v: f64| {
+        let (lo, hi) = circuit.bounds(i);
+        if v.is_finite() && v > lo && v < hi {
+            v
+        } else {
+            base[i]
         }
-        for ((&i, t), &x) in lay.shared.iter().zip(lay.t_shared).zip(xs) {
-            self.trial.params[i] = t.to_param(x);
-        }
-    }
+    };
 
-    /// The blocks of the normal equations at the current point (internal coordinates `xs` shared).
-    fn normal_blocks(&mut self, lay: &Layout<'_>, xs: &[f64]) {
-        let n = self.prep.grid.len();
-        let (nl, ns) = (lay.nl(), lay.ns());
-        let rows = 2 * n;
-        let columns = lay
+    // Shared starting values: the median over the chain, in internal coordinates.
+    let xs0: Vec<f64> = split
+        .shared
+        .iter()
+        .zip(&split.t_shared)
+        .map(|(&i, t)| {
+            let mut v: Vec<f64> = starts
+                .iter()
+                .map(|s| t.to_internal(inside(i, s[i])))
+                .collect();
+            v.sort_by(f64::total_cmp);
+            v[v.len() / 2]
+        })
+        .collect();
+
+    let mut members = Vec::with_capacity(spectra.len());
+    let mut residuals = 0usize;
+    for (k, (spectrum, s)) in spectra.iter().zip(starts).enumerate() {
+        let prep = prepare(spectrum, weighting).map_err(|error| JointError::Spectrum {
+            index: k + 1,
+            error,
+        })?;
+        let n = prep.grid.len();
+        residuals += 2 * n;
+        let mut params = base.clone();
+        for &i in &split.free {
+            params[i] = inside(i, s[i]);
+        }
+        let xl: Vec<f64> = split
             .locals
             .iter()
-            .zip(lay.t_local.iter().zip(&self.xl))
-            .chain(lay.shared.iter().zip(lay.t_shared.iter().zip(xs)));
-        for (c, (&k, (t, &x))) in columns.enumerate() {
-            let dp = t.derivative(x);
-            let d: &[f64] = bytemuck::cast_slice(&self.cur.jac[k * n..(k + 1) * n]);
-            let col = &mut self.cols[rows * c..rows * (c + 1)];
-            for ((o, &w), &dv) in col.iter_mut().zip(&self.prep.w_rows).zip(d) {
-                *o = w * dv * dp;
-            }
-        }
-        let col = |c: usize| &self.cols[rows * c..rows * (c + 1)];
-        let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
-        for a in 0..nl {
-            for b in a..nl {
-                let v = dot(col(a), col(b));
-                self.u[a * nl + b] = v;
-                self.u[b * nl + a] = v;
-            }
-            for b in 0..ns {
-                self.w[a * ns + b] = dot(col(a), col(nl + b));
-            }
-            self.g[a] = dot(col(a), &self.cur.residuals);
-            self.d[a] = self.d[a].max(self.u[a * nl + a]);
-        }
-        for a in 0..ns {
-            for b in a..ns {
-                let v = dot(col(nl + a), col(nl + b));
-                self.v[a * ns + b] = v;
-                self.v[b * ns + a] = v;
-            }
-            self.h[a] = dot(col(nl + a), &self.cur.residuals);
-        }
+            .zip(&split.t_local)
+            .map(|(&i, t)| t.to_internal(params[i]))
+            .collect();
+        members.push(Member::new(plan, prep, params, xl, (nl, ns)));
     }
-}
-
-/// Cholesky factor (lower, in place, row-major n × n); false when not positive definite.
-fn cholesky(a: &mut [f64], n: usize) -> bool {
-    for j in 0..n {
-        let mut s = a[j * n + j];
-        for k in 0..j {
-            s -= a[j * n + k] * a[j * n + k];
-        }
-        if !(s > 0.0 && s.is_finite()) {
-            return false;
-        }
-        let l = s.sqrt();
-        a[j * n + j] = l;
-        for i in j + 1..n {
-            let mut s = a[i * n + j];
-            for k in 0..j {
-                s -= a[i * n + k] * a[j * n + k];
-            }
-            a[i * n + j] = s / l;
-        }
-    }
-    true
-}
-
-/// Solves L Lᵀ x = b in place with the factor from [`cholesky`].
-fn cholesky_solve(l: &[f64], n: usize, b: &mut [f64]) {
-    crate::nnls::chol_solve(l, n, n, b);
-}
-
-/// Solves L Lᵀ X = B in place for B of `cols` columns (row-major n × cols).
-fn cholesky_solve_columns(l: &[f64], n: usize, b: &mut [f64], cols: usize, scratch: &mut [f64]) {
-    for c in 0..cols {
-        for i in 0..n {
-            scratch[i] = b[i * cols + c];
-        }
-        cholesky_solve(l, n, &mut scratch[..n]);
-        for i in 0..n {
-            b[i * cols + c] = scratch[i];
-        }
-    }
+    Ok((members, xs0, residuals))
 }
 
 /// Fits `circuit` to every spectrum of `spectra` at once, the parameters `shared` (indices, see
@@ -397,363 +353,81 @@ pub fn fit_joint(
     starts: &[Vec<f64>],
     settings: &JointSettings,
 ) -> Result<JointResult, JointError> {
-    if spectra.is_empty() {
-        return Err(JointError::NoSpectra);
-    }
-    if starts.len() != spectra.len() {
-        return Err(JointError::StartCount {
-            spectra: spectra.len(),
-            starts: starts.len(),
-        });
-    }
-    let np = circuit.params.len();
-    for (k, s) in starts.iter().enumerate() {
-        if s.len() != np {
-            return Err(JointError::StartLength {
-                index: k + 1,
-                got: s.len(),
-                want: np,
-            });
-        }
-    }
-    let mut shared: Vec<usize> = shared.iter().copied().filter(|&i| i < np).collect();
-    shared.sort_unstable();
-    shared.dedup();
-    if let Some(&i) = shared.iter().find(|&&i| circuit.params[i].fixed) {
-        return Err(JointError::FixedParameter {
-            name: circuit.params[i].name.clone(),
-        });
-    }
-    let free: Vec<usize> = (0..np).filter(|&i| !circuit.params[i].fixed).collect();
-    if free.is_empty() {
-        return Err(JointError::Spectrum {
-            index: 1,
-            error: FitError::NothingFree,
-        });
-    }
-    let locals: Vec<usize> = free
-        .iter()
-        .copied()
-        .filter(|i| !shared.contains(i))
-        .collect();
-    let t_local = start::transforms(circuit, &locals);
-    let t_shared = start::transforms(circuit, &shared);
-    let t_free = start::transforms(circuit, &free);
-    let lay = Layout {
-        locals: &locals,
-        shared: &shared,
-        t_local: &t_local,
-        t_shared: &t_shared,
-    };
-    let (nl, ns) = (lay.nl(), lay.ns());
+    let split = Split::new(circuit, spectra, shared, starts)?;
+    let lay = split.layout();
     let plan = Plan::compile(circuit);
-    let base = circuit.default_values();
-    let inside = |i: usize, v: f64| {
-        let (lo, hi) = circuit.bounds(i);
-        if v.is_finite() && v > lo && v < hi {
-            v
-        } else {
-            base[i]
-        }
-    };
-
-    // Shared starting values: the median over the chain, in internal coordinates.
-    let xs0: Vec<f64> = shared
-        .iter()
-        .zip(&t_shared)
-        .map(|(&i, t)| {
-            let mut v: Vec<f64> = starts
-                .iter()
-                .map(|s| t.to_internal(inside(i, s[i])))
-                .collect();
-            v.sort_by(f64::total_cmp);
-            v[v.len() / 2]
-        })
-        .collect();
-
-    let mut members = Vec::with_capacity(spectra.len());
-    let mut residuals = 0usize;
-    for (k, (spectrum, s)) in spectra.iter().zip(starts).enumerate() {
-        let prep = prepare(spectrum, settings.weighting).map_err(|error| JointError::Spectrum {
-            index: k + 1,
-            error,
-        })?;
-        let n = prep.grid.len();
-        residuals += 2 * n;
-        let mut params = base.clone();
-        for &i in &free {
-            params[i] = inside(i, s[i]);
-        }
-        let xl: Vec<f64> = locals
-            .iter()
-            .zip(&t_local)
-            .map(|(&i, t)| t.to_internal(params[i]))
-            .collect();
-        let state = State::new(params, n, np);
-        members.push(Member {
-            ws: plan.workspace(),
-            cur: state.clone(),
-            trial: state,
-            xl_trial: xl.clone(),
-            xl,
-            cols: vec![0.0; 2 * n * (nl + ns)],
-            u: vec![0.0; nl * nl],
-            w: vec![0.0; nl * ns],
-            v: vec![0.0; ns * ns],
-            g: vec![0.0; nl],
-            h: vec![0.0; ns],
-            d: vec![0.0; nl],
-            m: vec![0.0; nl * nl],
-            y: vec![0.0; nl * ns],
-            yg: vec![0.0; nl],
-            step: vec![0.0; nl],
-            prep,
-        });
-    }
-    let unknowns = nl * spectra.len() + ns;
+    let (mut members, xs0, residuals) =
+        set_up(circuit, &plan, spectra, starts, &split, settings.weighting)?;
+    let unknowns = lay.nl() * spectra.len() + lay.ns();
     if residuals <= unknowns {
         return Err(JointError::TooFewPoints {
             residuals,
             unknowns,
         });
     }
+    let run = solve::iterate(&plan, &mut members, &lay, xs0, settings)?;
+    Ok(assemble(
+        circuit,
+        &plan,
+        &members,
+        &split,
+        run,
+        residuals - unknowns,
+        settings.weighting,
+    ))
+}
 
-    let mut xs = xs0;
-    let mut xs_trial = xs.clone();
-    for (k, m) in members.iter_mut().enumerate() {
-        m.set_trial(&lay, &xs);
-        m.trial.evaluate(&plan, &m.prep, &mut m.ws);
-        if !m.trial.chi_square.is_finite() {
-            return Err(JointError::NoFiniteStart { index: k + 1 });
-        }
-        std::mem::swap(&mut m.cur, &mut m.trial);
-    }
-    let tol = settings.tolerance;
-    let mut chi: f64 = members.iter().map(|m| m.cur.chi_square).sum();
-    // Shared blocks summed over the chain, the damping scale of the shared block, and scratch.
-    let mut v = vec![0.0; ns * ns];
-    let mut h = vec![0.0; ns];
-    let mut ds = vec![0.0; ns];
-    let mut s = vec![0.0; ns * ns];
-    let mut rhs = vec![0.0; ns];
-    let mut scratch = vec![0.0; nl.max(ns)];
-    let mut mu = 0.0;
-    let mut nu = 2.0;
-    let mut iterations = 0;
-    let termination;
-    'outer: loop {
-        // Blocks at the current point.
-        v.iter_mut().for_each(|x| *x = 0.0);
-        h.iter_mut().for_each(|x| *x = 0.0);
-        for m in &mut members {
-            m.normal_blocks(&lay, &xs);
-            for (a, b) in v.iter_mut().zip(&m.v) {
-                *a += b;
-            }
-            for (a, b) in h.iter_mut().zip(&m.h) {
-                *a += b;
-            }
-        }
-        for a in 0..ns {
-            ds[a] = f64::max(ds[a], v[a * ns + a]);
-        }
-        iterations += 1;
-        if chi == 0.0 {
-            termination = Termination::ResidualsZero;
-            break;
-        }
-        // Gradient test: the largest cosine between a column and the residuals.
-        let mut cosine: f64 = 0.0;
-        for m in &members {
-            for a in 0..nl {
-                let d = m.u[a * nl + a];
-                if d > 0.0 {
-                    cosine = cosine.max(m.g[a].abs() / (d * chi).sqrt());
-                }
-            }
-        }
-        for a in 0..ns {
-            let d = v[a * ns + a];
-            if d > 0.0 {
-                cosine = cosine.max(h[a].abs() / (d * chi).sqrt());
-            }
-        }
-        if cosine <= tol {
-            termination = Termination::Orthogonal;
-            break;
-        }
-        if iterations > settings.max_iterations {
-            termination = Termination::LostPatience;
-            break;
-        }
-        if mu == 0.0 {
-            // Relative to D = diag(JᵀJ): Nielsen's τ = 1e-3.
-            mu = 1e-3;
-        }
-        // Inner loop: damped steps until one is accepted.
-        loop {
-            let mut ok = true;
-            s.copy_from_slice(&v);
-            rhs.iter_mut().zip(&h).for_each(|(r, &hv)| *r = -hv);
-            for a in 0..ns {
-                s[a * ns + a] += mu * ds[a].max(f64::MIN_POSITIVE);
-            }
-            for m in &mut members {
-                m.m.copy_from_slice(&m.u);
-                for a in 0..nl {
-                    m.m[a * nl + a] += mu * m.d[a].max(f64::MIN_POSITIVE);
-                }
-                if !cholesky(&mut m.m, nl) {
-                    ok = false;
-                    break;
-                }
-                m.y.copy_from_slice(&m.w);
-                cholesky_solve_columns(&m.m, nl, &mut m.y, ns, &mut scratch);
-                m.yg.copy_from_slice(&m.g);
-                cholesky_solve(&m.m, nl, &mut m.yg);
-                // S −= Wᵀ Y, rhs += Wᵀ y_g.
-                for a in 0..ns {
-                    for b in 0..ns {
-                        let mut t = 0.0;
-                        for c in 0..nl {
-                            t += m.w[c * ns + a] * m.y[c * ns + b];
-                        }
-                        s[a * ns + b] -= t;
-                    }
-                    let mut t = 0.0;
-                    for c in 0..nl {
-                        t += m.w[c * ns + a] * m.yg[c];
-                    }
-                    rhs[a] += t;
-                }
-            }
-            if ok && !cholesky(&mut s, ns) {
-                ok = false;
-            }
-            if !ok {
-                mu *= nu;
-                nu *= 2.0;
-                if !mu.is_finite() || mu > 1e30 {
-                    termination = Termination::Numerical("the damped normal equations");
-                    break 'outer;
-                }
-                continue;
-            }
-            cholesky_solve(&s, ns, &mut rhs);
-            let delta_s = &rhs;
-            // Predicted reduction −δᵀg + μ δᵀDδ, and the step's size.
-            let mut predicted = 0.0;
-            let mut step_norm = 0.0;
-            let mut x_norm = 0.0;
-            for a in 0..ns {
-                predicted += -delta_s[a] * h[a] + mu * ds[a] * delta_s[a] * delta_s[a];
-                step_norm += delta_s[a] * delta_s[a];
-                x_norm += xs[a] * xs[a];
-                xs_trial[a] = xs[a] + delta_s[a];
-            }
-            for m in &mut members {
-                for a in 0..nl {
-                    let row = &m.y[a * ns..(a + 1) * ns];
-                    let t: f64 = row.iter().zip(delta_s).map(|(y, d)| y * d).sum();
-                    m.step[a] = -(m.yg[a] + t);
-                    predicted += -m.step[a] * m.g[a] + mu * m.d[a] * m.step[a] * m.step[a];
-                    step_norm += m.step[a] * m.step[a];
-                    x_norm += m.xl[a] * m.xl[a];
-                    m.xl_trial[a] = m.xl[a] + m.step[a];
-                }
-            }
-            let mut chi_trial = 0.0;
-            for m in &mut members {
-                m.set_trial(&lay, &xs_trial);
-                m.trial.evaluate(&plan, &m.prep, &mut m.ws);
-                chi_trial += m.trial.chi_square;
-            }
-            let actual = chi - chi_trial;
-            let rho = if predicted > 0.0 {
-                actual / predicted
-            } else {
-                -1.0
-            };
-            let small_step = step_norm.sqrt() <= tol * (x_norm.sqrt() + tol);
-            if chi_trial.is_finite() && actual > 0.0 && rho > 0.0 {
-                for m in &mut members {
-                    std::mem::swap(&mut m.cur, &mut m.trial);
-                    std::mem::swap(&mut m.xl, &mut m.xl_trial);
-                }
-                std::mem::swap(&mut xs, &mut xs_trial);
-                let before = chi;
-                chi = chi_trial;
-                mu *= f64::max(1.0 / 3.0, 1.0 - (2.0 * rho - 1.0).powi(3));
-                nu = 2.0;
-                let ftol = actual <= tol * before && predicted <= tol * before;
-                if ftol || small_step {
-                    // Blocks at the final point, for the covariance.
-                    for m in &mut members {
-                        m.normal_blocks(&lay, &xs);
-                    }
-                    termination = Termination::Converged {
-                        ftol,
-                        xtol: small_step,
-                    };
-                    break 'outer;
-                }
-                break;
-            }
-            if small_step || predicted <= f64::EPSILON * chi {
-                termination = Termination::Converged {
-                    ftol: predicted <= f64::EPSILON * chi,
-                    xtol: small_step,
-                };
-                break 'outer;
-            }
-            mu *= nu;
-            nu *= 2.0;
-            if !mu.is_finite() || mu > 1e30 {
-                termination = Termination::NoImprovementPossible("chi-square");
-                break 'outer;
-            }
-        }
-    }
-
-    let dof = residuals - unknowns;
-    let reduced = chi / dof as f64;
-    let cov = JointCovariance::new(&members, &lay, &xs, reduced);
+/// The result of a finished descent with `dof` degrees of freedom: each spectrum's summary with its
+/// block of the joint covariance, and the chain's totals.
+fn assemble(
+    circuit: &Circuit,
+    plan: &Plan,
+    members: &[Member],
+    split: &Split,
+    run: solve::Run,
+    dof: usize,
+    weighting: Weighting,
+) -> JointResult {
+    let lay = split.layout();
+    let (free, t_free) = (&split.free, &split.t_free);
+    let reduced = run.chi / dof as f64;
+    let cov = JointCovariance::new(members, &lay, &run.xs, reduced);
 
     let mut fits = Vec::with_capacity(members.len());
     for (k, m) in members.iter().enumerate() {
         let problem = Problem::new(
-            &plan,
+            plan,
             &m.prep.grid,
             &m.prep.data,
             &m.prep.w_rows,
             Point::Params(m.cur.params.clone()),
-            &free,
-            &t_free,
+            free,
+            t_free,
         );
         let mut r = stats::summarise(stats::Summary {
             circuit,
             problem: &problem,
             prep_data: &m.prep.data,
-            free: &free,
-            transforms: &t_free,
-            run_iterations: iterations,
-            evaluations: iterations,
+            free,
+            transforms: t_free,
+            run_iterations: run.iterations,
+            evaluations: run.iterations,
             tried: 1,
-            termination: &termination,
-            weighting: settings.weighting,
+            termination: &run.termination,
+            weighting,
         });
-        cov.apply(k, circuit, &free, &lay, &mut r);
+        cov.apply(k, circuit, free, &lay, &mut r);
         fits.push(r);
     }
-    Ok(JointResult {
+    JointResult {
         fits,
-        shared,
-        chi_square: chi,
+        shared: split.shared.clone(),
+        chi_square: run.chi,
         dof,
         reduced_chi_square: reduced,
-        iterations,
-        termination,
-    })
+        iterations: run.iterations,
+        termination: run.termination,
+    }
 }
 
 /// Of one spectrum's local block in scaled coordinates: Ũ⁻¹, Ũ⁻¹W̃ and the scaling.
@@ -765,18 +439,6 @@ mod tests {
     use crate::circuit::parse;
     use crate::eval::log_frequencies;
     use crate::simulate::simulate;
-
-    #[test]
-    fn small_cholesky_solves() {
-        // A = [[4, 2], [2, 3]], b = (2, 1): x = (0.5, 0).
-        let mut a = [4.0, 2.0, 2.0, 3.0];
-        assert!(cholesky(&mut a, 2));
-        let mut b = [2.0, 1.0];
-        cholesky_solve(&a, 2, &mut b);
-        assert!((b[0] - 0.5).abs() < 1e-15 && b[1].abs() < 1e-15);
-        let mut not_pd = [1.0, 2.0, 2.0, 1.0];
-        assert!(!cholesky(&mut not_pd, 2));
-    }
 
     /// Noise-free spectra that share their exponent: the joint fit meets every truth from perturbed
     /// starts (exact data have the truth as their only zero-χ² point; common practice).

@@ -456,6 +456,7 @@ mod tests {
             window: crate::element::ARC_WINDOW,
             peak: (1.0, 1.0),
         },
+        physics: crate::element::Physics::Plain,
     }];
 
     /// A kind known only to a test table gets its DC and high-frequency limits, is recognised, and gets

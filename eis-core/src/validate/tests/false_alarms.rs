@@ -17,24 +17,13 @@ fn physics_spectra() -> Vec<(String, Spectrum)> {
     ))
     .unwrap();
     let doc: serde_json::Value = serde_json::from_str(&text).unwrap();
-    let numbers = |v: &serde_json::Value| -> Vec<f64> {
-        v.as_array()
-            .unwrap()
-            .iter()
-            .map(|x| x.as_f64().unwrap())
-            .collect()
-    };
     doc["spectra"]
         .as_array()
         .unwrap()
         .iter()
         .map(|s| {
-            let f = numbers(&s["frequency_hz"]);
-            let z = numbers(&s["z_real_ohm"])
-                .into_iter()
-                .zip(numbers(&s["z_imag_ohm"]))
-                .map(|(re, im)| Complex64::new(re, im))
-                .collect();
+            let f = crate::testing::floats(&s["frequency_hz"]);
+            let z = crate::testing::impedances(&s["z_real_ohm"], &s["z_imag_ohm"]);
             (s["name"].as_str().unwrap().to_owned(), Spectrum::new(f, z))
         })
         .collect()
