@@ -497,24 +497,33 @@ fn cpe(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
     // ∂Z/∂Q = −Z/Q, by one multiplication per frequency; ∂Z/∂n = −Z·(ln ω + jπ/2).
     let (ln_q, minus_inv_q) = (q.ln(), -1.0 / q);
     let (dq, dn) = dz.split_at_mut(g.len());
-    const BLOCK: usize = 64;
-    let (mut exponent, mut modulus) = ([0.0; BLOCK], [0.0; BLOCK]);
-    let blocks = z
-        .chunks_mut(BLOCK)
-        .zip(dq.chunks_mut(BLOCK))
-        .zip(dn.chunks_mut(BLOCK))
-        .zip(g.ln_omega.chunks(BLOCK));
-    for (((z, dq), dn), ln_w) in blocks {
-        let len = ln_w.len();
-        for (e, &l) in exponent.iter_mut().zip(ln_w) {
-            *e = -ln_q - n * l;
-        }
-        crate::dense::exp_into(&exponent[..len], &mut modulus[..len]);
-        for ((((zi, dqi), dni), &l), &m) in z.iter_mut().zip(dq).zip(dn).zip(ln_w).zip(&modulus) {
+    with_exps(
+        g.len(),
+        |i| -ln_q - n * g.ln_omega[i],
+        |i, m| {
             let v = phase * m;
-            *zi = v;
-            *dqi = v * minus_inv_q;
-            *dni = v * Complex64::new(-l, -FRAC_PI_2);
+            z[i] = v;
+            dq[i] = v * minus_inv_q;
+            dn[i] = v * Complex64::new(-g.ln_omega[i], -FRAC_PI_2);
+        },
+    );
+}
+
+/// Points per block of [`with_exps`].
+const BLOCK: usize = 64;
+
+/// Calls `point(i, e^{exponent(i)})` for every point i < n, the exponentials taken in vectors a block
+/// of points at a time on the stack (no allocation).
+fn with_exps(n: usize, exponent: impl Fn(usize) -> f64, mut point: impl FnMut(usize, f64)) {
+    let (mut x, mut e) = ([0.0; BLOCK], [0.0; BLOCK]);
+    for start in (0..n).step_by(BLOCK) {
+        let len = BLOCK.min(n - start);
+        for (k, v) in x[..len].iter_mut().enumerate() {
+            *v = exponent(start + k);
+        }
+        crate::dense::exp_into(&x[..len], &mut e[..len]);
+        for (k, &v) in e[..len].iter().enumerate() {
+            point(start + k, v);
         }
     }
 }
@@ -671,38 +680,17 @@ fn diffusion(boundary: Boundary, p: &[f64], g: &Grid, z: &mut [Complex64], dz: &
     let (r, tau) = (p[0], p[1]);
     let sqrt_tau = tau.sqrt();
     let (dr, dt) = dz.split_at_mut(g.len());
-    // e^{−2a} of a block of points at a time, in vectors (no allocation).
-    const BLOCK: usize = 64;
-    let (mut exponent, mut decay) = ([0.0; BLOCK], [0.0; BLOCK]);
-    let blocks = z
-        .chunks_mut(BLOCK)
-        .zip(dr.chunks_mut(BLOCK))
-        .zip(dt.chunks_mut(BLOCK))
-        .zip(g.omega.chunks(BLOCK))
-        .zip(g.sqrt_omega.chunks(BLOCK));
-    for ((((z, dr), dt), omega), sqrt_omega) in blocks {
-        let len = omega.len();
-        for (e, &sqrt_w) in exponent.iter_mut().zip(sqrt_omega) {
-            *e = decay_exponent(sqrt_w * sqrt_tau);
-        }
-        crate::dense::exp_into(&exponent[..len], &mut decay[..len]);
-        let points = z
-            .iter_mut()
-            .zip(dr)
-            .zip(dt)
-            .zip(omega)
-            .zip(sqrt_omega)
-            .zip(&decay);
-        for (((((zi, dri), dti), &w), &sqrt_w), &d) in points {
-            let sqrt_wt = sqrt_w * sqrt_tau;
+    with_exps(
+        g.len(),
+        |i| decay_exponent(g.sqrt_omega[i] * sqrt_tau),
+        |i, decay| {
+            let sqrt_wt = g.sqrt_omega[i] * sqrt_tau;
             let use_series = sqrt_wt < SERIES_LIMIT;
-            let (zv, fv, dv) =
-                diffusion_point_decayed(boundary, r, tau, w * tau, sqrt_wt, use_series, d);
-            *zi = zv;
-            *dri = fv;
-            *dti = dv;
-        }
-    }
+            let wt = g.omega[i] * tau;
+            (z[i], dr[i], dt[i]) =
+                diffusion_point_decayed(boundary, r, tau, wt, sqrt_wt, use_series, decay);
+        },
+    );
 }
 
 fn diffusion_transmissive(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
