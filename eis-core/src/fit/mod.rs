@@ -585,10 +585,12 @@ pub fn fit(
 /// as well, and the lowest χ² wins.
 ///
 /// The automatic starts of a circuit of recognised blocks: the best distinct points of the
-/// time-constant grid are each given a brief run; runs that converge within it are done, and the three
-/// lowest of the others are carried on to convergence. Then the best run's arcs are swapped pairwise
-/// and, unless two runs from different starts already agree on the best χ², moved along τ (again
-/// brief runs, the best carried on). The winner is polished with tight tolerances.
+/// time-constant grid are each given a brief run, best first; runs that converge within it are done,
+/// and the three lowest of the others are carried on to convergence. The grid stops early once the
+/// search is settled: three runs and every run so far ended at the same χ², with residuals that look
+/// like noise and every parameter determined. Then the best run's arcs are swapped pairwise and,
+/// unless five runs agree on the best χ² or three agree on such an optimum, moved along τ (again brief
+/// runs, the best carried on). The winner is polished with tight tolerances.
 ///
 /// With [`FitSettings::drt_starts`] on and a `seed`, a circuit of recognised blocks also gets starts
 /// built from the peaks of that DRT: peaks are assigned to arcs and diffusion elements in τ order, with
@@ -813,8 +815,7 @@ fn fit_impl(
     };
     // Every start briefly; a run that converges within its brief budget is done, and of the others the
     // `keep` lowest in χ² are carried on to convergence (from where they stopped). Starts are taken
-    // best first, and the rest are skipped once the search has settled: the first runs all agreed on
-    // one optimum whose residuals look like noise.
+    // best first, and the rest are skipped once the search has settled (`Search::settled`).
     let staged = |search: &mut start::Search, starts: &[Vec<f64>], patience: usize, keep: usize| {
         let mut pending = Vec::new();
         for s in starts {
