@@ -195,6 +195,100 @@ pub(crate) fn exp_into(x: &[f64], out: &mut [f64]) {
     }
 }
 
+/// Arguments of [`sin_cos_into`]'s polynomial: beyond, or for an argument that is not a number, the
+/// library's `sin_cos` is used.
+const SIN_COS_LIMIT: f64 = 1e5;
+
+/// (sin x, cos x) for |x| ≤ [`SIN_COS_LIMIT`], branch-free so that a loop of it runs in vectors:
+/// x = k·π/2 + r with |r| ≤ π/4, π/2 split in three doubles (P1 + P2 + P3 to about 1e-49; Cody &
+/// Waite 1980, *Software Manual for the Elementary Functions*) and each product taken in a fused
+/// multiply–add, then sin r and cos r by their Taylor series to r¹⁷/17! and r¹⁸/18! (truncation below
+/// 1e-19) in Horner form, and the quadrant k mod 4 chosen and signed through bit masks. Within about
+/// 2.3e-16 of the library's values in absolute terms (checked in the tests); the same bit for bit on
+/// every instruction set.
+#[inline(always)]
+fn sin_cos_kernel(x: f64) -> (f64, f64) {
+    const P1: f64 = std::f64::consts::FRAC_PI_2;
+    const P2: f64 = 6.123_233_995_736_766e-17;
+    const P3: f64 = -1.497_384_904_859_169_8e-33;
+    const SHIFTER: f64 = 6_755_399_441_055_744.0;
+    // 1/(2k + 1)! and 1/(2k)!, alternating in sign, highest power first.
+    const SIN: [f64; 9] = [
+        1.0 / 355_687_428_096_000.0,
+        -1.0 / 1_307_674_368_000.0,
+        1.0 / 6_227_020_800.0,
+        -1.0 / 39_916_800.0,
+        1.0 / 362_880.0,
+        -1.0 / 5_040.0,
+        1.0 / 120.0,
+        -1.0 / 6.0,
+        1.0,
+    ];
+    const COS: [f64; 10] = [
+        -1.0 / 6_402_373_705_728_000.0,
+        1.0 / 20_922_789_888_000.0,
+        -1.0 / 87_178_291_200.0,
+        1.0 / 479_001_600.0,
+        -1.0 / 3_628_800.0,
+        1.0 / 40_320.0,
+        -1.0 / 720.0,
+        1.0 / 24.0,
+        -0.5,
+        1.0,
+    ];
+    let x = x.clamp(-SIN_COS_LIMIT, SIN_COS_LIMIT);
+    let shifted = x.mul_add(std::f64::consts::FRAC_2_PI, SHIFTER);
+    let k = shifted - SHIFTER;
+    let r = (-k).mul_add(P3, (-k).mul_add(P2, (-k).mul_add(P1, x)));
+    let u = r * r;
+    let mut s: f64 = 0.0;
+    for c in SIN {
+        s = s.mul_add(u, c);
+    }
+    let s = s * r;
+    let mut c: f64 = 0.0;
+    for v in COS {
+        c = c.mul_add(u, v);
+    }
+    // The low bits of `shifted` hold k in two's complement: sin x = (s, c, −s, −c) and cos x =
+    // (c, −s, −c, s) for k mod 4 = 0, 1, 2, 3.
+    let q = shifted.to_bits();
+    let odd = 0u64.wrapping_sub(q & 1);
+    let (s, c) = (s.to_bits(), c.to_bits());
+    let sin = (c & odd) | (s & !odd);
+    let cos = (s & odd) | (c & !odd);
+    (
+        f64::from_bits(sin ^ ((q & 2) << 62)),
+        f64::from_bits(cos ^ ((q.wrapping_add(1) & 2) << 62)),
+    )
+}
+
+/// `sin[i] = sin x[i]` and `cos[i] = cos x[i]` for every i, in the widest vectors the processor has;
+/// the library's values to about 2.3e-16 absolute.
+///
+/// # Panics
+///
+/// If the lengths differ.
+pub(crate) fn sin_cos_into(x: &[f64], sin: &mut [f64], cos: &mut [f64]) {
+    assert!(
+        x.len() == sin.len() && x.len() == cos.len(),
+        "sin_cos_into lengths"
+    );
+    arch().dispatch(
+        #[inline(always)]
+        || {
+            for ((s, c), &v) in sin.iter_mut().zip(cos.iter_mut()).zip(x) {
+                (*s, *c) = sin_cos_kernel(v);
+            }
+        },
+    );
+    for ((s, c), &v) in sin.iter_mut().zip(cos.iter_mut()).zip(x) {
+        if v.is_nan() || v.abs() > SIN_COS_LIMIT {
+            (*s, *c) = v.sin_cos();
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -297,5 +391,40 @@ mod tests {
                 );
             }
         }
+    }
+
+    /// The vector sine and cosine against the standard library's (within one unit in the last place,
+    /// common practice for libm) over ±1e5 and beyond, where the library takes over, with zeros,
+    /// multiples of π/2 (where the reduction matters most), infinities and NaN.
+    #[test]
+    fn sin_cos_into_matches_the_standard_library() {
+        let n = 400_001;
+        let x: Vec<f64> = (0..n)
+            .map(|i| -1.2e5 + 2.4e5 * i as f64 / (n - 1) as f64)
+            .chain((0..2000).map(|i| i as f64 * 0.0025 - 2.5))
+            .chain((-200..200).map(|k| k as f64 * std::f64::consts::FRAC_PI_2))
+            .chain((-200..200).map(|k| k as f64 * 1234.5 * std::f64::consts::FRAC_PI_2))
+            .chain([0.0, -0.0, 1e-300, 5e-324, 1e5, -1e5, 1e300])
+            .chain([f64::INFINITY, f64::NEG_INFINITY, f64::NAN])
+            .collect();
+        let (mut s, mut c) = (vec![0.0; x.len()], vec![0.0; x.len()]);
+        sin_cos_into(&x, &mut s, &mut c);
+        for ((&v, &s), &c) in x.iter().zip(&s).zip(&c) {
+            let (ws, wc) = v.sin_cos();
+            if ws.is_nan() {
+                assert!(s.is_nan() && c.is_nan(), "sin_cos({v}) = ({s}, {c})");
+                continue;
+            }
+            assert!((s - ws).abs() <= 2.3e-16, "sin({v}) = {s}, std {ws}");
+            assert!((c - wc).abs() <= 2.3e-16, "cos({v}) = {c}, std {wc}");
+        }
+        // Small arguments keep full relative precision: sin x = x to round-off.
+        let tiny = [1e-300, 5e-324, -1e-20, 1e-8];
+        let (mut s, mut c) = ([0.0; 4], [0.0; 4]);
+        sin_cos_into(&tiny, &mut s, &mut c);
+        for (&v, &s) in tiny.iter().zip(&s) {
+            assert!((s - v.sin()).abs() <= 1.2e-16 * v.abs(), "sin({v}) = {s}");
+        }
+        assert_eq!(c, [1.0; 4]);
     }
 }

@@ -509,7 +509,7 @@ fn cpe(p: &[f64], g: &Grid, z: &mut [Complex64], dz: &mut [Complex64]) {
     );
 }
 
-/// Points per block of [`with_exps`].
+/// Points per block of [`with_exps`] and [`with_decays`].
 const BLOCK: usize = 64;
 
 /// Calls `point(i, e^{exponent(i)})` for every point i < n, the exponentials taken in vectors a block
@@ -524,6 +524,31 @@ fn with_exps(n: usize, exponent: impl Fn(usize) -> f64, mut point: impl FnMut(us
         crate::dense::exp_into(&x[..len], &mut e[..len]);
         for (k, &v) in e[..len].iter().enumerate() {
             point(start + k, v);
+        }
+    }
+}
+
+/// Calls `point(i, e^{−y}, sin y, cos y)` with y = `angle(i)` for every point i < n: the factors of
+/// e^{−y(1 + j)}, taken in vectors a block of points at a time on the stack (no allocation).
+fn with_decays(
+    n: usize,
+    angle: impl Fn(usize) -> f64,
+    mut point: impl FnMut(usize, f64, f64, f64),
+) {
+    let mut y = [0.0; BLOCK];
+    let (mut e, mut sin, mut cos) = ([0.0; BLOCK], [0.0; BLOCK], [0.0; BLOCK]);
+    for start in (0..n).step_by(BLOCK) {
+        let len = BLOCK.min(n - start);
+        for (k, v) in y[..len].iter_mut().enumerate() {
+            *v = -angle(start + k);
+        }
+        crate::dense::exp_into(&y[..len], &mut e[..len]);
+        for v in &mut y[..len] {
+            *v = -*v;
+        }
+        crate::dense::sin_cos_into(&y[..len], &mut sin[..len], &mut cos[..len]);
+        for k in 0..len {
+            point(start + k, e[k], sin[k], cos[k]);
         }
     }
 }
@@ -589,19 +614,19 @@ fn series(c: &[f64], u: Complex64) -> (Complex64, Complex64) {
     (f, uf * u)
 }
 
-/// e^{−2s} for s = a(1 + j), a ≥ 0, given `decay` = e^{−2a}; zero where it is below round-off of
-/// anything it is added to.
-fn exp_minus_2s(a: f64, decay: f64) -> Complex64 {
+/// e^{−2s} for s = a(1 + j), a ≥ 0, given `decay` = e^{−2a}, `sin` = sin 2a and `cos` = cos 2a; zero
+/// where it is below round-off of anything it is added to.
+fn exp_minus_2s(a: f64, decay: f64, sin: f64, cos: f64) -> Complex64 {
     if 2.0 * a > EXP_LIMIT {
         return ZERO;
     }
-    let (sin, cos) = (2.0 * a).sin_cos();
     Complex64::new(cos, -sin) * decay
 }
 
-/// The exponent −2a = −√2·√(ωτ) of e^{−2a} in [`diffusion_point_decayed`].
-fn decay_exponent(sqrt_wt: f64) -> f64 {
-    -2.0 * (sqrt_wt * FRAC_1_SQRT_2)
+/// 2a = √2·√(ωτ), the angle and decay rate of e^{−2s} = e^{−2a}(cos 2a − j sin 2a) in
+/// [`diffusion_point_decayed`].
+fn decay_angle(sqrt_wt: f64) -> f64 {
+    2.0 * (sqrt_wt * FRAC_1_SQRT_2)
 }
 
 /// The two boundary conditions of finite-length diffusion.
@@ -623,11 +648,20 @@ fn diffusion_point(
     sqrt_wt: f64,
     use_series: bool,
 ) -> (Complex64, Complex64, Complex64) {
-    let decay = decay_exponent(sqrt_wt).exp();
-    diffusion_point_decayed(boundary, r, tau, wt, sqrt_wt, use_series, decay)
+    let y = decay_angle(sqrt_wt);
+    let (sin, cos) = y.sin_cos();
+    diffusion_point_decayed(
+        boundary,
+        r,
+        tau,
+        wt,
+        sqrt_wt,
+        use_series,
+        ((-y).exp(), sin, cos),
+    )
 }
 
-/// [`diffusion_point`] given `decay` = e^{−2a} = exp([`decay_exponent`]), which the caller takes in
+/// [`diffusion_point`] given `decay` = (e^{−2a}, sin 2a, cos 2a) of 2a = [`decay_angle`], which the caller takes in
 /// vectors for a block of points.
 fn diffusion_point_decayed(
     boundary: Boundary,
@@ -636,7 +670,7 @@ fn diffusion_point_decayed(
     wt: f64,
     sqrt_wt: f64,
     use_series: bool,
-    decay: f64,
+    decay: (f64, f64, f64),
 ) -> (Complex64, Complex64, Complex64) {
     let one = Complex64::new(1.0, 0.0);
     if use_series {
@@ -658,7 +692,7 @@ fn diffusion_point_decayed(
     let s = Complex64::new(a, a);
     let half_inv_a = 0.5 / a;
     let inv_s = Complex64::new(half_inv_a, -half_inv_a);
-    let e = exp_minus_2s(a, decay);
+    let e = exp_minus_2s(a, decay.0, decay.1, decay.2);
     // tanh, sech² (or coth, csch²) through e^{−2s}, so that nothing overflows for Re s > 0. The
     // denominator 1 ± e^{−2s} is inverted once: |e^{−2s}| ≤ e^{−2a} with 2a > 0.14 here, so |1 ± e| lies
     // between 0.13 and 2 and d̄/|d|² is exact to round-off.
@@ -680,15 +714,22 @@ fn diffusion(boundary: Boundary, p: &[f64], g: &Grid, z: &mut [Complex64], dz: &
     let (r, tau) = (p[0], p[1]);
     let sqrt_tau = tau.sqrt();
     let (dr, dt) = dz.split_at_mut(g.len());
-    with_exps(
+    with_decays(
         g.len(),
-        |i| decay_exponent(g.sqrt_omega[i] * sqrt_tau),
-        |i, decay| {
+        |i| decay_angle(g.sqrt_omega[i] * sqrt_tau),
+        |i, decay, sin, cos| {
             let sqrt_wt = g.sqrt_omega[i] * sqrt_tau;
             let use_series = sqrt_wt < SERIES_LIMIT;
             let wt = g.omega[i] * tau;
-            (z[i], dr[i], dt[i]) =
-                diffusion_point_decayed(boundary, r, tau, wt, sqrt_wt, use_series, decay);
+            (z[i], dr[i], dt[i]) = diffusion_point_decayed(
+                boundary,
+                r,
+                tau,
+                wt,
+                sqrt_wt,
+                use_series,
+                (decay, sin, cos),
+            );
         },
     );
 }

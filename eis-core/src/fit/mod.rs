@@ -511,10 +511,20 @@ struct Run {
     termination: Termination,
     /// The problem's state at `params` when the run ended there (not after `params` were reordered).
     point: Option<problem::Evaluated>,
-    /// Whether its residuals look like noise ([`NOISE_LIKE`]) and the data determine every free
-    /// parameter: a basin in which an element shrank out of the model can fit almost as well as the
-    /// optimum, with noise-like residuals.
-    noise_like: bool,
+    /// Whether its residuals look like noise ([`NOISE_LIKE`]).
+    white: bool,
+    /// Whether the data determine every free parameter (a basin in which an element shrank out of
+    /// the model can fit almost as well as the optimum, with noise-like residuals); judged only for a
+    /// white run that becomes the best of a search (see [`Run::noise_like`]), None before.
+    determined: Option<bool>,
+}
+
+impl Run {
+    /// Whether its residuals look like noise and the data determine every free parameter, as far as
+    /// judged: false until [`start::Search::consider`] has judged a white run.
+    fn noise_like(&self) -> bool {
+        self.white && self.determined == Some(true)
+    }
 }
 
 fn run_lm(
@@ -546,11 +556,9 @@ fn run_lm(
     } else {
         f64::INFINITY
     };
-    // A run whose residuals look like noise and whose every parameter the data determine.
-    let noise_like = von_neumann_ratio(problem.residuals(), &prep.by_frequency) >= NOISE_LIKE
-        && problem.determines_every_parameter();
     Run {
-        noise_like,
+        white: von_neumann_ratio(problem.residuals(), &prep.by_frequency) >= NOISE_LIKE,
+        determined: None,
         chi_square: chi,
         iterations: problem.jacobian_calls.get().max(1),
         evaluations: report.evaluations,
@@ -724,7 +732,14 @@ fn fit_impl(
         )
     };
 
-    let mut search = start::Search::default();
+    // Whether the data determine every parameter at a run's end: judged only for the white runs that
+    // become the best of the search, as only the best run's verdict is read.
+    let determined = |r: &Run| {
+        r.point
+            .as_ref()
+            .is_some_and(|p| p.determines_every_parameter(&free, &prep.w_rows, &transforms))
+    };
+    let mut search = start::Search::new(&determined);
 
     // A warm-started result is taken as it is unless it sits on a bound, its residuals trend, or its
     // reduced χ² is well above that of the fit it came from.

@@ -248,25 +248,6 @@ impl<'a> Problem<'a> {
         &self.residuals
     }
 
-    /// Whether the data determine every free parameter at the current point: the covariance of the
-    /// internal coordinates (logarithms of positive parameters) has no null direction and no standard
-    /// error above 1, an e-fold change. An element that shrank out of the model (a finite diffusion
-    /// whose R and τ went to zero together, leaving only their ratio) fails it.
-    pub(crate) fn determines_every_parameter(&self) -> bool {
-        let n = self.grid.len();
-        let nf = self.free.len();
-        if !self.ok || 2 * n <= nf {
-            return false;
-        }
-        let j = nalgebra::DMatrix::from_fn(2 * n, nf, |row, c| {
-            let k = self.free[c];
-            let d: &[f64] = bytemuck::cast_slice(&self.jac[k * n..(k + 1) * n]);
-            d[row] * self.w_rows[row] * self.transforms[c].derivative(self.x[c])
-        });
-        let cov = super::stats::covariance(&j, self.chi_square, 2 * n - nf);
-        !cov.undetermined.iter().any(|&u| u) && (0..nf).all(|c| cov.matrix[c * nf + c] <= 1.0)
-    }
-
     /// The model impedance at the current point.
     pub(crate) fn model(&self) -> &[Complex64] {
         &self.z
@@ -293,6 +274,35 @@ impl<'a> Problem<'a> {
     }
 }
 
+/// Whether the data determine every free parameter at a point: the covariance of the internal
+/// coordinates (logarithms of positive parameters) has no null direction and no standard error above
+/// 1, an e-fold change. An element that shrank out of the model (a finite diffusion whose R and τ went
+/// to zero together, leaving only their ratio) fails it. `jac` holds ∂Z/∂p_k of all parameters at
+/// `k * n + i` for `n` points, `x` the internal coordinates of the free ones.
+#[allow(clippy::too_many_arguments)]
+fn determines_every_parameter(
+    ok: bool,
+    n: usize,
+    free: &[usize],
+    jac: &[Complex64],
+    w_rows: &[f64],
+    transforms: &[Transform],
+    x: &[f64],
+    chi_square: f64,
+) -> bool {
+    let nf = free.len();
+    if !ok || 2 * n <= nf {
+        return false;
+    }
+    let j = nalgebra::DMatrix::from_fn(2 * n, nf, |row, c| {
+        let k = free[c];
+        let d: &[f64] = bytemuck::cast_slice(&jac[k * n..(k + 1) * n]);
+        d[row] * w_rows[row] * transforms[c].derivative(x[c])
+    });
+    let cov = super::stats::covariance(&j, chi_square, 2 * n - nf);
+    !cov.undetermined.iter().any(|&u| u) && (0..nf).all(|c| cov.matrix[c * nf + c] <= 1.0)
+}
+
 /// A problem's state at its current point (coordinates, model, derivatives, residuals), kept after a
 /// run so that the result can be summarised without evaluating the model again.
 #[derive(Debug, Clone)]
@@ -310,6 +320,26 @@ impl Evaluated {
     /// The full parameter vector of the point.
     pub(crate) fn params(&self) -> &[f64] {
         &self.params
+    }
+
+    /// Whether the data determine every free parameter at this point (see the function of that
+    /// name), for the problem's `free` parameters, weights `w_rows` and `transforms`.
+    pub(crate) fn determines_every_parameter(
+        &self,
+        free: &[usize],
+        w_rows: &[f64],
+        transforms: &[Transform],
+    ) -> bool {
+        determines_every_parameter(
+            self.ok,
+            self.z.len(),
+            free,
+            &self.jac,
+            w_rows,
+            transforms,
+            &self.x,
+            self.chi_square,
+        )
     }
 }
 

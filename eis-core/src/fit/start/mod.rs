@@ -344,8 +344,7 @@ pub(crate) fn transforms(c: &Circuit, free: &[usize]) -> Vec<Transform> {
 
 /// The bookkeeping of a multi-start search: the best run so far (lowest χ²), and the residual
 /// evaluations and starts spent over every run considered.
-#[derive(Default)]
-pub(super) struct Search {
+pub(super) struct Search<'a> {
     /// The run with the lowest χ² so far (the first of equals).
     pub best: Option<super::Run>,
     /// Residual evaluations over every run considered.
@@ -355,6 +354,9 @@ pub(super) struct Search {
     /// Runs that ended at the best χ² so far (within [`AGREE`] relative): independent starts that
     /// agree on the optimum.
     pub agreeing: usize,
+    /// Whether the data determine every parameter at a run's end (the costly part of
+    /// [`super::Run::noise_like`], judged for the runs that become the best only).
+    determined: &'a dyn Fn(&super::Run) -> bool,
 }
 
 /// Agreeing runs after which a search whose best residuals look like noise stops.
@@ -363,9 +365,22 @@ pub(super) const SETTLED: usize = 3;
 /// Relative χ² difference within which two runs are taken to have reached the same optimum.
 pub(super) const AGREE: f64 = 1e-6;
 
-impl Search {
-    /// Counts `run` and keeps it if its χ² is below the best so far (a NaN χ² never is).
-    pub fn consider(&mut self, run: super::Run) {
+impl<'a> Search<'a> {
+    /// A search with no run yet; `determined` tells whether the data determine every parameter at a
+    /// run's end.
+    pub fn new(determined: &'a dyn Fn(&super::Run) -> bool) -> Search<'a> {
+        Search {
+            best: None,
+            evaluations: 0,
+            tried: 0,
+            agreeing: 0,
+            determined,
+        }
+    }
+
+    /// Counts `run` and keeps it if its χ² is below the best so far (a NaN χ² never is); a kept run
+    /// whose residuals look like noise is judged for determinacy.
+    pub fn consider(&mut self, mut run: super::Run) {
         self.evaluations += run.evaluations;
         self.tried += 1;
         let best = self.chi_square();
@@ -379,6 +394,9 @@ impl Search {
             .as_ref()
             .is_none_or(|b| run.chi_square < b.chi_square)
         {
+            if run.white && run.determined.is_none() {
+                run.determined = Some((self.determined)(&run));
+            }
             self.best = Some(run);
         }
     }
@@ -395,7 +413,7 @@ impl Search {
     /// Whether [`SETTLED`] runs reached the best χ² and its residuals look like noise, whatever other
     /// runs found: after the whole grid, the mark of an optimum that moving arcs does not improve.
     pub fn noise_like_consensus(&self) -> bool {
-        self.agreeing >= SETTLED && self.best.as_ref().is_some_and(|b| b.noise_like)
+        self.agreeing >= SETTLED && self.best.as_ref().is_some_and(|b| b.noise_like())
     }
 
     /// χ² of the best run so far (infinite before any).
