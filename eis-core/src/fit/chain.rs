@@ -30,7 +30,7 @@
 use super::FitWarning;
 use super::start::{self, Context};
 use super::{
-    FitError, FitResult, FitSettings, Prepared, SCREEN_TOLERANCE, fit, fit_from, prepare, run_lm,
+    FitError, FitResult, FitSettings, Local, Prepared, SCREEN_TOLERANCE, fit, fit_from, prepare,
 };
 use crate::circuit::Circuit;
 use crate::eval::Plan;
@@ -190,19 +190,22 @@ fn screen(circuit: &Circuit, spectrum: &Spectrum, settings: &FitSettings) -> Opt
     let free: Vec<usize> = (0..setup.base.len()).filter(|&i| !setup.fixed[i]).collect();
     let transforms = start::transforms(circuit, &free);
     let ctx = setup.context(circuit, &prep);
+    let local = Local {
+        plan: &plan,
+        prep: &prep,
+        free: &free,
+        transforms: &transforms,
+    };
     start::grid_starts(&ctx, &terms, SCREENED)
         .iter()
         .map(|s| {
-            run_lm(
-                &plan,
-                &prep,
-                &free,
-                &transforms,
-                s,
-                settings.tolerance.max(SCREEN_TOLERANCE),
-                settings.patience,
-            )
-            .chi_square
+            local
+                .run(
+                    s,
+                    settings.tolerance.max(SCREEN_TOLERANCE),
+                    settings.patience,
+                )
+                .chi_square
         })
         .filter(|c| c.is_finite())
         .min_by(f64::total_cmp)
@@ -280,11 +283,13 @@ pub(crate) fn seed_run(
             base[i]
         };
     }
-    let run = run_lm(
-        &plan,
-        &prep,
-        &free,
-        &transforms,
+    let local = Local {
+        plan: &plan,
+        prep: &prep,
+        free: &free,
+        transforms: &transforms,
+    };
+    let run = local.run(
         &s,
         settings.tolerance.max(SCREEN_TOLERANCE),
         settings.patience,

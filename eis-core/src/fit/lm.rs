@@ -102,6 +102,8 @@ pub(crate) struct Solver {
     gtol: f64,
     stepbound: f64,
     patience: usize,
+    /// Stop a run whose sum of squares is still above `.0` after `.1` evaluations.
+    give_up: Option<(f64, usize)>,
 }
 
 impl Default for Solver {
@@ -112,6 +114,7 @@ impl Default for Solver {
             gtol: 30.0 * f64::EPSILON,
             stepbound: 100.0,
             patience: 100,
+            give_up: None,
         }
     }
 }
@@ -126,19 +129,43 @@ pub(crate) struct Report {
 }
 
 impl Solver {
+    /// The same relative tolerance on the reduction of the sum of squares, the scaled step and the
+    /// cosine between the residuals and the Jacobian's columns (default 30ε each).
+    pub(crate) fn with_tolerance(self, tolerance: f64) -> Self {
+        Solver {
+            ftol: tolerance,
+            xtol: tolerance,
+            gtol: tolerance,
+            ..self
+        }
+    }
+
     /// Relative tolerance on the reduction of the sum of squares (default 30ε).
+    #[cfg(test)]
     pub(crate) fn with_ftol(self, ftol: f64) -> Self {
         Solver { ftol, ..self }
     }
 
     /// Relative tolerance on the scaled step (default 30ε).
+    #[cfg(test)]
     pub(crate) fn with_xtol(self, xtol: f64) -> Self {
         Solver { xtol, ..self }
     }
 
     /// Tolerance on the cosine between the residuals and any column of the Jacobian (default 30ε).
+    #[cfg(test)]
     pub(crate) fn with_gtol(self, gtol: f64) -> Self {
         Solver { gtol, ..self }
+    }
+
+    /// The run stops, as out of patience, once it has made `after` evaluations with its sum of squares
+    /// still above `chi_square` (default never): a run bound for a basin far worse than one already
+    /// found need not be followed to its end.
+    pub(crate) fn with_give_up(self, chi_square: f64, after: usize) -> Self {
+        Solver {
+            give_up: Some((chi_square, after)),
+            ..self
+        }
     }
 
     /// The run stops after `patience`·(n + 1) evaluations (default 100).
@@ -297,7 +324,11 @@ impl Solver {
                     let xtol = delta <= self.xtol * xnorm;
                     if ftol || xtol {
                         Some(Termination::Converged { ftol, xtol })
-                    } else if report.evaluations >= max_fev {
+                    } else if report.evaluations >= max_fev
+                        || self.give_up.is_some_and(|(chi, after)| {
+                            report.evaluations >= after && fnorm * fnorm > chi
+                        })
+                    {
                         Some(Termination::LostPatience)
                     } else if actual.abs() <= f64::EPSILON
                         && predicted <= f64::EPSILON

@@ -354,6 +354,9 @@ pub(super) struct Search<'a> {
     /// Runs that ended at the best χ² so far (within [`AGREE`] relative): independent starts that
     /// agree on the optimum.
     pub agreeing: usize,
+    /// Runs given up far above the best χ² before they ended (counted in `tried`): they neither agree
+    /// with the best nor reached another optimum.
+    abandoned: usize,
     /// Whether the data determine every parameter at a run's end (the costly part of
     /// [`super::Run::noise_like`], judged for the runs that become the best only).
     determined: &'a dyn Fn(&super::Run) -> bool,
@@ -374,6 +377,7 @@ impl<'a> Search<'a> {
             evaluations: 0,
             tried: 0,
             agreeing: 0,
+            abandoned: 0,
             determined,
         }
     }
@@ -401,13 +405,20 @@ impl<'a> Search<'a> {
         }
     }
 
+    /// Counts a run given up far above the best χ² (its evaluations and its start) without keeping it.
+    pub fn abandon(&mut self, run: super::Run) {
+        self.evaluations += run.evaluations;
+        self.tried += 1;
+        self.abandoned += 1;
+    }
+
     /// Whether the search may stop: at least [`SETTLED`] runs reached the best χ², every run so far
     /// did (and none is `pending`, still to be considered), and the best run's residuals look like
     /// noise with every parameter determined (a wrong basin leaves smooth residuals or a vanished
     /// element). Near-optimal wrong basins attract some starts too, so a single stray run is enough
     /// to keep searching.
     pub fn settled(&self, pending: usize) -> bool {
-        self.noise_like_consensus() && self.tried == self.agreeing && pending == 0
+        self.noise_like_consensus() && self.tried == self.agreeing + self.abandoned && pending == 0
     }
 
     /// Whether [`SETTLED`] runs reached the best χ² and its residuals look like noise, whatever other
