@@ -414,17 +414,10 @@ fn search(tables: &mut Tables, slots: &[SlotInfo], count: usize) -> Vec<(Vec<usi
     // Refinement: move each slot by one half decade around the best coarse points (each neighbour
     // once).
     let mut refined = results.clone();
-    // Assignments seen, packed into one integer each (fine indices in base `radix`; exact up to 24
-    // slots, beyond which a rare collision only skips one refinement point).
-    let radix = fine_len.iter().copied().max().unwrap_or(1) as u128 + 1;
-    let key = |a: &[usize]| {
-        a.iter()
-            .fold(0u128, |k, &v| k.wrapping_mul(radix).wrapping_add(v as u128))
-    };
-    let mut seen: std::collections::HashSet<u128> = results
-        .iter()
-        .map(|&(_, at)| key(&arena[at..at + ns]))
-        .collect();
+    let mut seen = Seen::new(&fine_len);
+    for &(_, at) in &results {
+        seen.insert(&arena[at..at + ns]);
+    }
     let neighbours = 3usize.pow(ns as u32);
     for &(_, at) in &results {
         for code in 0..neighbours {
@@ -440,7 +433,7 @@ fn search(tables: &mut Tables, slots: &[SlotInfo], count: usize) -> Vec<(Vec<usi
                 }
                 assign[s] = v as usize;
             }
-            if !ok || !ordered(&assign) || !seen.insert(key(&assign)) {
+            if !ok || !ordered(&assign) || !seen.insert(&assign) {
                 continue;
             }
             let sse = tables.evaluate(&assign, &mut solver);
@@ -467,6 +460,62 @@ fn search(tables: &mut Tables, slots: &[SlotInfo], count: usize) -> Vec<(Vec<usi
     }
 
     chosen
+}
+
+/// The assignments of fine-grid indices to slots the search has seen, each as its index in the mixed
+/// radix of the fine grids' lengths: a bitmap while all assignments fit in [`SEEN_BITS`] bits (every
+/// recognised circuit of a few slots), a hash set beyond.
+enum Seen {
+    Bits {
+        radix: Vec<usize>,
+        bits: Vec<u64>,
+    },
+    Set {
+        radix: Vec<usize>,
+        set: std::collections::HashSet<u128>,
+    },
+}
+
+/// Largest number of assignments kept as a bitmap (128 KiB).
+const SEEN_BITS: u128 = 1 << 20;
+
+impl Seen {
+    fn new(fine_len: &[usize]) -> Seen {
+        let radix = fine_len.to_vec();
+        let total = fine_len
+            .iter()
+            .try_fold(1u128, |t, &l| t.checked_mul(l as u128));
+        match total {
+            Some(t) if t <= SEEN_BITS => Seen::Bits {
+                radix,
+                bits: vec![0; (t as usize).div_ceil(64)],
+            },
+            _ => Seen::Set {
+                radix,
+                set: std::collections::HashSet::new(),
+            },
+        }
+    }
+
+    /// Marks `a` as seen; whether it was new. Beyond about 24 slots of the set a rare collision of the
+    /// wrapped index only skips one refinement point.
+    fn insert(&mut self, a: &[usize]) -> bool {
+        let index = |radix: &[usize]| {
+            a.iter().zip(radix).fold(0u128, |k, (&v, &r)| {
+                k.wrapping_mul(r as u128).wrapping_add(v as u128)
+            })
+        };
+        match self {
+            Seen::Bits { radix, bits } => {
+                let k = index(radix) as usize;
+                let (word, bit) = (k / 64, 1u64 << (k % 64));
+                let new = bits[word] & bit == 0;
+                bits[word] |= bit;
+                new
+            }
+            Seen::Set { radix, set } => set.insert(index(radix)),
+        }
+    }
 }
 
 /// A coefficient the NNLS left at zero becomes one whose term reaches 1e-3 of the data's scale where
