@@ -365,8 +365,9 @@ pub(super) struct Search<'a> {
 /// Agreeing runs after which a search whose best residuals look like noise stops.
 pub(super) const SETTLED: usize = 3;
 
-/// Relative χ² difference within which two runs are taken to have reached the same optimum.
-pub(super) const AGREE: f64 = 1e-6;
+/// Relative χ² difference within which two runs are taken to have reached the same optimum: that of
+/// runs stopped at the search's tolerance (`SCREEN_TOLERANCE`, 1e-4) in one basin.
+pub(crate) const AGREE: f64 = 1e-4;
 
 impl<'a> Search<'a> {
     /// A search with no run yet; `determined` tells whether the data determine every parameter at a
