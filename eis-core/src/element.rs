@@ -528,12 +528,13 @@ fn with_exps(n: usize, exponent: impl Fn(usize) -> f64, mut point: impl FnMut(us
     }
 }
 
-/// Calls `point(i, e^{−y}, sin y, cos y)` with y = `angle(i)` for every point i < n: the factors of
-/// e^{−y(1 + j)}, taken in vectors a block of points at a time on the stack (no allocation).
+/// Calls `block(start, e^{−y}, sin y, cos y)` over blocks of points from `start` on, with y =
+/// `angle(i)` for every point i < n: the factors of e^{−y(1 + j)}, taken in vectors a block of points
+/// at a time on the stack (no allocation).
 fn with_decays(
     n: usize,
     angle: impl Fn(usize) -> f64,
-    mut point: impl FnMut(usize, f64, f64, f64),
+    mut block: impl FnMut(usize, &[f64], &[f64], &[f64]),
 ) {
     let mut y = [0.0; BLOCK];
     let (mut e, mut sin, mut cos) = ([0.0; BLOCK], [0.0; BLOCK], [0.0; BLOCK]);
@@ -547,9 +548,7 @@ fn with_decays(
             *v = -*v;
         }
         crate::dense::sin_cos_into(&y[..len], &mut sin[..len], &mut cos[..len]);
-        for k in 0..len {
-            point(start + k, e[k], sin[k], cos[k]);
-        }
+        block(start, &e[..len], &sin[..len], &cos[..len]);
     }
 }
 
@@ -616,15 +615,15 @@ fn series(c: &[f64], u: Complex64) -> (Complex64, Complex64) {
 
 /// e^{−2s} for s = a(1 + j), a ≥ 0, given `decay` = e^{−2a}, `sin` = sin 2a and `cos` = cos 2a; zero
 /// where it is below round-off of anything it is added to.
+#[inline(always)]
 fn exp_minus_2s(a: f64, decay: f64, sin: f64, cos: f64) -> Complex64 {
-    if 2.0 * a > EXP_LIMIT {
-        return ZERO;
-    }
-    Complex64::new(cos, -sin) * decay
+    // Both computed, one chosen: no branch in a vector loop.
+    let e = Complex64::new(cos, -sin) * decay;
+    if 2.0 * a > EXP_LIMIT { ZERO } else { e }
 }
 
 /// 2a = √2·√(ωτ), the angle and decay rate of e^{−2s} = e^{−2a}(cos 2a − j sin 2a) in
-/// [`diffusion_point_decayed`].
+/// [`diffusion_closed`].
 fn decay_angle(sqrt_wt: f64) -> f64 {
     2.0 * (sqrt_wt * FRAC_1_SQRT_2)
 }
@@ -661,8 +660,8 @@ fn diffusion_point(
     )
 }
 
-/// [`diffusion_point`] given `decay` = (e^{−2a}, sin 2a, cos 2a) of 2a = [`decay_angle`], which the caller takes in
-/// vectors for a block of points.
+/// [`diffusion_point`] given `decay` = (e^{−2a}, sin 2a, cos 2a) of 2a = [`decay_angle`].
+#[cfg(test)]
 fn diffusion_point_decayed(
     boundary: Boundary,
     r: f64,
@@ -672,21 +671,46 @@ fn diffusion_point_decayed(
     use_series: bool,
     decay: (f64, f64, f64),
 ) -> (Complex64, Complex64, Complex64) {
-    let one = Complex64::new(1.0, 0.0);
     if use_series {
-        let u = J * wt;
-        let (f, ufp) = match boundary {
-            Boundary::Transmissive => series(&TANH_OVER_S, u),
-            // coth(s)/s = 1/u + g(u), and u d/du (1/u) = −1/u.
-            Boundary::Reflective => {
-                let (g, ug) = series(&COTH_OVER_S, u);
-                let inv_u = 1.0 / u;
-                (inv_u + g, ug - inv_u)
-            }
-        };
-        // dZ/dτ = R f'(u) du/dτ = R·u f'(u)/τ.
-        return (r * f, f, r * ufp / tau);
+        diffusion_series(boundary, r, tau, wt)
+    } else {
+        diffusion_closed(boundary, r, tau, sqrt_wt, decay)
     }
+}
+
+/// Z and ∂Z/∂(R, τ) by the Taylor series in u = jωτ (`wt` = ωτ), for √(ωτ) below [`SERIES_LIMIT`].
+fn diffusion_series(
+    boundary: Boundary,
+    r: f64,
+    tau: f64,
+    wt: f64,
+) -> (Complex64, Complex64, Complex64) {
+    let u = J * wt;
+    let (f, ufp) = match boundary {
+        Boundary::Transmissive => series(&TANH_OVER_S, u),
+        // coth(s)/s = 1/u + g(u), and u d/du (1/u) = −1/u.
+        Boundary::Reflective => {
+            let (g, ug) = series(&COTH_OVER_S, u);
+            let inv_u = 1.0 / u;
+            (inv_u + g, ug - inv_u)
+        }
+    };
+    // dZ/dτ = R f'(u) du/dτ = R·u f'(u)/τ.
+    (r * f, f, r * ufp / tau)
+}
+
+/// Z and ∂Z/∂(R, τ) in closed form, given `decay` = (e^{−2a}, sin 2a, cos 2a) of 2a = [`decay_angle`]
+/// of `sqrt_wt` = √(ωτ); branch-free, so that a loop of it runs in vectors. Meant for √(ωτ) from
+/// [`SERIES_LIMIT`] on (below, it loses digits to cancellation, and at zero it is not a number).
+#[inline(always)]
+fn diffusion_closed(
+    boundary: Boundary,
+    r: f64,
+    tau: f64,
+    sqrt_wt: f64,
+    decay: (f64, f64, f64),
+) -> (Complex64, Complex64, Complex64) {
+    let one = Complex64::new(1.0, 0.0);
     // √(jωτ) = √(ωτ)·e^{jπ/4} = a(1 + j), without a complex square root; 1/s = (1 − j)/(2a).
     let a = sqrt_wt * FRAC_1_SQRT_2;
     let s = Complex64::new(a, a);
@@ -717,19 +741,27 @@ fn diffusion(boundary: Boundary, p: &[f64], g: &Grid, z: &mut [Complex64], dz: &
     with_decays(
         g.len(),
         |i| decay_angle(g.sqrt_omega[i] * sqrt_tau),
-        |i, decay, sin, cos| {
-            let sqrt_wt = g.sqrt_omega[i] * sqrt_tau;
-            let use_series = sqrt_wt < SERIES_LIMIT;
-            let wt = g.omega[i] * tau;
-            (z[i], dr[i], dt[i]) = diffusion_point_decayed(
-                boundary,
-                r,
-                tau,
-                wt,
-                sqrt_wt,
-                use_series,
-                (decay, sin, cos),
+        |start, e, sin, cos| {
+            let end = start + e.len();
+            let (z, dr, dt) = (&mut z[start..end], &mut dr[start..end], &mut dt[start..end]);
+            let sqrt_omega = &g.sqrt_omega[start..end];
+            // The closed form at every point, in vectors; then the series where √(ωτ) is small.
+            crate::dense::arch().dispatch(
+                #[inline(always)]
+                || {
+                    for k in 0..z.len() {
+                        let decay = (e[k], sin[k], cos[k]);
+                        (z[k], dr[k], dt[k]) =
+                            diffusion_closed(boundary, r, tau, sqrt_omega[k] * sqrt_tau, decay);
+                    }
+                },
             );
+            for k in 0..z.len() {
+                if sqrt_omega[k] * sqrt_tau < SERIES_LIMIT {
+                    let wt = g.omega[start + k] * tau;
+                    (z[k], dr[k], dt[k]) = diffusion_series(boundary, r, tau, wt);
+                }
+            }
         },
     );
 }
