@@ -629,10 +629,12 @@ impl Normal {
 
     /// Solves for the coefficients (left in `x`) and returns the weighted sum of squares
     /// ‖Ax − y‖² = yᵀy − 2xᵀb + xᵀGx (`yy` = yᵀy) with them. Non-finite input gives zero
-    /// coefficients and the sum of squares of the data.
+    /// coefficients and the sum of squares of the data. The active-set route starts from the free set
+    /// of the last grid point that needed it: the search visits neighbouring points in turn, whose
+    /// free sets are mostly the same.
     fn solve(&mut self, yy: f64) -> f64 {
         if !self.solve_unconstrained()
-            && solve_normal(&self.g, &self.b, &mut self.x, &mut self.workspace, false).is_err()
+            && solve_normal(&self.g, &self.b, &mut self.x, &mut self.workspace, true).is_err()
         {
             self.x.fill(0.0);
         }
