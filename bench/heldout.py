@@ -171,6 +171,26 @@ def resistance_indices(family):
     return [k for k, n in enumerate(names) if n[0] == "R" or n.endswith(".R")]
 
 
+# Families whose arcs are the same block (R|Q in series, nothing else inside): their labels are a
+# convention, not a property of the optimum. eis orders such arcs by increasing time constant, a
+# single local fit keeps whatever order its start had; comparisons of resistances put both in
+# that order first (`canonical`), so that one optimum under two labellings is not counted as two.
+IDENTICAL_ARCS = {"two arcs": [(1, 2, 3), (4, 5, 6)]}
+
+
+def canonical(family, p):
+    """p with identical arcs (R, Q, n) in increasing order of their time constant (RQ)^(1/n)."""
+    arcs = IDENTICAL_ARCS.get(family)
+    p = list(p)
+    if not arcs:
+        return p
+    blocks = sorted(([p[i] for i in a] for a in arcs), key=lambda b: (b[0] * b[1]) ** (1.0 / b[2]))
+    for a, b in zip(arcs, blocks):
+        for i, v in zip(a, b):
+            p[i] = v
+    return p
+
+
 def exponent_indices(family):
     return [k for k, n in enumerate(FAMILIES[family][1]) if n.endswith(".n")]
 
