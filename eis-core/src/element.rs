@@ -647,35 +647,12 @@ fn diffusion_point(
     sqrt_wt: f64,
     use_series: bool,
 ) -> (Complex64, Complex64, Complex64) {
+    if use_series {
+        return diffusion_series(boundary, r, tau, wt);
+    }
     let y = decay_angle(sqrt_wt);
     let (sin, cos) = y.sin_cos();
-    diffusion_point_decayed(
-        boundary,
-        r,
-        tau,
-        wt,
-        sqrt_wt,
-        use_series,
-        ((-y).exp(), sin, cos),
-    )
-}
-
-/// [`diffusion_point`] given `decay` = (e^{−2a}, sin 2a, cos 2a) of 2a = [`decay_angle`].
-#[cfg(test)]
-fn diffusion_point_decayed(
-    boundary: Boundary,
-    r: f64,
-    tau: f64,
-    wt: f64,
-    sqrt_wt: f64,
-    use_series: bool,
-    decay: (f64, f64, f64),
-) -> (Complex64, Complex64, Complex64) {
-    if use_series {
-        diffusion_series(boundary, r, tau, wt)
-    } else {
-        diffusion_closed(boundary, r, tau, sqrt_wt, decay)
-    }
+    diffusion_closed(boundary, r, tau, sqrt_wt, ((-y).exp(), sin, cos))
 }
 
 /// Z and ∂Z/∂(R, τ) by the Taylor series in u = jωτ (`wt` = ωτ), for √(ωτ) below [`SERIES_LIMIT`].

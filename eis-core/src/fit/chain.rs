@@ -28,10 +28,8 @@
 //! data force the change: the fit keeps the better optimum and says so ([`Identity::ForcedJump`]).
 
 use super::FitWarning;
-use super::start::{self, Context};
-use super::{
-    FitError, FitResult, FitSettings, Local, Prepared, SCREEN_TOLERANCE, fit, fit_from, prepare,
-};
+use super::start;
+use super::{FitError, FitResult, FitSettings, SCREEN_TOLERANCE, Setup, fit, fit_from, prepare};
 use crate::circuit::Circuit;
 use crate::eval::Plan;
 use crate::spectrum::Spectrum;
@@ -152,34 +150,6 @@ pub fn arc_order(circuit: &Circuit, values: &[f64]) -> Option<Vec<usize>> {
     )
 }
 
-/// What the start search needs besides the prepared data: the circuit's defaults and fixed flags.
-struct Setup {
-    base: Vec<f64>,
-    fixed: Vec<bool>,
-}
-
-impl Setup {
-    fn new(circuit: &Circuit) -> Setup {
-        Setup {
-            base: circuit.default_values(),
-            fixed: circuit.params.iter().map(|p| p.fixed).collect(),
-        }
-    }
-
-    fn context<'a>(&'a self, circuit: &'a Circuit, prep: &'a Prepared) -> Context<'a> {
-        Context {
-            circuit,
-            omegas: &prep.omegas,
-            grid: &prep.grid,
-            data: &prep.data,
-            w_re: &prep.w_re,
-            w_im: &prep.w_im,
-            base: &self.base,
-            fixed: &self.fixed,
-        }
-    }
-}
-
 /// Lowest χ² of a few fresh candidates (the best grid points, each run to a loose tolerance); None when
 /// the circuit is outside the recognised blocks or the data cannot be prepared.
 fn screen(circuit: &Circuit, spectrum: &Spectrum, settings: &FitSettings) -> Option<f64> {
@@ -187,15 +157,8 @@ fn screen(circuit: &Circuit, spectrum: &Spectrum, settings: &FitSettings) -> Opt
     let prep = prepare(spectrum, settings.weighting).ok()?;
     let plan = Plan::compile(circuit);
     let setup = Setup::new(circuit);
-    let free: Vec<usize> = (0..setup.base.len()).filter(|&i| !setup.fixed[i]).collect();
-    let transforms = start::transforms(circuit, &free);
     let ctx = setup.context(circuit, &prep);
-    let local = Local {
-        plan: &plan,
-        prep: &prep,
-        free: &free,
-        transforms: &transforms,
-    };
+    let local = setup.local(&plan, &prep);
     start::grid_starts(&ctx, &terms, SCREENED)
         .iter()
         .map(|s| {
@@ -268,13 +231,10 @@ pub(crate) fn seed_run(
     }
     let prep = prepare(spectrum, settings.weighting).ok()?;
     let plan = Plan::compile(circuit);
-    let base = circuit.default_values();
-    let free: Vec<usize> = (0..base.len())
-        .filter(|&i| !circuit.params[i].fixed)
-        .collect();
-    let transforms = start::transforms(circuit, &free);
+    let setup = Setup::new(circuit);
+    let (base, free, transforms) = (&setup.base, &setup.free, &setup.transforms);
     let mut s = base.clone();
-    for &i in &free {
+    for &i in free {
         let (lo, hi) = circuit.bounds(i);
         let v = start[i];
         s[i] = if v.is_finite() && v > lo && v < hi {
@@ -283,13 +243,7 @@ pub(crate) fn seed_run(
             base[i]
         };
     }
-    let local = Local {
-        plan: &plan,
-        prep: &prep,
-        free: &free,
-        transforms: &transforms,
-    };
-    let run = local.run(
+    let run = setup.local(&plan, &prep).run(
         &s,
         settings.tolerance.max(SCREEN_TOLERANCE),
         settings.patience,
@@ -299,7 +253,7 @@ pub(crate) fn seed_run(
     }
     let inside = free
         .iter()
-        .zip(&transforms)
+        .zip(transforms)
         .all(|(&i, t)| !t.at_bound(t.to_internal(run.params[i])));
     let good = run.termination.was_successful() && inside;
     Some((run.params, good))

@@ -679,6 +679,56 @@ pub fn fit_from(
     )?)
 }
 
+/// What the start search needs besides the prepared data: the circuit's defaults and fixed flags.
+struct Setup {
+    /// The circuit's initial or default values.
+    base: Vec<f64>,
+    /// Which parameters are held fixed.
+    fixed: Vec<bool>,
+    /// Indices of the free parameters.
+    free: Vec<usize>,
+    /// Internal transform of each free parameter.
+    transforms: Vec<Transform>,
+}
+
+impl Setup {
+    /// The defaults, fixed flags, free parameters and their transforms of `circuit`.
+    fn new(circuit: &Circuit) -> Setup {
+        let fixed: Vec<bool> = circuit.params.iter().map(|p| p.fixed).collect();
+        let free: Vec<usize> = (0..fixed.len()).filter(|&i| !fixed[i]).collect();
+        Setup {
+            base: circuit.default_values(),
+            transforms: start::transforms(circuit, &free),
+            fixed,
+            free,
+        }
+    }
+
+    /// What the local runs on the data `prep` share, with the compiled circuit `plan`.
+    fn local<'a>(&'a self, plan: &'a Plan, prep: &'a Prepared) -> Local<'a> {
+        Local {
+            plan,
+            prep,
+            free: &self.free,
+            transforms: &self.transforms,
+        }
+    }
+
+    /// The start search's view of `circuit` on the data `prep`.
+    fn context<'a>(&'a self, circuit: &'a Circuit, prep: &'a Prepared) -> start::Context<'a> {
+        start::Context {
+            circuit,
+            omegas: &prep.omegas,
+            grid: &prep.grid,
+            data: &prep.data,
+            w_re: &prep.w_re,
+            w_im: &prep.w_im,
+            base: &self.base,
+            fixed: &self.fixed,
+        }
+    }
+}
+
 /// [`fit`], or with `single` the warm-start run alone ([`fit_from`]).
 fn fit_impl(
     circuit: &Circuit,
@@ -691,8 +741,8 @@ fn fit_impl(
     let prep = prepare(spectrum, settings.weighting)?;
     let plan = Plan::compile(circuit);
     let np = circuit.params.len();
-    let fixed: Vec<bool> = circuit.params.iter().map(|p| p.fixed).collect();
-    let free: Vec<usize> = (0..np).filter(|&i| !fixed[i]).collect();
+    let setup = Setup::new(circuit);
+    let free = &setup.free;
     if free.is_empty() {
         return Err(FitError::NothingFree);
     }
@@ -704,7 +754,7 @@ fn fit_impl(
             free: free.len(),
         });
     }
-    let base = circuit.default_values();
+    let base = &setup.base;
     for (i, &v) in base.iter().enumerate() {
         let (lo, hi) = circuit.bounds(i);
         if !(v >= lo && v <= hi) {
@@ -716,23 +766,9 @@ fn fit_impl(
             });
         }
     }
-    let transforms = start::transforms(circuit, &free);
-    let ctx = start::Context {
-        circuit,
-        omegas: &prep.omegas,
-        grid: &prep.grid,
-        data: &prep.data,
-        w_re: &prep.w_re,
-        w_im: &prep.w_im,
-        base: &base,
-        fixed: &fixed,
-    };
-    let local = Local {
-        plan: &plan,
-        prep: &prep,
-        free: &free,
-        transforms: &transforms,
-    };
+    let transforms = &setup.transforms;
+    let ctx = setup.context(circuit, &prep);
+    let local = setup.local(&plan, &prep);
     let run = |s: &[f64], tolerance: f64| local.run(s, tolerance, settings.patience);
     let lm = |s: &[f64]| run(s, settings.tolerance);
     // The many runs of the full search only have to rank basins: they stop at a looser tolerance,
@@ -744,8 +780,8 @@ fn fit_impl(
             circuit,
             &plan,
             &prep,
-            &free,
-            &transforms,
+            free,
+            transforms,
             run,
             settings,
             evaluations,
@@ -758,7 +794,7 @@ fn fit_impl(
     let determined = |r: &Run| {
         r.point
             .as_ref()
-            .is_some_and(|p| p.determines_every_parameter(&free, &prep.w_rows, &transforms))
+            .is_some_and(|p| p.determines_every_parameter(free, &prep.w_rows, transforms))
     };
     let mut search = start::Search::new(&determined);
 
@@ -779,7 +815,7 @@ fn fit_impl(
             });
         }
         let mut s = base.clone();
-        for &i in &free {
+        for &i in free {
             s[i] = w[i];
             let (lo, hi) = circuit.bounds(i);
             if !(s[i] > lo && s[i] < hi && s[i].is_finite()) {
@@ -834,7 +870,7 @@ fn fit_impl(
         .iter()
         .all(|p| p.fixed || p.initial.is_some())
     {
-        search.consider(lm(&base));
+        search.consider(lm(base));
     }
     let terms = start::recognise(circuit);
     // A brief run: at most `patience` × (P + 1) evaluations, and given up after P + 1 of them while
