@@ -888,6 +888,19 @@ fn fit_impl(
     // `give_up` times the best χ² after P + 1 evaluations is abandoned, and of the others the `keep`
     // lowest in χ² are carried on to convergence (from where they stopped). Starts are taken best
     // first, and the rest are skipped once the search has settled (`Search::settled`).
+    // The unfinished brief runs: the `keep` lowest in χ² carried on to convergence (from where they
+    // stopped), the others counted as they are.
+    let carry_on = |search: &mut start::Search, pending: &mut Vec<Run>, keep: usize| {
+        pending.sort_by(|a, b| a.chi_square.total_cmp(&b.chi_square));
+        for (i, r) in pending.drain(..).enumerate() {
+            if i < keep {
+                search.evaluations += r.evaluations;
+                search.consider(screen(&r.params));
+            } else {
+                search.consider(r);
+            }
+        }
+    };
     let staged = |search: &mut start::Search,
                   starts: &[Vec<f64>],
                   patience: usize,
@@ -897,6 +910,13 @@ fn fit_impl(
         for s in starts {
             if search.settled(pending.len()) {
                 break;
+            }
+            // When only unfinished runs keep the search from settling, they are carried on now.
+            if !pending.is_empty() && search.settled(0) {
+                carry_on(search, &mut pending, keep);
+                if search.settled(0) {
+                    break;
+                }
             }
             let limit = give_up * search.chi_square();
             let r = brief(s, patience, limit);
@@ -908,15 +928,7 @@ fn fit_impl(
                 pending.push(r);
             }
         }
-        pending.sort_by(|a, b| a.chi_square.total_cmp(&b.chi_square));
-        for (i, r) in pending.into_iter().enumerate() {
-            if i < keep {
-                search.evaluations += r.evaluations;
-                search.consider(screen(&r.params));
-            } else {
-                search.consider(r);
-            }
-        }
+        carry_on(search, &mut pending, keep);
     };
     match &terms {
         Some(t) => {
