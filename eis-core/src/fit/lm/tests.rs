@@ -329,3 +329,35 @@ fn runs_match_the_levenberg_marquardt_crate() {
         }
     }
 }
+
+/// Rosenbrock's valley as residuals r = (10(x₂ − x₁²), 1 − x₁) (Rosenbrock 1960, The Computer
+/// Journal 3, 175), whose minimum r = 0 lies at (1, 1) (derived), from the customary start (−1.2, 1),
+/// where Σr² = 24.2 and the solver needs many steps along the curved valley. A third residual, zero
+/// everywhere, makes the problem taller than wide, as the solver's core requires.
+fn rosenbrock(x: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let r = vec![10.0 * (x[1] - x[0] * x[0]), 1.0 - x[0], 0.0];
+    // Column-major 3 × 2: ∂r/∂x₁, then ∂r/∂x₂.
+    let j = vec![-20.0 * x[0], -1.0, 0.0, 10.0, 0.0, 0.0];
+    (r, j)
+}
+
+/// A run told to give up stops as out of patience at the evaluation named while its sum of squares is
+/// still above the limit; a limit it is already below changes nothing.
+#[test]
+fn a_run_gives_up_only_while_above_its_limit() {
+    let start = [-1.2, 1.0];
+    let mut p = Dense::new(rosenbrock, &start);
+    let report = Solver::default().with_give_up(1e-20, 3).minimize(&mut p);
+    assert_eq!(report.termination, Termination::LostPatience);
+    assert_eq!(report.evaluations, 3);
+
+    let mut free = Dense::new(rosenbrock, &start);
+    let plain = Solver::default().minimize(&mut free);
+    let mut loose = Dense::new(rosenbrock, &start);
+    let report = Solver::default().with_give_up(1e6, 3).minimize(&mut loose);
+    assert!(report.termination.was_successful(), "{report:?}");
+    assert_eq!(report, plain);
+    for x in &loose.x {
+        assert!((x - 1.0).abs() < 1e-8, "{:?}", loose.x);
+    }
+}

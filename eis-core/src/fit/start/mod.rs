@@ -552,4 +552,61 @@ mod tests {
             assert!((got - want).abs() < 1e-6 * want, "{:?}", r.values);
         }
     }
+
+    /// A converged run that ended at `chi_square`, its residuals white or not.
+    fn ended(chi_square: f64, white: bool) -> crate::fit::Run {
+        crate::fit::Run {
+            params: vec![1.0],
+            chi_square,
+            iterations: 1,
+            evaluations: 10,
+            termination: crate::fit::Termination::Converged {
+                ftol: true,
+                xtol: false,
+            },
+            point: None,
+            white,
+            determined: None,
+        }
+    }
+
+    /// The settling rule of the search (DEVELOPERS.md, "The automatic search"): three runs at the
+    /// best χ² with noise-like residuals settle it unless a rival optimum within 1.5× exists, a run is
+    /// still pending, or the best residuals are not white; a run far above the best (a wrong basin) or
+    /// given up does not keep it going.
+    #[test]
+    fn a_search_settles_only_without_rivals() {
+        let determined = |_: &crate::fit::Run| true;
+        let agreeing = |search: &mut Search<'_>| {
+            for chi in [1.0, 1.0 + 1e-6, 1.0 - 1e-6] {
+                search.consider(ended(chi, true));
+            }
+        };
+        let mut s = Search::new(&determined);
+        agreeing(&mut s);
+        assert!(s.settled(0));
+        assert!(!s.settled(1), "a pending run");
+        s.consider(ended(5.0, false));
+        s.abandon(ended(1e3, false));
+        assert!(s.settled(0), "a wrong basin far above and a given-up run");
+        s.consider(ended(1.2, true));
+        assert!(!s.settled(0), "a rival at 1.2x");
+        assert_eq!((s.tried, s.evaluations), (6, 60));
+
+        let mut s = Search::new(&determined);
+        s.consider(ended(1.3, true));
+        agreeing(&mut s);
+        assert!(!s.settled(0), "a rival found before the best");
+
+        let mut s = Search::new(&determined);
+        for chi in [1.0, 1.0, 1.0] {
+            s.consider(ended(chi, false));
+        }
+        assert!(!s.settled(0), "residuals that trend");
+
+        let undetermined = |_: &crate::fit::Run| false;
+        let mut s = Search::new(&undetermined);
+        agreeing(&mut s);
+        assert!(!s.settled(0), "a parameter the data do not determine");
+    }
 }
