@@ -193,6 +193,13 @@ impl PartialEq for ElementKind {
     }
 }
 
+/// The unit of every resistance in the table, as parameter entries and fit documents carry it: a
+/// consumer that must tell a resistance by its unit compares with this, not with a string of its own.
+pub const OHM: &str = "Ohm";
+
+/// The unit of the table's dimensionless parameters (the exponents), likewise.
+pub const DIMENSIONLESS: &str = "1";
+
 const fn positive(
     name: &'static str,
     unit: &'static str,
@@ -210,7 +217,7 @@ const fn positive(
 
 const EXPONENT: ParamInfo = ParamInfo {
     name: "n",
-    unit: "1",
+    unit: DIMENSIONLESS,
     default: 0.9,
     domain: Domain::Interval(0.0, 1.0),
     description: "CPE exponent (1 = ideal capacitor, 0 = resistor)",
@@ -220,13 +227,13 @@ const EXPONENT: ParamInfo = ParamInfo {
 /// the whole electrode.
 const PORE_RAIL: ParamInfo = positive(
     "Rion",
-    "Ohm",
+    OHM,
     1.0,
     "ionic resistance of the pore electrolyte across the electrode",
 );
 const LINE_RCT: ParamInfo = positive(
     "Rct",
-    "Ohm",
+    OHM,
     10.0,
     "charge-transfer resistance of the whole electrode surface",
 );
@@ -239,7 +246,7 @@ const LINE_Q: ParamInfo = positive(
 
 /// Parameters of the finite diffusion elements.
 const DIFFUSION: [ParamInfo; 2] = [
-    positive("R", "Ohm", 10.0, "diffusion resistance"),
+    positive("R", OHM, 10.0, "diffusion resistance"),
     positive("tau", "s", 1.0, "diffusion time constant L^2/D"),
 ];
 
@@ -276,7 +283,7 @@ pub static KINDS: &[ElementKind] = &[
         symbol: "R",
         name: "resistor",
         formula: "R",
-        params: &[positive("R", "Ohm", 10.0, "resistance")],
+        params: &[positive("R", OHM, 10.0, "resistance")],
         impedance: resistor,
         limit: |p, _| Limit::finite(p[0]),
         class: Class::Resistive,
@@ -377,7 +384,7 @@ pub static KINDS: &[ElementKind] = &[
         name: "Gerischer",
         formula: "R/sqrt(1 + jw tau)",
         params: &[
-            positive("R", "Ohm", 10.0, "Gerischer resistance"),
+            positive("R", OHM, 10.0, "Gerischer resistance"),
             positive("tau", "s", 1e-3, "Gerischer time constant"),
         ],
         impedance: gerischer,
@@ -414,7 +421,7 @@ pub static KINDS: &[ElementKind] = &[
             PORE_RAIL,
             positive(
                 "Rel",
-                "Ohm",
+                OHM,
                 0.1,
                 "electronic resistance of the solid across the electrode",
             ),

@@ -348,7 +348,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
                 p.name.clone(),
                 if p.fixed {
                     format!("{} (fixed)", short(p.value))
-                } else if p.unit == "1" {
+                } else if p.unit == eis_core::element::DIMENSIONLESS {
                     with_error_plain(p.value, p.stderr)
                 } else {
                     with_error(p.value, p.stderr)

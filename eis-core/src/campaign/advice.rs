@@ -8,9 +8,6 @@ use crate::number::format_si;
 use crate::report::FitDocument;
 use std::collections::BTreeMap;
 
-/// The unit the element table gives a resistance.
-const RESISTANCE_UNIT: &str = "Ohm";
-
 /// |ρ| above which two parameters count as strongly correlated (as in the fit's own warnings).
 const STRONG_CORRELATION: f64 = 0.98;
 
@@ -173,7 +170,7 @@ fn series_arc_frequency(d: &FitDocument, a: &str, b: &str) -> Option<f64> {
     let resistor = |p: &str| {
         d.parameters
             .iter()
-            .any(|q| q.name == p && q.unit == RESISTANCE_UNIT)
+            .any(|q| q.name == p && q.unit == crate::element::OHM)
     };
     match (arc_of(a), arc_of(b)) {
         (Some(x), None) if resistor(b) && !in_arc(b) => Some(x.peak_frequency_hz),

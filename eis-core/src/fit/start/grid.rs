@@ -21,7 +21,7 @@ struct SlotInfo {
     before: Option<usize>,
     /// For plain arcs (resistor and capacitive element only) and features in series: the (capacitive)
     /// kind and its values at unit resistance and time constant, which identify blocks of one form.
-    plain: Option<(&'static str, Vec<f64>)>,
+    plain: Option<(&'static ElementKind, Vec<f64>)>,
     /// For an arc: the linear elements of its resistive branch (a semi-infinite Warburg element),
     /// each a further column of the slot, shunted by the arc (see [`shunt`]).
     shunted: Vec<LinearTerm>,
@@ -93,7 +93,7 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
             if let Seed::Feature { of, .. } = kind.seed {
                 of(1.0, 1.0, &ctx.fixed[range], &mut v);
             }
-            let plain = top.then_some((kind.symbol, v));
+            let plain = top.then_some((kind, v));
             let before = plain
                 .as_ref()
                 .and_then(|p| slots.iter().rposition(|s| s.plain.as_ref() == Some(p)));
@@ -117,7 +117,7 @@ fn surrogate(ctx: &Context<'_>, terms: &[Term]) -> Surrogate {
                     if let Seed::Capacitive { parallel, .. } = cap.kind.seed {
                         parallel(1.0, 1.0, &ctx.fixed[cap.first..cap.first + v.len()], &mut v);
                     }
-                    (cap.kind.symbol, v)
+                    (cap.kind, v)
                 });
                 let before = plain
                     .as_ref()
