@@ -679,7 +679,8 @@ pub fn fit_from(
     )?)
 }
 
-/// What the start search needs besides the prepared data: the circuit's defaults and fixed flags.
+/// What a fit's runs and start search need of the circuit besides the prepared data: its defaults,
+/// fixed flags, free parameters and their internal transforms.
 struct Setup {
     /// The circuit's initial or default values.
     base: Vec<f64>,
@@ -884,10 +885,6 @@ fn fit_impl(
         }
         local.run_with(s, solver)
     };
-    // Every start briefly; a run that converges within its brief budget is done, one still above
-    // `give_up` times the best χ² after P + 1 evaluations is abandoned, and of the others the `keep`
-    // lowest in χ² are carried on to convergence (from where they stopped). Starts are taken best
-    // first, and the rest are skipped once the search has settled (`Search::settled`).
     // The unfinished brief runs: the `keep` lowest in χ² carried on to convergence (from where they
     // stopped), the others counted as they are.
     let carry_on = |search: &mut start::Search, pending: &mut Vec<Run>, keep: usize| {
@@ -901,6 +898,10 @@ fn fit_impl(
             }
         }
     };
+    // Every start briefly; a run that converges within its brief budget is done, one still above
+    // `give_up` times the best χ² after P + 1 evaluations is abandoned, and the others are carried on
+    // as above. Starts are taken best first, and the rest are skipped once the search has settled
+    // (`Search::settled`).
     let staged = |search: &mut start::Search,
                   starts: &[Vec<f64>],
                   patience: usize,

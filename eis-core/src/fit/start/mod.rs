@@ -371,7 +371,7 @@ pub(super) const RIVAL: f64 = 1.5;
 
 /// Relative χ² difference within which two runs are taken to have reached the same optimum: that of
 /// runs stopped at the search's tolerance (`SCREEN_TOLERANCE`, 1e-4) in one basin.
-pub(crate) const AGREE: f64 = 1e-4;
+pub(super) const AGREE: f64 = 1e-4;
 
 impl<'a> Search<'a> {
     /// A search with no run yet; `determined` tells whether the data determine every parameter at a
