@@ -10,7 +10,8 @@
 //! is the interface R_ct ∥ CPE itself. Z is symmetric in Rion and Rel, so a fit alone cannot tell the
 //! two rails apart: name them from what the cell is made of.
 
-use super::{COTH_OVER_S, Grid, Limit, series};
+use super::diffusion::{COTH_OVER_S, series};
+use super::{Grid, Limit};
 use num_complex::Complex64;
 use std::f64::consts::FRAC_PI_2;
 

@@ -28,8 +28,9 @@
 //! data force the change: the fit keeps the better optimum and says so ([`Identity::ForcedJump`]).
 
 use super::FitWarning;
+use super::search::{SCREEN_TOLERANCE, Setup};
 use super::start;
-use super::{FitError, FitResult, FitSettings, SCREEN_TOLERANCE, Setup, fit, fit_from, prepare};
+use super::{FitError, FitResult, FitSettings, fit, fit_from, prepare};
 use crate::circuit::Circuit;
 use crate::eval::Plan;
 use crate::spectrum::Spectrum;

@@ -346,7 +346,7 @@ pub(crate) fn transforms(c: &Circuit, free: &[usize]) -> Vec<Transform> {
 /// evaluations and starts spent over every run considered.
 pub(super) struct Search<'a> {
     /// The run with the lowest χ² so far (the first of equals).
-    pub best: Option<super::Run>,
+    pub best: Option<super::search::Run>,
     /// Residual evaluations over every run considered.
     pub evaluations: usize,
     /// Number of runs considered.
@@ -357,8 +357,8 @@ pub(super) struct Search<'a> {
     /// χ² at the end of every run considered.
     ends: Vec<f64>,
     /// Whether the data determine every parameter at a run's end (the costly part of
-    /// [`super::Run::noise_like`], judged for the runs that become the best only).
-    determined: &'a dyn Fn(&super::Run) -> bool,
+    /// [`super::search::Run::noise_like`], judged for the runs that become the best only).
+    determined: &'a dyn Fn(&super::search::Run) -> bool,
 }
 
 /// Agreeing runs after which a search whose best residuals look like noise stops.
@@ -376,7 +376,7 @@ pub(super) const AGREE: f64 = 1e-4;
 impl<'a> Search<'a> {
     /// A search with no run yet; `determined` tells whether the data determine every parameter at a
     /// run's end.
-    pub fn new(determined: &'a dyn Fn(&super::Run) -> bool) -> Search<'a> {
+    pub fn new(determined: &'a dyn Fn(&super::search::Run) -> bool) -> Search<'a> {
         Search {
             best: None,
             evaluations: 0,
@@ -389,7 +389,7 @@ impl<'a> Search<'a> {
 
     /// Counts `run` and keeps it if its χ² is below the best so far (a NaN χ² never is); a kept run
     /// whose residuals look like noise is judged for determinacy.
-    pub fn consider(&mut self, mut run: super::Run) {
+    pub fn consider(&mut self, mut run: super::search::Run) {
         self.evaluations += run.evaluations;
         self.tried += 1;
         self.ends.push(run.chi_square);
@@ -412,7 +412,7 @@ impl<'a> Search<'a> {
     }
 
     /// Counts a run given up far above the best χ² (its evaluations and its start) without keeping it.
-    pub fn abandon(&mut self, run: super::Run) {
+    pub fn abandon(&mut self, run: super::search::Run) {
         self.evaluations += run.evaluations;
         self.tried += 1;
     }
@@ -554,8 +554,8 @@ mod tests {
     }
 
     /// A converged run that ended at `chi_square`, its residuals white or not.
-    fn ended(chi_square: f64, white: bool) -> crate::fit::Run {
-        crate::fit::Run {
+    fn ended(chi_square: f64, white: bool) -> crate::fit::search::Run {
+        crate::fit::search::Run {
             params: vec![1.0],
             chi_square,
             iterations: 1,
@@ -576,7 +576,7 @@ mod tests {
     /// given up does not keep it going.
     #[test]
     fn a_search_settles_only_without_rivals() {
-        let determined = |_: &crate::fit::Run| true;
+        let determined = |_: &crate::fit::search::Run| true;
         let agreeing = |search: &mut Search<'_>| {
             for chi in [1.0, 1.0 + 1e-6, 1.0 - 1e-6] {
                 search.consider(ended(chi, true));
@@ -604,7 +604,7 @@ mod tests {
         }
         assert!(!s.settled(0), "residuals that trend");
 
-        let undetermined = |_: &crate::fit::Run| false;
+        let undetermined = |_: &crate::fit::search::Run| false;
         let mut s = Search::new(&undetermined);
         agreeing(&mut s);
         assert!(!s.settled(0), "a parameter the data do not determine");
