@@ -82,7 +82,7 @@ impl fmt::Display for NnlsError {
 impl std::error::Error for NnlsError {}
 
 /// Scratch memory for [`solve_normal`] with `n` variables. After a solve it also holds the free set and
-/// the Cholesky factor of Q restricted to it, which [`NnlsWorkspace::trace_inverse_product`] uses.
+/// the Cholesky factor of Q restricted to it; a warm [`solve_normal`] starts from that free set.
 #[derive(Debug, Clone)]
 pub struct NnlsWorkspace {
     n: usize,

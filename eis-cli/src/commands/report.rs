@@ -92,6 +92,11 @@ table{border-collapse:collapse;margin:0.5em 0;font-size:0.9em}td,th{border:1px s
 th{background:#f0f0f0}.flag{color:#a40000}.ok{color:#1a6d1a}.suspect{color:#a06000}.failed{color:#a40000}\
 .caution{border:1px solid #a06000;background:#fff7e6;padding:0.6em 1em}.note{color:#666}svg{max-width:100%;height:auto}";
 
+/// The SOC level nearest 50 % among `socs`, if any.
+fn nearest_half(socs: impl Iterator<Item = f64>) -> Option<f64> {
+    socs.min_by(|a, b| (a - 50.0).abs().total_cmp(&(b - 50.0).abs()))
+}
+
 /// Writes `dir/report.html`.
 pub fn write_report(
     dir: &Path,
@@ -107,21 +112,60 @@ pub fn write_report(
     } else {
         None
     };
+    let mut cells: BTreeMap<String, Vec<&SpectrumResult>> = BTreeMap::new();
+    for r in &results {
+        cells.entry(cell_of(r)).or_default().push(r);
+    }
     let mut h = String::new();
+    summary(&mut h, &results, cells.len(), circuit);
+    flags(&mut h, trend.as_ref(), x);
+    problems(&mut h, &results);
+    shared_parameters(&mut h, &results);
+    // Warnings that make a fit suspect (a bound, a trend in the residuals, a forced jump of arcs) per
+    // fit; the others (correlations, undetermined parameters) are grouped above.
+    h.push_str("<h2>Suspect fits</h2>\n");
+    let suspect: Vec<&SpectrumResult> = results
+        .iter()
+        .filter(|r| r.status == Status::Suspect && r.kk.as_ref().is_none_or(|k| k.valid))
+        .collect();
+    message_table(&mut h, &suspect, "why", "");
+
+    // Trend plots, at the SOC level nearest 50 % when there are several.
+    let plot_soc = nearest_half(results.iter().filter_map(|r| meta_num(r, "soc")));
+    let plot_trend = match (has_cycle, plot_soc) {
+        (true, Some(s)) => Some(analyse_file(
+            &csv,
+            x,
+            &[],
+            Some(s),
+            &TrendSettings::default(),
+        )?),
+        _ => trend,
+    };
+    if let Some(t) = &plot_trend {
+        trend_plots(&mut h, t, plot_soc);
+    }
+
+    h.push_str("<h2>Cells</h2>\n");
+    for (cell, rs) in &cells {
+        cell_section(&mut h, cell, rs, has_cycle, reader);
+    }
+    h.push_str("<p class=\"note\">Written by eis. Standard errors come from the fit covariance scaled by the reduced chi-square; derived quantities by first-order propagation.</p>\n</body></html>\n");
+    write_atomic(&dir.join("report.html"), h.as_bytes(), &[])
+}
+
+/// The page head, the counts of spectra, cells and outcomes, the model and the caution.
+fn summary(h: &mut String, results: &[SpectrumResult], cells: usize, circuit: Option<&Circuit>) {
     let _ = write!(
         h,
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>Impedance campaign report</title><style>{STYLE}</style></head><body>\n<h1>Impedance campaign report</h1>\n"
     );
     let count = |s: Status| results.iter().filter(|r| r.status == s).count();
-    let mut cells: BTreeMap<String, Vec<&SpectrumResult>> = BTreeMap::new();
-    for r in &results {
-        cells.entry(cell_of(r)).or_default().push(r);
-    }
     let _ = write!(
         h,
         "<h2>Summary</h2>\n<p>{} spectra from {} cells: <span class=\"ok\">{} ok</span>, <span class=\"suspect\">{} suspect</span>, <span class=\"failed\">{} failed</span>.</p>\n",
         results.len(),
-        cells.len(),
+        cells,
         count(Status::Ok),
         count(Status::Suspect),
         count(Status::Failed)
@@ -137,10 +181,12 @@ pub fn write_report(
         h,
         "<div class=\"caution\"><b>Caution.</b> The values and flags in this report are engineering hints from impedance data, not safety verdicts. Charged cells can deliver large currents into a short and many electrolytes are corrosive: handle suspect cells by your lab's own rules, local codes and the instructions of qualified staff.</div>"
     );
+}
 
-    // Flags.
+/// The trend flags of every cell and SOC level (`x` names the trend axis), or why there are none.
+fn flags(h: &mut String, trend: Option<&TrendReport>, x: &str) {
     h.push_str("<h2>Flags</h2>\n");
-    match &trend {
+    match trend {
         Some(t) if !t.flags.is_empty() => {
             h.push_str("<table><tr><th>cell</th><th>kind</th><th>quantity or spectrum</th><th>onset</th><th>change</th><th>explanation</th></tr>\n");
             for f in &t.flags {
@@ -167,8 +213,10 @@ pub fn write_report(
             "<p class=\"note\">No cycle numbers in the metadata: no trends analysed.</p>\n",
         ),
     }
+}
 
-    // Problem spectra.
+/// The problem spectra: Kramers–Kronig failures, failed files, and the identifiability advice.
+fn problems(h: &mut String, results: &[SpectrumResult]) {
     let kk_failed: Vec<(&SpectrumResult, &eis_core::campaign::KkSummary)> = results
         .iter()
         .filter_map(|r| r.kk.as_ref().filter(|k| !k.valid).map(|k| (r, k)))
@@ -198,8 +246,8 @@ pub fn write_report(
         .iter()
         .filter(|r| r.status == Status::Failed)
         .collect();
-    message_table(&mut h, &failed, "reason", " class=\"failed\"");
-    let advice = eis_core::campaign::advice(&results);
+    message_table(h, &failed, "reason", " class=\"failed\"");
+    let advice = eis_core::campaign::advice(results);
     if !advice.is_empty() {
         h.push_str("<h2>Identifiability</h2>\n<ul>\n");
         for a in &advice {
@@ -207,7 +255,10 @@ pub fn write_report(
         }
         h.push_str("</ul>\n");
     }
-    // Parameters fitted jointly along chains (`eis batch --share`): one value per chain.
+}
+
+/// Parameters fitted jointly along chains (`eis batch --share`): one value per chain.
+fn shared_parameters(h: &mut String, results: &[SpectrumResult]) {
     let mut shared: Vec<(String, String, String)> = Vec::new();
     for r in results.iter().filter(|r| !r.shared.is_empty()) {
         let Some(f) = &r.fit else { continue };
@@ -221,158 +272,136 @@ pub fn write_report(
             }
         }
     }
-    if !shared.is_empty() {
-        h.push_str("<h2>Parameters shared along chains</h2>\n<p>Fitted jointly over all spectra of a chain (<code>eis batch --share</code>): one value per chain, with its standard error from the joint covariance.</p>\n<table><tr><th>cell</th><th>parameter</th><th>value</th></tr>\n");
-        for (cell, name, value) in &shared {
-            let _ = writeln!(
-                h,
-                "<tr><td>{}</td><td>{}</td><td>{}</td></tr>",
-                esc(cell),
-                esc(name),
-                esc(value)
-            );
-        }
-        h.push_str("</table>\n");
+    if shared.is_empty() {
+        return;
     }
-    // Warnings that make a fit suspect (a bound, a trend in the residuals, a forced jump of arcs) per
-    // fit; the others (correlations, undetermined parameters) are grouped above.
-    h.push_str("<h2>Suspect fits</h2>\n");
-    let suspect: Vec<&SpectrumResult> = results
-        .iter()
-        .filter(|r| r.status == Status::Suspect && r.kk.as_ref().is_none_or(|k| k.valid))
-        .collect();
-    message_table(&mut h, &suspect, "why", "");
-
-    // Trend plots, at the SOC level nearest 50 % when there are several.
-    let socs: Vec<f64> = results.iter().filter_map(|r| meta_num(r, "soc")).collect();
-    let plot_soc = socs
-        .iter()
-        .copied()
-        .min_by(|a, b| (a - 50.0).abs().total_cmp(&(b - 50.0).abs()));
-    let plot_trend = match (has_cycle, plot_soc) {
-        (true, Some(s)) => Some(analyse_file(
-            &csv,
-            x,
-            &[],
-            Some(s),
-            &TrendSettings::default(),
-        )?),
-        _ => trend.clone(),
-    };
-    if let Some(t) = &plot_trend {
-        let at = plot_soc
-            .map(|s| format!(" at {} % SOC", eis_core::number::format_float(s)))
-            .unwrap_or_default();
+    h.push_str("<h2>Parameters shared along chains</h2>\n<p>Fitted jointly over all spectra of a chain (<code>eis batch --share</code>): one value per chain, with its standard error from the joint covariance.</p>\n<table><tr><th>cell</th><th>parameter</th><th>value</th></tr>\n");
+    for (cell, name, value) in &shared {
         let _ = writeln!(
             h,
-            "<h2>Trends{at}</h2>\n<p class=\"note\">Error bars are the standard errors of the single fits; flagged points are marked. The flags above cover every SOC level.</p>"
+            "<tr><td>{}</td><td>{}</td><td>{}</td></tr>",
+            esc(cell),
+            esc(name),
+            esc(value)
         );
-        let mut quantities: Vec<String> = Vec::new();
-        for s in &t.series {
-            if !quantities.contains(&s.quantity) {
-                quantities.push(s.quantity.clone());
-            }
-        }
-        for q in default_quantities(&quantities) {
-            let _ = writeln!(h, "<h3>{}</h3>", esc(&quantity_label(&q).0));
-            h.push_str(&svg(&trend_plot(t, &q), (900, 520)));
-            h.push('\n');
-        }
     }
+    h.push_str("</table>\n");
+}
 
-    // Per cell.
-    h.push_str("<h2>Cells</h2>\n");
-    for (cell, rs) in &cells {
-        let _ = writeln!(h, "<h3>Cell {}</h3>", esc(cell));
-        h.push_str("<table><tr><th>file</th><th>cycle</th><th>SOC</th><th>status</th>");
-        for q in results_quantities() {
-            let _ = write!(h, "<th>{} ({})</th>", q.short, q.unit);
-        }
-        h.push_str("<th>note</th></tr>\n");
-        let mut sorted = rs.clone();
-        sorted.sort_by(|a, b| {
-            meta_num(a, "cycle")
-                .unwrap_or(0.0)
-                .total_cmp(&meta_num(b, "cycle").unwrap_or(0.0))
-                .then(
-                    meta_num(a, "soc")
-                        .unwrap_or(0.0)
-                        .total_cmp(&meta_num(b, "soc").unwrap_or(0.0)),
-                )
-        });
-        for r in &sorted {
-            let d = r.fit.as_ref().map(|f| &f.derived);
-            let cellv = |v: Option<eis_core::derive::Quantity>| match v {
-                Some(v) => crate::format::with_error(v.value, v.stderr),
-                None => "-".into(),
-            };
-            let _ = write!(
-                h,
-                "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td>",
-                esc(Path::new(&r.file)
-                    .file_name()
-                    .map(|n| n.to_string_lossy().into_owned())
-                    .unwrap_or_default()
-                    .as_str()),
-                meta_num(r, "cycle")
-                    .map(eis_core::number::format_float)
-                    .unwrap_or_default(),
-                meta_num(r, "soc")
-                    .map(eis_core::number::format_float)
-                    .unwrap_or_default(),
-                r.status.as_str(),
-                r.status.as_str(),
-            );
-            for q in results_quantities() {
-                let v = d.and_then(|d| d.get(q.key));
-                let _ = write!(h, "<td>{}</td>", cellv(v));
-            }
-            let _ = writeln!(h, "<td>{}</td></tr>", esc(&r.message));
-        }
-        h.push_str("</table>\n");
-        // Nyquist overlay of the cell's spectra at one SOC level (the one nearest 50 %), coloured by cycle.
-        let socs: Vec<f64> = sorted.iter().filter_map(|r| meta_num(r, "soc")).collect();
-        let level = socs
-            .iter()
-            .copied()
-            .min_by(|a, b| (a - 50.0).abs().total_cmp(&(b - 50.0).abs()));
-        let mut spectra = Vec::new();
-        for r in sorted.iter().filter(|r| r.status != Status::Failed) {
-            if level.is_some() && meta_num(r, "soc") != level {
-                continue;
-            }
-            let Ok(reader) = SpectrumReader::open(Path::new(&r.file), reader.clone()) else {
-                continue;
-            };
-            if let Some(Ok(imp)) = reader.into_iter().nth(r.spectrum - 1) {
-                spectra.push(OverlaySpectrum {
-                    label: r.file.clone(),
-                    freq: imp.spectrum.frequency_hz,
-                    z: imp.spectrum.z,
-                    value: meta_num(r, "cycle").unwrap_or(r.spectrum as f64),
-                });
-            }
-        }
-        if !spectra.is_empty() {
-            let title = match level {
-                Some(l) => format!("Cell {cell} at {} % SOC", eis_core::number::format_float(l)),
-                None => format!("Cell {cell}"),
-            };
-            let plot = Plot::Overlay(OverlayPlot {
-                title,
-                spectra,
-                colorbar_label: if has_cycle {
-                    "cycle".into()
-                } else {
-                    "spectrum".into()
-                },
-            });
-            h.push_str(&svg(&plot, (900, 600)));
-            h.push('\n');
+/// One plot per default quantity of the trends `t`, taken at the SOC level `soc` when there is one.
+fn trend_plots(h: &mut String, t: &TrendReport, soc: Option<f64>) {
+    let at = soc
+        .map(|s| format!(" at {} % SOC", eis_core::number::format_float(s)))
+        .unwrap_or_default();
+    let _ = writeln!(
+        h,
+        "<h2>Trends{at}</h2>\n<p class=\"note\">Error bars are the standard errors of the single fits; flagged points are marked. The flags above cover every SOC level.</p>"
+    );
+    let mut quantities: Vec<String> = Vec::new();
+    for s in &t.series {
+        if !quantities.contains(&s.quantity) {
+            quantities.push(s.quantity.clone());
         }
     }
-    h.push_str("<p class=\"note\">Written by eis. Standard errors come from the fit covariance scaled by the reduced chi-square; derived quantities by first-order propagation.</p>\n</body></html>\n");
-    write_atomic(&dir.join("report.html"), h.as_bytes(), &[])
+    for q in default_quantities(&quantities) {
+        let _ = writeln!(h, "<h3>{}</h3>", esc(&quantity_label(&q).0));
+        h.push_str(&svg(&trend_plot(t, &q), (900, 520)));
+        h.push('\n');
+    }
+}
+
+/// A cell's table of spectra (by cycle, then SOC) with their battery quantities, and a Nyquist
+/// overlay of its spectra at the SOC level nearest 50 %, coloured by cycle (or spectrum number).
+fn cell_section(
+    h: &mut String,
+    cell: &str,
+    rs: &[&SpectrumResult],
+    has_cycle: bool,
+    reader: &ReaderOptions,
+) {
+    let _ = writeln!(h, "<h3>Cell {}</h3>", esc(cell));
+    h.push_str("<table><tr><th>file</th><th>cycle</th><th>SOC</th><th>status</th>");
+    for q in results_quantities() {
+        let _ = write!(h, "<th>{} ({})</th>", q.short, q.unit);
+    }
+    h.push_str("<th>note</th></tr>\n");
+    let mut sorted = rs.to_vec();
+    sorted.sort_by(|a, b| {
+        meta_num(a, "cycle")
+            .unwrap_or(0.0)
+            .total_cmp(&meta_num(b, "cycle").unwrap_or(0.0))
+            .then(
+                meta_num(a, "soc")
+                    .unwrap_or(0.0)
+                    .total_cmp(&meta_num(b, "soc").unwrap_or(0.0)),
+            )
+    });
+    for r in &sorted {
+        let d = r.fit.as_ref().map(|f| &f.derived);
+        let cellv = |v: Option<eis_core::derive::Quantity>| match v {
+            Some(v) => crate::format::with_error(v.value, v.stderr),
+            None => "-".into(),
+        };
+        let _ = write!(
+            h,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"{}\">{}</td>",
+            esc(Path::new(&r.file)
+                .file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default()
+                .as_str()),
+            meta_num(r, "cycle")
+                .map(eis_core::number::format_float)
+                .unwrap_or_default(),
+            meta_num(r, "soc")
+                .map(eis_core::number::format_float)
+                .unwrap_or_default(),
+            r.status.as_str(),
+            r.status.as_str(),
+        );
+        for q in results_quantities() {
+            let v = d.and_then(|d| d.get(q.key));
+            let _ = write!(h, "<td>{}</td>", cellv(v));
+        }
+        let _ = writeln!(h, "<td>{}</td></tr>", esc(&r.message));
+    }
+    h.push_str("</table>\n");
+    let level = nearest_half(sorted.iter().filter_map(|r| meta_num(r, "soc")));
+    let mut spectra = Vec::new();
+    for r in sorted.iter().filter(|r| r.status != Status::Failed) {
+        if level.is_some() && meta_num(r, "soc") != level {
+            continue;
+        }
+        let Ok(reader) = SpectrumReader::open(Path::new(&r.file), reader.clone()) else {
+            continue;
+        };
+        if let Some(Ok(imp)) = reader.into_iter().nth(r.spectrum - 1) {
+            spectra.push(OverlaySpectrum {
+                label: r.file.clone(),
+                freq: imp.spectrum.frequency_hz,
+                z: imp.spectrum.z,
+                value: meta_num(r, "cycle").unwrap_or(r.spectrum as f64),
+            });
+        }
+    }
+    if spectra.is_empty() {
+        return;
+    }
+    let title = match level {
+        Some(l) => format!("Cell {cell} at {} % SOC", eis_core::number::format_float(l)),
+        None => format!("Cell {cell}"),
+    };
+    let plot = Plot::Overlay(OverlayPlot {
+        title,
+        spectra,
+        colorbar_label: if has_cycle {
+            "cycle".into()
+        } else {
+            "spectrum".into()
+        },
+    });
+    h.push_str(&svg(&plot, (900, 600)));
+    h.push('\n');
 }
 
 /// Runs the command.

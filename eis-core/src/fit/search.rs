@@ -1,5 +1,5 @@
 //! The local runs of a fit and the automatic search that ranks them: brief runs from the starts of
-//! [`start`](super::start), runs carried on to convergence, arc moves, the settling rule and the
+//! [`super::start`], runs carried on to convergence, arc moves, the settling rule and the
 //! polish of the winner (the method is described under [`fit_seeded`](super::fit_seeded)).
 
 use super::lm::{Solver, Termination};
@@ -215,7 +215,7 @@ impl Setup {
     }
 }
 
-/// [`fit`], or with `single` the warm-start run alone ([`fit_from`]).
+/// [`fit`](super::fit), or with `single` the warm-start run alone ([`fit_from`](super::fit_from)).
 pub(super) fn fit_impl(
     circuit: &Circuit,
     spectrum: &Spectrum,
@@ -226,22 +226,49 @@ pub(super) fn fit_impl(
 ) -> Result<FitResult, FitError> {
     let prep = prepare(spectrum, settings.weighting)?;
     let plan = Plan::compile(circuit);
-    let np = circuit.params.len();
     let setup = Setup::new(circuit);
-    let free = &setup.free;
-    if free.is_empty() {
+    check(circuit, &prep, &setup)?;
+    let fitting = Fitting {
+        circuit,
+        settings,
+        prep: &prep,
+        plan: &plan,
+        setup: &setup,
+        ctx: setup.context(circuit, &prep),
+        local: setup.local(&plan, &prep),
+    };
+    // Whether the data determine every parameter at a run's end: judged only for the white runs that
+    // become the best of the search, as only the best run's verdict is read.
+    let determined = |r: &Run| {
+        r.point.as_ref().is_some_and(|p| {
+            p.determines_every_parameter(&setup.free, &prep.w_rows, &setup.transforms)
+        })
+    };
+    let mut search = start::Search::new(&determined);
+    if let Some(w) = warm {
+        if let Some(result) = fitting.warm_start(&mut search, w, single)? {
+            return Ok(result);
+        }
+    }
+    fitting.search(&mut search, seed)
+}
+
+/// The fits that cannot be tried at all: nothing free, fewer residuals than free parameters, or a
+/// circuit value outside its bounds.
+fn check(circuit: &Circuit, prep: &Prepared, setup: &Setup) -> Result<(), FitError> {
+    let free = setup.free.len();
+    if free == 0 {
         return Err(FitError::NothingFree);
     }
     let n = prep.omegas.len();
-    if 2 * n <= free.len() {
+    if 2 * n <= free {
         return Err(FitError::TooFewPoints {
             points: n,
             residuals: 2 * n,
-            free: free.len(),
+            free,
         });
     }
-    let base = &setup.base;
-    for (i, &v) in base.iter().enumerate() {
+    for (i, &v) in setup.base.iter().enumerate() {
         let (lo, hi) = circuit.bounds(i);
         if !(v >= lo && v <= hi) {
             return Err(FitError::StartOutsideBounds {
@@ -252,48 +279,102 @@ pub(super) fn fit_impl(
             });
         }
     }
-    let transforms = &setup.transforms;
-    let ctx = setup.context(circuit, &prep);
-    let local = setup.local(&plan, &prep);
-    let run = |s: &[f64], tolerance: f64| local.run(s, tolerance, settings.patience);
-    let lm = |s: &[f64]| run(s, settings.tolerance);
-    // The many runs of the full search only have to rank basins: they stop at a looser tolerance,
-    // and the winner is polished tightly below.
-    let screen = |s: &[f64]| run(s, settings.tolerance.max(SCREEN_TOLERANCE));
+    Ok(())
+}
 
-    let conclude = |run: &Run, evaluations: usize, tried: usize| {
-        finish(
-            circuit,
-            &plan,
-            &prep,
+/// One fit's circuit, settings and data with what its runs share; its methods are the stages of the
+/// search: the warm start and its confirmation, the staged grid starts, the DRT starts, the arc moves
+/// and the polish.
+struct Fitting<'a> {
+    circuit: &'a Circuit,
+    settings: &'a FitSettings,
+    prep: &'a Prepared,
+    plan: &'a Plan,
+    setup: &'a Setup,
+    ctx: start::Context<'a>,
+    local: Local<'a>,
+}
+
+impl Fitting<'_> {
+    /// A run to the settings' tolerance.
+    fn lm(&self, s: &[f64]) -> Run {
+        self.local
+            .run(s, self.settings.tolerance, self.settings.patience)
+    }
+
+    /// A run of the full search. Those runs only have to rank basins: they stop at a looser
+    /// tolerance, and the winner is polished tightly at the end.
+    fn screen(&self, s: &[f64]) -> Run {
+        self.local.run(
+            s,
+            self.settings.tolerance.max(SCREEN_TOLERANCE),
+            self.settings.patience,
+        )
+    }
+
+    /// A brief run: at most `patience` × (P + 1) evaluations, and given up after P + 1 of them while
+    /// its χ² is still above `limit`.
+    fn brief(&self, s: &[f64], patience: usize, limit: f64) -> Run {
+        let mut solver = Solver::default()
+            .with_tolerance(self.settings.tolerance.max(SCREEN_TOLERANCE))
+            .with_patience(patience);
+        if limit.is_finite() {
+            solver = solver.with_give_up(limit, self.setup.free.len() + 1);
+        }
+        self.local.run_with(s, solver)
+    }
+
+    /// The result of `run`, after `evaluations` over `tried` starts.
+    fn conclude(&self, run: &Run, evaluations: usize, tried: usize) -> FitResult {
+        // The run's last evaluation is reused when it is at the reported parameters.
+        let at = match run.point.as_ref().filter(|e| e.params() == run.params) {
+            Some(e) => Point::Evaluated(e.clone()),
+            None => Point::Params(run.params.clone()),
+        };
+        let (prep, free, transforms) = (self.prep, &self.setup.free, &self.setup.transforms);
+        let problem = Problem::new(
+            self.plan,
+            &prep.grid,
+            &prep.data,
+            &prep.w_rows,
+            at,
             free,
             transforms,
-            run,
-            settings,
+        );
+        stats::summarise(stats::Summary {
+            circuit: self.circuit,
+            problem: &problem,
+            prep_data: &prep.data,
+            free,
+            transforms,
+            run_iterations: run.iterations,
             evaluations,
             tried,
-        )
-    };
+            termination: &run.termination,
+            weighting: self.settings.weighting,
+        })
+    }
 
-    // Whether the data determine every parameter at a run's end: judged only for the white runs that
-    // become the best of the search, as only the best run's verdict is read.
-    let determined = |r: &Run| {
-        r.point
-            .as_ref()
-            .is_some_and(|p| p.determines_every_parameter(free, &prep.w_rows, transforms))
-    };
-    let mut search = start::Search::new(&determined);
-
-    // A warm-started result is taken as it is unless it sits on a bound, its residuals trend, or its
-    // reduced χ² is well above that of the fit it came from.
-    let acceptable = |r: &FitResult| {
-        settings
+    /// A warm-started result is taken as it is unless it sits on a bound, its residuals trend, or
+    /// its reduced χ² is well above that of the fit it came from.
+    fn acceptable(&self, r: &FitResult) -> bool {
+        self.settings
             .warm_reference
             .is_none_or(|reference| r.reduced_chi_square <= 1.5 * reference)
             && !r.systematic_residuals
             && !r.at_bound.iter().any(|b| *b)
-    };
-    if let Some(w) = warm {
+    }
+
+    /// The run from the warm start `w`, and the result when it (or the cheap second try) is taken
+    /// without the full search; with `single`, the run's result whatever it is.
+    fn warm_start(
+        &self,
+        search: &mut start::Search,
+        w: &[f64],
+        single: bool,
+    ) -> Result<Option<FitResult>, FitError> {
+        let (circuit, base) = (self.circuit, &self.setup.base);
+        let np = circuit.params.len();
         if w.len() != np {
             return Err(FitError::WarmStartLength {
                 got: w.len(),
@@ -301,22 +382,22 @@ pub(super) fn fit_impl(
             });
         }
         let mut s = base.clone();
-        for &i in free {
+        for &i in &self.setup.free {
             s[i] = w[i];
             let (lo, hi) = circuit.bounds(i);
             if !(s[i] > lo && s[i] < hi && s[i].is_finite()) {
                 s[i] = base[i];
             }
         }
-        search.consider(lm(&s));
+        search.consider(self.lm(&s));
         if let Some(b) = search
             .best
             .as_ref()
             .filter(|b| single || b.termination.was_successful())
         {
-            let result = conclude(b, search.evaluations, search.tried);
-            if single || acceptable(&result) {
-                return Ok(result);
+            let result = self.conclude(b, search.evaluations, search.tried);
+            if single || self.acceptable(&result) {
+                return Ok(Some(result));
             }
         }
         // Before the full search, a cheap second try: the three best grid points. A series that
@@ -330,68 +411,102 @@ pub(super) fn fit_impl(
                 .best
                 .as_ref()
                 .is_some_and(|b| b.termination.was_successful());
-            for s in start::grid_starts(&ctx, &t, 3) {
-                search.consider(lm(&s));
+            for s in start::grid_starts(&self.ctx, &t, 3) {
+                search.consider(self.lm(&s));
             }
             let Some(mut b) = search.best.take() else {
                 return Err(FitError::NoFiniteStart);
             };
-            start::order_identical_arcs(&ctx, &t, &mut b.params);
+            start::order_identical_arcs(&self.ctx, &t, &mut b.params);
             let confirmed = warm_ok && b.chi_square >= warm_chi * (1.0 - CONFIRM);
             if b.termination.was_successful() {
-                let result = conclude(&b, search.evaluations, search.tried);
-                let near = settings
+                let result = self.conclude(&b, search.evaluations, search.tried);
+                let near = self
+                    .settings
                     .warm_reference
                     .is_none_or(|reference| result.reduced_chi_square <= CONFIRM_RATIO * reference);
-                if (confirmed && near) || acceptable(&result) {
-                    return Ok(result);
+                if (confirmed && near) || self.acceptable(&result) {
+                    return Ok(Some(result));
                 }
             }
             search.best = Some(b);
         }
+        Ok(None)
     }
 
-    if circuit
-        .params
-        .iter()
-        .all(|p| p.fixed || p.initial.is_some())
-    {
-        search.consider(lm(base));
-    }
-    let terms = start::recognise(circuit);
-    // A brief run: at most `patience` × (P + 1) evaluations, and given up after P + 1 of them while
-    // its χ² is still above `limit`.
-    let brief = |s: &[f64], patience: usize, limit: f64| {
-        let mut solver = Solver::default()
-            .with_tolerance(settings.tolerance.max(SCREEN_TOLERANCE))
-            .with_patience(patience);
-        if limit.is_finite() {
-            solver = solver.with_give_up(limit, free.len() + 1);
+    /// The full search: the circuit's own start, the grid's starts (or a spread of starts for a
+    /// circuit of unrecognised blocks), the DRT starts, the arc moves, and the polish of the winner.
+    fn search(
+        &self,
+        search: &mut start::Search,
+        seed: Option<&crate::drt::DrtResult>,
+    ) -> Result<FitResult, FitError> {
+        let (circuit, settings) = (self.circuit, self.settings);
+        if circuit
+            .params
+            .iter()
+            .all(|p| p.fixed || p.initial.is_some())
+        {
+            search.consider(self.lm(&self.setup.base));
         }
-        local.run_with(s, solver)
-    };
-    // The unfinished brief runs: the `keep` lowest in χ² carried on to convergence (from where they
-    // stopped), the others counted as they are.
-    let carry_on = |search: &mut start::Search, pending: &mut Vec<Run>, keep: usize| {
-        pending.sort_by(|a, b| a.chi_square.total_cmp(&b.chi_square));
-        for (i, r) in pending.drain(..).enumerate() {
-            if i < keep {
-                search.evaluations += r.evaluations;
-                search.consider(screen(&r.params));
-            } else {
-                search.consider(r);
+        let terms = start::recognise(circuit);
+        match &terms {
+            Some(t) => {
+                let starts = start::grid_starts(&self.ctx, t, settings.starts);
+                self.staged(search, &starts, BRIEF_PATIENCE, GIVE_UP);
+                if settings.drt_starts {
+                    if let Some(d) = seed {
+                        let template = starts
+                            .first()
+                            .cloned()
+                            .unwrap_or_else(|| self.setup.base.clone());
+                        for s in &start::drt_starts(&self.ctx, t, d, &template, DRT_STARTS) {
+                            search.consider(self.screen(s));
+                        }
+                    }
+                }
+                if settings.arc_moves {
+                    self.arc_moves(search, t);
+                }
+            }
+            None => {
+                for s in &start::spread_starts(&self.ctx, 2 * settings.starts) {
+                    search.consider(self.screen(s));
+                }
             }
         }
-    };
-    // Every start briefly; a run that converges within its brief budget is done, one still above
-    // `give_up` times the best χ² after P + 1 evaluations is abandoned, and the others are carried on
-    // as above. Starts are taken best first, and the rest are skipped once the search has settled
-    // (`Search::settled`).
-    let staged = |search: &mut start::Search,
-                  starts: &[Vec<f64>],
-                  patience: usize,
-                  keep: usize,
-                  give_up: f64| {
+        let Some(mut b) = search.best.take() else {
+            return Err(FitError::NoFiniteStart);
+        };
+        if let Some(t) = &terms {
+            start::order_identical_arcs(&self.ctx, t, &mut b.params);
+        }
+        // Polish the winner with tight tolerances so that noise-free data are met to round-off.
+        let polish = self
+            .local
+            .run(&b.params, POLISH_TOLERANCE, settings.patience);
+        search.evaluations += polish.evaluations;
+        if polish.chi_square <= b.chi_square {
+            let iterations = b.iterations + polish.iterations;
+            b = Run {
+                iterations,
+                ..polish
+            };
+        }
+        Ok(self.conclude(&b, search.evaluations, search.tried))
+    }
+
+    /// Every start briefly; a run that converges within its brief budget is done, one still above
+    /// `give_up` times the best χ² after P + 1 evaluations is abandoned, and the others are carried
+    /// on ([`Fitting::carry_on`]). Starts are taken best first, and the rest are skipped once the
+    /// search has settled (`Search::settled`).
+    fn staged(
+        &self,
+        search: &mut start::Search,
+        starts: &[Vec<f64>],
+        patience: usize,
+        give_up: f64,
+    ) {
         let mut pending = Vec::new();
         for s in starts {
             if search.settled(pending.len()) {
@@ -399,128 +514,65 @@ pub(super) fn fit_impl(
             }
             // When only unfinished runs keep the search from settling, they are carried on now.
             if !pending.is_empty() && search.settled(0) {
-                carry_on(search, &mut pending, keep);
+                self.carry_on(search, &mut pending);
                 if search.settled(0) {
                     break;
                 }
             }
             let limit = give_up * search.chi_square();
-            let r = brief(s, patience, limit);
+            let r = self.brief(s, patience, limit);
             if r.termination.was_successful() {
                 search.consider(r);
-            } else if r.evaluations < patience * (free.len() + 1) && r.chi_square > limit {
+            } else if r.evaluations < patience * (self.setup.free.len() + 1) && r.chi_square > limit
+            {
                 search.abandon(r);
             } else {
                 pending.push(r);
             }
         }
-        carry_on(search, &mut pending, keep);
-    };
-    match &terms {
-        Some(t) => {
-            let starts = start::grid_starts(&ctx, t, settings.starts);
-            staged(&mut search, &starts, BRIEF_PATIENCE, CARRIED_ON, GIVE_UP);
-            if settings.drt_starts {
-                if let Some(d) = seed {
-                    let template = starts.first().cloned().unwrap_or_else(|| base.clone());
-                    for s in &start::drt_starts(&ctx, t, d, &template, DRT_STARTS) {
-                        search.consider(screen(s));
-                    }
-                }
-            }
-            if settings.arc_moves {
-                if let Some(b) = &search.best {
-                    let before = b.chi_square;
-                    let swaps = start::arc_swaps(&ctx, t, &b.params);
-                    for s in &swaps {
-                        search.consider(screen(s));
-                    }
-                    let b = search.best.as_ref().expect("a run was considered");
-                    // Independent starts that agree on the optimum make moving arcs elsewhere
-                    // pointless.
-                    if search.agreeing < AGREEING && !search.noise_like_consensus() {
-                        let moves = start::arc_relocations(&ctx, t, &b.params);
-                        staged(
-                            &mut search,
-                            &moves,
-                            MOVE_PATIENCE,
-                            CARRIED_ON,
-                            f64::INFINITY,
-                        );
-                    }
-                    // A move may have reached a new basin whose arcs are misassigned: swap once more.
-                    if let Some(b) = search.best.as_ref().filter(|b| b.chi_square < before) {
-                        let swaps = start::arc_swaps(&ctx, t, &b.params);
-                        for s in &swaps {
-                            search.consider(screen(s));
-                        }
-                    }
-                }
-            }
-        }
-        None => {
-            for s in &start::spread_starts(&ctx, 2 * settings.starts) {
-                search.consider(screen(s));
-            }
-        }
+        self.carry_on(search, &mut pending);
     }
-    let Some(mut b) = search.best.take() else {
-        return Err(FitError::NoFiniteStart);
-    };
-    if let Some(t) = &terms {
-        start::order_identical_arcs(&ctx, t, &mut b.params);
-    }
-    // Polish the winner with tight tolerances so that noise-free data are met to round-off.
-    let polish = run(&b.params, POLISH_TOLERANCE);
-    search.evaluations += polish.evaluations;
-    if polish.chi_square <= b.chi_square {
-        let iterations = b.iterations + polish.iterations;
-        b = Run {
-            iterations,
-            ..polish
-        };
-    }
-    Ok(conclude(&b, search.evaluations, search.tried))
-}
 
-#[allow(clippy::too_many_arguments)]
-fn finish(
-    circuit: &Circuit,
-    plan: &Plan,
-    prep: &Prepared,
-    free: &[usize],
-    transforms: &[Transform],
-    run: &Run,
-    settings: &FitSettings,
-    evaluations: usize,
-    tried: usize,
-) -> FitResult {
-    // The run's last evaluation is reused when it is at the reported parameters.
-    let at = match run.point.as_ref().filter(|e| e.params() == run.params) {
-        Some(e) => Point::Evaluated(e.clone()),
-        None => Point::Params(run.params.clone()),
-    };
-    let problem = Problem::new(
-        plan,
-        &prep.grid,
-        &prep.data,
-        &prep.w_rows,
-        at,
-        free,
-        transforms,
-    );
-    stats::summarise(stats::Summary {
-        circuit,
-        problem: &problem,
-        prep_data: &prep.data,
-        free,
-        transforms,
-        run_iterations: run.iterations,
-        evaluations,
-        tried,
-        termination: &run.termination,
-        weighting: settings.weighting,
-    })
+    /// The unfinished brief runs: the [`CARRIED_ON`] lowest in χ² carried on to convergence (from
+    /// where they stopped), the others counted as they are.
+    fn carry_on(&self, search: &mut start::Search, pending: &mut Vec<Run>) {
+        pending.sort_by(|a, b| a.chi_square.total_cmp(&b.chi_square));
+        for (i, r) in pending.drain(..).enumerate() {
+            if i < CARRIED_ON {
+                search.evaluations += r.evaluations;
+                search.consider(self.screen(&r.params));
+            } else {
+                search.consider(r);
+            }
+        }
+    }
+
+    /// The best run's arcs swapped pairwise; then, unless independent starts agree on the optimum,
+    /// moved along τ; and swapped once more when a move reached a better basin, whose arcs may be
+    /// misassigned.
+    fn arc_moves(&self, search: &mut start::Search, t: &[start::Term]) {
+        let Some(before) = search.best.as_ref().map(|b| b.chi_square) else {
+            return;
+        };
+        self.swaps(search, t);
+        // Independent starts that agree on the optimum make moving arcs elsewhere pointless.
+        if search.agreeing < AGREEING && !search.noise_like_consensus() {
+            let b = search.best.as_ref().expect("a run was considered");
+            let moves = start::arc_relocations(&self.ctx, t, &b.params);
+            self.staged(search, &moves, MOVE_PATIENCE, f64::INFINITY);
+        }
+        if search.chi_square() < before {
+            self.swaps(search, t);
+        }
+    }
+
+    /// Runs from the best run's arcs swapped pairwise.
+    fn swaps(&self, search: &mut start::Search, t: &[start::Term]) {
+        let b = search.best.as_ref().expect("a run was considered");
+        for s in &start::arc_swaps(&self.ctx, t, &b.params) {
+            search.consider(self.screen(s));
+        }
+    }
 }
 
 #[cfg(test)]

@@ -55,8 +55,8 @@ pub(super) fn scatter(re: &[f64], im: &[f64], order: &[usize], buf: &mut Vec<f64
 }
 
 /// Wald–Wolfowitz runs test on the signs of the residuals of each part in frequency order, the two
-/// parts pooled: z = (R − E[R]) / √Var[R] with E[R] = 1 + 2n₊n₋/N and
-/// Var[R] = 2n₊n₋(2n₊n₋ − N)/(N²(N − 1)) per part (Wald & Wolfowitz 1940, Ann. Math. Statist. 11,
+/// parts pooled: z = (R − E\[R\]) / √Var\[R\] with E\[R\] = 1 + 2n₊n₋/N and
+/// Var\[R\] = 2n₊n₋(2n₊n₋ − N)/(N²(N − 1)) per part (Wald & Wolfowitz 1940, Ann. Math. Statist. 11,
 /// 147–162). Residuals that follow a trend form few long runs, so z is strongly negative; random
 /// residuals give z ≈ N(0, 1). Zero when the variance vanishes (all of one sign).
 pub(super) fn runs_z(re: &[f64], im: &[f64], order: &[usize]) -> f64 {

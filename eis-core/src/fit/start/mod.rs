@@ -21,7 +21,7 @@
 //!
 //! Circuits outside that family get a deterministic spread of starts scaled to the data.
 //!
-//! The stages live in their own files: [`recognise`] reads the circuit as blocks, [`grid`] searches the
+//! The stages live in their own files: [`recognise`](mod@recognise) reads the circuit as blocks, [`grid`] searches the
 //! time-constant grid, [`drt`] turns DRT peaks into starts, [`moves`] varies a fitted point; [`Search`]
 //! keeps the best run over all of them.
 
