@@ -4,9 +4,10 @@
 use crate::io::{Failure, Outcome, bad, load_model, write_atomic};
 use crate::plot::{OverlayPlot, OverlaySpectrum, Plot};
 use anyhow::anyhow;
+use eis_core::campaign::{SpectrumResult, Status};
 use eis_core::import::{NamePattern, ReaderOptions, SpectrumReader};
 use eis_core::scenario;
-use eis_core::trend::{FlagKind, TrendSettings};
+use eis_core::trend::{FlagKind, TrendReport, TrendSettings};
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
@@ -31,43 +32,59 @@ fn step(text: &str) {
     eprintln!("\n== {text}");
 }
 
+/// The folders the demo writes into.
+struct Places {
+    raw: PathBuf,
+    converted: PathBuf,
+    results: PathBuf,
+    plots: PathBuf,
+    model: PathBuf,
+}
+
+impl Places {
+    /// The folders under `out`, created.
+    fn create(out: &Path) -> Result<Places, Failure> {
+        let places = Places {
+            raw: out.join("raw"),
+            converted: out.join("converted"),
+            results: out.join("results"),
+            plots: out.join("plots"),
+            model: out.join("model.circ"),
+        };
+        for d in [
+            &places.raw,
+            &places.converted,
+            &places.results,
+            &places.plots,
+        ] {
+            std::fs::create_dir_all(d)
+                .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", d.display())))?;
+        }
+        Ok(places)
+    }
+
+    /// The model file as `--model` takes it.
+    fn model_arg(&self) -> String {
+        self.model.display().to_string()
+    }
+}
+
 /// Runs the command.
 pub fn run(args: Args) -> Outcome {
-    let out = &args.out;
-    let raw = out.join("raw");
-    let converted = out.join("converted");
-    let results = out.join("results");
-    let plots = out.join("plots");
-    for d in [&raw, &converted, &results, &plots] {
-        std::fs::create_dir_all(d)
-            .map_err(|e| Failure::Failed(anyhow!("cannot create {}: {e}", d.display())))?;
-    }
+    let places = Places::create(&args.out)?;
     let started = std::time::Instant::now();
 
     step("1. writing the invented campaign (export files of five cells)");
-    let files = scenario::files();
-    for f in &files {
-        write_atomic(&raw.join(&f.name), &f.bytes, &[])?;
-    }
-    let model_path = out.join("model.circ");
-    write_atomic(&model_path, scenario::MODEL_FILE.as_bytes(), &[])?;
-    eprintln!(
-        "{} files in {}; model in {}",
-        files.len(),
-        raw.display(),
-        model_path.display()
-    );
-    let model_s = model_path.display().to_string();
+    let exports = write_campaign(&places)?;
 
     step("2. converting every export to canonical CSV");
-    let exports: Vec<PathBuf> = files.iter().map(|f| raw.join(&f.name)).collect();
     let reader = ReaderOptions {
         name_pattern: Some(
             NamePattern::parse(scenario::NAME_PATTERN).map_err(|e| bad(anyhow!(e)))?,
         ),
         ..ReaderOptions::default()
     };
-    let failed = crate::commands::convert::convert(&exports, &converted, &reader)?;
+    let failed = crate::commands::convert::convert(&exports, &places.converted, &reader)?;
     // The campaign holds one corrupt file on purpose; anything else failing is a fault of the tool.
     if let Some(f) = failed
         .iter()
@@ -81,6 +98,60 @@ pub fn run(args: Args) -> Outcome {
     }
 
     step("3. checking (Kramers-Kronig) and fitting every spectrum");
+    fit_campaign(&places, &exports, &reader)?;
+
+    step("4. trends over cycles");
+    let results_csv = places.results.join("results.csv");
+    let trend = crate::commands::trend::analyse_file(
+        &results_csv,
+        "cycle",
+        &[],
+        None,
+        &TrendSettings::default(),
+    )?;
+    write_atomic(
+        &places.results.join("trends.csv"),
+        eis_core::trend::trends_csv(&trend).as_bytes(),
+        &[],
+    )?;
+
+    step("5. plots");
+    let circuit = load_model(&places.model_arg())?;
+    for p in &plots(&places, &circuit, &reader)? {
+        eprintln!("  {}", p.display());
+    }
+
+    step("6. report");
+    crate::commands::report::write_report(&places.results, Some(&circuit), &reader)?;
+
+    let mut o = findings(&places, &trend);
+    let _ = writeln!(
+        o,
+        "\nDone in {:.1} s. The data are invented; flags are engineering hints, not safety verdicts — handle real cells by your lab's rules.",
+        started.elapsed().as_secs_f64()
+    );
+    crate::io::print(&o)?;
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Writes the invented campaign's export files and its model; the paths of the exports.
+fn write_campaign(places: &Places) -> Result<Vec<PathBuf>, Failure> {
+    let files = scenario::files();
+    for f in &files {
+        write_atomic(&places.raw.join(&f.name), &f.bytes, &[])?;
+    }
+    write_atomic(&places.model, scenario::MODEL_FILE.as_bytes(), &[])?;
+    eprintln!(
+        "{} files in {}; model in {}",
+        files.len(),
+        places.raw.display(),
+        places.model.display()
+    );
+    Ok(files.iter().map(|f| places.raw.join(&f.name)).collect())
+}
+
+/// The batch: every spectrum checked and fitted, with the lead inductance shared per cell.
+fn fit_campaign(places: &Places, exports: &[PathBuf], reader: &ReaderOptions) -> Outcome {
     // The lead inductance belongs to the cell and its fixture, not to a state of charge or a cycle: it
     // is fitted once per cell, jointly over all its spectra (`eis batch --share L0 --share-by cell`).
     let settings = eis_core::campaign::BatchSettings {
@@ -92,10 +163,10 @@ pub fn run(args: Args) -> Outcome {
         ..eis_core::campaign::BatchSettings::default()
     };
     let summary = crate::commands::batch::execute(
-        &exports,
-        &load_model(&model_s)?,
+        exports,
+        &load_model(&places.model_arg())?,
         &settings,
-        &results,
+        &places.results,
         eis_core::campaign::Resume::No,
     )?;
     // One corrupt file and one drifting spectrum are planted; more failures are a fault of the tool.
@@ -103,69 +174,51 @@ pub fn run(args: Args) -> Outcome {
         return Err(Failure::Failed(anyhow!(
             "the demo batch failed on {} spectra (one is planted); see {}",
             summary.failed,
-            results.join("results.csv").display()
+            places.results.join("results.csv").display()
         )));
     }
+    Ok(ExitCode::SUCCESS)
+}
 
-    step("4. trends over cycles");
-    let trend = crate::commands::trend::analyse_file(
-        &results.join("results.csv"),
-        "cycle",
-        &[],
-        None,
-        &TrendSettings::default(),
-    )?;
-    write_atomic(
-        &results.join("trends.csv"),
-        eis_core::trend::trends_csv(&trend).as_bytes(),
-        &[],
-    )?;
-    let cells_with = |kind: FlagKind| -> Vec<String> {
-        let mut v: Vec<String> = trend
-            .flags
-            .iter()
-            .filter(|f| f.kind == kind)
-            .map(|f| f.cell.clone())
-            .collect();
-        v.dedup();
-        v
-    };
-
-    step("5. plots");
-    let circuit = load_model(&model_s)?;
+/// The demo's plots: a fit, an overlay over cycles, trends at 50 % SOC and a DRT; the files written.
+/// A planted spectrum that cannot be read or fitted is a fault of the tool and fails the demo.
+fn plots(
+    places: &Places,
+    circuit: &eis_core::Circuit,
+    reader: &ReaderOptions,
+) -> Result<Vec<PathBuf>, Failure> {
     let mut written = Vec::new();
     let mut save = |plot: &Plot, name: &str, size| -> Result<(), Failure> {
-        let p = plots.join(name);
+        let p = places.plots.join(name);
         crate::commands::plot::write_plot(plot, &p, None, size, &[])?;
         written.push(p);
         Ok(())
     };
+    let fault = |what: &str, path: &Path, e: &dyn std::fmt::Display| {
+        Failure::Failed(anyhow!("the demo could not {what} {}: {e}", path.display()))
+    };
     // A fit of a film-grown spectrum.
-    let fit_file = raw.join("Z3_c300_soc50.csv");
-    if let Some(s) = read_first(&fit_file, &reader) {
-        if let Ok(r) =
-            eis_core::fit::fit(&circuit, &s, &eis_core::fit::FitSettings::default(), None)
-        {
-            save(
-                &crate::plot::build::fit(&circuit, &s, &r),
-                "Z3_c300_soc50_fit.png",
-                (900, 650),
-            )?;
-        }
-    }
+    let fit_file = places.raw.join("Z3_c300_soc50.csv");
+    let s = read_first(&fit_file, reader)?;
+    let r = eis_core::fit::fit(circuit, &s, &eis_core::fit::FitSettings::default(), None)
+        .map_err(|e| fault("fit", &fit_file, &e))?;
+    save(
+        &crate::plot::build::fit(circuit, &s, &r),
+        "Z3_c300_soc50_fit.png",
+        (900, 650),
+    )?;
     // Overlay of cell Z3 at 50 % SOC coloured by cycle.
-    let spectra: Vec<OverlaySpectrum> = scenario::cycles()
-        .iter()
-        .filter_map(|&c| {
-            let f = raw.join(format!("Z3_c{:03}_soc50.csv", c as u32));
-            read_first(&f, &reader).map(|s| OverlaySpectrum {
-                label: f.display().to_string(),
-                freq: s.frequency_hz,
-                z: s.z,
-                value: c,
-            })
-        })
-        .collect();
+    let mut spectra = Vec::new();
+    for &c in &scenario::cycles() {
+        let f = places.raw.join(format!("Z3_c{:03}_soc50.csv", c as u32));
+        let s = read_first(&f, reader)?;
+        spectra.push(OverlaySpectrum {
+            label: f.display().to_string(),
+            freq: s.frequency_hz,
+            z: s.z,
+            value: c,
+        });
+    }
     save(
         &Plot::Overlay(OverlayPlot {
             title: "Cell Z3 at 50 % SOC: the film arc grows with cycling".into(),
@@ -177,7 +230,7 @@ pub fn run(args: Args) -> Outcome {
     )?;
     // Trends at 50 % SOC (one series per cell keeps the plots readable).
     let at50 = crate::commands::trend::analyse_file(
-        &results.join("results.csv"),
+        &places.results.join("results.csv"),
         "cycle",
         &[],
         Some(50.0),
@@ -197,42 +250,48 @@ pub fn run(args: Args) -> Outcome {
         }
     }
     // DRT of a healthy spectrum.
-    if let Some(s) = read_first(&raw.join("Z1_c000_soc50.csv"), &reader) {
-        if let Ok(d) = eis_core::drt::drt(&s, eis_core::drt::DrtOptions::default()) {
-            save(
-                &crate::plot::build::drt(
-                    &d,
-                    "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
-                ),
-                "Z1_c000_soc50_drt.png",
-                (900, 600),
-            )?;
-        }
-    }
-    for p in &written {
-        eprintln!("  {}", p.display());
-    }
+    let drt_file = places.raw.join("Z1_c000_soc50.csv");
+    let s = read_first(&drt_file, reader)?;
+    let d = eis_core::drt::drt(&s, eis_core::drt::DrtOptions::default())
+        .map_err(|e| fault("compute the DRT of", &drt_file, &e))?;
+    save(
+        &crate::plot::build::drt(
+            &d,
+            "Distribution of relaxation times: Z1, cycle 0, 50 % SOC".into(),
+        ),
+        "Z1_c000_soc50_drt.png",
+        (900, 600),
+    )?;
+    Ok(written)
+}
 
-    step("6. report");
-    crate::commands::report::write_report(&results, Some(&circuit), &reader)?;
-
-    // What was found.
-    let summary_results =
-        std::fs::read_to_string(results.join("results.jsonl")).unwrap_or_default();
-    let docs: Vec<eis_core::campaign::SpectrumResult> = summary_results
+/// What the demo found: the flagged cells by kind with each flag's change and onset, the failures,
+/// the shared lead inductance per cell, the campaign's identifiability advice and where everything is.
+fn findings(places: &Places, trend: &TrendReport) -> String {
+    let results = &places.results;
+    let docs: Vec<SpectrumResult> = std::fs::read_to_string(results.join("results.jsonl"))
+        .unwrap_or_default()
         .lines()
         .filter_map(|l| serde_json::from_str(l).ok())
         .collect();
-    let failed: Vec<String> = docs
-        .iter()
-        .filter(|r| r.status == eis_core::campaign::Status::Failed)
-        .map(|r| file_name(&r.file))
-        .collect();
-    let kk: Vec<String> = docs
-        .iter()
-        .filter(|r| r.kk.as_ref().is_some_and(|k| !k.valid))
-        .map(|r| file_name(&r.file))
-        .collect();
+    let files = |keep: &dyn Fn(&SpectrumResult) -> bool| -> Vec<String> {
+        docs.iter()
+            .filter(|r| keep(r))
+            .map(|r| file_name(&r.file))
+            .collect()
+    };
+    let failed = files(&|r| r.status == Status::Failed);
+    let kk = files(&|r| r.kk.as_ref().is_some_and(|k| !k.valid));
+    let cells_with = |kind: FlagKind| -> Vec<String> {
+        let mut v: Vec<String> = trend
+            .flags
+            .iter()
+            .filter(|f| f.kind == kind)
+            .map(|f| f.cell.clone())
+            .collect();
+        v.dedup();
+        v
+    };
     let list = |v: Vec<String>| {
         if v.is_empty() {
             "none".to_owned()
@@ -287,11 +346,7 @@ pub fn run(args: Args) -> Outcome {
     // The shared lead inductance, one value per cell (the same on every row of the cell).
     let mut shared: Vec<(String, String)> = Vec::new();
     for r in &docs {
-        let cell = r
-            .metadata
-            .get("cell")
-            .map(|v| v.to_string())
-            .unwrap_or_default();
+        let cell = crate::commands::report::cell_of(r);
         let l0 = r
             .fit
             .as_ref()
@@ -324,24 +379,18 @@ pub fn run(args: Args) -> Outcome {
         }
     }
     let _ = writeln!(o, "\nWhere everything is");
-    let places = [
-        ("export files:", raw.to_path_buf()),
-        ("canonical spectra:", converted.to_path_buf()),
+    let where_ = [
+        ("export files:", places.raw.clone()),
+        ("canonical spectra:", places.converted.clone()),
         ("fit results:", results.join("results.csv")),
         ("trends:", results.join("trends.csv")),
-        ("plots:", plots.to_path_buf()),
+        ("plots:", places.plots.clone()),
         ("report:", results.join("report.html")),
     ];
-    for (what, path) in places {
+    for (what, path) in where_ {
         let _ = writeln!(o, "  {what:<21}{}", path.display());
     }
-    let _ = writeln!(
-        o,
-        "\nDone in {:.1} s. The data are invented; flags are engineering hints, not safety verdicts — handle real cells by your lab's rules.",
-        started.elapsed().as_secs_f64()
-    );
-    crate::io::print(&o)?;
-    Ok(ExitCode::SUCCESS)
+    o
 }
 
 fn file_name(p: &str) -> String {
@@ -351,10 +400,18 @@ fn file_name(p: &str) -> String {
         .unwrap_or_else(|| p.to_owned())
 }
 
-fn read_first(path: &Path, reader: &ReaderOptions) -> Option<eis_core::Spectrum> {
-    SpectrumReader::open(path, reader.clone())
-        .ok()?
-        .next()?
-        .ok()
-        .map(|i| i.spectrum)
+/// The first spectrum of a planted file; a file the demo wrote itself that cannot be read is a fault
+/// of the tool.
+fn read_first(path: &Path, reader: &ReaderOptions) -> Result<eis_core::Spectrum, Failure> {
+    let fault = |e: &dyn std::fmt::Display| {
+        Failure::Failed(anyhow!("the demo could not read {}: {e}", path.display()))
+    };
+    match SpectrumReader::open(path, reader.clone())
+        .map_err(|e| fault(&e))?
+        .next()
+    {
+        Some(Ok(i)) => Ok(i.spectrum),
+        Some(Err(e)) => Err(fault(&e)),
+        None => Err(fault(&"no spectrum")),
+    }
 }

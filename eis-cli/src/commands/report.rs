@@ -81,7 +81,8 @@ fn meta_num(r: &SpectrumResult, k: &str) -> Option<f64> {
     r.metadata.get(k).and_then(|v| v.as_f64())
 }
 
-fn cell_of(r: &SpectrumResult) -> String {
+/// The cell of a result: its `cell` metadata, else its file's stem.
+pub(crate) fn cell_of(r: &SpectrumResult) -> String {
     let cell = r.metadata.get("cell").map(ToString::to_string);
     eis_core::campaign::cell_name(cell.as_deref(), Path::new(&r.file))
 }
