@@ -462,70 +462,106 @@ const CLEARLY_INDUCTIVE: f64 = 0.05;
 /// few points, σ weighting without σ).
 pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection, SelectError> {
     let inductive = spectrum.z.iter().any(|z| z.im > 0.0);
-    let clearly_inductive = spectrum
-        .z
-        .iter()
-        .any(|z| z.im > CLEARLY_INDUCTIVE * z.norm());
     let seed: Option<DrtResult> = if spectrum.frequency_hz.len() == spectrum.z.len() {
         drt(spectrum, DrtOptions::default().with_inductance(inductive)).ok()
     } else {
         None
     };
     let peaks = seed.as_ref().map(|d| d.peaks.len());
-    let rising = tail_rising(spectrum);
-
     let mut members = family();
     if options.physics {
         members.extend(physics_family());
     }
+    let pruning = options.prune.then(|| Pruning {
+        rising: tail_rising(spectrum),
+        peaks,
+        inductive,
+        clearly_inductive: spectrum
+            .z
+            .iter()
+            .any(|z| z.im > CLEARLY_INDUCTIVE * z.norm()),
+    });
     let mut candidates: Vec<Candidate> = members
         .into_iter()
-        .map(|member| {
-            let skip = if !options.prune {
-                None
-            } else if member.tail != Tail::None && !rising {
-                Some(
-                    "skipped: -Z'' does not rise towards the lowest frequencies, so no tail"
-                        .to_owned(),
-                )
-            } else if let Some(p) = peaks.filter(|&p| member.arcs > p + 1) {
-                Some(format!(
-                    "skipped: the DRT shows {p} peak{}, too few for {} arcs",
-                    if p == 1 { "" } else { "s" },
-                    member.arcs
-                ))
-            } else if member.inductance && !inductive {
-                Some("skipped: no point has a positive imaginary part, so no inductance".to_owned())
-            } else if !member.inductance && clearly_inductive {
-                Some("skipped: inductive points need a series inductance".to_owned())
-            } else {
-                None
-            };
-            Candidate {
-                member,
-                circuit: member.circuit(),
-                result: None,
-                tier: None,
-                rank: None,
-                rejected: false,
-                reason: skip.unwrap_or_default(),
-            }
+        .map(|member| Candidate {
+            member,
+            circuit: member.circuit(),
+            result: None,
+            tier: None,
+            rank: None,
+            rejected: false,
+            reason: pruning
+                .as_ref()
+                .and_then(|p| p.skip(&member))
+                .unwrap_or_default(),
         })
         .collect();
+    fit_candidates(&mut candidates, spectrum, options, seed.as_ref())?;
+    reject_implausible(&mut candidates, spectrum);
+    rank(&mut candidates);
+    Ok(Selection {
+        drt_peaks: peaks,
+        candidates,
+    })
+}
 
+/// What a spectrum shows that rules family members out before any fit.
+struct Pruning {
+    /// Whether −Z″ rises towards the lowest frequencies.
+    rising: bool,
+    /// Number of DRT peaks, when the DRT could be computed.
+    peaks: Option<usize>,
+    /// Whether any point has a positive imaginary part.
+    inductive: bool,
+    /// Whether a point is clearly inductive ([`CLEARLY_INDUCTIVE`]).
+    clearly_inductive: bool,
+}
+
+impl Pruning {
+    /// Why `member` is skipped, if it is.
+    fn skip(&self, member: &Member) -> Option<String> {
+        if member.tail != Tail::None && !self.rising {
+            Some(
+                "skipped: -Z'' does not rise towards the lowest frequencies, so no tail".to_owned(),
+            )
+        } else if let Some(p) = self.peaks.filter(|&p| member.arcs > p + 1) {
+            Some(format!(
+                "skipped: the DRT shows {p} peak{}, too few for {} arcs",
+                if p == 1 { "" } else { "s" },
+                member.arcs
+            ))
+        } else if member.inductance && !self.inductive {
+            Some("skipped: no point has a positive imaginary part, so no inductance".to_owned())
+        } else if !member.inductance && self.clearly_inductive {
+            Some("skipped: inductive points need a series inductance".to_owned())
+        } else {
+            None
+        }
+    }
+}
+
+/// Fits every candidate not skipped (in parallel with [`SelectOptions::parallel`]), and gives each
+/// its tier and reason, or why it could not be fitted.
+///
+/// A porous member whose fit from the usual starts is implausible or did not converge is fitted again
+/// from [`POROUS_STARTS`] starts; of the two results the plausible one, then the converged one, then
+/// the lower χ² is kept (more starts can also reach a lower χ² by turning an interface into the solid
+/// diffusion below the window, hence the comparison).
+fn fit_candidates(
+    candidates: &mut [Candidate],
+    spectrum: &Spectrum,
+    options: &SelectOptions,
+    seed: Option<&DrtResult>,
+) -> Result<(), SelectError> {
     let todo: Vec<usize> = (0..candidates.len())
         .filter(|&i| candidates[i].reason.is_empty())
         .collect();
     let porous_fit = options
         .fit
         .with_starts(options.fit.starts.max(POROUS_STARTS));
-    // A porous member whose fit from the usual starts is implausible or did not converge is fitted
-    // again from POROUS_STARTS starts; of the two results the plausible one, then the converged one,
-    // then the lower χ² is kept (more starts can also reach a lower χ² by turning an interface into
-    // the solid diffusion below the window, hence the comparison).
     let fit_one = |i: usize| {
         let c = &candidates[i];
-        let run = |s: &FitSettings| fit_seeded(&c.circuit, spectrum, s, None, seed.as_ref());
+        let run = |s: &FitSettings| fit_seeded(&c.circuit, spectrum, s, None, seed);
         let first = run(&options.fit);
         if !c.member.porous {
             return first;
@@ -603,9 +639,13 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
             None => FitError::Empty,
         }));
     }
+    Ok(())
+}
 
-    // Decompositions that put a process beyond the data or a kinetic arc into a diffusion element,
-    // when a plausible candidate fits comparably.
+/// Marks as rejected the decompositions that put a process beyond the data or a kinetic arc into a
+/// diffusion element, and the lumped arcs that draw a distributed (porous-electrode) response, when a
+/// plausible candidate (for the latter, a porous one) fits comparably.
+fn reject_implausible(candidates: &mut [Candidate], spectrum: &Spectrum) {
     let flaws: Vec<Option<String>> = candidates
         .iter()
         .map(|c| {
@@ -651,8 +691,6 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
             rejected[i] = Some(format!("rejected: {flaw}, {o}"));
         }
     }
-    // Lumped arcs drawing a distributed (porous-electrode) response, when a porous candidate that
-    // draws it as such fits comparably.
     for (i, c) in candidates.iter().enumerate() {
         if rejected[i].is_some() || c.member.porous {
             continue;
@@ -671,8 +709,11 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
             c.reason = why;
         }
     }
+}
 
-    // Fitted candidates by (rejected, tier, BIC); the rest keep the family order.
+/// Sorts the fitted candidates by (rejected, tier, BIC), the rest keeping the family order, and gives
+/// each fitted one its rank and the reason for it.
+fn rank(candidates: &mut [Candidate]) {
     candidates.sort_by(|a, b| match (&a.result, &b.result) {
         (Some(ra), Some(rb)) => a
             .rejected
@@ -699,10 +740,6 @@ pub fn select(spectrum: &Spectrum, options: &SelectOptions) -> Result<Selection,
         };
         c.reason = format!("{place}; {}", c.reason);
     }
-    Ok(Selection {
-        drt_peaks: peaks,
-        candidates,
-    })
 }
 
 /// The first lumped arc of `c` (fitted as `r`) whose CPE exponent is at most
