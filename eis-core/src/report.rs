@@ -118,7 +118,7 @@ pub struct ArcEntry {
     /// Its standard error.
     pub capacitance_f_stderr: Option<f64>,
     /// Role: film, charge-transfer, contact, diffusion or other.
-    pub role: String,
+    pub role: crate::circuit::Role,
     /// Whether the data determine this arc.
     pub determined: bool,
     /// Whether its characteristic frequency lies outside the measured window (then it is summed
@@ -149,8 +149,8 @@ pub struct BeyondEntry {
     pub process: String,
     /// Its characteristic frequency (Hz).
     pub frequency_hz: Option<f64>,
-    /// `below-window` or `above-window`.
-    pub placement: String,
+    /// Which side of the window (`below-window` or `above-window`).
+    pub placement: crate::roles::Placement,
 }
 
 /// Derived quantities of a fit document: the battery quantities of [`QUANTITIES`] and the arcs.
@@ -270,7 +270,7 @@ pub struct StatisticsEntry {
     /// Why it stopped.
     pub termination: String,
     /// Weighting used.
-    pub weighting: String,
+    pub weighting: crate::fit::Weighting,
     /// How standard errors were obtained.
     pub covariance: String,
 }
@@ -377,7 +377,7 @@ pub fn document(
                     peak_frequency_hz_stderr: a.peak_frequency.stderr,
                     capacitance_f: a.capacitance.value,
                     capacitance_f_stderr: a.capacitance.stderr,
-                    role: a.role.as_str().to_owned(),
+                    role: a.role,
                     determined: a.determined,
                     beyond_data: a.placement != crate::roles::Placement::InWindow,
                 })
@@ -403,12 +403,7 @@ pub fn document(
                 .map(|b| BeyondEntry {
                     process: b.process.clone(),
                     frequency_hz: b.frequency_hz.is_finite().then_some(b.frequency_hz),
-                    placement: match b.placement {
-                        crate::roles::Placement::BelowWindow => "below-window",
-                        crate::roles::Placement::AboveWindow => "above-window",
-                        crate::roles::Placement::InWindow => "in-window",
-                    }
-                    .to_owned(),
+                    placement: b.placement,
                 })
                 .collect(),
         },
@@ -424,7 +419,7 @@ pub fn document(
             starts: r.starts_tried,
             converged: r.converged,
             termination: r.termination.to_string(),
-            weighting: r.weighting.as_str().to_owned(),
+            weighting: r.weighting,
             covariance: "s^2 (J^T J)^-1 with s^2 the reduced chi-square".to_owned(),
         },
         correlation: CorrelationEntry {

@@ -55,7 +55,7 @@ pub const STORAGE_RATIO: f64 = 1000.0;
 pub const FILM_RATIO: f64 = 30.0;
 
 /// Where a characteristic frequency lies against the measured window.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Placement {
     /// Inside the window (with its margin).

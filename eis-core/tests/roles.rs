@@ -110,3 +110,50 @@ fn roles_follow_the_physics_not_the_place_in_the_formula() {
         assert!((sum - ct.0).abs() < 0.05, "{sum}");
     }
 }
+
+/// The fit document names roles, placements and the weighting by the words of the circuit language
+/// and the command line (`charge-transfer`, `below-window`, `modulus`), and reads them back as the
+/// same values: the batch's results.jsonl is read again by the report and the trends. The case is
+/// the arc a decade below the window of the test above (common practice).
+#[test]
+fn the_fit_document_keeps_roles_and_placements_as_words() {
+    let data = simulate(
+        &Plan::compile(&parse("R0 + R1|C1 + R2|C2").unwrap()),
+        &[0.1, 1.0, 1e-4, 2.0, 8.0],
+        &log_frequencies(1e4, 1e-1, 10),
+        None,
+    );
+    let c = parse("R0 + R1|C1 + R2|C2").unwrap();
+    let r = fit(&c, &data, &FitSettings::default(), None).unwrap();
+    let doc = eis_core::report::document(&c, &r, &derive(&c, &r), None);
+    let json: serde_json::Value = serde_json::to_value(&doc).unwrap();
+    let beyond = &json["derived"]["beyond_data"];
+    assert!(
+        beyond
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|b| b["process"] == "R2" && b["placement"] == "below-window"),
+        "{beyond}"
+    );
+    let arcs = json["derived"]["arcs"].as_array().unwrap();
+    assert!(
+        arcs.iter().any(|a| a["role"] == "charge-transfer"),
+        "{arcs:?}"
+    );
+    assert_eq!(json["statistics"]["weighting"], "modulus");
+    let back: eis_core::report::FitDocument = serde_json::from_value(json).unwrap();
+    assert_eq!(back, doc);
+    assert!(
+        back.derived
+            .beyond_data
+            .iter()
+            .any(|b| b.placement == Placement::BelowWindow)
+    );
+    assert!(
+        back.derived
+            .arcs
+            .iter()
+            .any(|a| a.role == Role::ChargeTransfer)
+    );
+}

@@ -430,7 +430,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
             .beyond_data
             .iter()
             .map(|b| {
-                let side = if b.placement == "below-window" {
+                let side = if b.placement == eis_core::roles::Placement::BelowWindow {
                     "below"
                 } else {
                     "above"
@@ -459,7 +459,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
             .map(|a| {
                 vec![
                     format!("{}|{}", a.resistor, a.capacitor),
-                    a.role.clone(),
+                    a.role.as_str().to_owned(),
                     with_error(a.resistance_ohm, a.resistance_ohm_stderr),
                     with_error(a.time_constant_s, a.time_constant_s_stderr),
                     with_error(a.peak_frequency_hz, a.peak_frequency_hz_stderr),
@@ -496,7 +496,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
         out,
         "\nfit       chi-square {} ({} weighting), reduced {}, AIC {:.1}, BIC {:.1}",
         short(st.chi_square),
-        st.weighting,
+        st.weighting.as_str(),
         short(st.reduced_chi_square),
         st.aic,
         st.bic

@@ -53,7 +53,9 @@ pub struct Param {
 
 /// Physical role of an arc (a resistance in parallel with a capacitive element), used to name derived
 /// quantities. Written in circuit files as `role Rct = charge-transfer`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize)]
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize, serde::Deserialize,
+)]
 #[serde(rename_all = "kebab-case")]
 pub enum Role {
     /// A surface film or solid-electrolyte interphase in front of the reaction (`film`).
