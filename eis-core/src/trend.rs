@@ -338,6 +338,12 @@ pub fn analyse(
     let mut series = Vec::new();
     let mut flags = Vec::new();
     for (cell, soc, label) in &keys {
+        let group = Group {
+            cell,
+            soc: *soc,
+            x_name,
+            settings,
+        };
         let mut rs: Vec<&Record> = records.iter().filter(|r| &key(r).2 == label).collect();
         rs.sort_by(|a, b| a.x.total_cmp(&b.x));
         for r in &rs {
@@ -354,118 +360,7 @@ pub fn analyse(
             }
         }
         for q in quantities {
-            let pts: Vec<(f64, f64, Option<f64>, bool)> = rs
-                .iter()
-                .filter_map(|r| {
-                    r.values
-                        .iter()
-                        .find(|(n, _, _)| n == q)
-                        .filter(|(_, v, _)| v.is_finite())
-                        .map(|(_, v, se)| (r.x, *v, *se, r.kk_valid != Some(false)))
-                })
-                .collect();
-            if pts.is_empty() {
-                continue;
-            }
-            let x: Vec<f64> = pts.iter().map(|p| p.0).collect();
-            let y: Vec<f64> = pts.iter().map(|p| p.1).collect();
-            let base = y[0];
-            let change: Vec<f64> = y.iter().map(|v| 100.0 * (v - base) / base.abs()).collect();
-            // Single-point jumps are flagged on their own and left out of the trend statistics, so
-            // that one spike neither raises a growth flag nor fakes an onset.
-            let jumps = single_jumps(&pts, settings.growth_percent);
-            for &i in &jumps {
-                let (xi, yi) = (pts[i].0, pts[i].1);
-                let reference = 0.5 * (pts[i - 1].1 + pts[i + 1].1);
-                let jump = 100.0 * (yi - reference) / reference.abs();
-                flags.push(Flag {
-                    cell: cell.clone(),
-                    soc: *soc,
-                    quantity: q.clone(),
-                    kind: FlagKind::SinglePointJump,
-                    onset_x: Some(xi),
-                    change_percent: Some(jump),
-                    explanation: explain(FlagKind::SinglePointJump, q, jump, Some(xi), x_name),
-                });
-            }
-            // Trend statistics on the trusted points only.
-            let (tx, ty): (Vec<f64>, Vec<f64>) = pts
-                .iter()
-                .enumerate()
-                .filter(|(i, p)| p.3 && !jumps.contains(i))
-                .map(|(_, p)| (p.0, p.1))
-                .unzip();
-            let lf = line_fit(&tx, &ty);
-            let hinge_fit = hinge(&tx, &ty);
-            let onset = hinge_fit.and_then(|(x0, rss_h, rss_f)| {
-                (rss_f > 0.0 && rss_h <= (1.0 - settings.onset_gain) * rss_f && x0 > tx[0])
-                    .then_some(x0)
-            });
-            let mut s = Series {
-                cell: cell.clone(),
-                soc: *soc,
-                quantity: q.clone(),
-                x: x.clone(),
-                y: y.clone(),
-                y_stderr: pts.iter().map(|p| p.2).collect(),
-                change_percent: change.clone(),
-                slope: lf.map(|l| l.1),
-                slope_stderr: lf.map(|l| l.2),
-                slope_percent_per_100: lf.map(|l| 100.0 * 100.0 * l.1 / base.abs()),
-                onset_x: onset,
-                flagged: Vec::new(),
-            };
-            if let (Some(kind), Some((a, b, se))) = (quantity_kind(q), lf) {
-                // Change along the fitted trend, so that one noisy end point neither raises nor hides
-                // a flag.
-                let (x_first, x_last) = (tx[0], tx[tx.len() - 1]);
-                let y_first = a + b * x_first;
-                let fitted_change = 100.0 * b * (x_last - x_first) / y_first.abs();
-                // A change counts when the straight line, or the hinge model at a detected onset,
-                // shows growth of at least the threshold with a slope at least `slope_sigmas`
-                // standard errors above zero.
-                let strong = |slope: f64, se: f64| {
-                    slope > 0.0 && (se == 0.0 || slope / se >= settings.slope_sigmas)
-                };
-                // The change must also stand out from the uncertainty of the single fits: at least
-                // `slope_sigmas` times the typical standard error of a difference of two points.
-                let mut ses: Vec<f64> = pts.iter().filter_map(|p| p.2).collect();
-                ses.sort_by(f64::total_cmp);
-                let point_se = ses.get(ses.len() / 2).copied().unwrap_or(0.0);
-                let beyond_fit_error = |delta: f64| {
-                    delta >= settings.slope_sigmas * point_se * std::f64::consts::SQRT_2
-                };
-                let line_ok = fitted_change >= settings.growth_percent
-                    && strong(b, se)
-                    && beyond_fit_error(b * (x_last - x_first));
-                let hinge_ok = onset.is_some_and(|x0| {
-                    let u: Vec<f64> = tx.iter().map(|&v| (v - x0).max(0.0)).collect();
-                    line_fit(&u, &ty).is_some_and(|(ha, hb, hse)| {
-                        100.0 * hb * (x_last - x0).max(0.0) / ha.abs() >= settings.growth_percent
-                            && strong(hb, hse)
-                            && beyond_fit_error(hb * (x_last - x0).max(0.0))
-                    })
-                });
-                if line_ok || hinge_ok {
-                    let last = *change.last().expect("non-empty");
-                    s.flagged = (0..x.len())
-                        .filter(|&i| onset.is_none_or(|o| x[i] >= o))
-                        .collect();
-                    flags.push(Flag {
-                        cell: cell.clone(),
-                        soc: *soc,
-                        quantity: q.clone(),
-                        kind,
-                        onset_x: onset,
-                        change_percent: Some(last),
-                        explanation: explain(kind, q, last, onset, x_name),
-                    });
-                }
-            }
-            s.flagged.extend(&jumps);
-            s.flagged.sort_unstable();
-            s.flagged.dedup();
-            series.push(s);
+            series.extend(group.series(q, &rs, &mut flags));
         }
         if let Some(f) = soft_short(&rs, (cell, *soc), x_name, settings) {
             flags.push(f);
@@ -478,11 +373,147 @@ pub fn analyse(
     }
 }
 
+/// The records of one series' group: a cell, and its SOC level when levels are kept apart.
+struct Group<'a> {
+    cell: &'a str,
+    soc: Option<f64>,
+    x_name: &'a str,
+    settings: &'a TrendSettings,
+}
+
+/// A point of a series: x, the value, its standard error, and whether its spectrum is trusted
+/// (not failed by Kramers–Kronig).
+type Point = (f64, f64, Option<f64>, bool);
+
+impl Group<'_> {
+    /// A flag of this group on `quantity`, explained in words.
+    fn flag(&self, kind: FlagKind, quantity: &str, onset_x: Option<f64>, change: f64) -> Flag {
+        Flag {
+            cell: self.cell.to_owned(),
+            soc: self.soc,
+            quantity: quantity.to_owned(),
+            kind,
+            onset_x,
+            change_percent: Some(change),
+            explanation: explain(kind, quantity, change, onset_x, self.x_name),
+        }
+    }
+
+    /// The series of quantity `q` over the group's records `rs` (sorted by x), with its single-point
+    /// jumps and its growth flag pushed to `flags`; None when no record holds a finite value of `q`.
+    fn series(&self, q: &str, rs: &[&Record], flags: &mut Vec<Flag>) -> Option<Series> {
+        let settings = self.settings;
+        let pts: Vec<Point> = rs
+            .iter()
+            .filter_map(|r| {
+                r.values
+                    .iter()
+                    .find(|(n, _, _)| n == q)
+                    .filter(|(_, v, _)| v.is_finite())
+                    .map(|(_, v, se)| (r.x, *v, *se, r.kk_valid != Some(false)))
+            })
+            .collect();
+        if pts.is_empty() {
+            return None;
+        }
+        let x: Vec<f64> = pts.iter().map(|p| p.0).collect();
+        let y: Vec<f64> = pts.iter().map(|p| p.1).collect();
+        let base = y[0];
+        let change: Vec<f64> = y.iter().map(|v| 100.0 * (v - base) / base.abs()).collect();
+        // Single-point jumps are flagged on their own and left out of the trend statistics, so that
+        // one spike neither raises a growth flag nor fakes an onset.
+        let jumps = single_jumps(&pts, settings.growth_percent);
+        for &i in &jumps {
+            let reference = 0.5 * (pts[i - 1].1 + pts[i + 1].1);
+            let jump = 100.0 * (pts[i].1 - reference) / reference.abs();
+            flags.push(self.flag(FlagKind::SinglePointJump, q, Some(pts[i].0), jump));
+        }
+        // Trend statistics on the trusted points only.
+        let (tx, ty): (Vec<f64>, Vec<f64>) = pts
+            .iter()
+            .enumerate()
+            .filter(|(i, p)| p.3 && !jumps.contains(i))
+            .map(|(_, p)| (p.0, p.1))
+            .unzip();
+        let lf = line_fit(&tx, &ty);
+        let onset = hinge(&tx, &ty).and_then(|(x0, rss_h, rss_f)| {
+            (rss_f > 0.0 && rss_h <= (1.0 - settings.onset_gain) * rss_f && x0 > tx[0])
+                .then_some(x0)
+        });
+        let mut s = Series {
+            cell: self.cell.to_owned(),
+            soc: self.soc,
+            quantity: q.to_owned(),
+            x: x.clone(),
+            y,
+            y_stderr: pts.iter().map(|p| p.2).collect(),
+            change_percent: change.clone(),
+            slope: lf.map(|l| l.1),
+            slope_stderr: lf.map(|l| l.2),
+            slope_percent_per_100: lf.map(|l| 100.0 * 100.0 * l.1 / base.abs()),
+            onset_x: onset,
+            flagged: Vec::new(),
+        };
+        if let (Some(kind), Some(line)) = (quantity_kind(q), lf) {
+            if self.grows(&pts, (&tx, &ty), line, onset) {
+                let last = *change.last().expect("non-empty");
+                s.flagged = (0..x.len())
+                    .filter(|&i| onset.is_none_or(|o| x[i] >= o))
+                    .collect();
+                flags.push(self.flag(kind, q, onset, last));
+            }
+        }
+        s.flagged.extend(&jumps);
+        s.flagged.sort_unstable();
+        s.flagged.dedup();
+        Some(s)
+    }
+
+    /// Whether the trusted points `(tx, ty)` of a series with points `pts` grow: the straight line
+    /// `(a, b, se)`, or the hinge model at a detected `onset`, shows growth of at least the threshold
+    /// with a slope at least `slope_sigmas` standard errors above zero, by a change that stands out
+    /// from the uncertainty of the single fits.
+    fn grows(
+        &self,
+        pts: &[Point],
+        (tx, ty): (&[f64], &[f64]),
+        (a, b, se): (f64, f64, f64),
+        onset: Option<f64>,
+    ) -> bool {
+        let settings = self.settings;
+        // Change along the fitted trend, so that one noisy end point neither raises nor hides a flag.
+        let (x_first, x_last) = (tx[0], tx[tx.len() - 1]);
+        let y_first = a + b * x_first;
+        let fitted_change = 100.0 * b * (x_last - x_first) / y_first.abs();
+        let strong =
+            |slope: f64, se: f64| slope > 0.0 && (se == 0.0 || slope / se >= settings.slope_sigmas);
+        // The change must also stand out from the uncertainty of the single fits: at least
+        // `slope_sigmas` times the typical standard error of a difference of two points.
+        let mut ses: Vec<f64> = pts.iter().filter_map(|p| p.2).collect();
+        ses.sort_by(f64::total_cmp);
+        let point_se = ses.get(ses.len() / 2).copied().unwrap_or(0.0);
+        let beyond_fit_error =
+            |delta: f64| delta >= settings.slope_sigmas * point_se * std::f64::consts::SQRT_2;
+        let line_ok = fitted_change >= settings.growth_percent
+            && strong(b, se)
+            && beyond_fit_error(b * (x_last - x_first));
+        let hinge_ok = onset.is_some_and(|x0| {
+            let u: Vec<f64> = tx.iter().map(|&v| (v - x0).max(0.0)).collect();
+            line_fit(&u, ty).is_some_and(|(ha, hb, hse)| {
+                100.0 * hb * (x_last - x0).max(0.0) / ha.abs() >= settings.growth_percent
+                    && strong(hb, hse)
+                    && beyond_fit_error(hb * (x_last - x0).max(0.0))
+            })
+        });
+        line_ok || hinge_ok
+    }
+}
+
 /// Interior trusted points (indices into `pts`: x, y, standard error, trusted) that depart from both
 /// trusted neighbours by at least `percent` % of their mean and by more than six times the series'
 /// median step between successive points, while the two neighbours differ by less than a quarter of
 /// that departure.
-fn single_jumps(pts: &[(f64, f64, Option<f64>, bool)], percent: f64) -> Vec<usize> {
+fn single_jumps(pts: &[Point], percent: f64) -> Vec<usize> {
     let mut steps: Vec<f64> = pts.windows(2).map(|w| (w[1].1 - w[0].1).abs()).collect();
     steps.sort_by(f64::total_cmp);
     let typical = steps.get(steps.len() / 2).copied().unwrap_or(0.0);
