@@ -340,6 +340,41 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
         quantity(hi, 4, "Hz"),
         quantity(lo, 4, "Hz")
     );
+    parameter_table(&mut out, doc);
+    battery_quantities(&mut out, doc);
+    arc_table(&mut out, &doc.derived.arcs);
+    let st = &doc.statistics;
+    let _ = writeln!(
+        out,
+        "\nfit       chi-square {} ({} weighting), reduced {}, AIC {:.1}, BIC {:.1}",
+        short(st.chi_square),
+        st.weighting.as_str(),
+        short(st.reduced_chi_square),
+        st.aic,
+        st.bic
+    );
+    let _ = writeln!(
+        out,
+        "          {} points, {} iterations, {} evaluations over {} starts; {}",
+        st.points, st.iterations, st.evaluations, st.starts, st.termination
+    );
+    out.push_str(
+        "          standard errors from s^2 (J^T J)^-1 at the optimum, s^2 = reduced chi-square\n",
+    );
+    if !doc.warnings.is_empty() {
+        out.push_str("\nwarnings\n");
+        for w in &doc.warnings {
+            let _ = writeln!(out, "  - {w}");
+        }
+    }
+    if doc.short_circuit.is_some() {
+        let _ = writeln!(out, "\ncaution: {SHORT_CIRCUIT_CAUTION}");
+    }
+    out
+}
+
+/// The parameters with their standard errors, relative errors, units and bounds.
+fn parameter_table(out: &mut String, doc: &FitDocument) {
     let rows: Vec<Vec<String>> = doc
         .parameters
         .iter()
@@ -369,6 +404,12 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
         &["parameter", "value ± SE", "rel. error", "unit", ""],
         &rows,
     ));
+}
+
+/// The battery quantities of the quantity table, the still-rising tails' lower bounds and the
+/// short-circuit estimate, then what the data do not tell: no DC resistance, undetermined tails,
+/// processes beyond the window.
+fn battery_quantities(out: &mut String, doc: &FitDocument) {
     let d = &doc.derived;
     out.push_str("\nbattery quantities\n");
     let mut q = Vec::new();
@@ -414,7 +455,7 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
     {
         let _ = writeln!(out, "  {line}");
     }
-    if doc.derived.value(QuantityKey::Dc).is_none() {
+    if d.value(QuantityKey::Dc).is_none() {
         out.push_str("  (no finite DC resistance: the model blocks direct current)\n");
     }
     for t in &d.diffusion_tails {
@@ -451,72 +492,49 @@ fn human(doc: &FitDocument, s: &Spectrum) -> String {
             names.join(", ")
         );
     }
-    if !d.arcs.is_empty() {
-        out.push_str("\narcs\n");
-        let rows: Vec<Vec<String>> = d
-            .arcs
-            .iter()
-            .map(|a| {
-                vec![
-                    format!("{}|{}", a.resistor, a.capacitor),
-                    a.role.as_str().to_owned(),
-                    with_error(a.resistance_ohm, a.resistance_ohm_stderr),
-                    with_error(a.time_constant_s, a.time_constant_s_stderr),
-                    with_error(a.peak_frequency_hz, a.peak_frequency_hz_stderr),
-                    with_error(a.capacitance_f, a.capacitance_f_stderr),
-                    if a.beyond_data {
-                        "beyond the data".into()
-                    } else if a.determined {
-                        String::new()
-                    } else {
-                        "NOT DETERMINED by the data".into()
-                    },
-                ]
-            })
-            .collect();
-        for line in table(
-            &[
-                "arc",
-                "role",
-                "R (Ohm)",
-                "tau (s)",
-                "f (Hz)",
-                "C_eff (F)",
-                "",
-            ],
-            &rows,
-        )
-        .lines()
-        {
-            let _ = writeln!(out, "  {line}");
-        }
+}
+
+/// The arcs: role, resistance, time constant, peak frequency and effective capacitance, and whether
+/// the data determine them.
+fn arc_table(out: &mut String, arcs: &[eis_core::report::ArcEntry]) {
+    if arcs.is_empty() {
+        return;
     }
-    let st = &doc.statistics;
-    let _ = writeln!(
-        out,
-        "\nfit       chi-square {} ({} weighting), reduced {}, AIC {:.1}, BIC {:.1}",
-        short(st.chi_square),
-        st.weighting.as_str(),
-        short(st.reduced_chi_square),
-        st.aic,
-        st.bic
-    );
-    let _ = writeln!(
-        out,
-        "          {} points, {} iterations, {} evaluations over {} starts; {}",
-        st.points, st.iterations, st.evaluations, st.starts, st.termination
-    );
-    out.push_str(
-        "          standard errors from s^2 (J^T J)^-1 at the optimum, s^2 = reduced chi-square\n",
-    );
-    if !doc.warnings.is_empty() {
-        out.push_str("\nwarnings\n");
-        for w in &doc.warnings {
-            let _ = writeln!(out, "  - {w}");
-        }
+    out.push_str("\narcs\n");
+    let rows: Vec<Vec<String>> = arcs
+        .iter()
+        .map(|a| {
+            vec![
+                format!("{}|{}", a.resistor, a.capacitor),
+                a.role.as_str().to_owned(),
+                with_error(a.resistance_ohm, a.resistance_ohm_stderr),
+                with_error(a.time_constant_s, a.time_constant_s_stderr),
+                with_error(a.peak_frequency_hz, a.peak_frequency_hz_stderr),
+                with_error(a.capacitance_f, a.capacitance_f_stderr),
+                if a.beyond_data {
+                    "beyond the data".into()
+                } else if a.determined {
+                    String::new()
+                } else {
+                    "NOT DETERMINED by the data".into()
+                },
+            ]
+        })
+        .collect();
+    for line in table(
+        &[
+            "arc",
+            "role",
+            "R (Ohm)",
+            "tau (s)",
+            "f (Hz)",
+            "C_eff (F)",
+            "",
+        ],
+        &rows,
+    )
+    .lines()
+    {
+        let _ = writeln!(out, "  {line}");
     }
-    if doc.short_circuit.is_some() {
-        let _ = writeln!(out, "\ncaution: {SHORT_CIRCUIT_CAUTION}");
-    }
-    out
 }
