@@ -429,137 +429,33 @@ pub(crate) fn map_columns(
     file: &str,
     header_line: Option<usize>,
 ) -> Result<(ColumnMap, Vec<WarningKind>), DataError> {
-    let cells: Vec<Cell> = header
-        .map(|h| h.iter().map(|w| analyse(w)).collect())
-        .unwrap_or_default();
-    let at = |column: Option<usize>| match header_line {
-        Some(l) => Location::at(file, l, column),
-        None => Location::file(file),
+    let h = Header {
+        cells: header
+            .map(|h| h.iter().map(|w| analyse(w)).collect())
+            .unwrap_or_default(),
+        options,
+        file,
+        header_line,
     };
     let mut warnings = Vec::new();
-    // The column of each role: an override, else the first header word recognised as it.
-    let mut chosen: Vec<(Role, usize)> = Vec::new();
-    for (role, r) in &options.columns {
-        let index = match r {
-            ColumnRef::Number(n) => {
-                if *n == 0 || *n > fields {
-                    return Err(DataError::new(
-                        at(None),
-                        DataErrorKind::ColumnOutOfRange { column: *n, fields },
-                    ));
-                }
-                n - 1
-            }
-            ColumnRef::Name(name) => {
-                let want = name.trim().to_lowercase();
-                cells
-                    .iter()
-                    .position(|c| c.raw.to_lowercase() == want || c.name.to_lowercase() == want)
-                    .ok_or_else(|| {
-                        DataError::new(at(None), DataErrorKind::ColumnNotFound(name.clone()))
-                    })?
-            }
-        };
-        chosen.push((*role, index));
-    }
-    let overridden = |role: Role| options.columns.iter().any(|(r, _)| *r == role);
-    for (i, c) in cells.iter().enumerate() {
-        if let Some(rec) = c.recognised {
-            if !overridden(rec.role) && !chosen.iter().any(|(r, _)| *r == rec.role) {
-                chosen.push((rec.role, i));
-            }
-        }
-    }
-    let header_list = || {
-        cells
-            .iter()
-            .map(|c| format!("`{}`", c.raw))
-            .collect::<Vec<_>>()
-            .join(", ")
-    };
-    // Without a header, columns 1, 2, 3 are frequency, real and imaginary part unless overridden.
-    let no_header = header.is_none();
-    let polar_asked = overridden(Role::Modulus) || overridden(Role::Phase);
-    if no_header && !polar_asked {
-        let defaults = [(Role::Frequency, 0), (Role::Real, 1), (Role::Imaginary, 2)];
-        if options.columns.is_empty() {
-            warnings.push(WarningKind::NoHeader);
-        }
-        for (role, i) in defaults {
-            if !chosen.iter().any(|(r, _)| *r == role) {
-                chosen.push((role, i));
-            }
-        }
-    } else if no_header && !chosen.iter().any(|(r, _)| *r == Role::Frequency) {
-        chosen.push((Role::Frequency, 0));
-    }
+    let chosen = h.choose(header.is_none(), fields, &mut warnings)?;
     let find = |role: Role| chosen.iter().find(|(r, _)| *r == role).map(|(_, i)| *i);
-    let missing = |role: Role| {
-        DataError::new(
-            at(None),
-            DataErrorKind::MissingColumn {
-                role: role.describe(),
-                header: header_list(),
-            },
-        )
-    };
-    let unit_of = |i: usize| {
-        cells
-            .get(i)
-            .and_then(|c| c.unit_text.clone().map(|t| (t, c.unit)))
-    };
-    let scale = |role: Role, i: usize| -> Result<f64, DataError> {
-        let angular = cells
-            .get(i)
-            .and_then(|c| c.recognised)
-            .is_some_and(|r| r.angular);
-        let bad = |unit: String| {
-            DataError::new(
-                at(Some(i + 1)),
-                DataErrorKind::UnknownUnit {
-                    unit,
-                    role: role.describe(),
-                },
-            )
-        };
-        match (role, unit_of(i)) {
-            (Role::Frequency, None) if angular => Ok(1.0 / (2.0 * PI)),
-            (_, None) => Ok(1.0),
-            (Role::Frequency, Some((_, Some(Unit::Frequency(s))))) => Ok(s),
-            (Role::Real | Role::Imaginary | Role::Modulus, Some((_, Some(Unit::Impedance(s))))) => {
-                Ok(s)
-            }
-            (_, Some((t, _))) => Err(bad(t)),
-        }
-    };
-    let sign_of = |i: usize| match options.imag_sign {
-        ImagSign::AsIs => Sign::Known { negated: false },
-        ImagSign::Negated => Sign::Known { negated: true },
-        ImagSign::Auto => match cells.get(i) {
-            Some(c) => Sign::Known {
-                negated: c.recognised.is_some_and(|r| r.negated)
-                    || normalize(&c.name).starts_with('-'),
-            },
-            None => Sign::Guess,
-        },
-    };
-    let fi = find(Role::Frequency).ok_or_else(|| missing(Role::Frequency))?;
+    let fi = find(Role::Frequency).ok_or_else(|| h.missing(Role::Frequency))?;
     let freq = Col {
         index: fi,
-        scale: scale(Role::Frequency, fi)?,
+        scale: h.scale(Role::Frequency, fi)?,
     };
-    let cartesian = find(Role::Real).zip(find(Role::Imaginary));
-    let z = match cartesian {
-        Some((ri, ii)) if !polar_asked || overridden(Role::Real) => ZCols::Cartesian {
+    let z = match find(Role::Real).zip(find(Role::Imaginary)) {
+        Some((ri, ii)) if !h.polar_asked() || h.overridden(Role::Real) => ZCols::Cartesian {
             re: Col {
                 index: ri,
-                scale: scale(Role::Real, ri)?,
+                scale: h.scale(Role::Real, ri)?,
             },
             im: Col {
                 index: ii,
-                scale: scale(Role::Imaginary, ii)?,
+                scale: h.scale(Role::Imaginary, ii)?,
             },
-            sign: sign_of(ii),
+            sign: h.sign_of(ii),
         },
         _ => {
             let (Some(mi), Some(pi)) = (find(Role::Modulus), find(Role::Phase)) else {
@@ -568,33 +464,18 @@ pub(crate) fn map_columns(
                 } else {
                     Role::Imaginary
                 };
-                return Err(missing(role));
+                return Err(h.missing(role));
             };
-            let phase_scale = match options.phase_unit {
-                PhaseUnit::Degrees => Some(PI / 180.0),
-                PhaseUnit::Radians => Some(1.0),
-                PhaseUnit::Auto => match unit_of(pi) {
-                    Some((_, Some(Unit::Angle(s)))) => Some(s),
-                    Some((t, _)) => {
-                        return Err(DataError::new(
-                            at(Some(pi + 1)),
-                            DataErrorKind::UnknownUnit {
-                                unit: t,
-                                role: Role::Phase.describe(),
-                            },
-                        ));
-                    }
-                    None => None,
-                },
-            };
+            // The phase column's unit is judged before the modulus column's (the first error wins).
+            let phase_scale = h.phase_scale(pi)?;
             ZCols::Polar {
                 modulus: Col {
                     index: mi,
-                    scale: scale(Role::Modulus, mi)?,
+                    scale: h.scale(Role::Modulus, mi)?,
                 },
                 phase: pi,
                 phase_scale,
-                sign: sign_of(pi),
+                sign: h.sign_of(pi),
             }
         }
     };
@@ -604,24 +485,17 @@ pub(crate) fn map_columns(
         .copied()
         .collect();
     meta.sort_by_key(|(_, i)| *i);
-    let mut needed = freq.index + 1;
-    let mut use_col = |i: usize| needed = needed.max(i + 1);
-    match z {
-        ZCols::Cartesian { re, im, .. } => {
-            use_col(re.index);
-            use_col(im.index);
-        }
-        ZCols::Polar { modulus, phase, .. } => {
-            use_col(modulus.index);
-            use_col(phase);
-        }
-    }
-    for (_, i) in &meta {
-        use_col(*i);
-    }
+    let in_use = match z {
+        ZCols::Cartesian { re, im, .. } => [re.index, im.index],
+        ZCols::Polar { modulus, phase, .. } => [modulus.index, phase],
+    };
+    let needed = in_use
+        .into_iter()
+        .chain(meta.iter().map(|(_, i)| *i))
+        .fold(freq.index + 1, |n, i| n.max(i + 1));
     if needed > fields {
         return Err(DataError::new(
-            at(None),
+            h.at(None),
             DataErrorKind::ColumnOutOfRange {
                 column: needed,
                 fields,
@@ -637,6 +511,175 @@ pub(crate) fn map_columns(
         },
         warnings,
     ))
+}
+
+/// A file's header cells with the reader's options, for deciding its columns.
+struct Header<'a> {
+    cells: Vec<Cell>,
+    options: &'a ReaderOptions,
+    file: &'a str,
+    header_line: Option<usize>,
+}
+
+impl Header<'_> {
+    /// Where an error about the header (and column `column`, from 1) points.
+    fn at(&self, column: Option<usize>) -> Location {
+        match self.header_line {
+            Some(l) => Location::at(self.file, l, column),
+            None => Location::file(self.file),
+        }
+    }
+
+    /// Whether the options name the column of `role`.
+    fn overridden(&self, role: Role) -> bool {
+        self.options.columns.iter().any(|(r, _)| *r == role)
+    }
+
+    /// Whether the options ask for modulus and phase.
+    fn polar_asked(&self) -> bool {
+        self.overridden(Role::Modulus) || self.overridden(Role::Phase)
+    }
+
+    /// The column of each role: an override, else the first header word recognised as it; without a
+    /// header, columns 1, 2, 3 are frequency, real and imaginary part unless overridden (a
+    /// [`WarningKind::NoHeader`] when nothing is overridden).
+    fn choose(
+        &self,
+        no_header: bool,
+        fields: usize,
+        warnings: &mut Vec<WarningKind>,
+    ) -> Result<Vec<(Role, usize)>, DataError> {
+        let mut chosen: Vec<(Role, usize)> = Vec::new();
+        for (role, r) in &self.options.columns {
+            let index = match r {
+                ColumnRef::Number(n) => {
+                    if *n == 0 || *n > fields {
+                        return Err(DataError::new(
+                            self.at(None),
+                            DataErrorKind::ColumnOutOfRange { column: *n, fields },
+                        ));
+                    }
+                    n - 1
+                }
+                ColumnRef::Name(name) => {
+                    let want = name.trim().to_lowercase();
+                    self.cells
+                        .iter()
+                        .position(|c| c.raw.to_lowercase() == want || c.name.to_lowercase() == want)
+                        .ok_or_else(|| {
+                            DataError::new(
+                                self.at(None),
+                                DataErrorKind::ColumnNotFound(name.clone()),
+                            )
+                        })?
+                }
+            };
+            chosen.push((*role, index));
+        }
+        for (i, c) in self.cells.iter().enumerate() {
+            if let Some(rec) = c.recognised {
+                if !self.overridden(rec.role) && !chosen.iter().any(|(r, _)| *r == rec.role) {
+                    chosen.push((rec.role, i));
+                }
+            }
+        }
+        if no_header && !self.polar_asked() {
+            let defaults = [(Role::Frequency, 0), (Role::Real, 1), (Role::Imaginary, 2)];
+            if self.options.columns.is_empty() {
+                warnings.push(WarningKind::NoHeader);
+            }
+            for (role, i) in defaults {
+                if !chosen.iter().any(|(r, _)| *r == role) {
+                    chosen.push((role, i));
+                }
+            }
+        } else if no_header && !chosen.iter().any(|(r, _)| *r == Role::Frequency) {
+            chosen.push((Role::Frequency, 0));
+        }
+        Ok(chosen)
+    }
+
+    /// The error for a role no column holds, listing the header.
+    fn missing(&self, role: Role) -> DataError {
+        let header = self
+            .cells
+            .iter()
+            .map(|c| format!("`{}`", c.raw))
+            .collect::<Vec<_>>()
+            .join(", ");
+        DataError::new(
+            self.at(None),
+            DataErrorKind::MissingColumn {
+                role: role.describe(),
+                header,
+            },
+        )
+    }
+
+    /// The unit text of column `i` and the unit it names, when its header gives one.
+    fn unit_of(&self, i: usize) -> Option<(String, Option<Unit>)> {
+        self.cells
+            .get(i)
+            .and_then(|c| c.unit_text.clone().map(|t| (t, c.unit)))
+    }
+
+    /// The factor to SI of column `i` holding `role` (from rad/s for an angular frequency).
+    fn scale(&self, role: Role, i: usize) -> Result<f64, DataError> {
+        let angular = self
+            .cells
+            .get(i)
+            .and_then(|c| c.recognised)
+            .is_some_and(|r| r.angular);
+        match (role, self.unit_of(i)) {
+            (Role::Frequency, None) if angular => Ok(1.0 / (2.0 * PI)),
+            (_, None) => Ok(1.0),
+            (Role::Frequency, Some((_, Some(Unit::Frequency(s))))) => Ok(s),
+            (Role::Real | Role::Imaginary | Role::Modulus, Some((_, Some(Unit::Impedance(s))))) => {
+                Ok(s)
+            }
+            (_, Some((unit, _))) => Err(self.unknown_unit(i, unit, role)),
+        }
+    }
+
+    /// The error for a unit of column `i` that does not fit `role`.
+    fn unknown_unit(&self, i: usize, unit: String, role: Role) -> DataError {
+        DataError::new(
+            self.at(Some(i + 1)),
+            DataErrorKind::UnknownUnit {
+                unit,
+                role: role.describe(),
+            },
+        )
+    }
+
+    /// The factor to radians of the phase column `i`: from the options, else its unit; `None` to
+    /// guess from the values.
+    fn phase_scale(&self, i: usize) -> Result<Option<f64>, DataError> {
+        Ok(match self.options.phase_unit {
+            PhaseUnit::Degrees => Some(PI / 180.0),
+            PhaseUnit::Radians => Some(1.0),
+            PhaseUnit::Auto => match self.unit_of(i) {
+                Some((_, Some(Unit::Angle(s)))) => Some(s),
+                Some((unit, _)) => return Err(self.unknown_unit(i, unit, Role::Phase)),
+                None => None,
+            },
+        })
+    }
+
+    /// The sign convention of the imaginary (or phase) column `i`.
+    fn sign_of(&self, i: usize) -> Sign {
+        match self.options.imag_sign {
+            ImagSign::AsIs => Sign::Known { negated: false },
+            ImagSign::Negated => Sign::Known { negated: true },
+            ImagSign::Auto => match self.cells.get(i) {
+                Some(c) => Sign::Known {
+                    negated: c.recognised.is_some_and(|r| r.negated)
+                        || normalize(&c.name).starts_with('-'),
+                },
+                None => Sign::Guess,
+            },
+        }
+    }
 }
 
 #[cfg(test)]

@@ -567,56 +567,17 @@ impl<R: BufRead> SpectrumReader<R> {
             e.spectrum = Some(number);
             return Err(e);
         }
+        let meta = metadata(t, &b);
         let map = &t.map;
         let file = self.file.clone();
         let loc = |line: usize, column: Option<usize>| Location::at(&file, line, column);
         let mut warnings = std::mem::take(&mut self.file_warnings);
         warnings.extend(b.warnings);
-        let mut dropped = b.dropped;
         // Impedances (the file-wide guesses were made at detection).
-        let z: Vec<Complex64> = match map.z {
-            ZCols::Cartesian { re, im, sign } => {
-                let negated = sign == (Sign::Known { negated: true });
-                let s = if negated { -im.scale } else { im.scale };
-                b.a.iter()
-                    .zip(&b.b)
-                    .map(|(&x, &y)| Complex64::new(scaled(x, re.scale), scaled(y, s)))
-                    .collect()
-            }
-            ZCols::Polar {
-                modulus,
-                phase_scale,
-                sign,
-                ..
-            } => {
-                let scale = phase_scale.unwrap_or(1.0);
-                let s = if sign == (Sign::Known { negated: true }) {
-                    -scale
-                } else {
-                    scale
-                };
-                b.a.iter()
-                    .zip(&b.b)
-                    .map(|(&m, &p)| Complex64::from_polar(scaled(m, modulus.scale), p * s))
-                    .collect()
-            }
-        };
-        let mut spectrum = Spectrum::new(b.f, z);
+        let mut spectrum = Spectrum::new(b.f, impedances(map.z, &b.a, &b.b));
         spectrum.source_lines = Some(b.lines);
-        // Zero impedance: dropped, in one pass.
-        let zero: Vec<bool> = spectrum.z.iter().map(|v| v.norm() == 0.0).collect();
-        if zero.contains(&true) {
-            let lines = spectrum.source_lines.iter().flatten();
-            for (&line, _) in lines.zip(&zero).filter(|(_, z)| **z) {
-                dropped.push(DroppedRow {
-                    line,
-                    column: None,
-                    reason: DropReason::ZeroImpedance,
-                });
-            }
-            let keep: Vec<bool> = zero.iter().map(|z| !z).collect();
-            spectrum.retain(&keep);
-        }
+        let mut dropped = b.dropped;
+        drop_zero_impedance(&mut spectrum, &mut dropped);
         if !dropped.is_empty() {
             dropped.sort_by_key(|d| d.line);
             warnings.push(DataWarning {
@@ -631,35 +592,12 @@ impl<R: BufRead> SpectrumReader<R> {
                 kind: WarningKind::NegativeReal(negative),
             });
         }
-        // Order: the first point against the direction of the first step.
         let fcol = Some(map.freq.index + 1);
-        let f = &spectrum.frequency_hz;
-        if let Some(&f0) = f.first() {
-            if let Some(&second) = f.iter().find(|&&x| x != f0) {
-                let down = second < f0;
-                let out_of_order = f.windows(2).position(|w| match w {
-                    [a, b] => (down && b > a) || (!down && b < a),
-                    _ => false,
-                });
-                if let Some(i) = out_of_order {
-                    warnings.push(DataWarning {
-                        location: loc(spectrum.source_line(i + 1).unwrap_or(start), fcol),
-                        kind: WarningKind::Unsorted,
-                    });
-                }
-            }
-        }
-        let mut order: Vec<usize> = (0..f.len()).collect();
-        let at = |i: usize| f.get(i).copied().unwrap_or(f64::NAN);
-        order.sort_by(|&i, &j| at(j).total_cmp(&at(i)).then(i.cmp(&j)));
-        let same = order.windows(2).find_map(|w| match *w {
-            [i, j] if at(i) == at(j) => Some(i.max(j)),
-            _ => None,
-        });
-        if let Some(later) = same {
+        let (order_warnings, order) = frequency_order(&spectrum);
+        for (i, kind) in order_warnings {
             warnings.push(DataWarning {
-                location: loc(spectrum.source_line(later).unwrap_or(start), fcol),
-                kind: WarningKind::Duplicate(at(later)),
+                location: loc(spectrum.source_line(i).unwrap_or(start), fcol),
+                kind,
             });
         }
         if self.options.sort {
@@ -674,36 +612,11 @@ impl<R: BufRead> SpectrumReader<R> {
                 kind: WarningKind::Cropped(before - spectrum.len()),
             });
         }
-        // Inductive points at the high-frequency end.
-        let fs = &spectrum.frequency_hz;
-        let freq = |i: usize| fs.get(i).copied().unwrap_or(f64::NAN);
-        let mut by_freq: Vec<usize> = (0..fs.len()).collect();
-        by_freq.sort_by(|&i, &j| freq(j).total_cmp(&freq(i)));
-        let inductive: Vec<usize> = by_freq
-            .iter()
-            .copied()
-            .take_while(|&i| spectrum.z.get(i).is_some_and(|z| z.im > 0.0))
-            .collect();
-        if let (Some(&hi), Some(&lo)) = (inductive.first(), inductive.last()) {
-            let drop = self.options.drop_inductive;
+        if let Some(kind) = inductive_end(&mut spectrum, self.options.drop_inductive) {
             warnings.push(DataWarning {
                 location: loc(start, None),
-                kind: WarningKind::Inductive {
-                    count: inductive.len(),
-                    low_hz: freq(lo),
-                    high_hz: freq(hi),
-                    dropped: drop,
-                },
+                kind,
             });
-            if drop {
-                let mut keep = vec![true; spectrum.len()];
-                for &i in &inductive {
-                    if let Some(k) = keep.get_mut(i) {
-                        *k = false;
-                    }
-                }
-                spectrum.retain(&keep);
-            }
         }
         if spectrum.len() < self.options.min_points {
             return Err(DataError {
@@ -716,30 +629,13 @@ impl<R: BufRead> SpectrumReader<R> {
                 },
             });
         }
-        // Metadata.
         spectrum.meta.source = Some(self.file.clone());
         spectrum.meta.spectrum = number;
         for (name, value) in &self.file_fields {
             spectrum.meta.set(name, value.clone());
         }
-        for (k, (role, _)) in map.meta.iter().enumerate() {
-            let raw = b.meta_first.get(k).map(String::as_str).unwrap_or("");
-            let first = match parse_number(raw, t.layout.decimal_comma) {
-                Some(x) if x.is_finite() => MetaValue::Number(x),
-                _ => MetaValue::parse(raw),
-            };
-            let mean = match (b.meta_numeric.get(k), b.meta_sum.get(k)) {
-                (Some(true), Some(sum)) if b.rows > 0 => Some(sum / b.rows as f64),
-                _ => None,
-            };
-            let value = match (role, mean) {
-                (
-                    columns::Role::Potential | columns::Role::Current | columns::Role::Temperature,
-                    Some(m),
-                ) => MetaValue::Number(m),
-                _ => first,
-            };
-            spectrum.meta.set(role.key(), value);
+        for (key, value) in meta {
+            spectrum.meta.set(key, value);
         }
         Ok(Imported { spectrum, warnings })
     }
@@ -768,6 +664,146 @@ impl<R: BufRead> SpectrumReader<R> {
         }
         self.table = Some(table);
     }
+}
+
+/// The impedances of the rows' two value columns `a`, `b`, stored as `z` (scaled, signs applied).
+fn impedances(z: ZCols, a: &[f64], b: &[f64]) -> Vec<Complex64> {
+    match z {
+        ZCols::Cartesian { re, im, sign } => {
+            let negated = sign == (Sign::Known { negated: true });
+            let s = if negated { -im.scale } else { im.scale };
+            a.iter()
+                .zip(b)
+                .map(|(&x, &y)| Complex64::new(scaled(x, re.scale), scaled(y, s)))
+                .collect()
+        }
+        ZCols::Polar {
+            modulus,
+            phase_scale,
+            sign,
+            ..
+        } => {
+            let scale = phase_scale.unwrap_or(1.0);
+            let s = if sign == (Sign::Known { negated: true }) {
+                -scale
+            } else {
+                scale
+            };
+            a.iter()
+                .zip(b)
+                .map(|(&m, &p)| Complex64::from_polar(scaled(m, modulus.scale), p * s))
+                .collect()
+        }
+    }
+}
+
+/// Drops the points of zero impedance, in one pass, recording each in `dropped`.
+fn drop_zero_impedance(spectrum: &mut Spectrum, dropped: &mut Vec<DroppedRow>) {
+    let zero: Vec<bool> = spectrum.z.iter().map(|v| v.norm() == 0.0).collect();
+    if !zero.contains(&true) {
+        return;
+    }
+    let lines = spectrum.source_lines.iter().flatten();
+    for (&line, _) in lines.zip(&zero).filter(|(_, z)| **z) {
+        dropped.push(DroppedRow {
+            line,
+            column: None,
+            reason: DropReason::ZeroImpedance,
+        });
+    }
+    let keep: Vec<bool> = zero.iter().map(|z| !z).collect();
+    spectrum.retain(&keep);
+}
+
+/// The warnings about the frequencies' order (each with the index of the point it points at): the
+/// first point against the direction of the first step, and the later of two equal frequencies;
+/// with the order of the points from high to low frequency (stable).
+fn frequency_order(spectrum: &Spectrum) -> (Vec<(usize, WarningKind)>, Vec<usize>) {
+    let mut warnings = Vec::new();
+    let f = &spectrum.frequency_hz;
+    if let Some(&f0) = f.first() {
+        if let Some(&second) = f.iter().find(|&&x| x != f0) {
+            let down = second < f0;
+            let out_of_order = f.windows(2).position(|w| match w {
+                [a, b] => (down && b > a) || (!down && b < a),
+                _ => false,
+            });
+            if let Some(i) = out_of_order {
+                warnings.push((i + 1, WarningKind::Unsorted));
+            }
+        }
+    }
+    let mut order: Vec<usize> = (0..f.len()).collect();
+    let at = |i: usize| f.get(i).copied().unwrap_or(f64::NAN);
+    order.sort_by(|&i, &j| at(j).total_cmp(&at(i)).then(i.cmp(&j)));
+    let same = order.windows(2).find_map(|w| match *w {
+        [i, j] if at(i) == at(j) => Some(i.max(j)),
+        _ => None,
+    });
+    if let Some(later) = same {
+        warnings.push((later, WarningKind::Duplicate(at(later))));
+    }
+    (warnings, order)
+}
+
+/// The warning about inductive points (positive imaginary part) at the high-frequency end, dropped
+/// with `drop`.
+fn inductive_end(spectrum: &mut Spectrum, drop: bool) -> Option<WarningKind> {
+    let fs = &spectrum.frequency_hz;
+    let freq = |i: usize| fs.get(i).copied().unwrap_or(f64::NAN);
+    let mut by_freq: Vec<usize> = (0..fs.len()).collect();
+    by_freq.sort_by(|&i, &j| freq(j).total_cmp(&freq(i)));
+    let inductive: Vec<usize> = by_freq
+        .iter()
+        .copied()
+        .take_while(|&i| spectrum.z.get(i).is_some_and(|z| z.im > 0.0))
+        .collect();
+    let (&hi, &lo) = inductive.first().zip(inductive.last())?;
+    let kind = WarningKind::Inductive {
+        count: inductive.len(),
+        low_hz: freq(lo),
+        high_hz: freq(hi),
+        dropped: drop,
+    };
+    if drop {
+        let mut keep = vec![true; spectrum.len()];
+        for &i in &inductive {
+            if let Some(k) = keep.get_mut(i) {
+                *k = false;
+            }
+        }
+        spectrum.retain(&keep);
+    }
+    Some(kind)
+}
+
+/// The metadata of a spectrum's per-spectrum columns: the first row's cell, or the mean over the
+/// rows for potential, current and temperature.
+fn metadata(t: &Table, b: &Builder) -> Vec<(&'static str, MetaValue)> {
+    t.map
+        .meta
+        .iter()
+        .enumerate()
+        .map(|(k, (role, _))| {
+            let raw = b.meta_first.get(k).map(String::as_str).unwrap_or("");
+            let first = match parse_number(raw, t.layout.decimal_comma) {
+                Some(x) if x.is_finite() => MetaValue::Number(x),
+                _ => MetaValue::parse(raw),
+            };
+            let mean = match (b.meta_numeric.get(k), b.meta_sum.get(k)) {
+                (Some(true), Some(sum)) if b.rows > 0 => Some(sum / b.rows as f64),
+                _ => None,
+            };
+            let value = match (role, mean) {
+                (
+                    columns::Role::Potential | columns::Role::Current | columns::Role::Temperature,
+                    Some(m),
+                ) => MetaValue::Number(m),
+                _ => first,
+            };
+            (role.key(), value)
+        })
+        .collect()
 }
 
 impl<R: BufRead> Iterator for SpectrumReader<R> {
