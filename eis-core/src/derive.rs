@@ -368,102 +368,12 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
     let p = &r.values;
     let ohmic = limit_quantity(c, r, true, &[]);
     let rs = ohmic.map(|q| q.value).unwrap_or(0.0);
-    // Gradient of the ohmic resistance, for Brug capacitances that depend on it.
-    let ohmic_grad: Vec<(usize, f64)> = r
-        .free
-        .iter()
-        .filter_map(|&i| {
-            let h = 1e-6 * p[i].abs().max(1e-300);
-            let mut up = p.clone();
-            up[i] += h;
-            let mut dn = p.clone();
-            dn[i] -= h;
-            let g =
-                (circuit_limit(c, &up, true).real - circuit_limit(c, &dn, true).real) / (2.0 * h);
-            (g.is_finite() && g != 0.0).then_some((i, g))
-        })
-        .collect();
-
+    let ohmic_grad = ohmic_gradient(c, r);
     let mut shapes = Vec::new();
     find_arcs(c, &c.root, &mut shapes);
     let mut arcs: Vec<Arc> = shapes
         .iter()
-        .map(|s| {
-            let ri = c.elements[s.resistor].first_param;
-            let ce = &c.elements[s.capacitor];
-            let ci = ce.first_param;
-            let rv = p[ri];
-            let resistance = Quantity {
-                value: rv,
-                stderr: delta(r, &[(ri, 1.0)]),
-            };
-            let (tau, tau_grad, cap, cap_grad): (f64, Gradient, f64, Gradient) =
-                // A capacitive element of one parameter is an ideal capacitor; a CPE has two (Q, n).
-                if ce.kind.params.len() == 1 {
-                    let cv = p[ci];
-                    (rv * cv, vec![(ri, cv), (ci, rv)], cv, vec![(ci, 1.0)])
-                } else {
-                    let (q, n) = (p[ci], p[ci + 1]);
-                    let tau = (rv * q).powf(1.0 / n);
-                    let tg = vec![
-                        (ri, tau / (n * rv)),
-                        (ci, tau / (n * q)),
-                        (ci + 1, -tau * (rv * q).ln() / (n * n)),
-                    ];
-                    // Brug: ln C = (1/n) ln Q + ((n−1)/n) ln S, S = 1/R_s + 1/R.
-                    let (cap, mut cg) = if rs > 0.0 {
-                        let sum = 1.0 / rs + 1.0 / rv;
-                        let cap = q.powf(1.0 / n) * sum.powf((n - 1.0) / n);
-                        let dln_ds = (n - 1.0) / n / sum;
-                        let mut g = vec![
-                            (ci, cap / (n * q)),
-                            (ci + 1, cap * (-q.ln() / (n * n) + sum.ln() / (n * n))),
-                            (ri, cap * dln_ds * (-1.0 / (rv * rv))),
-                        ];
-                        for &(i, gi) in &ohmic_grad {
-                            g.push((i, cap * dln_ds * (-1.0 / (rs * rs)) * gi));
-                        }
-                        (cap, g)
-                    } else {
-                        // No series resistance: the R_s → ∞ limit, C = Q^(1/n)·R^((1−n)/n).
-                        let cap = q.powf(1.0 / n) * rv.powf((1.0 - n) / n);
-                        (
-                            cap,
-                            vec![
-                                (ci, cap / (n * q)),
-                                (ci + 1, cap * (-q.ln() / (n * n) - rv.ln() / (n * n))),
-                                (ri, cap * (1.0 - n) / (n * rv)),
-                            ],
-                        )
-                    };
-                    cg = merge(cg);
-                    (tau, tg, cap, cg)
-                };
-            let tau_se = delta(r, &tau_grad);
-            let determined =
-                resistance.stderr.is_some_and(|se| se <= rv.abs()) && r.free.contains(&ri);
-            Arc {
-                resistor: c.elements[s.resistor].name.clone(),
-                capacitor: ce.name.clone(),
-                resistance,
-                time_constant: Quantity {
-                    value: tau,
-                    stderr: tau_se,
-                },
-                peak_frequency: Quantity {
-                    value: 1.0 / (2.0 * PI * tau),
-                    stderr: tau_se.map(|se| se / (2.0 * PI * tau * tau)),
-                },
-                capacitance: Quantity {
-                    value: cap,
-                    stderr: delta(r, &cap_grad),
-                },
-                role: Role::Other,
-                role_from_circuit: false,
-                placement: Placement::InWindow,
-                determined: determined || (r.fixed[ri]),
-            }
-        })
+        .map(|s| arc(c, r, s, rs, &ohmic_grad))
         .collect();
     let facts: Vec<ArcFacts> = shapes
         .iter()
@@ -494,10 +404,143 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
             stderr: delta(r, &grad),
         })
     };
+    let (diffusion_tails, warburg_sigma) = tails(c, r, &classes.sigma, &classes.tails);
+    Derived {
+        ohmic_resistance: ohmic,
+        charge_transfer_resistance: sum_of(&classes.charge_transfer),
+        diffusion_resistance: sum_of(&classes.diffusion),
+        warburg_sigma,
+        dc_resistance: dc,
+        pore_resistance: sum_of(&classes.pore),
+        arcs,
+        diffusion_tails,
+        beyond_data: classes.beyond,
+    }
+}
+
+/// Gradient of the ohmic resistance over the free parameters (central differences), for Brug
+/// capacitances that depend on it.
+fn ohmic_gradient(c: &Circuit, r: &FitResult) -> Gradient {
+    let p = &r.values;
+    r.free
+        .iter()
+        .filter_map(|&i| {
+            let h = 1e-6 * p[i].abs().max(1e-300);
+            let mut up = p.clone();
+            up[i] += h;
+            let mut dn = p.clone();
+            dn[i] -= h;
+            let g =
+                (circuit_limit(c, &up, true).real - circuit_limit(c, &dn, true).real) / (2.0 * h);
+            (g.is_finite() && g != 0.0).then_some((i, g))
+        })
+        .collect()
+}
+
+/// The arc `s` of the fit `r`: its resistance, time constant, peak frequency and effective
+/// capacitance with their standard errors; `rs` is the ohmic resistance and `ohmic_grad` its
+/// gradient. Its role and placement are set later, from the whole circuit.
+fn arc(c: &Circuit, r: &FitResult, s: &ArcShape, rs: f64, ohmic_grad: &[(usize, f64)]) -> Arc {
+    let p = &r.values;
+    let ri = c.elements[s.resistor].first_param;
+    let ce = &c.elements[s.capacitor];
+    let ci = ce.first_param;
+    let rv = p[ri];
+    let resistance = Quantity {
+        value: rv,
+        stderr: delta(r, &[(ri, 1.0)]),
+    };
+    let (tau, tau_grad, cap, cap_grad): (f64, Gradient, f64, Gradient) =
+        // A capacitive element of one parameter is an ideal capacitor; a CPE has two (Q, n).
+        if ce.kind.params.len() == 1 {
+            let cv = p[ci];
+            (rv * cv, vec![(ri, cv), (ci, rv)], cv, vec![(ci, 1.0)])
+        } else {
+            let (q, n) = (p[ci], p[ci + 1]);
+            let tau = (rv * q).powf(1.0 / n);
+            let tg = vec![
+                (ri, tau / (n * rv)),
+                (ci, tau / (n * q)),
+                (ci + 1, -tau * (rv * q).ln() / (n * n)),
+            ];
+            let (cap, cg) = brug((ri, rv), (ci, q, n), rs, ohmic_grad);
+            (tau, tg, cap, merge(cg))
+        };
+    let tau_se = delta(r, &tau_grad);
+    let determined = resistance.stderr.is_some_and(|se| se <= rv.abs()) && r.free.contains(&ri);
+    Arc {
+        resistor: c.elements[s.resistor].name.clone(),
+        capacitor: ce.name.clone(),
+        resistance,
+        time_constant: Quantity {
+            value: tau,
+            stderr: tau_se,
+        },
+        peak_frequency: Quantity {
+            value: 1.0 / (2.0 * PI * tau),
+            stderr: tau_se.map(|se| se / (2.0 * PI * tau * tau)),
+        },
+        capacitance: Quantity {
+            value: cap,
+            stderr: delta(r, &cap_grad),
+        },
+        role: Role::Other,
+        role_from_circuit: false,
+        placement: Placement::InWindow,
+        determined: determined || (r.fixed[ri]),
+    }
+}
+
+/// Brug's effective capacitance of an arc of resistance `rv` (parameter `ri`) and CPE (Q, n)
+/// (parameters `ci`, `ci + 1`) in series with the ohmic resistance `rs` (gradient `ohmic_grad`),
+/// with its gradient (unmerged): ln C = (1/n) ln Q + ((n−1)/n) ln S, S = 1/R_s + 1/R.
+fn brug(
+    (ri, rv): (usize, f64),
+    (ci, q, n): (usize, f64, f64),
+    rs: f64,
+    ohmic_grad: &[(usize, f64)],
+) -> (f64, Gradient) {
+    if rs > 0.0 {
+        let sum = 1.0 / rs + 1.0 / rv;
+        let cap = q.powf(1.0 / n) * sum.powf((n - 1.0) / n);
+        let dln_ds = (n - 1.0) / n / sum;
+        let mut g = vec![
+            (ci, cap / (n * q)),
+            (ci + 1, cap * (-q.ln() / (n * n) + sum.ln() / (n * n))),
+            (ri, cap * dln_ds * (-1.0 / (rv * rv))),
+        ];
+        for &(i, gi) in ohmic_grad {
+            g.push((i, cap * dln_ds * (-1.0 / (rs * rs)) * gi));
+        }
+        (cap, g)
+    } else {
+        // No series resistance: the R_s → ∞ limit, C = Q^(1/n)·R^((1−n)/n).
+        let cap = q.powf(1.0 / n) * rv.powf((1.0 - n) / n);
+        (
+            cap,
+            vec![
+                (ci, cap / (n * q)),
+                (ci + 1, cap * (-q.ln() / (n * n) - rv.ln() / (n * n))),
+                (ri, cap * (1.0 - n) / (n * rv)),
+            ],
+        )
+    }
+}
+
+/// The still-rising diffusion tails (elements `tails`) with their Warburg coefficients and lower
+/// bounds of resistance, and the Warburg coefficient of the circuit: the σ parameters `sigma` plus
+/// every tail's.
+fn tails(
+    c: &Circuit,
+    r: &FitResult,
+    sigma: &[usize],
+    tails: &[usize],
+) -> (Vec<DiffusionTail>, Option<Quantity>) {
+    let p = &r.values;
     let mut diffusion_tails = Vec::new();
-    let mut sigma_value: f64 = classes.sigma.iter().map(|&i| p[i]).sum();
-    let mut sigma_grad: Vec<(usize, f64)> = classes.sigma.iter().map(|&i| (i, 1.0)).collect();
-    for &k in &classes.tails {
+    let mut sigma_value: f64 = sigma.iter().map(|&i| p[i]).sum();
+    let mut sigma_grad: Vec<(usize, f64)> = sigma.iter().map(|&i| (i, 1.0)).collect();
+    for &k in tails {
         let Some(((sigma, gs), (at_least, gl))) = tail_values(c, r, k) else {
             continue;
         };
@@ -519,17 +562,7 @@ pub fn derive(c: &Circuit, r: &FitResult) -> Derived {
         value: sigma_value,
         stderr: delta(r, &sigma_grad),
     });
-    Derived {
-        ohmic_resistance: ohmic,
-        charge_transfer_resistance: sum_of(&classes.charge_transfer),
-        diffusion_resistance: sum_of(&classes.diffusion),
-        warburg_sigma,
-        dc_resistance: dc,
-        pore_resistance: sum_of(&classes.pore),
-        arcs,
-        diffusion_tails,
-        beyond_data: classes.beyond,
-    }
+    (diffusion_tails, warburg_sigma)
 }
 
 /// Adds up repeated indices of a gradient.

@@ -343,22 +343,7 @@ fn findings(places: &Places, trend: &TrendReport) -> String {
                 .unwrap_or_else(|| "?".into())
         );
     }
-    // The shared lead inductance, one value per cell (the same on every row of the cell).
-    let mut shared: Vec<(String, String)> = Vec::new();
-    for r in &docs {
-        let cell = crate::commands::report::cell_of(r);
-        let l0 = r
-            .fit
-            .as_ref()
-            .and_then(|f| f.parameters.iter().find(|p| p.name == "L0"));
-        if let (false, Some(p)) = (shared.iter().any(|(c, _)| *c == cell), l0) {
-            if r.shared.iter().any(|n| n == "L0") {
-                let nano = |x: f64| x * 1e9;
-                let v = crate::format::with_error_plain(nano(p.value), p.stderr.map(nano));
-                shared.push((cell, v + " nH"));
-            }
-        }
-    }
+    let shared = shared_inductance(&docs);
     if !shared.is_empty() {
         let _ = writeln!(
             o,
@@ -391,6 +376,27 @@ fn findings(places: &Places, trend: &TrendReport) -> String {
         let _ = writeln!(o, "  {what:<21}{}", path.display());
     }
     o
+}
+
+/// The lead inductance fitted jointly over each cell's spectra, one value per cell (the same on every
+/// row of the cell), in nH with its standard error.
+fn shared_inductance(docs: &[SpectrumResult]) -> Vec<(String, String)> {
+    let mut shared: Vec<(String, String)> = Vec::new();
+    for r in docs {
+        let cell = crate::commands::report::cell_of(r);
+        let l0 = r
+            .fit
+            .as_ref()
+            .and_then(|f| f.parameters.iter().find(|p| p.name == "L0"));
+        if let (false, Some(p)) = (shared.iter().any(|(c, _)| *c == cell), l0) {
+            if r.shared.iter().any(|n| n == "L0") {
+                let nano = |x: f64| x * 1e9;
+                let v = crate::format::with_error_plain(nano(p.value), p.stderr.map(nano));
+                shared.push((cell, v + " nH"));
+            }
+        }
+    }
+    shared
 }
 
 fn file_name(p: &str) -> String {
