@@ -128,6 +128,17 @@ pub enum Tail {
     Off,
 }
 
+impl Tail {
+    /// Whether the element is added: with [`Tail::Auto`], as the data tell (`auto`).
+    fn decide(self, auto: impl FnOnce() -> bool) -> bool {
+        match self {
+            Tail::On => true,
+            Tail::Off => false,
+            Tail::Auto => auto(),
+        }
+    }
+}
+
 /// Settings of the test.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct KkOptions {
@@ -391,19 +402,7 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
     if n < MIN_POINTS {
         return Err(KkError::TooFewPoints(n));
     }
-    for (i, (f, z)) in s.frequency_hz.iter().zip(&s.z).enumerate() {
-        if !(f.is_finite() && *f > 0.0 && z.re.is_finite() && z.im.is_finite() && z.norm() > 0.0) {
-            return Err(KkError::BadPoint(s.point_ref(i)));
-        }
-    }
-    let w: Vec<f64> = s.frequency_hz.iter().map(|&f| angular(f)).collect();
-    // 2πf overflows for f near f64::MAX, and the time constants 1/(2πf) for subnormal f.
-    if let Some(i) = w
-        .iter()
-        .position(|w| !(w.is_finite() && *w > 0.0 && w.recip().is_finite()))
-    {
-        return Err(KkError::BadPoint(s.point_ref(i)));
-    }
+    let w = angular_frequencies(s)?;
     // Solve on data divided by their typical modulus (geometric mean of |Zᵢ|), so that nothing
     // underflows or overflows for impedances anywhere from 1e-300 to 1e300 Ω; the residuals are
     // relative anyway, and the unknowns are scaled back at the end.
@@ -414,16 +413,10 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         return Err(KkError::NoRange);
     }
     let design = Design {
-        inductance: match options.inductance {
-            Tail::On => true,
-            Tail::Off => false,
-            Tail::Auto => z[hi].im > 0.0,
-        },
-        capacitance: match options.capacitance {
-            Tail::On => true,
-            Tail::Off => false,
-            Tail::Auto => capacitive_tail(&s.frequency_hz, &z),
-        },
+        inductance: options.inductance.decide(|| z[hi].im > 0.0),
+        capacitance: options
+            .capacitance
+            .decide(|| capacitive_tail(&s.frequency_hz, &z)),
     };
     let mut order: Vec<usize> = (0..n).collect();
     order.sort_by(|&i, &j| s.frequency_hz[i].total_cmp(&s.frequency_hz[j]));
@@ -458,26 +451,16 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         residual_im.push(d.im);
     }
     let (stats, failures) = judge(&residual_re, &residual_im, &h, &order, options, &mut buf);
-    let worst = |i: usize| residual_re[i].abs().max(residual_im[i].abs());
-    let max = (0..n).map(worst).fold(0.0, f64::max);
-    let range = |points: &mut dyn Iterator<Item = usize>| -> Option<(f64, f64)> {
-        points.fold(None, |range, i| {
-            let f = s.frequency_hz[i];
-            Some(range.map_or((f, f), |(a, b): (f64, f64)| (a.min(f), b.max(f))))
-        })
-    };
-    let over = |limit: f64| range(&mut (0..n).filter(|&i| worst(i) > limit));
-    let suspect = if failures.points {
-        range(&mut (0..n).filter(|&i| {
-            verdict::outlier(&residual_re, &residual_im, &h, i, options, stats.scatter)
-        }))
-    } else if failures.trend {
-        over(TREND_RANGE_FACTOR * stats.systematic.max(stats.scatter))
-    } else if failures.rms {
-        over(options.rms_residual_percent / 100.0)
-    } else {
-        None
-    };
+    let max = (0..n)
+        .map(|i| residual_re[i].abs().max(residual_im[i].abs()))
+        .fold(0.0, f64::max);
+    let suspect = suspect_range(
+        &s.frequency_hz,
+        (&residual_re, &residual_im),
+        &h,
+        options,
+        (&stats, failures),
+    );
     // A failed test always names a range: all points when no single point stands out.
     let suspect = match suspect {
         None if failures.any() => Some((s.frequency_hz[lo], s.frequency_hz[hi])),
@@ -522,6 +505,54 @@ pub fn kramers_kronig(s: &Spectrum, options: &KkOptions) -> Result<KkReport, KkE
         Ok(report)
     } else {
         Err(KkError::OutOfRange)
+    }
+}
+
+/// The angular frequencies of `s`, after checking that every point is usable: finite positive
+/// frequencies and finite non-zero impedances, and angular frequencies whose time constants 1/ω are
+/// finite (2πf overflows for f near f64::MAX, and 1/(2πf) for subnormal f).
+fn angular_frequencies(s: &Spectrum) -> Result<Vec<f64>, KkError> {
+    for (i, (f, z)) in s.frequency_hz.iter().zip(&s.z).enumerate() {
+        if !(f.is_finite() && *f > 0.0 && z.re.is_finite() && z.im.is_finite() && z.norm() > 0.0) {
+            return Err(KkError::BadPoint(s.point_ref(i)));
+        }
+    }
+    let w: Vec<f64> = s.frequency_hz.iter().map(|&f| angular(f)).collect();
+    if let Some(i) = w
+        .iter()
+        .position(|w| !(w.is_finite() && *w > 0.0 && w.recip().is_finite()))
+    {
+        return Err(KkError::BadPoint(s.point_ref(i)));
+    }
+    Ok(w)
+}
+
+/// The frequency range of the points behind the failed test: the outliers when points failed, else
+/// the points above the trend's or the rms limit; None when no test failed (or no point stands out).
+fn suspect_range(
+    frequency_hz: &[f64],
+    (re, im): (&[f64], &[f64]),
+    h: &[f64],
+    options: &KkOptions,
+    (stats, failures): (&verdict::Stats, verdict::Failures),
+) -> Option<(f64, f64)> {
+    let n = frequency_hz.len();
+    let worst = |i: usize| re[i].abs().max(im[i].abs());
+    let range = |points: &mut dyn Iterator<Item = usize>| -> Option<(f64, f64)> {
+        points.fold(None, |range, i| {
+            let f = frequency_hz[i];
+            Some(range.map_or((f, f), |(a, b): (f64, f64)| (a.min(f), b.max(f))))
+        })
+    };
+    let over = |limit: f64| range(&mut (0..n).filter(|&i| worst(i) > limit));
+    if failures.points {
+        range(&mut (0..n).filter(|&i| verdict::outlier(re, im, h, i, options, stats.scatter)))
+    } else if failures.trend {
+        over(TREND_RANGE_FACTOR * stats.systematic.max(stats.scatter))
+    } else if failures.rms {
+        over(options.rms_residual_percent / 100.0)
+    } else {
+        None
     }
 }
 
