@@ -455,18 +455,7 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         warnings.push(FitWarning::SingularCovariance { parameters });
     }
     if !exact {
-        for a_ in 0..nf {
-            for b in a_ + 1..nf {
-                let r = corr[a_ * nf + b];
-                if r.abs() > STRONG_CORRELATION && !undetermined[a_] && !undetermined[b] {
-                    warnings.push(FitWarning::Correlated {
-                        a: c.params[s.free[a_]].name.clone(),
-                        b: c.params[s.free[b]].name.clone(),
-                        rho: r,
-                    });
-                }
-            }
-        }
+        warnings.extend(correlated_pairs(c, s.free, &corr, &undetermined));
     }
 
     let model = p.model().to_vec();
@@ -475,20 +464,9 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         .zip(s.prep_data)
         .map(|(zm, zd)| (zm - zd) / modulus(*zd))
         .collect();
-    let max_rel = relative.iter().map(|r| modulus(*r)).fold(0.0, f64::max);
-    let mut systematic = false;
-    if max_rel > 1e-9 {
-        let re: Vec<f64> = relative.iter().map(|r| r.re).collect();
-        let im: Vec<f64> = relative.iter().map(|r| r.im).collect();
-        for (part, v) in [(Part::Real, &re), (Part::Imaginary, &im)] {
-            if let Some(z) = runs_test_z(v) {
-                if z < RUNS_Z {
-                    systematic = true;
-                    warnings.push(FitWarning::SystematicResiduals { part, z });
-                }
-            }
-        }
-    }
+    let trends = residual_trends(&relative);
+    let systematic = !trends.is_empty();
+    warnings.extend(trends);
 
     let chi_for_ic = chi.max(f64::MIN_POSITIVE * m as f64);
     let mf = m as f64;
@@ -521,6 +499,51 @@ pub(super) fn summarise(s: Summary<'_>) -> FitResult {
         warnings,
         window_hz: window_hz(p.grid.omega()),
     }
+}
+
+/// The pairs of determined free parameters (`free`, circuit indices) whose correlation in `corr`
+/// (free × free) exceeds [`STRONG_CORRELATION`] in magnitude.
+fn correlated_pairs(
+    c: &Circuit,
+    free: &[usize],
+    corr: &[f64],
+    undetermined: &[bool],
+) -> Vec<FitWarning> {
+    let nf = free.len();
+    let mut warnings = Vec::new();
+    for a in 0..nf {
+        for b in a + 1..nf {
+            let r = corr[a * nf + b];
+            if r.abs() > STRONG_CORRELATION && !undetermined[a] && !undetermined[b] {
+                warnings.push(FitWarning::Correlated {
+                    a: c.params[free[a]].name.clone(),
+                    b: c.params[free[b]].name.clone(),
+                    rho: r,
+                });
+            }
+        }
+    }
+    warnings
+}
+
+/// The parts of the relative residuals whose signs follow a trend (runs test below [`RUNS_Z`]);
+/// none for residuals at round-off (below 1e-9), whose signs mean nothing.
+fn residual_trends(relative: &[Complex64]) -> Vec<FitWarning> {
+    // Never NaN: f64::max passes over NaN, and the fold starts at zero.
+    let max_rel = relative.iter().map(|r| modulus(*r)).fold(0.0, f64::max);
+    if max_rel <= 1e-9 {
+        return Vec::new();
+    }
+    let re: Vec<f64> = relative.iter().map(|r| r.re).collect();
+    let im: Vec<f64> = relative.iter().map(|r| r.im).collect();
+    [(Part::Real, &re), (Part::Imaginary, &im)]
+        .into_iter()
+        .filter_map(|(part, v)| {
+            runs_test_z(v)
+                .filter(|&z| z < RUNS_Z)
+                .map(|z| FitWarning::SystematicResiduals { part, z })
+        })
+        .collect()
 }
 
 #[cfg(test)]
