@@ -19,8 +19,8 @@ use super::{
 };
 use crate::circuit::Circuit;
 use crate::fit::chain::{arc_order, fit_in_chain, seed_run, tame};
-use crate::fit::fit_from;
-use crate::fit::joint::{JointSettings, fit_joint, shared_indices};
+use crate::fit::joint::{JointResult, JointSettings, fit_joint, shared_indices};
+use crate::fit::{FitResult, fit_from};
 use crate::import::{ReaderOptions, SpectrumReader};
 use crate::report::FitDocument;
 use crate::spectrum::Spectrum;
@@ -302,6 +302,44 @@ impl Work<'_> {
     /// One chain of the shared mode: read, check and seed each spectrum, fit them jointly, record.
     /// Spectra an earlier run finished are left out (their chain is refitted without them).
     fn run_chain_shared(&self, chain: &[usize], template: Option<&[f64]>, shared: &[usize]) {
+        let items = self.seed_chain(chain, template);
+        let seeded: Vec<&Item> = items.iter().filter(|it| it.seed.is_ok()).collect();
+        let spectra: Vec<&Spectrum> = seeded.iter().map(|it| &it.spectrum).collect();
+        let starts: Vec<Vec<f64>> = seeded
+            .iter()
+            .filter_map(|it| it.seed.as_ref().ok().cloned())
+            .collect();
+        let settings = JointSettings {
+            weighting: self.settings.fit.weighting,
+            ..JointSettings::default()
+        };
+        let joint = guarded(|| fit_joint(self.circuit, &spectra, shared, &starts, &settings))
+            .and_then(|r| r.map_err(|e| e.to_string()));
+        let chain_len = spectra.len();
+        drop(spectra);
+        drop(seeded);
+        let names: Vec<String> = shared
+            .iter()
+            .map(|&i| self.circuit.params[i].name.clone())
+            .collect();
+        let mut k = 0;
+        for item in items {
+            let joint_fit = match (&item.seed, &joint) {
+                (Ok(_), Ok(j)) => {
+                    k += 1;
+                    Ok((j, j.fits.get(k - 1)))
+                }
+                (Ok(_), Err(msg)) => Err(msg.as_str()),
+                // Not seeded: recorded as failed below, whatever the joint fit did.
+                (Err(_), _) => Err(""),
+            };
+            self.record_shared(item, joint_fit, &names, chain_len);
+        }
+    }
+
+    /// The spectra of a shared chain not done yet, read, checked and seeded in order (each seed warm
+    /// from the previous one's); a spectrum that cannot be read or checked is recorded as failed.
+    fn seed_chain(&self, chain: &[usize], template: Option<&[f64]>) -> Vec<Item> {
         let entries = self.entries;
         let todo: Vec<usize> = chain
             .iter()
@@ -341,87 +379,77 @@ impl Work<'_> {
                 Err(msg) => self.record(e.key(), &failed(file, e.spectrum, msg)),
             }
         }
-        let seeded: Vec<&Item> = items.iter().filter(|it| it.seed.is_ok()).collect();
-        let spectra: Vec<&Spectrum> = seeded.iter().map(|it| &it.spectrum).collect();
-        let starts: Vec<Vec<f64>> = seeded
-            .iter()
-            .filter_map(|it| it.seed.as_ref().ok().cloned())
-            .collect();
-        let settings = JointSettings {
-            weighting: self.settings.fit.weighting,
-            ..JointSettings::default()
+        items
+    }
+
+    /// Records one spectrum of a shared chain: failed when it has no seed; else its fit from the
+    /// joint fit `joint` (the chain's result and this spectrum's fit in it), which names the shared
+    /// parameters `names` over `chain_len` spectra; or, when the joint fit was not possible (its
+    /// message), a fit of its own from its seed.
+    fn record_shared(
+        &self,
+        mut item: Item,
+        joint: Result<(&JointResult, Option<&FitResult>), &str>,
+        names: &[String],
+        chain_len: usize,
+    ) {
+        let e = &self.entries[item.index];
+        let file = self.files.get(e.file);
+        let seed = match &item.seed {
+            Ok(seed) => seed,
+            Err(msg) => {
+                item.result.status = Status::Failed;
+                item.result.message = format!("cannot fit: {msg}");
+                self.record(e.key(), &item.result);
+                return;
+            }
         };
-        let joint = guarded(|| fit_joint(self.circuit, &spectra, shared, &starts, &settings))
-            .and_then(|r| r.map_err(|e| e.to_string()));
-        let chain_len = spectra.len();
-        drop(spectra);
-        drop(seeded);
-        let names: Vec<String> = shared
-            .iter()
-            .map(|&i| self.circuit.params[i].name.clone())
-            .collect();
-        let mut k = 0;
-        for mut item in items {
-            let e = &entries[item.index];
-            let file = self.files.get(e.file);
-            let seed = match &item.seed {
-                Ok(seed) => seed,
-                Err(msg) => {
-                    item.result.status = Status::Failed;
-                    item.result.message = format!("cannot fit: {msg}");
-                    self.record(e.key(), &item.result);
-                    continue;
+        let own;
+        let fit = match joint {
+            Ok((j, Some(f))) => {
+                if !j.converged() {
+                    item.problems.push(format!(
+                        "the joint fit of the chain did not converge ({:?})",
+                        j.termination
+                    ));
                 }
-            };
-            let joint_fit = joint.as_ref().ok().and_then(|j| j.fits.get(k));
-            k += 1;
-            let own;
-            let fit = match (joint_fit, &joint) {
-                (Some(f), Ok(j)) => {
-                    if !j.converged() {
-                        item.problems.push(format!(
-                            "the joint fit of the chain did not converge ({:?})",
-                            j.termination
-                        ));
-                    }
-                    item.result.shared = names.clone();
-                    item.result.chain_spectra = Some(chain_len);
-                    f
-                }
-                (_, Err(msg)) => {
-                    item.problems
-                        .push(format!("joint fit not possible ({msg}); fitted on its own"));
-                    own = fit_from(self.circuit, &item.spectrum, &self.settings.fit, seed);
-                    match &own {
-                        Ok(f) => f,
-                        Err(e) => {
-                            item.result.status = Status::Failed;
-                            item.result.message = format!("cannot fit: {e}");
-                            self.record(self.entries[item.index].key(), &item.result);
-                            continue;
-                        }
+                item.result.shared = names.to_vec();
+                item.result.chain_spectra = Some(chain_len);
+                f
+            }
+            Err(msg) => {
+                item.problems
+                    .push(format!("joint fit not possible ({msg}); fitted on its own"));
+                own = fit_from(self.circuit, &item.spectrum, &self.settings.fit, seed);
+                match &own {
+                    Ok(f) => f,
+                    Err(e) => {
+                        item.result.status = Status::Failed;
+                        item.result.message = format!("cannot fit: {e}");
+                        self.record(self.entries[item.index].key(), &item.result);
+                        return;
                     }
                 }
-                (None, Ok(_)) => {
-                    // Cannot happen: the joint fit returns one result per seeded spectrum.
-                    item.result.status = Status::Failed;
-                    item.result.message = "internal error: the joint fit lost a spectrum".into();
-                    self.record(e.key(), &item.result);
-                    continue;
-                }
-            };
-            let (mut result, mut problems) = (item.result, item.problems);
-            conclude(
-                self.circuit,
-                file,
-                e.spectrum,
-                fit,
-                &mut result,
-                &mut problems,
-            );
-            finish_status(&mut result, problems);
-            self.record(e.key(), &result);
-        }
+            }
+            Ok((_, None)) => {
+                // Cannot happen: the joint fit returns one result per seeded spectrum.
+                item.result.status = Status::Failed;
+                item.result.message = "internal error: the joint fit lost a spectrum".into();
+                self.record(e.key(), &item.result);
+                return;
+            }
+        };
+        let (mut result, mut problems) = (item.result, item.problems);
+        conclude(
+            self.circuit,
+            file,
+            e.spectrum,
+            fit,
+            &mut result,
+            &mut problems,
+        );
+        finish_status(&mut result, problems);
+        self.record(e.key(), &result);
     }
 
     /// The seed of one spectrum of a shared chain (values): a loose warm run from its predecessor when
