@@ -363,51 +363,69 @@ pub fn document(
                 .iter()
                 .filter_map(|q| (q.get)(d).map(|v| (q.key, v)))
                 .collect(),
-            arcs: d
-                .arcs
-                .iter()
-                .map(|a| ArcEntry {
-                    resistor: a.resistor.clone(),
-                    capacitor: a.capacitor.clone(),
-                    resistance_ohm: a.resistance.value,
-                    resistance_ohm_stderr: a.resistance.stderr,
-                    time_constant_s: a.time_constant.value,
-                    time_constant_s_stderr: a.time_constant.stderr,
-                    peak_frequency_hz: a.peak_frequency.value,
-                    peak_frequency_hz_stderr: a.peak_frequency.stderr,
-                    capacitance_f: a.capacitance.value,
-                    capacitance_f_stderr: a.capacitance.stderr,
-                    role: a.role,
-                    determined: a.determined,
-                    beyond_data: a.placement != crate::roles::Placement::InWindow,
-                })
-                .collect(),
-            diffusion_tails: d
-                .diffusion_tails
-                .iter()
-                .map(|t| {
-                    let (sigma, sigma_se) = split(Some(t.sigma));
-                    let (low, low_se) = split(Some(t.resistance_at_least));
-                    TailEntry {
-                        element: t.element.clone(),
-                        sigma_ohm_s_half: sigma,
-                        sigma_ohm_s_half_stderr: sigma_se,
-                        resistance_at_least_ohm: low,
-                        resistance_at_least_ohm_stderr: low_se,
-                    }
-                })
-                .collect(),
-            beyond_data: d
-                .beyond_data
-                .iter()
-                .map(|b| BeyondEntry {
-                    process: b.process.clone(),
-                    frequency_hz: b.frequency_hz.is_finite().then_some(b.frequency_hz),
-                    placement: b.placement,
-                })
+            arcs: d.arcs.iter().map(ArcEntry::from).collect(),
+            diffusion_tails: d.diffusion_tails.iter().map(TailEntry::from).collect(),
+            beyond_data: d.beyond_data.iter().map(BeyondEntry::from).collect(),
+        },
+        statistics: StatisticsEntry::from(r),
+        correlation: CorrelationEntry {
+            parameters: r.free.iter().map(|&i| c.params[i].name.clone()).collect(),
+            matrix: (0..nf)
+                .map(|a| r.correlation[a * nf..(a + 1) * nf].to_vec())
                 .collect(),
         },
-        statistics: StatisticsEntry {
+        warnings: r.warnings.iter().map(ToString::to_string).collect(),
+        short_circuit: short.map(ShortCircuitEntry::from),
+    }
+}
+
+impl From<&crate::derive::Arc> for ArcEntry {
+    fn from(a: &crate::derive::Arc) -> ArcEntry {
+        ArcEntry {
+            resistor: a.resistor.clone(),
+            capacitor: a.capacitor.clone(),
+            resistance_ohm: a.resistance.value,
+            resistance_ohm_stderr: a.resistance.stderr,
+            time_constant_s: a.time_constant.value,
+            time_constant_s_stderr: a.time_constant.stderr,
+            peak_frequency_hz: a.peak_frequency.value,
+            peak_frequency_hz_stderr: a.peak_frequency.stderr,
+            capacitance_f: a.capacitance.value,
+            capacitance_f_stderr: a.capacitance.stderr,
+            role: a.role,
+            determined: a.determined,
+            beyond_data: a.placement != crate::roles::Placement::InWindow,
+        }
+    }
+}
+
+impl From<&crate::roles::DiffusionTail> for TailEntry {
+    fn from(t: &crate::roles::DiffusionTail) -> TailEntry {
+        let (sigma, sigma_se) = split(Some(t.sigma));
+        let (low, low_se) = split(Some(t.resistance_at_least));
+        TailEntry {
+            element: t.element.clone(),
+            sigma_ohm_s_half: sigma,
+            sigma_ohm_s_half_stderr: sigma_se,
+            resistance_at_least_ohm: low,
+            resistance_at_least_ohm_stderr: low_se,
+        }
+    }
+}
+
+impl From<&crate::roles::BeyondData> for BeyondEntry {
+    fn from(b: &crate::roles::BeyondData) -> BeyondEntry {
+        BeyondEntry {
+            process: b.process.clone(),
+            frequency_hz: b.frequency_hz.is_finite().then_some(b.frequency_hz),
+            placement: b.placement,
+        }
+    }
+}
+
+impl From<&FitResult> for StatisticsEntry {
+    fn from(r: &FitResult) -> StatisticsEntry {
+        StatisticsEntry {
             chi_square: r.chi_square,
             reduced_chi_square: r.reduced_chi_square,
             aic: r.aic,
@@ -421,22 +439,20 @@ pub fn document(
             termination: r.termination.to_string(),
             weighting: r.weighting,
             covariance: "s^2 (J^T J)^-1 with s^2 the reduced chi-square".to_owned(),
-        },
-        correlation: CorrelationEntry {
-            parameters: r.free.iter().map(|&i| c.params[i].name.clone()).collect(),
-            matrix: (0..nf)
-                .map(|a| r.correlation[a * nf..(a + 1) * nf].to_vec())
-                .collect(),
-        },
-        warnings: r.warnings.iter().map(ToString::to_string).collect(),
-        short_circuit: short.map(|s| ShortCircuitEntry {
+        }
+    }
+}
+
+impl From<&ShortCircuitEstimate> for ShortCircuitEntry {
+    fn from(s: &ShortCircuitEstimate) -> ShortCircuitEntry {
+        ShortCircuitEntry {
             ocv_v: s.ocv,
             short_circuit_current_a: s.short_circuit_current.value,
             short_circuit_current_a_stderr: s.short_circuit_current.stderr,
             matched_load_power_w: s.matched_load_power.value,
             matched_load_power_w_stderr: s.matched_load_power.stderr,
             caution: SHORT_CIRCUIT_CAUTION.to_owned(),
-        }),
+        }
     }
 }
 
