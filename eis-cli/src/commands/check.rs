@@ -277,33 +277,7 @@ pub fn run(args: Args) -> Outcome {
                 Ok(r) => {
                     all_valid &= r.valid;
                     if !args.json {
-                        let verdict = if r.valid { "valid" } else { "suspect" };
-                        let mut line = format!(
-                            "{file} #{}: {verdict} (mu {:.2}, {} elements, residual rms {} %, max {} %)",
-                            s.meta.spectrum,
-                            r.mu,
-                            r.elements,
-                            short(r.residual_rms_percent),
-                            short(r.residual_max_percent)
-                        );
-                        if let Some((lo, hi)) = r.suspect_frequency_range_hz {
-                            let why: Vec<&str> = [
-                                (r.failed.points, "points"),
-                                (r.failed.trend, "trend"),
-                                (r.failed.rms, "rms"),
-                            ]
-                            .iter()
-                            .filter(|(f, _)| *f)
-                            .map(|(_, w)| *w)
-                            .collect();
-                            line.push_str(&format!(
-                                "; failed: {}; residuals above the limit from {} to {} Hz",
-                                why.join(", "),
-                                short(lo),
-                                short(hi)
-                            ));
-                        }
-                        emit(&format!("{line}\n"))?;
+                        emit(&verdict_line(&file, s.meta.spectrum, &r))?;
                     } else {
                         docs.push(&document(&file, &s, &r))?;
                     }
@@ -320,4 +294,36 @@ pub fn run(args: Args) -> Outcome {
     } else {
         ExitCode::from(1)
     })
+}
+
+/// The one-line verdict of spectrum `spectrum` of `file`, with the failed tests and the suspect
+/// frequency range when there is one.
+fn verdict_line(file: &str, spectrum: usize, r: &KkReport) -> String {
+    let verdict = if r.valid { "valid" } else { "suspect" };
+    let mut line = format!(
+        "{file} #{spectrum}: {verdict} (mu {:.2}, {} elements, residual rms {} %, max {} %)",
+        r.mu,
+        r.elements,
+        short(r.residual_rms_percent),
+        short(r.residual_max_percent)
+    );
+    if let Some((lo, hi)) = r.suspect_frequency_range_hz {
+        let why: Vec<&str> = [
+            (r.failed.points, "points"),
+            (r.failed.trend, "trend"),
+            (r.failed.rms, "rms"),
+        ]
+        .iter()
+        .filter(|(f, _)| *f)
+        .map(|(_, w)| *w)
+        .collect();
+        line.push_str(&format!(
+            "; failed: {}; residuals above the limit from {} to {} Hz",
+            why.join(", "),
+            short(lo),
+            short(hi)
+        ));
+    }
+    line.push('\n');
+    line
 }
